@@ -1,0 +1,80 @@
+// Command stillsky is the one binary of the project: the simulated bench, the loop
+// daemon, the demo, the control client, the latency benchmark and the phase-screen
+// writer. Each subcommand parses its flags, builds a configuration and calls a
+// package; the logic lives in those packages.
+package main
+
+import (
+	"errors"
+	"flag"
+	"fmt"
+	"os"
+	"sort"
+)
+
+// subcommand is one verb of the binary. run receives the arguments after the verb
+// and returns an error to be printed on one line.
+type subcommand struct {
+	summary string
+	run     func(args []string) error
+}
+
+// subcommands is filled by the init functions of the files beside this one.
+var subcommands = map[string]subcommand{}
+
+func register(name, summary string, run func(args []string) error) {
+	subcommands[name] = subcommand{summary: summary, run: run}
+}
+
+func usage() {
+	fmt.Fprintln(os.Stderr, "usage: stillsky <command> [flags]\n\ncommands:")
+	names := make([]string, 0, len(subcommands))
+	for n := range subcommands {
+		names = append(names, n)
+	}
+	sort.Strings(names)
+	for _, n := range names {
+		fmt.Fprintf(os.Stderr, "  %-8s %s\n", n, subcommands[n].summary)
+	}
+	fmt.Fprintln(os.Stderr, "\nRun 'stillsky <command> -h' for the flags of a command.")
+}
+
+func main() {
+	if len(os.Args) < 2 || os.Args[1] == "-h" || os.Args[1] == "--help" || os.Args[1] == "help" {
+		usage()
+		if len(os.Args) < 2 {
+			os.Exit(2)
+		}
+		return
+	}
+	cmd, ok := subcommands[os.Args[1]]
+	if !ok {
+		fmt.Fprintf(os.Stderr, "stillsky: unknown command %q (run 'stillsky help')\n", os.Args[1])
+		os.Exit(2)
+	}
+	if err := cmd.run(os.Args[2:]); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return
+		}
+		fmt.Fprintf(os.Stderr, "stillsky %s: %v\n", os.Args[1], err)
+		os.Exit(1)
+	}
+}
+
+// newFlagSet returns a flag set that reports errors instead of exiting, so that
+// every subcommand fails the same way: one line and a non-zero exit.
+func newFlagSet(name string) *flag.FlagSet {
+	fs := flag.NewFlagSet("stillsky "+name, flag.ContinueOnError)
+	return fs
+}
+
+// parseFlags parses args and refuses stray positional arguments.
+func parseFlags(fs *flag.FlagSet, args []string) error {
+	if err := fs.Parse(args); err != nil {
+		return err
+	}
+	if fs.NArg() > 0 {
+		return fmt.Errorf("unexpected argument %q", fs.Arg(0))
+	}
+	return nil
+}
