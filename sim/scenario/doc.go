@@ -1,0 +1,16 @@
+// Package scenario describes a simulated adaptive-optics system — telescope pupil,
+// turbulence layers, guide star, Shack–Hartmann sensor, deformable mirror, loop rate
+// and science wavelength — as a YAML file, and validates it strictly.
+//
+// Parse refuses unknown keys, missing required keys, values of the wrong type and
+// values out of range; every error names the field path (for example
+// "atmosphere.layers[1].fraction") and the allowed range, and nothing is half-loaded.
+// Built-in scenarios are embedded from builtin/*.yaml and loaded by name.
+//
+// All quantities are SI: metres, seconds, radians, hertz; YAML keys carry their unit
+// (diameter_m, r0_m, wind_speed_m_per_s, frame_rate_hz). Telescope and site names in
+// the built-ins are invented.
+//
+// The package depends only on sim/optics (for the pupil configuration); it must not
+// depend on the bench, the controller, gRPC or clocks.
+package scenario

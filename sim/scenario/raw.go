@@ -1,0 +1,98 @@
+package scenario
+
+// The raw* types mirror the YAML file. Every field is a pointer so that a missing
+// key can be told apart from a zero value; validate turns them into a Scenario.
+
+type rawScenario struct {
+	Name        *string        `yaml:"name"`
+	Description *string        `yaml:"description"`
+	Telescope   *rawTelescope  `yaml:"telescope"`
+	Atmosphere  *rawAtmosphere `yaml:"atmosphere"`
+	GuideStar   *rawGuideStar  `yaml:"guide_star"`
+	WFS         *rawWFS        `yaml:"wfs"`
+	DM          *rawDM         `yaml:"dm"`
+	Loop        *rawLoop       `yaml:"loop"`
+	Science     *rawScience    `yaml:"science"`
+}
+
+type rawTelescope struct {
+	Name         *string  `yaml:"name"`
+	Site         *string  `yaml:"site"`
+	Diameter     *float64 `yaml:"diameter_m"`
+	Obstruction  *float64 `yaml:"obstruction"`
+	Spiders      *int     `yaml:"spiders"`
+	SpiderWidth  *float64 `yaml:"spider_width_m"`
+	PupilSamples *int     `yaml:"pupil_samples"`
+}
+
+type rawAtmosphere struct {
+	R0        *float64    `yaml:"r0_m"`
+	L0        *float64    `yaml:"l0_m"`
+	ZenithDeg *float64    `yaml:"zenith_deg"`
+	Seed      *int64      `yaml:"seed"`
+	Layers    []*rawLayer `yaml:"layers"`
+}
+
+type rawLayer struct {
+	Altitude         *float64 `yaml:"altitude_m"`
+	Fraction         *float64 `yaml:"fraction"`
+	WindSpeed        *float64 `yaml:"wind_speed_m_per_s"`
+	WindDirectionDeg *float64 `yaml:"wind_direction_deg"`
+}
+
+type rawGuideStar struct {
+	Magnitude  *float64 `yaml:"magnitude"`
+	Wavelength *float64 `yaml:"wavelength_m"`
+	ZeroPoint  *float64 `yaml:"zero_point_photons_per_s_per_m2"`
+	Throughput *float64 `yaml:"throughput"`
+}
+
+type rawWFS struct {
+	Subapertures         *int     `yaml:"subapertures"`
+	Mode                 *string  `yaml:"mode"`
+	ValidThreshold       *float64 `yaml:"valid_threshold"`
+	PixelsPerSubaperture *int     `yaml:"pixels_per_subaperture"`
+	PixelScale           *float64 `yaml:"pixel_scale_rad"`
+	ReadNoise            *float64 `yaml:"read_noise_e"`
+	Background           *float64 `yaml:"background_e_per_pixel"`
+	CentroidThreshold    *float64 `yaml:"centroid_threshold"`
+	Noise                *bool    `yaml:"noise"`
+}
+
+type rawDM struct {
+	Actuators *int     `yaml:"actuators"`
+	Coupling  *float64 `yaml:"coupling"`
+	Stroke    *float64 `yaml:"stroke_m"`
+	Margin    *float64 `yaml:"margin_pitches"`
+}
+
+type rawLoop struct {
+	FrameRate   *float64 `yaml:"frame_rate_hz"`
+	DelayFrames *int     `yaml:"delay_frames"`
+}
+
+type rawScience struct {
+	Wavelength *float64 `yaml:"wavelength_m"`
+}
+
+// toRaw is the inverse of validate: every field present, defaults written out.
+func (s *Scenario) toRaw() *rawScenario {
+	t, a, g, w, d, l := s.Telescope, s.Atmosphere, s.GuideStar, s.WFS, s.DM, s.Loop
+	layers := make([]*rawLayer, len(a.Layers))
+	for i, x := range a.Layers {
+		layers[i] = &rawLayer{&x.Altitude, &x.Fraction, &x.WindSpeed, &x.WindDirectionDeg}
+	}
+	sci := s.Science.Wavelength
+	return &rawScenario{
+		Name:        &s.Name,
+		Description: &s.Description,
+		Telescope:   &rawTelescope{&t.Name, &t.Site, &t.Diameter, &t.Obstruction, &t.Spiders, &t.SpiderWidth, &t.PupilSamples},
+		Atmosphere:  &rawAtmosphere{&a.R0, &a.L0, &a.ZenithDeg, &a.Seed, layers},
+		GuideStar:   &rawGuideStar{&g.Magnitude, &g.Wavelength, &g.ZeroPoint, &g.Throughput},
+		WFS: &rawWFS{&w.Subapertures, &w.Mode, &w.ValidThreshold, &w.PixelsPerSubaperture, &w.PixelScale,
+			&w.ReadNoise, &w.Background, &w.CentroidThreshold, &w.Noise},
+		DM:      &rawDM{&d.Actuators, &d.Coupling, &d.Stroke, &d.Margin},
+		Loop:    &rawLoop{&l.FrameRate, &l.DelayFrames},
+		Science: &rawScience{&sci},
+	}
+}

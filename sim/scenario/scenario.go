@@ -1,0 +1,184 @@
+package scenario
+
+import (
+	"math"
+
+	"stillsky/sim/optics"
+)
+
+// Default is the name of the built-in scenario used when none is given.
+const Default = "default"
+
+// Wavefront-sensor modes.
+const (
+	// ModeGeometric measures the mean OPD gradient over each subaperture directly.
+	ModeGeometric = "geometric"
+	// ModeDiffractive forms an FFT spot per subaperture and centroids it.
+	ModeDiffractive = "diffractive"
+)
+
+// Scenario is a validated description of a simulated adaptive-optics system.
+// Every field has been range-checked by Parse; optional YAML keys have been
+// replaced by their documented defaults.
+type Scenario struct {
+	// Name is a short identifier (YAML "name", required).
+	Name string
+	// Description is free text (YAML "description", optional, default "").
+	Description string
+	Telescope   Telescope
+	Atmosphere  Atmosphere
+	GuideStar   GuideStar
+	WFS         WFS
+	DM          DM
+	Loop        Loop
+	Science     Science
+}
+
+// Telescope is the entrance pupil and its sampling (YAML section "telescope").
+type Telescope struct {
+	// Name and Site are invented labels (optional, default "").
+	Name, Site string
+	// Diameter of the primary in metres (diameter_m, required, (0, 100]).
+	Diameter float64
+	// Obstruction is the central obstruction diameter as a fraction of Diameter
+	// (obstruction, required, [0, 0.9]).
+	Obstruction float64
+	// Spiders is the number of support vanes (spiders, optional, default 0, [0, 16]).
+	Spiders int
+	// SpiderWidth is the vane width in metres (spider_width_m, optional, default 0,
+	// [0, diameter_m/10]).
+	SpiderWidth float64
+	// PupilSamples is the number of wavefront samples across the diameter
+	// (pupil_samples, required, [8, 4096], a multiple of wfs.subapertures with at
+	// least 2 samples per subaperture).
+	PupilSamples int
+}
+
+// Atmosphere is the turbulence profile (YAML section "atmosphere").
+type Atmosphere struct {
+	// R0 is the Fried parameter in metres at 500 nm towards the zenith (r0_m,
+	// required, (0, 5]).
+	R0 float64
+	// L0 is the von Kármán outer scale in metres (l0_m, required, (0, 1e6]).
+	L0 float64
+	// ZenithDeg is the zenith angle of the line of sight in degrees (zenith_deg,
+	// optional, default 0, [0, 75]).
+	ZenithDeg float64
+	// Seed makes the turbulence reproducible (seed, optional, default 1).
+	Seed int64
+	// Layers are the frozen-flow layers (layers, required, 1 to 16 entries,
+	// fractions summing to 1 within 1e-6).
+	Layers []Layer
+}
+
+// Layer is one turbulent layer.
+type Layer struct {
+	// Altitude above the telescope in metres (altitude_m, required, [0, 30000]).
+	Altitude float64
+	// Fraction of the total Cn² integral (fraction, required, (0, 1]).
+	Fraction float64
+	// WindSpeed in metres per second (wind_speed_m_per_s, required, [0, 100]).
+	WindSpeed float64
+	// WindDirectionDeg is the direction the layer moves towards, degrees
+	// counter-clockwise from +x (wind_direction_deg, required, [-360, 360]).
+	WindDirectionDeg float64
+}
+
+// GuideStar is the wavefront-sensing source (YAML section "guide_star").
+type GuideStar struct {
+	// Magnitude in the sensing band (magnitude, required, [-2, 25]).
+	Magnitude float64
+	// Wavelength of the sensing band in metres (wavelength_m, required, [3e-7, 5e-6]).
+	Wavelength float64
+	// ZeroPoint is the photon flux of a magnitude-0 star in photons s⁻¹ m⁻²
+	// (zero_point_photons_per_s_per_m2, required, (0, 1e13]).
+	ZeroPoint float64
+	// Throughput from the top of the atmosphere to detected photo-electrons
+	// (throughput, required, (0, 1]).
+	Throughput float64
+}
+
+// WFS is the Shack–Hartmann sensor (YAML section "wfs").
+type WFS struct {
+	// Subapertures across the pupil (subapertures, required, [1, 256]).
+	Subapertures int
+	// Mode is ModeGeometric or ModeDiffractive (mode, required).
+	Mode string
+	// ValidThreshold is the minimum illuminated fraction of a valid subaperture
+	// (valid_threshold, optional, default 0.5, (0, 1]).
+	ValidThreshold float64
+	// PixelsPerSubaperture across each subaperture image in diffractive mode
+	// (pixels_per_subaperture, optional, default 2 × pupil samples per subaperture,
+	// i.e. the whole field the sampled pupil represents, [2, 64]).
+	PixelsPerSubaperture int
+	// PixelScale in radians per pixel in diffractive mode (pixel_scale_rad,
+	// optional, default λ_gs/(2d), Nyquist for subaperture width d, (0, 1e-3]).
+	PixelScale float64
+	// ReadNoise in electrons rms per pixel (read_noise_e, optional, default 0, [0, 100]).
+	ReadNoise float64
+	// Background in electrons per pixel per frame (background_e_per_pixel,
+	// optional, default 0, [0, 1e6]).
+	Background float64
+	// CentroidThreshold as a fraction of the brightest pixel of each subaperture
+	// image, subtracted before the centre of gravity (centroid_threshold,
+	// optional, default 0, [0, 1)).
+	CentroidThreshold float64
+	// Noise turns photon, read and background noise on (noise, optional, default true).
+	Noise bool
+}
+
+// DM is the deformable mirror (YAML section "dm").
+type DM struct {
+	// Actuators across the mirror; Fried geometry requires wfs.subapertures+1
+	// (actuators, required).
+	Actuators int
+	// Coupling is the influence function's value at the neighbouring actuator
+	// (coupling, required, [0.01, 0.6]).
+	Coupling float64
+	// Stroke is the surface stroke limit in metres, ± (stroke_m, required, (0, 1e-4]).
+	Stroke float64
+	// Margin in actuator pitches beyond the pupil radius within which actuators
+	// are kept (margin_pitches, optional, default 0.75, [0, 3]).
+	Margin float64
+}
+
+// Loop is the timing of the control loop (YAML section "loop").
+type Loop struct {
+	// FrameRate of the wavefront sensor in hertz (frame_rate_hz, required, (0, 1e5]).
+	FrameRate float64
+	// DelayFrames between a frame and the frame that sees its command
+	// (delay_frames, required, [0, 10]).
+	DelayFrames int
+}
+
+// Science is the science camera (YAML section "science").
+type Science struct {
+	// Wavelength in metres at which Strehl ratios are computed (wavelength_m,
+	// required, [3e-7, 2.5e-5]).
+	Wavelength float64
+}
+
+// PupilConfig returns the sampled-pupil description of the telescope.
+func (s *Scenario) PupilConfig() optics.PupilConfig {
+	t := s.Telescope
+	return optics.PupilConfig{
+		Diameter:    t.Diameter,
+		Obstruction: t.Obstruction,
+		Spiders:     t.Spiders,
+		SpiderWidth: t.SpiderWidth,
+		N:           t.PupilSamples,
+	}
+}
+
+// SubapertureSize returns the subaperture width in metres: Diameter/Subapertures.
+func (s *Scenario) SubapertureSize() float64 {
+	return s.Telescope.Diameter / float64(s.WFS.Subapertures)
+}
+
+// PhotonsPerSubaperture returns the detected photons per frame on a fully
+// illuminated subaperture: N = ZP·10^(−0.4 m)·throughput·d²/frame rate.
+func (s *Scenario) PhotonsPerSubaperture() float64 {
+	g := s.GuideStar
+	d := s.SubapertureSize()
+	return g.ZeroPoint * math.Pow(10, -0.4*g.Magnitude) * g.Throughput * d * d / s.Loop.FrameRate
+}

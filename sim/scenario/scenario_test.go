@@ -1,0 +1,209 @@
+package scenario
+
+import (
+	"math"
+	"os"
+	"path/filepath"
+	"reflect"
+	"strings"
+	"testing"
+)
+
+func TestBuiltinsLoad(t *testing.T) {
+	names := Builtin()
+	for _, want := range []string{"default", "small", "large", "xao"} {
+		if !strings.Contains(strings.Join(names, " "), want) {
+			t.Errorf("Builtin() = %v: missing %q", names, want)
+		}
+	}
+	// Geometry the issue asks for: subapertures, Fried DM (N+1), frame rate.
+	geometry := map[string]struct {
+		diameter  float64
+		subaps    int
+		frameRate float64
+	}{
+		"small":   {1.5, 8, 500},
+		"default": {3.6, 24, 1000},
+		"large":   {8, 40, 1000},
+		"xao":     {8, 64, 2000},
+	}
+	for _, name := range names {
+		t.Run(name, func(t *testing.T) {
+			s, err := Load(name)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if s.Name != name {
+				t.Errorf("name %q, want %q", s.Name, name)
+			}
+			g, ok := geometry[name]
+			if !ok {
+				return
+			}
+			if s.Telescope.Diameter != g.diameter || s.WFS.Subapertures != g.subaps ||
+				s.DM.Actuators != g.subaps+1 || s.Loop.FrameRate != g.frameRate {
+				t.Errorf("geometry D=%g N=%d act=%d rate=%g, want D=%g N=%d act=%d rate=%g",
+					s.Telescope.Diameter, s.WFS.Subapertures, s.DM.Actuators, s.Loop.FrameRate,
+					g.diameter, g.subaps, g.subaps+1, g.frameRate)
+			}
+		})
+	}
+}
+
+func TestDefaultScenarioValues(t *testing.T) {
+	s, err := Load(Default)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s.Atmosphere.R0 != 0.12 || len(s.Atmosphere.Layers) != 3 || s.Science.Wavelength != 1.65e-6 {
+		t.Errorf("default: r0 %g, %d layers, science %g m; want 0.12 m, 3 layers, 1.65e-6 m",
+			s.Atmosphere.R0, len(s.Atmosphere.Layers), s.Science.Wavelength)
+	}
+	// N_ph = ZP·10^(−0.4 m)·throughput·d²/rate with ZP = 1e10 photons/s/m²
+	// (Bessell, Castelli & Plez 1998, from memory): m = 8, 0.3, d = 0.15 m, 1 kHz.
+	want := 1e10 * math.Pow(10, -3.2) * 0.3 * 0.15 * 0.15 / 1000
+	if got := s.PhotonsPerSubaperture(); math.Abs(got-want) > 1e-9*want {
+		t.Errorf("photons per subaperture %g, want %g", got, want)
+	}
+	// Default pixel scale: Nyquist λ/(2d) at the guide-star wavelength.
+	if got, want := s.WFS.PixelScale, 7e-7/(2*0.15); math.Abs(got-want) > 1e-15 {
+		t.Errorf("pixel scale %g, want %g", got, want)
+	}
+}
+
+func TestRoundTrip(t *testing.T) {
+	for _, name := range Builtin() {
+		s, err := Load(name)
+		if err != nil {
+			t.Fatal(err)
+		}
+		data, err := s.YAML()
+		if err != nil {
+			t.Fatal(err)
+		}
+		back, err := Parse(data)
+		if err != nil {
+			t.Fatalf("%s: reparse: %v\n%s", name, err, data)
+		}
+		if !reflect.DeepEqual(s, back) {
+			t.Errorf("%s: round trip differs:\n%+v\n%+v", name, s, back)
+		}
+	}
+}
+
+func TestLoadFile(t *testing.T) {
+	s, err := Load(Default)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s.Name = "copy"
+	data, err := s.YAML()
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := filepath.Join(t.TempDir(), "copy.yaml")
+	if err := os.WriteFile(p, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	got, err := Load(p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !reflect.DeepEqual(s, got) {
+		t.Errorf("loaded %+v, want %+v", got, s)
+	}
+	if _, err := Load(filepath.Join(t.TempDir(), "absent.yaml")); err == nil ||
+		!strings.Contains(err.Error(), "default") {
+		t.Errorf("absent file: err %v, want a refusal listing the built-ins", err)
+	}
+}
+
+// minimal is a complete scenario with only the required keys.
+const minimal = `name: t
+telescope: {diameter_m: 2, obstruction: 0.2, pupil_samples: 40}
+atmosphere:
+  r0_m: 0.1
+  l0_m: 20
+  layers:
+    - {altitude_m: 0, fraction: 0.8, wind_speed_m_per_s: 5, wind_direction_deg: 0}
+    - {altitude_m: 5000, fraction: 0.2, wind_speed_m_per_s: 10, wind_direction_deg: 90}
+guide_star: {magnitude: 8, wavelength_m: 7e-7, zero_point_photons_per_s_per_m2: 1e10, throughput: 0.3}
+wfs: {subapertures: 10, mode: geometric}
+dm: {actuators: 11, coupling: 0.15, stroke_m: 3e-6}
+loop: {frame_rate_hz: 1000, delay_frames: 1}
+science: {wavelength_m: 1.65e-6}
+`
+
+func TestDefaults(t *testing.T) {
+	s, err := Parse([]byte(minimal))
+	if err != nil {
+		t.Fatal(err)
+	}
+	w := s.WFS
+	if w.ValidThreshold != 0.5 || !w.Noise || w.PixelsPerSubaperture != 8 || w.ReadNoise != 0 ||
+		s.DM.Margin != 0.75 || s.Atmosphere.Seed != 1 || s.Telescope.Spiders != 0 {
+		t.Errorf("defaults not applied: %+v %+v %+v", w, s.DM, s.Atmosphere)
+	}
+}
+
+func TestRefused(t *testing.T) {
+	cases := []struct {
+		name, old, new, want string
+	}{
+		{"negative fraction", "fraction: 0.2,", "fraction: -0.2,", "atmosphere.layers[1].fraction: -0.2: must be in (0, 1]"},
+		{"fractions do not sum to 1", "fraction: 0.2,", "fraction: 0.3,", "atmosphere.layers: fractions sum to 1.1"},
+		{"unknown key", "delay_frames: 1}", "delay_frames: 1, gain: 0.4}", "loop.gain: line 12: unknown key"},
+		{"unknown top-level key", "name: t\n", "name: t\nmirror: {}\n", "mirror: line 2: unknown key"},
+		{"missing required", "  r0_m: 0.1\n", "", "atmosphere.r0_m: missing: required, must be in (0, 5]"},
+		{"missing section", "science: {wavelength_m: 1.65e-6}\n", "", "science: missing: required section"},
+		{"negative diameter", "diameter_m: 2,", "diameter_m: -2,", "telescope.diameter_m: -2: must be in (0, 100] m"},
+		{"zero frame rate", "frame_rate_hz: 1000", "frame_rate_hz: 0", "loop.frame_rate_hz: 0: must be in (0, 100000] Hz"},
+		{"wrong type", "magnitude: 8,", "magnitude: bright,", `guide_star.magnitude: line 9: "bright" is not a valid float64`},
+		{"bad mode", "mode: geometric", "mode: optical", `wfs.mode: "optical": must be "geometric" or "diffractive"`},
+		{"not Fried", "actuators: 11", "actuators: 10", "dm.actuators: 10: must be wfs.subapertures+1 = 11"},
+		{"samples not a multiple", "pupil_samples: 40", "pupil_samples: 45", "telescope.pupil_samples: 45: must be a multiple of wfs.subapertures (10)"},
+		{"one sample per subaperture", "pupil_samples: 40", "pupil_samples: 10", "telescope.pupil_samples: 10: must be a multiple"},
+		{"negative delay", "delay_frames: 1", "delay_frames: -1", "loop.delay_frames: -1: must be an integer in [0, 10]"},
+		{"integer expected", "subapertures: 10,", "subapertures: 10.5,", `wfs.subapertures: line 10: "10.5" is not a valid int`},
+		{"NaN", "throughput: 0.3", "throughput: .nan", "guide_star.throughput: NaN: must be in (0, 1]"},
+		{"duplicate key", "r0_m: 0.1\n", "r0_m: 0.1\n  r0_m: 0.2\n", "atmosphere.r0_m: line 5: duplicate key"},
+		{"null", "l0_m: 20", "l0_m: ~", "atmosphere.l0_m: line 5: null value"},
+		{"layers not a list", "  layers:\n", "  layers: {}\n  old_layers:\n", "atmosphere.layers: line 6: must be a list"},
+		{"coupling too large", "coupling: 0.15", "coupling: 0.9", "dm.coupling: 0.9: must be in [0.01, 0.6]"},
+		{"wide spider", "pupil_samples: 40}", "pupil_samples: 40, spiders: 4, spider_width_m: 0.5}", "telescope.spider_width_m: 0.5: must be in [0, 0.2] m"},
+		{"diffractive field too wide", "mode: geometric}", "mode: diffractive, pixels_per_subaperture: 16}", "wfs.pixels_per_subaperture: 16 pixels"},
+		{"two documents", "science: {wavelength_m: 1.65e-6}\n", "science: {wavelength_m: 1.65e-6}\n---\nname: u\n", "more than one YAML document"},
+	}
+	if _, err := Parse([]byte(minimal)); err != nil {
+		t.Fatalf("the unbroken file must parse: %v", err)
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			doc := strings.Replace(minimal, c.old, c.new, 1)
+			if doc == minimal {
+				t.Fatalf("edit %q not applied", c.old)
+			}
+			s, err := Parse([]byte(doc))
+			if err == nil {
+				t.Fatalf("accepted:\n%s", doc)
+			}
+			if s != nil {
+				t.Errorf("half-loaded scenario returned with the error")
+			}
+			if !strings.Contains(err.Error(), c.want) {
+				t.Errorf("error\n  %v\nwant it to contain\n  %s", err, c.want)
+			}
+		})
+	}
+	if _, err := Parse(nil); err == nil {
+		t.Error("empty document accepted")
+	}
+}
+
+func TestErrorsListEveryProblem(t *testing.T) {
+	doc := strings.Replace(strings.Replace(minimal, "r0_m: 0.1", "r0_m: -1", 1), "throughput: 0.3", "throughput: 2", 1)
+	_, err := Parse([]byte(doc))
+	if err == nil || !strings.Contains(err.Error(), "atmosphere.r0_m") || !strings.Contains(err.Error(), "guide_star.throughput") {
+		t.Errorf("err %v: want both atmosphere.r0_m and guide_star.throughput named", err)
+	}
+}
