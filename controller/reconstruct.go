@@ -1,0 +1,462 @@
+package controller
+
+import (
+	"fmt"
+	"math"
+	"time"
+
+	"gonum.org/v1/gonum/mat"
+)
+
+// Method says how a reconstructor was made.
+type Method uint8
+
+// Reconstruction methods.
+const (
+	// MethodTruncatedSVD is the Moore–Penrose pseudo-inverse restricted to the
+	// largest singular modes: M⁺ = V_k S_k⁻¹ U_kᵀ.
+	MethodTruncatedSVD Method = iota
+	// MethodTikhonov is regularised least squares, argmin ‖M·x − s‖² + α²‖x‖²,
+	// x = (MᵀM + α²I)⁻¹Mᵀs = V diag(sᵢ/(sᵢ² + α²)) Uᵀ s.
+	MethodTikhonov
+	// MethodMatrix is a control matrix supplied as is, with no modal decomposition.
+	MethodMatrix
+)
+
+var methodNames = [...]string{MethodTruncatedSVD: "svd", MethodTikhonov: "tikhonov", MethodMatrix: "matrix"}
+
+// String returns "svd", "tikhonov" or "matrix".
+func (m Method) String() string {
+	if int(m) < len(methodNames) {
+		return methodNames[m]
+	}
+	return fmt.Sprintf("method(%d)", uint8(m))
+}
+
+// ParseMethod is the inverse of Method.String.
+func ParseMethod(s string) (Method, error) {
+	for i, n := range methodNames {
+		if n == s {
+			return Method(i), nil
+		}
+	}
+	return 0, fmt.Errorf("controller: reconstructor method %q: want svd, tikhonov or matrix", s)
+}
+
+// DefaultUnseenCondition is the ratio s_max/sᵢ beyond which a singular mode of the
+// interaction matrix counts as unseen by the sensor (*common practice* order of
+// magnitude: well above the conditioning of the controlled modes, below noise level).
+const DefaultUnseenCondition = 1e3
+
+// ReconstructorConfig chooses how BuildReconstructor inverts the interaction matrix.
+type ReconstructorConfig struct {
+	// Method is MethodTruncatedSVD or MethodTikhonov.
+	Method Method
+	// ModesKept, for truncated SVD, is the number of largest singular modes
+	// inverted; 0 keeps every mode within MaxCondition.
+	ModesKept int
+	// MaxCondition, for truncated SVD, keeps modes with s_max/sᵢ <= MaxCondition;
+	// 0 means UnseenCondition.
+	MaxCondition float64
+	// Regularization is Tikhonov's α relative to the largest singular value
+	// (α_abs = Regularization·s_max); it must be > 0 for MethodTikhonov.
+	Regularization float64
+	// Basis, if set, is a modal basis (Actuators × modes, one mode per column,
+	// metres of surface per unit coefficient): commands are B·a and the modal
+	// coefficients are a = (M·B)⁺·s, inverted with Method. Modal gains then apply
+	// to these modes. Nil uses the singular modes of M.
+	Basis *mat.Dense
+	// UnseenCondition: singular modes of M with s_max/sᵢ above it (or sᵢ = 0) are
+	// unseen; they are never controlled and are projected out of every command.
+	// 0 means DefaultUnseenCondition.
+	UnseenCondition float64
+	// KeepPiston leaves the piston (equal command on every actuator) in the
+	// commands. By default piston is projected out, as a slope sensor cannot see it;
+	// set KeepPiston only for a sensor that does.
+	KeepPiston bool
+	// Created is recorded as the creation time (the controller reads no clock).
+	Created time.Time
+}
+
+// Reconstructor holds a control matrix and the modal decomposition it came from.
+// Treat it as immutable once built; NewParams copies what the hot path needs.
+type Reconstructor struct {
+	Method            Method
+	Slopes, Actuators int
+	// Control is R = −M⁺ (Actuators × Slopes, metres of surface per radian) with
+	// unit modal gains and unseen modes projected out: Δ = R·s nulls the slopes s.
+	Control *mat.Dense
+	// Modes (Actuators × NumModes) and Inverse (NumModes × Slopes) factor the
+	// reconstruction: M⁺ = Modes·Inverse, with unseen modes already projected out
+	// of Modes. Per-mode gains G give R = −Modes·G·Inverse. Both are nil for
+	// MethodMatrix.
+	Modes, Inverse *mat.Dense
+	// SingularValues of the inverted matrix (M, or M·B with a basis), descending.
+	SingularValues []float64
+	// ModesKept is the number of singular modes of the inverted matrix used.
+	ModesKept int
+	// Unseen is the dimension of the actuator space projected out of the commands
+	// (unseen singular modes of M, plus piston unless kept).
+	Unseen int
+	// Interaction is the interaction matrix it was built from (Slopes × Actuators),
+	// or nil.
+	Interaction *mat.Dense
+	// Created is the creation time given by the caller.
+	Created time.Time
+}
+
+// NumModes returns the number of controllable modes (columns of Modes), which is
+// the length of the modal gains; 0 for MethodMatrix.
+func (r *Reconstructor) NumModes() int {
+	if r.Modes == nil {
+		return 0
+	}
+	_, c := r.Modes.Dims()
+	return c
+}
+
+// BuildReconstructor computes a reconstructor from the interaction matrix m
+// (Slopes × Actuators, the columns measured by push–pull pokes; see the package
+// sign convention). It is off the hot path: it allocates and may take seconds for
+// large systems.
+func BuildReconstructor(m *mat.Dense, c ReconstructorConfig) (*Reconstructor, error) {
+	if m == nil {
+		return nil, fmt.Errorf("controller: interaction matrix: nil")
+	}
+	ns, na := m.Dims()
+	if err := checkFinite("interaction matrix", m); err != nil {
+		return nil, err
+	}
+	unseenCond := c.UnseenCondition
+	if unseenCond == 0 {
+		unseenCond = DefaultUnseenCondition
+	}
+	switch {
+	case c.Method != MethodTruncatedSVD && c.Method != MethodTikhonov:
+		return nil, fmt.Errorf("controller: reconstructor method %v: want svd or tikhonov", c.Method)
+	case !(unseenCond >= 1) || math.IsInf(unseenCond, 0):
+		return nil, fmt.Errorf("controller: reconstructor unseen condition %g: must be finite and >= 1", c.UnseenCondition)
+	case c.ModesKept < 0:
+		return nil, fmt.Errorf("controller: reconstructor modes kept %d: must be >= 0", c.ModesKept)
+	case c.MaxCondition != 0 && (!(c.MaxCondition >= 1) || math.IsInf(c.MaxCondition, 0)):
+		return nil, fmt.Errorf("controller: reconstructor max condition %g: must be finite and >= 1", c.MaxCondition)
+	case c.Method == MethodTikhonov && (!(c.Regularization > 0) || math.IsInf(c.Regularization, 0)):
+		return nil, fmt.Errorf("controller: reconstructor regularization %g: must be finite and > 0 for tikhonov", c.Regularization)
+	case c.Method == MethodTikhonov && c.ModesKept != 0:
+		return nil, fmt.Errorf("controller: reconstructor modes kept %d: only for svd", c.ModesKept)
+	}
+	if c.Basis != nil {
+		if r, _ := c.Basis.Dims(); r != na {
+			return nil, fmt.Errorf("controller: reconstructor basis has %d rows: want %d actuators", r, na)
+		}
+		if err := checkFinite("reconstructor basis", c.Basis); err != nil {
+			return nil, err
+		}
+	}
+
+	var svd mat.SVD
+	if !svd.Factorize(m, mat.SVDThin) {
+		return nil, fmt.Errorf("controller: interaction matrix %d×%d: SVD did not converge", ns, na)
+	}
+	sv := svd.Values(nil)
+	if len(sv) == 0 || !(sv[0] > 0) {
+		return nil, fmt.Errorf("controller: interaction matrix %d×%d: all zero", ns, na)
+	}
+	var v mat.Dense
+	svd.VTo(&v)
+	seen := 0
+	for seen < len(sv) && sv[seen] > 0 && sv[0]/sv[seen] <= unseenCond {
+		seen++
+	}
+	q := unseenProjector(&v, seen, na, !c.KeepPiston)
+
+	var modes, inverse *mat.Dense
+	var values []float64
+	var kept int
+	var err error
+	if c.Basis == nil {
+		values = sv
+		kept, err = modesToKeep(c, sv, seen, unseenCond)
+		if err != nil {
+			return nil, err
+		}
+		inverse = filteredInverse(&svd, c, sv, kept)
+		modes = mat.DenseCopyOf(v.Slice(0, na, 0, kept))
+	} else {
+		var mb mat.Dense
+		mb.Mul(m, c.Basis)
+		var bsvd mat.SVD
+		if !bsvd.Factorize(&mb, mat.SVDThin) {
+			return nil, fmt.Errorf("controller: interaction matrix times basis: SVD did not converge")
+		}
+		values = bsvd.Values(nil)
+		if !(values[0] > 0) {
+			return nil, fmt.Errorf("controller: interaction matrix times basis: all zero (the sensor sees no basis mode)")
+		}
+		bseen := 0
+		for bseen < len(values) && values[bseen] > 0 && values[0]/values[bseen] <= unseenCond {
+			bseen++
+		}
+		kept, err = modesToKeep(c, values, bseen, unseenCond)
+		if err != nil {
+			return nil, err
+		}
+		// (M·B)⁺ = V' F U'ᵀ, the modal coefficients of each basis mode.
+		coef := filteredInverse(&bsvd, c, values, kept)
+		var bv mat.Dense
+		bsvd.VTo(&bv)
+		_, nb := c.Basis.Dims()
+		inverse = mat.NewDense(nb, ns, nil)
+		inverse.Mul(bv.Slice(0, nb, 0, kept), coef)
+		modes = mat.DenseCopyOf(c.Basis)
+	}
+	unseen := 0
+	if q != nil {
+		// Modes ← (I − Q·Qᵀ)·Modes removes every unseen direction from the commands.
+		var qtm mat.Dense
+		qtm.Mul(q.T(), modes)
+		var corr mat.Dense
+		corr.Mul(q, &qtm)
+		modes.Sub(modes, &corr)
+		_, unseen = q.Dims()
+	}
+	control := mat.NewDense(na, ns, nil)
+	control.Mul(modes, inverse)
+	control.Scale(-1, control)
+	return &Reconstructor{
+		Method: c.Method, Slopes: ns, Actuators: na,
+		Control: control, Modes: modes, Inverse: inverse,
+		SingularValues: values, ModesKept: kept, Unseen: unseen,
+		Interaction: mat.DenseCopyOf(m), Created: c.Created,
+	}, nil
+}
+
+// modesToKeep applies the truncation rule of c to the singular values sv, of
+// which the first seen are seen by the sensor.
+func modesToKeep(c ReconstructorConfig, sv []float64, seen int, unseenCond float64) (int, error) {
+	if c.Method == MethodTikhonov {
+		return seen, nil
+	}
+	maxCond := c.MaxCondition
+	if maxCond == 0 {
+		maxCond = unseenCond
+	}
+	byCond := 0
+	for byCond < seen && sv[0]/sv[byCond] <= maxCond {
+		byCond++
+	}
+	if c.ModesKept == 0 {
+		return byCond, nil
+	}
+	if c.ModesKept > byCond {
+		return 0, fmt.Errorf("controller: reconstructor modes kept %d: only %d modes have condition <= %g", c.ModesKept, byCond, maxCond)
+	}
+	return c.ModesKept, nil
+}
+
+// filteredInverse returns diag(fᵢ)·U_kᵀ (k × rows of the factorised matrix) with
+// fᵢ = 1/sᵢ (truncated SVD) or sᵢ/(sᵢ² + α²) (Tikhonov, α = Regularization·s_max).
+func filteredInverse(svd *mat.SVD, c ReconstructorConfig, sv []float64, k int) *mat.Dense {
+	var u mat.Dense
+	svd.UTo(&u)
+	rows, _ := u.Dims()
+	out := mat.NewDense(k, rows, nil)
+	alpha2 := math.Pow(c.Regularization*sv[0], 2)
+	for i := 0; i < k; i++ {
+		f := 1 / sv[i]
+		if c.Method == MethodTikhonov {
+			f = sv[i] / (sv[i]*sv[i] + alpha2)
+		}
+		for j := 0; j < rows; j++ {
+			out.Set(i, j, f*u.At(j, i))
+		}
+	}
+	return out
+}
+
+// unseenProjector returns an orthonormal basis Q (na × q) of the unseen actuator
+// space: the right singular vectors seen.. of v, plus the piston direction when
+// piston is true. It returns nil when that space is empty.
+func unseenProjector(v *mat.Dense, seen, na int, piston bool) *mat.Dense {
+	_, nv := v.Dims()
+	var cols [][]float64
+	for j := seen; j < nv; j++ {
+		cols = append(cols, mat.Col(nil, j, v))
+	}
+	// Actuator directions beyond the thin SVD (more actuators than slopes) are
+	// unseen too; complete the basis from the identity by Gram–Schmidt.
+	for e := 0; e < na && len(cols)+seen < na; e++ {
+		x := make([]float64, na)
+		x[e] = 1
+		if orthonormalise(x, cols, v, seen) {
+			cols = append(cols, x)
+		}
+	}
+	if piston {
+		x := make([]float64, na)
+		for i := range x {
+			x[i] = 1 / math.Sqrt(float64(na))
+		}
+		if orthonormalise(x, cols, nil, 0) {
+			cols = append(cols, x)
+		}
+	}
+	if len(cols) == 0 {
+		return nil
+	}
+	q := mat.NewDense(na, len(cols), nil)
+	for j, c := range cols {
+		q.SetCol(j, c)
+	}
+	return q
+}
+
+// orthonormalise removes from x its components along the first seen columns of
+// v (if v is set) and along cols, then normalises it. It reports false when
+// little of x is left (x was already in their span).
+func orthonormalise(x []float64, cols [][]float64, v *mat.Dense, seen int) bool {
+	n0 := math.Sqrt(dot64(x, x))
+	for pass := 0; pass < 2; pass++ { // twice for numerical orthogonality
+		for j := 0; j < seen; j++ {
+			cj := mat.Col(nil, j, v)
+			axpy(x, -dot64(x, cj), cj)
+		}
+		for _, c := range cols {
+			axpy(x, -dot64(x, c), c)
+		}
+	}
+	n := math.Sqrt(dot64(x, x))
+	if n < 1e-6*n0 {
+		return false
+	}
+	for i := range x {
+		x[i] /= n
+	}
+	return true
+}
+
+func dot64(a, b []float64) float64 {
+	var s float64
+	for i, v := range a {
+		s += v * b[i]
+	}
+	return s
+}
+
+func axpy(y []float64, a float64, x []float64) {
+	for i, v := range x {
+		y[i] += a * v
+	}
+}
+
+// ReconstructorFromMatrix wraps a control matrix R (Actuators × Slopes, with the
+// package sign convention: Δ = R·s) made elsewhere. It has no modal
+// decomposition, so parameter sets built on it take no modal gains.
+func ReconstructorFromMatrix(control *mat.Dense, created time.Time) (*Reconstructor, error) {
+	if control == nil {
+		return nil, fmt.Errorf("controller: control matrix: nil")
+	}
+	if err := checkFinite("control matrix", control); err != nil {
+		return nil, err
+	}
+	na, ns := control.Dims()
+	return &Reconstructor{Method: MethodMatrix, Slopes: ns, Actuators: na, Control: mat.DenseCopyOf(control), Created: created}, nil
+}
+
+// ControlMatrix returns −Modes·diag(gains)·Inverse (Actuators × Slopes). Nil
+// gains return a copy of Control. Gains must have NumModes finite entries >= 0.
+func (r *Reconstructor) ControlMatrix(gains []float64) (*mat.Dense, error) {
+	if err := r.Validate(); err != nil {
+		return nil, err
+	}
+	if gains == nil {
+		return mat.DenseCopyOf(r.Control), nil
+	}
+	if r.Modes == nil {
+		return nil, fmt.Errorf("controller: modal gains given (%d) but the %v reconstructor has no modes", len(gains), r.Method)
+	}
+	if len(gains) != r.NumModes() {
+		return nil, fmt.Errorf("controller: modal gains length %d: want %d modes", len(gains), r.NumModes())
+	}
+	for i, g := range gains {
+		if !(g >= 0) || math.IsInf(g, 0) {
+			return nil, fmt.Errorf("controller: modal gain %d = %g: must be finite and >= 0", i, g)
+		}
+	}
+	scaled := mat.DenseCopyOf(r.Modes)
+	for j, g := range gains {
+		for i := 0; i < r.Actuators; i++ {
+			scaled.Set(i, j, -g*scaled.At(i, j))
+		}
+	}
+	out := mat.NewDense(r.Actuators, r.Slopes, nil)
+	out.Mul(scaled, r.Inverse)
+	return out, nil
+}
+
+// Validate checks the shapes and finiteness of every field.
+func (r *Reconstructor) Validate() error {
+	if r == nil {
+		return fmt.Errorf("controller: reconstructor: nil")
+	}
+	if r.Method > MethodMatrix {
+		return fmt.Errorf("controller: reconstructor method %d: unknown", uint8(r.Method))
+	}
+	if r.Slopes < 1 || r.Actuators < 1 {
+		return fmt.Errorf("controller: reconstructor geometry %d slopes × %d actuators: both must be >= 1", r.Slopes, r.Actuators)
+	}
+	if err := checkShape("reconstructor control matrix", r.Control, r.Actuators, r.Slopes); err != nil {
+		return err
+	}
+	if (r.Modes == nil) != (r.Inverse == nil) || (r.Modes == nil) != (r.Method == MethodMatrix) {
+		return fmt.Errorf("controller: reconstructor %v: modes and inverse must both be set, and only for svd or tikhonov", r.Method)
+	}
+	if r.Modes != nil {
+		_, nm := r.Modes.Dims()
+		if err := checkShape("reconstructor modes", r.Modes, r.Actuators, nm); err != nil {
+			return err
+		}
+		if err := checkShape("reconstructor inverse", r.Inverse, nm, r.Slopes); err != nil {
+			return err
+		}
+		if r.ModesKept < 1 || r.ModesKept > nm {
+			return fmt.Errorf("controller: reconstructor modes kept %d: must be in [1, %d]", r.ModesKept, nm)
+		}
+	}
+	for i, s := range r.SingularValues {
+		if !(s >= 0) || math.IsInf(s, 0) || (i > 0 && s > r.SingularValues[i-1]) {
+			return fmt.Errorf("controller: reconstructor singular value %d = %g: must be finite, >= 0 and descending", i, s)
+		}
+	}
+	if r.Interaction != nil {
+		if err := checkShape("reconstructor interaction matrix", r.Interaction, r.Slopes, r.Actuators); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+func checkShape(name string, m *mat.Dense, rows, cols int) error {
+	if m == nil {
+		return fmt.Errorf("controller: %s: nil", name)
+	}
+	if r, c := m.Dims(); r != rows || c != cols {
+		return fmt.Errorf("controller: %s is %d×%d: want %d×%d", name, r, c, rows, cols)
+	}
+	return checkFinite(name, m)
+}
+
+func checkFinite(name string, m *mat.Dense) error {
+	r, c := m.Dims()
+	if r == 0 || c == 0 {
+		return fmt.Errorf("controller: %s is %d×%d: empty", name, r, c)
+	}
+	for i := 0; i < r; i++ {
+		for j := 0; j < c; j++ {
+			if v := m.At(i, j); math.IsNaN(v) || math.IsInf(v, 0) {
+				return fmt.Errorf("controller: %s entry (%d, %d) = %g: must be finite", name, i, j, v)
+			}
+		}
+	}
+	return nil
+}
