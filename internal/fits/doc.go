@@ -1,0 +1,14 @@
+// Package fits reads and writes FITS image files: a primary HDU and any number of
+// IMAGE extensions, with BITPIX −32, −64, 16 or 32 and one to three axes, per the
+// FITS Standard 4.0 (IAU FITS Working Group, 2016): 2880-byte records, 80-character
+// header cards, big-endian two's-complement integers and IEEE floats.
+//
+// Header keywords are strings, logicals, integers and floats; commentary cards
+// (COMMENT, HISTORY, blank) are kept in order. Long-string (CONTINUE) cards, tables,
+// random groups and BSCALE/BZERO scaling are not handled: a file that uses them is
+// refused or, for BSCALE/BZERO, returned with raw values and the keywords kept in the
+// header.
+//
+// Read never panics on corrupt or truncated input; it returns an error. The package
+// depends only on the standard library.
+package fits
