@@ -47,7 +47,7 @@ func sample(bitpix int, axes ...int) *HDU {
 	case 32:
 		d := make([]int32, n)
 		for i := range d {
-			d[i] = int32(i*1234567 - 1 << 30)
+			d[i] = int32(i*1234567 - 1<<30)
 		}
 		d[0] = math.MaxInt32
 		h.Data = d
