@@ -298,7 +298,7 @@ func parseCard(b []byte) (Card, error) {
 	return Card{Key: key, Value: value, Comment: comment}, nil
 }
 
-// parseString reads a quoted string starting at s[0] == '\”; a doubled quote stands
+// parseString reads a quoted string that starts at s[0]; a doubled quote stands
 // for one quote and trailing spaces are not significant (FITS Standard 4.0, §4.2.1).
 func parseString(s string) (string, string, error) {
 	var out strings.Builder
