@@ -1,0 +1,367 @@
+package dashboards
+
+import (
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"strings"
+
+	"github.com/grafana/grafana-foundation-sdk/go/cog"
+	"github.com/grafana/grafana-foundation-sdk/go/common"
+	"github.com/grafana/grafana-foundation-sdk/go/dashboard"
+	"github.com/grafana/grafana-foundation-sdk/go/heatmap"
+	"github.com/grafana/grafana-foundation-sdk/go/prometheus"
+	"github.com/grafana/grafana-foundation-sdk/go/stat"
+	"github.com/grafana/grafana-foundation-sdk/go/statetimeline"
+	"github.com/grafana/grafana-foundation-sdk/go/timeseries"
+	"github.com/grafana/grafana-foundation-sdk/go/units"
+)
+
+// File is one dashboard and the file name it is committed under in grafana/.
+type File struct {
+	Name      string
+	Dashboard dashboard.Dashboard
+}
+
+// JSON returns the dashboard as Grafana imports it: indented, newline-terminated.
+func (f File) JSON() ([]byte, error) {
+	var buf bytes.Buffer
+	enc := json.NewEncoder(&buf)
+	enc.SetIndent("", "  ")
+	enc.SetEscapeHTML(false)
+	if err := enc.Encode(f.Dashboard); err != nil {
+		return nil, fmt.Errorf("dashboards: encode %s: %w", f.Name, err)
+	}
+	return buf.Bytes(), nil
+}
+
+// Build returns every dashboard.
+func Build() ([]File, error) {
+	builders := []struct {
+		name string
+		b    *dashboard.DashboardBuilder
+	}{
+		{"loop-overview.json", overview()},
+		{"latency.json", latency()},
+		{"wavefront.json", wavefront()},
+		{"mirror.json", mirror()},
+	}
+	files := make([]File, 0, len(builders))
+	for _, d := range builders {
+		built, err := d.b.Build()
+		if err != nil {
+			return nil, fmt.Errorf("dashboards: build %s: %w", d.name, err)
+		}
+		nameQueries(built)
+		files = append(files, File{Name: d.name, Dashboard: built})
+	}
+	return files, nil
+}
+
+// nameQueries gives each panel's queries the reference ids A, B, C… that Grafana
+// uses to tell a panel's queries apart.
+func nameQueries(d dashboard.Dashboard) {
+	for _, p := range d.Panels {
+		if p.Panel == nil {
+			continue
+		}
+		for i, t := range p.Panel.Targets {
+			if pq, ok := t.(prometheus.Dataquery); ok {
+				pq.RefId = cog.ToPtr(string(rune('A' + i)))
+				p.Panel.Targets[i] = pq
+			}
+		}
+	}
+}
+
+// datasource is the Prometheus data source every panel and query uses: the one
+// chosen in the dashboard's datasource variable.
+func datasource() common.DataSourceRef {
+	return common.DataSourceRef{Type: cog.ToPtr("prometheus"), Uid: cog.ToPtr("${datasource}")}
+}
+
+// sel is the series selector every query uses, so that the job and instance
+// variables filter every panel.
+const sel = `job=~"$job",instance=~"$instance"`
+
+// q returns metric{job=~"$job",instance=~"$instance"}.
+func q(metric string) string { return metric + "{" + sel + "}" }
+
+// rate returns the per-second rate of a counter over Grafana's rate interval.
+func rate(counter string) string { return "rate(" + q(counter) + "[$__rate_interval])" }
+
+func target(expr, legend string) *prometheus.DataqueryBuilder {
+	return prometheus.NewDataqueryBuilder().
+		Datasource(datasource()).
+		Expr(expr).
+		LegendFormat(legend).
+		EditorMode(prometheus.QueryEditorModeCode)
+}
+
+// base starts a dashboard with the variables every query uses: the data source,
+// the job and the instance (all jobs and instances by default, so the bench's
+// panels show beside the loop's).
+func base(uid, title, description string) *dashboard.DashboardBuilder {
+	all := dashboard.VariableOption{Text: dashboard.StringOrArrayOfString{String: cog.ToPtr("All")}, Value: dashboard.StringOrArrayOfString{String: cog.ToPtr("$__all")}}
+	labelValues := func(name, label, query string) *dashboard.QueryVariableBuilder {
+		return dashboard.NewQueryVariableBuilder(name).
+			Label(label).
+			Datasource(datasource()).
+			Query(dashboard.StringOrMap{String: cog.ToPtr(query)}).
+			Definition(query).
+			Refresh(dashboard.VariableRefreshOnTimeRangeChanged).
+			Sort(dashboard.VariableSortAlphabeticalAsc).
+			Multi(true).
+			IncludeAll(true).
+			AllValue(".*").
+			Current(all)
+	}
+	return dashboard.NewDashboardBuilder(title).
+		Uid(uid).
+		Description(description).
+		Tags([]string{"stillsky"}).
+		Editable().
+		Refresh("5s").
+		Time("now-15m", "now").
+		Timezone(common.TimeZoneBrowser).
+		Tooltip(dashboard.DashboardCursorSyncCrosshair).
+		WithVariable(dashboard.NewDatasourceVariableBuilder("datasource").Label("Data source").Type("prometheus")).
+		WithVariable(labelValues("job", "Job", `label_values(stillsky_build_info, job)`)).
+		WithVariable(labelValues("instance", "Instance", `label_values(stillsky_build_info{job=~"$job"}, instance)`))
+}
+
+// panelID numbers panels within one dashboard build; Grafana needs them unique
+// per dashboard and stable for links.
+type panelID struct{ n uint32 }
+
+func (p *panelID) next() uint32 { p.n++; return p.n }
+
+func series(id *panelID, title, description, unit string, w, h uint32) *timeseries.PanelBuilder {
+	return timeseries.NewPanelBuilder().
+		Id(id.next()).
+		Title(title).
+		Description(description).
+		Datasource(datasource()).
+		Unit(unit).
+		Span(w).
+		Height(h).
+		Legend(common.NewVizLegendOptionsBuilder().
+			ShowLegend(true).
+			DisplayMode(common.LegendDisplayModeList).
+			Placement(common.LegendPlacementBottom))
+}
+
+func single(id *panelID, title, description, unit string, w, h uint32) *stat.PanelBuilder {
+	return stat.NewPanelBuilder().
+		Id(id.next()).
+		Title(title).
+		Description(description).
+		Datasource(datasource()).
+		Unit(unit).
+		Span(w).
+		Height(h).
+		ColorMode(common.BigValueColorModeValue).
+		GraphMode(common.BigValueGraphModeNone).
+		ReduceOptions(common.NewReduceDataOptionsBuilder().Calcs([]string{"lastNotNull"}))
+}
+
+// steps are colour thresholds: green from -inf, then each (value, colour).
+func steps(pairs ...any) *dashboard.ThresholdsConfigBuilder {
+	out := []dashboard.Threshold{{Value: nil, Color: "green"}}
+	for i := 0; i+1 < len(pairs); i += 2 {
+		v := pairs[i].(float64)
+		out = append(out, dashboard.Threshold{Value: &v, Color: pairs[i+1].(string)})
+	}
+	return dashboard.NewThresholdsConfigBuilder().Mode(dashboard.ThresholdsModeAbsolute).Steps(out)
+}
+
+func overview() *dashboard.DashboardBuilder {
+	id := &panelID{}
+	return base("stillsky-loop-overview", "stillsky: loop overview",
+		"Loop state, frame and command rates, dropped and rejected frames, integrator settings and interlock trips of the loop daemon.").
+		WithPanel(single(id, "Current loop state", "The state whose stillsky_loop_state series is 1.", units.NoUnit, 6, 5).
+			TextMode(common.BigValueTextModeName).
+			WithTarget(target(q("stillsky_loop_state")+" == 1", "{{state}}").Instant())).
+		WithPanel(single(id, "Frames per second", "Rate of slope frames received from the camera.", units.Hertz, 6, 5).
+			WithTarget(target(rate("stillsky_frames_total"), "{{instance}}"))).
+		WithPanel(single(id, "Integrator gain", "Gain of the leaky integrator.", units.NoUnit, 6, 5).
+			WithTarget(target(q("stillsky_loop_gain"), "{{instance}}"))).
+		WithPanel(single(id, "Integrator leak", "Leak of the leaky integrator.", units.NoUnit, 6, 5).
+			WithTarget(target(q("stillsky_loop_leak"), "{{instance}}"))).
+		WithPanel(statetimeline.NewPanelBuilder().
+			Id(id.next()).
+			Title("Loop state over time").
+			Description("Which of open, closed, hold, calibrating and tripped the loop was in.").
+			Datasource(datasource()).
+			Span(24).
+			Height(5).
+			MergeValues(true).
+			ShowValue(common.VisibilityModeNever).
+			WithTarget(target(q("stillsky_loop_state")+" == 1", "{{instance}} {{state}}"))).
+		WithPanel(series(id, "Frames received and commands sent per second", "Camera frames in and mirror commands out; in closed loop the two rates match.", units.Hertz, 12, 8).
+			WithTarget(target(rate("stillsky_frames_total"), "frames {{instance}}")).
+			WithTarget(target(rate("stillsky_commands_total"), "commands {{instance}}"))).
+		WithPanel(series(id, "Dropped frames per second", "Gaps in the camera's frame numbers and frames skipped because the loop fell behind.", units.Hertz, 12, 8).
+			WithTarget(target(rate("stillsky_frames_dropped_total"), "{{instance}}"))).
+		WithPanel(series(id, "Rejected frames per second by reason", "Frames refused by validation: wrong length, non-finite values, duplicates, out of order.", units.Hertz, 12, 8).
+			WithTarget(target("sum by (instance, reason) ("+rate("stillsky_frames_rejected_total")+")", "{{reason}} {{instance}}"))).
+		WithPanel(series(id, "Integrator gain and leak", "Settings of the leaky integrator as the operator changes them.", units.NoUnit, 12, 8).
+			WithTarget(target(q("stillsky_loop_gain"), "gain {{instance}}")).
+			WithTarget(target(q("stillsky_loop_leak"), "leak {{instance}}"))).
+		WithPanel(series(id, "Interlock trips by reason", "Safety interlock trips in each interval: divergence, saturation, stale camera, mirror unreachable.", units.Short, 12, 8).
+			DrawStyle(common.GraphDrawStyleBars).
+			WithTarget(target("sum by (instance, reason) (increase("+q("stillsky_interlock_trips_total")+"[$__rate_interval]))", "{{reason}} {{instance}}"))).
+		WithPanel(series(id, "Calibrations by result", "Calibration runs that succeeded or failed, cumulative.", units.Short, 12, 8).
+			WithTarget(target("sum by (instance, result) ("+q("stillsky_calibrations_total")+")", "{{result}} {{instance}}"))).
+		WithPanel(single(id, "Running versions", "Version of each scraped stillsky process.", units.NoUnit, 24, 4).
+			TextMode(common.BigValueTextModeName).
+			WithTarget(target(q("stillsky_build_info"), "{{job}} {{instance}} {{version}}").Instant()))
+}
+
+// latencyPanels draws one latency histogram: its buckets as a heatmap and three
+// quantiles against the camera's frame period, the budget the loop must stay in.
+func latencyPanels(b *dashboard.DashboardBuilder, id *panelID, name, metric, meaning string) *dashboard.DashboardBuilder {
+	bucket := rate(metric + "_bucket")
+	quantile := func(phi, legend string) *prometheus.DataqueryBuilder {
+		return target("histogram_quantile("+phi+", sum by (instance, le) ("+bucket+"))", legend+" {{instance}}")
+	}
+	return b.
+		WithPanel(heatmap.NewPanelBuilder().
+			Id(id.next()).
+			Title(name + " latency distribution").
+			Description(meaning + ": observations per second in each histogram bucket.").
+			Datasource(datasource()).
+			Span(12).
+			Height(9).
+			Calculate(false).
+			YAxis(heatmap.NewYAxisConfigBuilder().Unit(units.Seconds)).
+			CellValues(heatmap.NewCellValuesBuilder().Unit(units.Short)).
+			Color(heatmap.NewHeatmapColorOptionsBuilder().
+				Mode(heatmap.HeatmapColorModeScheme).
+				Scheme("Oranges").
+				Scale(heatmap.HeatmapColorScaleExponential).
+				Exponent(0.5).
+				Steps(64)).
+			RowsFrame(heatmap.NewRowsHeatmapOptionsBuilder().Layout(common.HeatmapCellLayoutLe)).
+			WithTarget(target("sum by (le) ("+bucket+")", "{{le}}").Format(prometheus.PromQueryFormatHeatmap))).
+		WithPanel(series(id, name+" latency quantiles and frame period", meaning+": median, 99th and 99.9th percentile, drawn against the frame period.", units.Seconds, 12, 9).
+			ScaleDistribution(common.NewScaleDistributionConfigBuilder().Type(common.ScaleDistributionLog).Log(10)).
+			WithTarget(quantile("0.5", "p50")).
+			WithTarget(quantile("0.99", "p99")).
+			WithTarget(quantile("0.999", "p99.9")).
+			WithTarget(target(q("stillsky_frame_period_seconds"), "frame period {{instance}}")))
+}
+
+func latency() *dashboard.DashboardBuilder {
+	id := &panelID{}
+	b := base("stillsky-latency", "stillsky: latency",
+		"Latency histograms of the loop daemon, against the camera's frame period.")
+	b = latencyPanels(b, id, "Compute", "stillsky_compute_latency_seconds", "Frame received to command computed")
+	b = latencyPanels(b, id, "RTC", "stillsky_rtc_latency_seconds", "Frame received to command sent")
+	return latencyPanels(b, id, "End-to-end", "stillsky_end_to_end_latency_seconds", "Camera readout end to mirror received the command")
+}
+
+func wavefront() *dashboard.DashboardBuilder {
+	id := &panelID{}
+	nm := "suffix: nm"
+	return base("stillsky-wavefront", "stillsky: wavefront",
+		"Residual slopes and wavefront, and the Strehl ratio: the loop's estimate and, where the bench is scraped, the bench's true value.").
+		WithPanel(single(id, "Strehl estimate", "Maréchal estimate from the reconstructed residual, at the science wavelength.", units.PercentUnit, 8, 5).
+			Min(0).Max(1).
+			Thresholds(steps(0.0, "red", 0.2, "orange", 0.5, "green")).
+			WithTarget(target(q("stillsky_strehl_estimate_ratio"), "{{instance}}"))).
+		WithPanel(single(id, "Residual wavefront rms", "Reconstructed residual optical path difference, rms.", nm, 8, 5).
+			Decimals(1).
+			WithTarget(target(q("stillsky_residual_wavefront_rms_meters")+" * 1e9", "{{instance}}"))).
+		WithPanel(single(id, "Science wavelength", "Wavelength of the Strehl estimate and of the bench's true Strehl.", nm, 8, 5).
+			Decimals(0).
+			WithTarget(target(q("stillsky_science_wavelength_meters")+" * 1e9", "loop {{instance}}")).
+			WithTarget(target(q("stillsky_bench_science_wavelength_meters")+" * 1e9", "bench {{instance}}"))).
+		WithPanel(series(id, "Strehl ratio: loop estimate and bench truth", "The loop's Maréchal estimate beside the true Strehl the bench computes from its PSF (bench series appear only where the bench is scraped).", units.PercentUnit, 24, 8).
+			Min(0).Max(1).
+			WithTarget(target(q("stillsky_strehl_estimate_ratio"), "estimate {{instance}}")).
+			WithTarget(target(q("stillsky_bench_strehl_ratio"), "bench true {{instance}}"))).
+		WithPanel(series(id, "Residual wavefront rms: loop estimate and bench truth", "Loop's reconstructed residual and the bench's true residual over the pupil (piston removed), in nanometres of optical path.", nm, 12, 8).
+			WithTarget(target(q("stillsky_residual_wavefront_rms_meters")+" * 1e9", "loop estimate {{instance}}")).
+			WithTarget(target(q("stillsky_bench_residual_wavefront_rms_meters")+" * 1e9", "bench true {{instance}}"))).
+		WithPanel(series(id, "Residual slope rms", "Rms of the residual slopes the loop receives, in radians of tilt.", units.Radians, 12, 8).
+			WithTarget(target(q("stillsky_residual_slope_rms_radians"), "{{instance}}"))).
+		WithPanel(series(id, "Bench frames and commands per second", "Frames the bench produced and mirror commands it applied.", units.Hertz, 12, 8).
+			WithTarget(target(rate("stillsky_bench_frames_total"), "frames {{instance}}")).
+			WithTarget(target(rate("stillsky_bench_commands_total"), "commands {{instance}}"))).
+		WithPanel(series(id, "Frame period: loop and bench", "Frame period the loop learned from the camera and the one the bench runs at.", units.Seconds, 12, 8).
+			WithTarget(target(q("stillsky_frame_period_seconds"), "loop {{instance}}")).
+			WithTarget(target(q("stillsky_bench_frame_period_seconds"), "bench {{instance}}")))
+}
+
+func mirror() *dashboard.DashboardBuilder {
+	id := &panelID{}
+	saturated := q("stillsky_saturated_actuators") + " / " + q("stillsky_actuators")
+	return base("stillsky-mirror", "stillsky: mirror",
+		"Saturation and stroke of the deformable mirror commands the loop sends.").
+		WithPanel(single(id, "Saturated actuators", "Actuators at their stroke limit in the last command.", units.Short, 6, 5).
+			Thresholds(steps(1.0, "orange")).
+			WithTarget(target(q("stillsky_saturated_actuators"), "{{instance}}"))).
+		WithPanel(single(id, "Actuators driven", "Valid actuators the loop commands.", units.Short, 6, 5).
+			WithTarget(target(q("stillsky_actuators"), "{{instance}}"))).
+		WithPanel(single(id, "Fraction of actuators saturated", "Saturated actuators divided by the actuators driven.", units.PercentUnit, 6, 5).
+			Thresholds(steps(0.02, "orange", 0.1, "red")).
+			WithTarget(target(saturated, "{{instance}}"))).
+		WithPanel(single(id, "Stroke used", "Largest command magnitude over the stroke limit, last command.", units.PercentUnit, 6, 5).
+			Min(0).Max(1).
+			Thresholds(steps(0.8, "orange", 0.95, "red")).
+			WithTarget(target(q("stillsky_stroke_used_ratio"), "{{instance}}"))).
+		WithPanel(series(id, "Saturated actuators over time", "Actuators at their stroke limit in each command, over time.", units.Short, 12, 8).
+			WithTarget(target(q("stillsky_saturated_actuators"), "saturated {{instance}}"))).
+		WithPanel(series(id, "Fraction saturated and stroke used", "Both as fractions: of actuators saturated, and of the stroke limit used by the largest command.", units.PercentUnit, 12, 8).
+			Min(0).Max(1).
+			WithTarget(target(saturated, "saturated fraction {{instance}}")).
+			WithTarget(target(q("stillsky_stroke_used_ratio"), "stroke used {{instance}}"))).
+		WithPanel(series(id, "Mirror commands per second", "Commands the loop sent and commands the bench applied.", units.Hertz, 24, 8).
+			WithTarget(target(rate("stillsky_commands_total"), "sent {{instance}}")).
+			WithTarget(target(rate("stillsky_bench_commands_total"), "applied by bench {{instance}}")))
+}
+
+// Query is one panel query, named by the dashboard and panel it belongs to.
+type Query struct {
+	Dashboard, Panel, Expr string
+}
+
+// Queries returns every panel query of the dashboards in files.
+func Queries(files []File) []Query {
+	var out []Query
+	for _, f := range files {
+		for _, p := range f.Dashboard.Panels {
+			if p.Panel == nil {
+				continue
+			}
+			for _, t := range p.Panel.Targets {
+				pq, ok := t.(prometheus.Dataquery)
+				if !ok {
+					continue
+				}
+				out = append(out, Query{Dashboard: f.Name, Panel: deref(p.Panel.Title), Expr: pq.Expr})
+			}
+		}
+	}
+	return out
+}
+
+func deref(s *string) string {
+	if s == nil {
+		return ""
+	}
+	return *s
+}
+
+// Interpolate replaces the Grafana variables the dashboards use by what Grafana
+// would send with every job and instance selected, so that the expression can be
+// parsed or sent to Prometheus directly. rateInterval is a PromQL duration such
+// as "1m".
+func Interpolate(expr, rateInterval string) string {
+	return strings.NewReplacer(
+		"$__rate_interval", rateInterval,
+		"$job", ".*",
+		"$instance", ".*",
+	).Replace(expr)
+}
