@@ -1,0 +1,326 @@
+package mvm
+
+import (
+	"fmt"
+	"math"
+	"runtime"
+	"unsafe"
+)
+
+// Precision is the storage format of the matrix inside a Fast multiplier.
+// Arithmetic is always float32; only the stored elements are narrowed.
+type Precision int
+
+const (
+	// Float32 stores the matrix as given.
+	Float32 Precision = iota
+	// BFloat16 stores each element as a bfloat16 (the top 16 bits of a float32,
+	// rounded to nearest even), halving the bytes read per product. The kernel
+	// widens each element back to float32 exactly, so the only error is the
+	// rounding of the matrix: a relative error of at most 2^-8 per element.
+	BFloat16
+)
+
+// String returns "float32" or "bfloat16".
+func (p Precision) String() string {
+	switch p {
+	case Float32:
+		return "float32"
+	case BFloat16:
+		return "bfloat16"
+	}
+	return fmt.Sprintf("Precision(%d)", int(p))
+}
+
+// elemSize returns the bytes stored per matrix element.
+func (p Precision) elemSize() int {
+	if p == BFloat16 {
+		return 2
+	}
+	return 4
+}
+
+// Options selects how New builds a multiplier. The zero value picks everything
+// automatically.
+type Options struct {
+	// Workers is the number of threads sharing each product, the calling
+	// goroutine included: 1 runs on the caller alone, n > 1 starts n-1 worker
+	// goroutines. 0 chooses by matrix size (see AutoWorkers).
+	Workers int
+	// Precision of the stored matrix: Float32 (default) or BFloat16.
+	Precision Precision
+	// Kernel forces an inner loop: "plain" (pure Go), "avx2" (AVX2 and FMA) or
+	// "avx512" (AVX-512F). "" picks the fastest one the CPU supports. Forcing a
+	// kernel the CPU or the build lacks is an error.
+	Kernel string
+}
+
+// granule is the column padding of the stored matrix, in elements: one loop
+// step of every kernel (2×16 float32 lanes, or one 32-element bfloat16 block).
+const granule = 32
+
+// align is the byte alignment of every stored row and of the x scratch buffer:
+// one cache line, so no vector load of a row ever splits a line.
+const align = 64
+
+// Fast is the multiplier New returns: the matrix copied into a padded,
+// cache-line-aligned layout, one inner-loop kernel, and optionally a pool of
+// worker goroutines that split the rows.
+//
+// A Fast is not safe for concurrent use: one goroutine calls MulVec and
+// MulVecCols at a time. Its worker goroutines live until Close.
+type Fast struct {
+	rows, cols int
+	prec       Precision
+	kern       kernel
+	stride     int // stored elements per row, a multiple of granule
+	f32        []float32
+	b16        []uint16
+	xs         []float32 // x padded with zeros outside the requested columns
+	parts      []rowSpan // rows of each participant; parts[0] is the caller's
+	tails      [][16]float32
+	job        job
+	pool       *pool
+}
+
+type rowSpan struct{ lo, hi int }
+
+// job is the product in progress, written by the caller before it publishes
+// the job to the workers (see pool).
+type job struct {
+	y   []float32
+	x   *float32 // first element of the (padded) x block
+	j0  int      // first stored column of the block, a multiple of granule
+	n   int      // columns in the block, a multiple of granule
+	add bool
+}
+
+// New copies a into the layout of the fastest kernel allowed by opts and
+// returns a multiplier for it. The matrix must have finite elements: the
+// kernels pad ranges of columns with zeros in x, and 0·Inf would not vanish.
+// The result must be released with Close when it has worker goroutines.
+func New(a *Matrix, opts Options) (Multiplier, error) {
+	return NewFast(a, opts)
+}
+
+// NewFast is New with the concrete type, for callers that want to report the
+// kernel and worker count chosen.
+func NewFast(a *Matrix, opts Options) (*Fast, error) {
+	if err := validate(a); err != nil {
+		return nil, err
+	}
+	if opts.Precision != Float32 && opts.Precision != BFloat16 {
+		return nil, fmt.Errorf("mvm: options precision %d: must be Float32 or BFloat16", int(opts.Precision))
+	}
+	if opts.Workers < 0 || opts.Workers > maxWorkers {
+		return nil, fmt.Errorf("mvm: options workers %d: must be in [0, %d]", opts.Workers, maxWorkers)
+	}
+	k, err := pickKernel(opts.Kernel)
+	if err != nil {
+		return nil, err
+	}
+	f := &Fast{rows: a.Rows, cols: a.Cols, prec: opts.Precision, kern: k}
+	f.stride = roundUp(a.Cols, granule)
+	paddedRows := roundUp(a.Rows, 4)
+	if f.prec == BFloat16 {
+		f.b16 = alignedUint16(paddedRows * f.stride)
+		packBF16(f.b16, f.stride, a)
+	} else {
+		f.f32 = alignedFloat32(paddedRows * f.stride)
+		for i := 0; i < a.Rows; i++ {
+			copy(f.f32[i*f.stride:], a.Row(i))
+		}
+	}
+	f.xs = alignedFloat32(f.stride)
+	w := opts.Workers
+	if w == 0 {
+		w = AutoWorkers(a.Rows, a.Cols, f.prec)
+	}
+	f.split(w)
+	if len(f.parts) > 1 {
+		f.pool = startPool(f, len(f.parts)-1)
+	}
+	return f, nil
+}
+
+// maxWorkers bounds Options.Workers; more threads than rows/4 are never used.
+const maxWorkers = 256
+
+// parallelBytes is the smallest stored matrix (bytes) that AutoWorkers splits
+// across threads. Below it the hand-off (two cache-line transfers, ~0.3 µs)
+// costs more than the second core saves; measured on a 2-core Sapphire Rapids
+// guest with BenchmarkMVM (see doc.go).
+const parallelBytes = 256 << 10
+
+// AutoWorkers returns the thread count New uses when Options.Workers is 0:
+// one below parallelBytes of stored matrix, else every thread GOMAXPROCS
+// allows.
+func AutoWorkers(rows, cols int, p Precision) int {
+	if rows*cols*p.elemSize() < parallelBytes {
+		return 1
+	}
+	return max(1, runtime.GOMAXPROCS(0))
+}
+
+func validate(a *Matrix) error {
+	if a == nil {
+		return fmt.Errorf("mvm: matrix: must not be nil")
+	}
+	if a.Rows <= 0 || a.Cols <= 0 {
+		return fmt.Errorf("mvm: matrix shape %d×%d: both dimensions must be positive", a.Rows, a.Cols)
+	}
+	if a.Stride < a.Cols {
+		return fmt.Errorf("mvm: matrix stride %d: must be >= cols %d", a.Stride, a.Cols)
+	}
+	if need := (a.Rows-1)*a.Stride + a.Cols; len(a.Data) < need {
+		return fmt.Errorf("mvm: matrix data length %d: must be >= %d for %d×%d with stride %d", len(a.Data), need, a.Rows, a.Cols, a.Stride)
+	}
+	for i := 0; i < a.Rows; i++ {
+		for j, v := range a.Row(i) {
+			if math.IsNaN(float64(v)) || math.IsInf(float64(v), 0) {
+				return fmt.Errorf("mvm: matrix element (%d, %d) = %v: must be finite", i, j, v)
+			}
+		}
+	}
+	return nil
+}
+
+// split assigns rows to w participants in groups of 4 rows, as evenly as the
+// groups allow; participants that would get no rows are dropped.
+func (f *Fast) split(w int) {
+	groups := (f.rows + 3) / 4
+	w = max(1, min(w, groups))
+	f.parts = make([]rowSpan, w)
+	f.tails = make([][16]float32, w)
+	lo := 0
+	for p := range w {
+		g := groups / w
+		if p < groups%w {
+			g++
+		}
+		hi := min(lo+4*g, f.rows)
+		f.parts[p] = rowSpan{lo, hi}
+		lo = hi
+	}
+}
+
+// Rows returns the number of rows of A.
+func (f *Fast) Rows() int { return f.rows }
+
+// Cols returns the number of columns of A.
+func (f *Fast) Cols() int { return f.cols }
+
+// Kernel returns the name of the inner loop in use: "plain", "avx2" or "avx512".
+func (f *Fast) Kernel() string { return f.kern.name }
+
+// Workers returns the number of threads sharing each product, the caller included.
+func (f *Fast) Workers() int { return len(f.parts) }
+
+// Precision returns the storage format of the matrix.
+func (f *Fast) Precision() Precision { return f.prec }
+
+// MulVec stores y = A·x. It panics unless len(y) == Rows() and len(x) == Cols().
+func (f *Fast) MulVec(y, x []float32) {
+	f.check(y, x, 0, f.cols)
+	f.run(y, x, 0, f.cols, false)
+}
+
+// MulVecCols adds A[:, c0:c1]·x[c0:c1] into y. It panics unless len(y) == Rows(),
+// len(x) == Cols() and 0 <= c0 <= c1 <= Cols().
+func (f *Fast) MulVecCols(y, x []float32, c0, c1 int) {
+	f.check(y, x, c0, c1)
+	if c0 == c1 {
+		return
+	}
+	f.run(y, x, c0, c1, true)
+}
+
+func (f *Fast) check(y, x []float32, c0, c1 int) {
+	if len(y) != f.rows || len(x) != f.cols {
+		panic(fmt.Sprintf("mvm: shape mismatch: A is %d×%d, len(y)=%d, len(x)=%d", f.rows, f.cols, len(y), len(x)))
+	}
+	if c0 < 0 || c0 > c1 || c1 > f.cols {
+		panic(fmt.Sprintf("mvm: column range [%d, %d) outside [0, %d)", c0, c1, f.cols))
+	}
+}
+
+// run widens [c0, c1) to whole granules and gives the kernels an x that is
+// zero outside [c0, c1), so they never need a remainder loop. When the range
+// is already whole granules x is used in place.
+func (f *Fast) run(y, x []float32, c0, c1 int, add bool) {
+	j0 := c0 &^ (granule - 1)
+	j1 := roundUp(c1, granule)
+	xp := &x[c0]
+	if c0 != j0 || c1 != j1 {
+		xs := f.xs[j0:j1]
+		clear(xs[:c0-j0])
+		copy(xs[c0-j0:], x[c0:c1])
+		clear(xs[c1-j0:])
+		xp = &xs[0]
+	}
+	f.job = job{y: y, x: xp, j0: j0, n: j1 - j0, add: add}
+	if f.pool == nil {
+		f.part(0)
+		return
+	}
+	f.pool.run(f)
+}
+
+// part computes the rows of participant p for the current job.
+func (f *Fast) part(p int) {
+	s := f.parts[p]
+	j := &f.job
+	byteStride := uintptr(f.stride * f.prec.elemSize())
+	full := (s.hi - s.lo) / 4
+	if full > 0 {
+		f.kern.gemv(f.prec, f.at(s.lo, j.j0), byteStride, full, j.x, j.n, &j.y[s.lo], j.add)
+	}
+	r := s.lo + 4*full
+	if r == s.hi {
+		return
+	}
+	// The last group is short: the stored matrix has zero rows up to a
+	// multiple of 4, so compute 4 rows into a scratch and keep the real ones.
+	t := &f.tails[p]
+	k := s.hi - r
+	if j.add {
+		copy(t[:k], j.y[r:s.hi])
+	}
+	f.kern.gemv(f.prec, f.at(r, j.j0), byteStride, 1, j.x, j.n, &t[0], j.add)
+	copy(j.y[r:s.hi], t[:k])
+}
+
+// at returns the address of stored element (i, j).
+func (f *Fast) at(i, j int) unsafe.Pointer {
+	if f.prec == BFloat16 {
+		return unsafe.Pointer(&f.b16[i*f.stride+j])
+	}
+	return unsafe.Pointer(&f.f32[i*f.stride+j])
+}
+
+// Close stops the worker goroutines. It is safe to call more than once.
+func (f *Fast) Close() {
+	if f.pool != nil {
+		f.pool.close()
+	}
+}
+
+func roundUp(n, m int) int { return (n + m - 1) / m * m }
+
+func alignedFloat32(n int) []float32 {
+	buf := make([]float32, n+align/4)
+	off := int(uintptr(unsafe.Pointer(&buf[0]))%align) / 4
+	if off != 0 {
+		off = align/4 - off
+	}
+	return buf[off : off+n : off+n]
+}
+
+func alignedUint16(n int) []uint16 {
+	buf := make([]uint16, n+align/2)
+	off := int(uintptr(unsafe.Pointer(&buf[0]))%align) / 2
+	if off != 0 {
+		off = align/2 - off
+	}
+	return buf[off : off+n : off+n]
+}
