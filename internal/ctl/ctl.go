@@ -1,0 +1,265 @@
+// Package ctl is the operator's client of the loop daemon's Control API, behind
+// `stillsky ctl`: one verb per call, human-readable output, and errors the command
+// prints on one line.
+package ctl
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"strconv"
+	"strings"
+
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/status"
+
+	"stillsky/internal/atomicfile"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+)
+
+// Usage lists the verbs.
+const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | calibrate [--hadamard] | save FILE | load FILE"
+
+// Run performs one verb against the Control API on conn and writes the result to out.
+func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out io.Writer) error {
+	if len(args) == 0 {
+		return fmt.Errorf("missing verb: %s", Usage)
+	}
+	c := stillskyv1.NewControlServiceClient(conn)
+	verb, rest := args[0], args[1:]
+	want := func(n int) error {
+		if len(rest) != n {
+			return fmt.Errorf("%s takes %d argument(s), got %d", verb, n, len(rest))
+		}
+		return nil
+	}
+	var st *stillskyv1.GetStatusResponse
+	var err error
+	switch verb {
+	case "status":
+		if err = want(0); err == nil {
+			st, err = c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+		}
+	case "open":
+		if err = want(0); err == nil {
+			var r *stillskyv1.OpenLoopResponse
+			r, err = c.OpenLoop(ctx, &stillskyv1.OpenLoopRequest{})
+			st = r.GetStatus()
+		}
+	case "close":
+		if err = want(0); err == nil {
+			var r *stillskyv1.CloseLoopResponse
+			r, err = c.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{})
+			st = r.GetStatus()
+		}
+	case "hold":
+		if err = want(0); err == nil {
+			var r *stillskyv1.HoldLoopResponse
+			r, err = c.HoldLoop(ctx, &stillskyv1.HoldLoopRequest{})
+			st = r.GetStatus()
+		}
+	case "gain", "leak":
+		if err = want(1); err != nil {
+			break
+		}
+		v, perr := strconv.ParseFloat(rest[0], 64)
+		if perr != nil {
+			return fmt.Errorf("%s %q: not a number", verb, rest[0])
+		}
+		if verb == "gain" {
+			var r *stillskyv1.SetGainResponse
+			r, err = c.SetGain(ctx, &stillskyv1.SetGainRequest{Gain: v})
+			st = r.GetStatus()
+		} else {
+			var r *stillskyv1.SetLeakResponse
+			r, err = c.SetLeak(ctx, &stillskyv1.SetLeakRequest{Leak: v})
+			st = r.GetStatus()
+		}
+	case "modal-gains":
+		if err = want(1); err != nil {
+			break
+		}
+		var gains []float64
+		for _, f := range strings.Split(rest[0], ",") {
+			v, perr := strconv.ParseFloat(strings.TrimSpace(f), 64)
+			if perr != nil {
+				return fmt.Errorf("modal gain %q: not a number", f)
+			}
+			gains = append(gains, v)
+		}
+		var r *stillskyv1.SetModalGainsResponse
+		r, err = c.SetModalGains(ctx, &stillskyv1.SetModalGainsRequest{Gains: gains})
+		st = r.GetStatus()
+	case "calibrate":
+		req := &stillskyv1.CalibrateRequest{}
+		for _, a := range rest {
+			if a != "--hadamard" {
+				return fmt.Errorf("calibrate: unknown option %q (only --hadamard)", a)
+			}
+			req.Hadamard = true
+		}
+		return Calibrate(ctx, c, req, out)
+	case "save":
+		if err = want(1); err == nil {
+			err = save(ctx, c, rest[0])
+			if err == nil {
+				fmt.Fprintf(out, "reconstructor saved to %s\n", rest[0])
+			}
+		}
+	case "load":
+		if err = want(1); err == nil {
+			var info *stillskyv1.ReconstructorInfo
+			info, err = load(ctx, c, rest[0])
+			if err == nil {
+				fmt.Fprintf(out, "reconstructor loaded: %s\n", describeReconstructor(info))
+			}
+		}
+	default:
+		return fmt.Errorf("unknown verb %q: %s", verb, Usage)
+	}
+	if err != nil {
+		return oneLine(err)
+	}
+	if st != nil {
+		WriteStatus(out, st)
+	}
+	return nil
+}
+
+// oneLine turns a gRPC error into "code: message".
+func oneLine(err error) error {
+	if s, ok := status.FromError(err); ok {
+		return fmt.Errorf("%s: %s", strings.ToLower(s.Code().String()), s.Message())
+	}
+	return err
+}
+
+// Calibrate runs a calibration and draws a progress bar on out.
+func Calibrate(ctx context.Context, c stillskyv1.ControlServiceClient, req *stillskyv1.CalibrateRequest, out io.Writer) error {
+	stream, err := c.Calibrate(ctx, req)
+	if err != nil {
+		return oneLine(err)
+	}
+	for {
+		r, err := stream.Recv()
+		if err == io.EOF {
+			return nil
+		}
+		if err != nil {
+			fmt.Fprintln(out)
+			return oneLine(err)
+		}
+		if r.GetTotal() > 0 {
+			const width = 40
+			n := int(width * uint64(r.GetDone()) / uint64(r.GetTotal()))
+			fmt.Fprintf(out, "\rcalibrating [%s%s] %3d%% %-9s", strings.Repeat("#", n), strings.Repeat(".", width-n),
+				100*uint64(r.GetDone())/uint64(r.GetTotal()), r.GetPhase())
+		}
+		if r.GetPhase() == "done" {
+			fmt.Fprintf(out, "\nreconstructor: %s\n", describeReconstructor(r.GetReconstructor()))
+		}
+	}
+}
+
+func describeReconstructor(r *stillskyv1.ReconstructorInfo) string {
+	if r == nil {
+		return "none"
+	}
+	return fmt.Sprintf("%s, %d modes kept, %d slopes × %d actuators, condition %.3g",
+		r.GetMethod(), r.GetModesKept(), r.GetSlopeCount(), r.GetActuatorCount(), r.GetConditionNumber())
+}
+
+func save(ctx context.Context, c stillskyv1.ControlServiceClient, path string) error {
+	stream, err := c.SaveReconstructor(ctx, &stillskyv1.SaveReconstructorRequest{})
+	if err != nil {
+		return err
+	}
+	// Receive everything before touching the file, so a failed transfer leaves any
+	// existing file as it was.
+	var chunks [][]byte
+	for {
+		r, err := stream.Recv()
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			return err
+		}
+		chunks = append(chunks, r.GetChunk())
+	}
+	return atomicfile.Write(path, func(w io.Writer) error {
+		for _, b := range chunks {
+			if _, err := w.Write(b); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+}
+
+func load(ctx context.Context, c stillskyv1.ControlServiceClient, path string) (*stillskyv1.ReconstructorInfo, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, err
+	}
+	defer f.Close()
+	stream, err := c.LoadReconstructor(ctx)
+	if err != nil {
+		return nil, err
+	}
+	buf := make([]byte, 1<<20)
+	for {
+		n, rerr := f.Read(buf)
+		if n > 0 {
+			if err := stream.Send(&stillskyv1.LoadReconstructorRequest{Chunk: append([]byte(nil), buf[:n]...)}); err != nil {
+				if errors.Is(err, io.EOF) {
+					break // the server ended the stream; CloseAndRecv has its reason
+				}
+				return nil, err
+			}
+		}
+		if rerr == io.EOF {
+			break
+		}
+		if rerr != nil {
+			return nil, rerr
+		}
+	}
+	r, err := stream.CloseAndRecv()
+	if err != nil {
+		return nil, err
+	}
+	return r.GetReconstructor(), nil
+}
+
+// WriteStatus prints a status snapshot.
+func WriteStatus(out io.Writer, s *stillskyv1.GetStatusResponse) {
+	state := strings.ToLower(strings.TrimPrefix(s.GetState().String(), "LOOP_STATE_"))
+	fmt.Fprintf(out, "state           %s\n", state)
+	fmt.Fprintf(out, "gain / leak     %.3g / %.3g\n", s.GetGain(), s.GetLeak())
+	fmt.Fprintf(out, "devices         camera %s, mirror %s\n", upDown(s.GetCameraConnected()), upDown(s.GetMirrorConnected()))
+	fmt.Fprintf(out, "geometry        %d slopes, %d actuators, %.0f Hz\n", s.GetSlopeCount(), s.GetActuatorCount(), s.GetFrameRateHz())
+	fmt.Fprintf(out, "frames          %d received, %d dropped, %d rejected (last %d)\n", s.GetFrames(), s.GetFramesDropped(), s.GetFramesRejected(), s.GetLastFrame())
+	fmt.Fprintf(out, "reconstructor   %s\n", describeReconstructor(s.GetReconstructor()))
+	fmt.Fprintf(out, "residual        %.1f nm rms wavefront, %.3g µrad rms slopes\n", s.GetResidualWavefrontRmsM()*1e9, s.GetResidualSlopeRmsRad()*1e6)
+	fmt.Fprintf(out, "strehl estimate %.3f at %.3g µm\n", s.GetStrehlEstimate(), s.GetScienceWavelengthM()*1e6)
+	fmt.Fprintf(out, "saturated       %d actuators\n", s.GetSaturatedActuators())
+	l := s.GetRtcLatency()
+	fmt.Fprintf(out, "rtc latency     p50 %.1f µs, p99 %.1f µs, max %.1f µs\n", l.GetP50()*1e6, l.GetP99()*1e6, l.GetMax()*1e6)
+	e := s.GetEndToEndLatency()
+	fmt.Fprintf(out, "end-to-end      p50 %.1f µs, p99 %.1f µs, max %.1f µs\n", e.GetP50()*1e6, e.GetP99()*1e6, e.GetMax()*1e6)
+	trip := s.GetLastInterlock()
+	if trip == "" {
+		trip = "none"
+	}
+	fmt.Fprintf(out, "interlocks      %d trips (last: %s)\n", s.GetInterlockTrips(), trip)
+}
+
+func upDown(b bool) string {
+	if b {
+		return "connected"
+	}
+	return "disconnected"
+}
