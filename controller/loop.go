@@ -107,15 +107,16 @@ func (l *Loop) StepChunk(slopes []float32, c0, c1 int) Status {
 		return l.status
 	}
 	p := l.frame
+	in, ref, res := slopes[c0:c1], p.ref[c0:c1], l.resid[c0:c1]
+	ref, res = ref[:len(in)], res[:len(in)]
 	var ss float64
-	for j := c0; j < c1; j++ {
-		v := slopes[j]
+	for j, v := range in {
 		if !isFinite32(v) {
 			l.status = StatusNonFinite
 			return l.status
 		}
-		r := v - p.ref[j]
-		l.resid[j] = r
+		r := v - ref[j]
+		res[j] = r
 		ss += float64(r) * float64(r)
 	}
 	l.sumsq += ss

@@ -5,8 +5,6 @@ import (
 	"math"
 	"sync/atomic"
 
-	"gonum.org/v1/gonum/mat"
-
 	"stillsky/controller/mvm"
 )
 
@@ -40,7 +38,9 @@ type ParamsConfig struct {
 }
 
 // Params is an immutable, validated parameter set. Build it with NewParams off the
-// hot path and hand it to Loop.SetParams; it can serve several loops.
+// hot path and hand it to Loop.SetParams. Its matrix kernel keeps scratch space,
+// so only one Loop at a time may step with a set and with the sets derived from
+// it by WithGain or WithLeak (which share its kernel). Release it with Close.
 type Params struct {
 	cfg     ParamsConfig
 	ns, na  int
@@ -61,9 +61,10 @@ type kernel struct {
 	refs atomic.Int32
 }
 
-// newMultiplier is the one place that chooses the MVM kernel.
+// newMultiplier is the one place that chooses the MVM kernel: the fastest one the
+// CPU supports, with worker threads chosen by matrix size.
 func newMultiplier(a *mvm.Matrix) (mvm.Multiplier, error) {
-	return mvm.NewPlain(a), nil
+	return mvm.New(a, mvm.Options{})
 }
 
 func newKernel(r *Reconstructor, modalGains []float64) (*kernel, error) {
@@ -269,15 +270,4 @@ func (p *Params) Close() {
 	if p.kern.refs.Add(-1) == 0 {
 		p.kern.mul.Close()
 	}
-}
-
-// float64 view of the control matrix, for tests and tools.
-func (p *Params) controlDense() *mat.Dense {
-	out := mat.NewDense(p.na, p.ns, nil)
-	for i := 0; i < p.na; i++ {
-		for j, v := range p.kern.a.Row(i) {
-			out.Set(i, j, float64(v))
-		}
-	}
-	return out
 }
