@@ -1,0 +1,254 @@
+package daemon
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"net"
+	"net/http"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+	"google.golang.org/grpc"
+
+	"stillsky/controller"
+	"stillsky/internal/rpc"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+)
+
+// Config is what the loop daemon needs to run. Zero values take the documented
+// defaults.
+type Config struct {
+	// CameraAddr and MirrorAddr are the devices' gRPC addresses (host:port or
+	// unix:/path).
+	CameraAddr, MirrorAddr string
+	// ListenAddr is the Control API's gRPC address; default 127.0.0.1:7411.
+	ListenAddr string
+	// MetricsAddr is the HTTP address of /metrics and the live view; default
+	// 127.0.0.1:7412. "-" disables it.
+	MetricsAddr string
+	// StateDir keeps the committed reconstructor and settings across restarts; ""
+	// keeps nothing.
+	StateDir string
+	// Gain and Leak of the integrator at start; defaults 0.4 and 0.01.
+	Gain, Leak *float64
+	// ScienceWavelength of the Strehl estimate, metres; default 1.65e-6 (H band).
+	ScienceWavelength float64
+	// Chunks asks the camera for frames in this many chunks (pipelined
+	// reconstruction); 0 or 1 for whole frames.
+	Chunks int
+	// Security protects the Control API; see Security.
+	Security Security
+	// Logger receives the daemon's log; nil discards it.
+	Logger *slog.Logger
+}
+
+func (c *Config) setDefaults() error {
+	if c.CameraAddr == "" || c.MirrorAddr == "" {
+		return errors.New("daemon: camera and mirror addresses are required")
+	}
+	if c.ListenAddr == "" {
+		c.ListenAddr = "127.0.0.1:7411"
+	}
+	if c.MetricsAddr == "" {
+		c.MetricsAddr = "127.0.0.1:7412"
+	}
+	if c.ScienceWavelength == 0 {
+		c.ScienceWavelength = 1.65e-6
+	}
+	if !(c.ScienceWavelength > 0) || math.IsInf(c.ScienceWavelength, 0) {
+		return fmt.Errorf("daemon: science wavelength %g m: must be finite and > 0", c.ScienceWavelength)
+	}
+	if c.Chunks < 0 {
+		return fmt.Errorf("daemon: chunks %d: must be >= 0", c.Chunks)
+	}
+	if c.Logger == nil {
+		c.Logger = slog.New(slog.DiscardHandler)
+	}
+	return nil
+}
+
+// geometry is what the daemon learns from the devices' Describe.
+type geometry struct {
+	slopes, actuators int
+	frameRate         float64
+	stroke            float64
+	delayFrames       int
+	lockstep          bool
+}
+
+// Daemon is the loop process: device links, the real-time goroutine, the Control
+// API and the metrics.
+type Daemon struct {
+	cfg Config
+	log *slog.Logger
+	m   *metrics
+
+	ctlLis, httpLis net.Listener
+	grpcServer      *grpc.Server
+	httpServer      *http.Server
+
+	// Set once the devices have been described.
+	geomMu sync.Mutex
+	geom   *geometry
+
+	// loop is created with the first parameter set; guarded by paramsMu for
+	// writers, read by the real-time goroutine through loopPtr.
+	paramsMu sync.Mutex
+	loopPtr  atomic.Pointer[controller.Loop]
+	// estimator runs the same reconstructor with gain 0 in open loop, so the
+	// residual estimates are reported before the loop is closed.
+	estimator atomic.Pointer[controller.Loop]
+	gain      float64
+	leak      float64
+
+	want  atomic.Int32 // state requested by the Control API
+	state atomic.Int32 // state the real-time goroutine is in
+	cal   atomic.Pointer[calibration]
+
+	stats runStats
+
+	telemetry telemetryRing
+
+	cameraUp, mirrorUp atomic.Bool
+	restored           bool // guarded by restoreMu
+}
+
+// New validates cfg and opens the daemon's listeners, so that their addresses are
+// known (and a port in use is reported) before Run.
+func New(cfg Config) (*Daemon, error) {
+	if err := cfg.setDefaults(); err != nil {
+		return nil, err
+	}
+	d := &Daemon{cfg: cfg, log: cfg.Logger, m: newMetrics(), gain: 0.4, leak: 0.01}
+	if cfg.Gain != nil {
+		d.gain = *cfg.Gain
+	}
+	if cfg.Leak != nil {
+		d.leak = *cfg.Leak
+	}
+	if err := validGainLeak(d.gain, d.leak); err != nil {
+		return nil, err
+	}
+	d.want.Store(int32(stateOpen))
+	d.state.Store(int32(stateOpen))
+	d.m.setState(stateOpen)
+	d.m.gain.Set(d.gain)
+	d.m.leak.Set(d.leak)
+	d.m.wavelength.Set(cfg.ScienceWavelength)
+
+	opts, err := cfg.Security.serverOptions(cfg.ListenAddr)
+	if err != nil {
+		return nil, err
+	}
+	if d.ctlLis, err = rpc.Listen(cfg.ListenAddr); err != nil {
+		return nil, fmt.Errorf("daemon: control listener: %w", err)
+	}
+	if cfg.MetricsAddr != "-" {
+		if d.httpLis, err = rpc.Listen(cfg.MetricsAddr); err != nil {
+			d.ctlLis.Close()
+			return nil, fmt.Errorf("daemon: metrics listener: %w", err)
+		}
+	}
+	d.grpcServer, _ = rpc.NewServer([]string{stillskyv1.ControlService_ServiceDesc.ServiceName}, opts...)
+	stillskyv1.RegisterControlServiceServer(d.grpcServer, &controlServer{d: d})
+	mux := http.NewServeMux()
+	mux.Handle("/metrics", promhttp.HandlerFor(d.m.reg, promhttp.HandlerOpts{Registry: d.m.reg}))
+	d.httpServer = &http.Server{Handler: mux, ReadHeaderTimeout: 5 * time.Second}
+	return d, nil
+}
+
+// ControlAddr returns the address the Control API listens on.
+func (d *Daemon) ControlAddr() string { return d.ctlLis.Addr().String() }
+
+// MetricsAddr returns the address of the HTTP server, or "" when disabled.
+func (d *Daemon) MetricsAddr() string {
+	if d.httpLis == nil {
+		return ""
+	}
+	return d.httpLis.Addr().String()
+}
+
+// Run serves the Control API and metrics, connects to the devices (retrying with
+// backoff) and runs the loop until ctx ends.
+func (d *Daemon) Run(ctx context.Context) error {
+	errc := make(chan error, 2)
+	go func() { errc <- d.grpcServer.Serve(d.ctlLis) }()
+	if d.httpLis != nil {
+		go func() {
+			if err := d.httpServer.Serve(d.httpLis); !errors.Is(err, http.ErrServerClosed) {
+				errc <- err
+			}
+		}()
+	}
+	d.log.Info("loop daemon listening", "control", d.ControlAddr(), "metrics", d.MetricsAddr())
+	go d.devices(ctx)
+
+	var err error
+	select {
+	case <-ctx.Done():
+	case err = <-errc:
+	}
+	d.grpcServer.GracefulStop()
+	shut, cancel := context.WithTimeout(context.Background(), 2*time.Second)
+	defer cancel()
+	d.httpServer.Shutdown(shut)
+	return err
+}
+
+// devices keeps the device session up: connect, describe, stream; on failure the
+// loop opens and the daemon reconnects with exponential backoff.
+func (d *Daemon) devices(ctx context.Context) {
+	backoff := 100 * time.Millisecond
+	for ctx.Err() == nil {
+		start := time.Now()
+		err := d.session(ctx)
+		if ctx.Err() != nil {
+			return
+		}
+		if time.Since(start) > 5*time.Second {
+			backoff = 100 * time.Millisecond
+		}
+		d.log.Warn("device session ended; reconnecting", "err", err, "backoff", backoff)
+		select {
+		case <-ctx.Done():
+			return
+		case <-time.After(backoff):
+		}
+		backoff = min(2*backoff, 5*time.Second)
+	}
+}
+
+// waitDevices blocks until the devices are described or ctx ends.
+func (d *Daemon) waitDevices(ctx context.Context) (*geometry, error) {
+	for {
+		if g := d.geometry(); g != nil {
+			return g, nil
+		}
+		select {
+		case <-ctx.Done():
+			return nil, ctx.Err()
+		case <-time.After(20 * time.Millisecond):
+		}
+	}
+}
+
+func (d *Daemon) geometry() *geometry {
+	d.geomMu.Lock()
+	defer d.geomMu.Unlock()
+	return d.geom
+}
+
+func validGainLeak(g, l float64) error {
+	if !(g >= 0 && g < controller.MaxGain) {
+		return fmt.Errorf("gain %g: must be in [0, %g)", g, controller.MaxGain)
+	}
+	if !(l >= 0 && l < 1) {
+		return fmt.Errorf("leak %g: must be in [0, 1)", l)
+	}
+	return nil
+}

@@ -1,0 +1,136 @@
+package daemon
+
+import (
+	"github.com/prometheus/client_golang/prometheus"
+
+	"stillsky/internal/buildinfo"
+)
+
+// latencyBuckets span a fast in-memory step (µs) to a badly overloaded loop (tens of
+// ms), densest around the 1 kHz frame period.
+var latencyBuckets = []float64{5e-6, 10e-6, 20e-6, 35e-6, 50e-6, 75e-6, 100e-6, 150e-6, 200e-6, 300e-6, 500e-6, 750e-6, 1e-3, 2e-3, 5e-3, 10e-3, 50e-3}
+
+// stateNames are the label values of stillsky_loop_state, indexed by loopState.
+var stateNames = [...]string{stateOpen: "open", stateClosed: "closed", stateHold: "hold", stateCalibrating: "calibrating", stateTripped: "tripped"}
+
+// Frame rejection reasons (label values of stillsky_frames_rejected_total).
+const (
+	rejectLength     = "length"
+	rejectNonFinite  = "nonfinite"
+	rejectDuplicate  = "duplicate"
+	rejectOutOfOrder = "out_of_order"
+)
+
+// Interlock reasons (label values of stillsky_interlock_trips_total).
+const (
+	tripDivergence        = "divergence"
+	tripSaturation        = "saturation"
+	tripStaleCamera       = "stale_camera"
+	tripMirrorUnreachable = "mirror_unreachable"
+)
+
+// metrics owns every metric of the daemon, on the daemon's own registry. The
+// real-time goroutine uses the pre-resolved children held here, so observing a
+// frame does no label lookup and allocates nothing.
+type metrics struct {
+	reg *prometheus.Registry
+
+	frames, dropped, commands                 prometheus.Counter
+	rejLength, rejNonFinite, rejDup, rejOrder prometheus.Counter
+	compute, rtc, endToEnd                    prometheus.Observer
+	framePeriod, slopeRMS, wavefrontRMS       prometheus.Gauge
+	strehl, wavelength, saturated, actuators  prometheus.Gauge
+	strokeUsed, gain, leak                    prometheus.Gauge
+	state                                     [len(stateNames)]prometheus.Gauge
+	tripDiv, tripSat, tripStale, tripMirror   prometheus.Counter
+	calibrationsOK, calibrationsFailed        prometheus.Counter
+}
+
+func newMetrics() *metrics {
+	m := &metrics{reg: prometheus.NewRegistry()}
+	counter := func(name, help string) prometheus.Counter {
+		c := prometheus.NewCounter(prometheus.CounterOpts{Name: name, Help: help})
+		m.reg.MustRegister(c)
+		return c
+	}
+	gauge := func(name, help string) prometheus.Gauge {
+		g := prometheus.NewGauge(prometheus.GaugeOpts{Name: name, Help: help})
+		m.reg.MustRegister(g)
+		return g
+	}
+	histogram := func(name, help string) prometheus.Observer {
+		h := prometheus.NewHistogram(prometheus.HistogramOpts{Name: name, Help: help, Buckets: latencyBuckets})
+		m.reg.MustRegister(h)
+		return h
+	}
+	m.frames = counter("stillsky_frames_total", "Slope frames received from the camera.")
+	m.dropped = counter("stillsky_frames_dropped_total", "Frames lost: gaps in the camera's frame numbers.")
+	m.commands = counter("stillsky_commands_total", "Commands sent to the mirror.")
+	rejected := prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "stillsky_frames_rejected_total",
+		Help: "Frames refused by validation, by reason.",
+	}, []string{"reason"})
+	m.reg.MustRegister(rejected)
+	m.rejLength = rejected.WithLabelValues(rejectLength)
+	m.rejNonFinite = rejected.WithLabelValues(rejectNonFinite)
+	m.rejDup = rejected.WithLabelValues(rejectDuplicate)
+	m.rejOrder = rejected.WithLabelValues(rejectOutOfOrder)
+
+	m.compute = histogram("stillsky_compute_latency_seconds", "Time from frame received to command computed.")
+	m.rtc = histogram("stillsky_rtc_latency_seconds", "Time from frame received to command sent: the controller's own latency.")
+	m.endToEnd = histogram("stillsky_end_to_end_latency_seconds", "Time from camera readout end to the mirror's receipt of the command.")
+
+	m.framePeriod = gauge("stillsky_frame_period_seconds", "Frame period of the camera (1 / frame rate).")
+	m.slopeRMS = gauge("stillsky_residual_slope_rms_radians", "Rms of the residual slopes of the last frame.")
+	m.wavefrontRMS = gauge("stillsky_residual_wavefront_rms_meters", "Reconstructed residual wavefront rms (optical path) of the last frame.")
+	m.strehl = gauge("stillsky_strehl_estimate_ratio", "Maréchal estimate of the Strehl ratio at the science wavelength.")
+	m.wavelength = gauge("stillsky_science_wavelength_meters", "Wavelength of the Strehl estimate.")
+	m.saturated = gauge("stillsky_saturated_actuators", "Actuators at their stroke limit in the last command.")
+	m.actuators = gauge("stillsky_actuators", "Valid actuators driven.")
+	m.strokeUsed = gauge("stillsky_stroke_used_ratio", "Largest |command| over the stroke limit in the last command.")
+	m.gain = gauge("stillsky_loop_gain", "Integrator gain.")
+	m.leak = gauge("stillsky_loop_leak", "Integrator leak.")
+
+	state := prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "stillsky_loop_state",
+		Help: "1 for the current loop state, 0 for the others.",
+	}, []string{"state"})
+	m.reg.MustRegister(state)
+	for i, name := range stateNames {
+		m.state[i] = state.WithLabelValues(name)
+	}
+
+	trips := prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "stillsky_interlock_trips_total",
+		Help: "Safety interlock trips, by reason.",
+	}, []string{"reason"})
+	m.reg.MustRegister(trips)
+	m.tripDiv = trips.WithLabelValues(tripDivergence)
+	m.tripSat = trips.WithLabelValues(tripSaturation)
+	m.tripStale = trips.WithLabelValues(tripStaleCamera)
+	m.tripMirror = trips.WithLabelValues(tripMirrorUnreachable)
+
+	cals := prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "stillsky_calibrations_total",
+		Help: "Calibration runs, by result.",
+	}, []string{"result"})
+	m.reg.MustRegister(cals)
+	m.calibrationsOK = cals.WithLabelValues("ok")
+	m.calibrationsFailed = cals.WithLabelValues("failed")
+
+	if err := buildinfo.Register(m.reg); err != nil {
+		panic(err) // a fresh registry cannot hold a duplicate
+	}
+	return m
+}
+
+// setState marks s as the current loop state.
+func (m *metrics) setState(s loopState) {
+	for i, g := range m.state {
+		if loopState(i) == s {
+			g.Set(1)
+		} else {
+			g.Set(0)
+		}
+	}
+}

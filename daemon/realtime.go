@@ -1,0 +1,453 @@
+package daemon
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"runtime"
+	"slices"
+	"sync/atomic"
+
+	"google.golang.org/grpc"
+
+	"stillsky/controller"
+	"stillsky/internal/monoclock"
+	"stillsky/internal/rpc"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+)
+
+// loopState is the state of the loop; the values index stateNames and convert to
+// the wire enum by adding one.
+type loopState int32
+
+const (
+	stateOpen loopState = iota
+	stateClosed
+	stateHold
+	stateCalibrating
+	stateTripped
+)
+
+func (s loopState) proto() stillskyv1.LoopState { return stillskyv1.LoopState(s + 1) }
+
+// calibration is one calibration run shared between the Control API (which starts
+// it and builds the reconstructor) and the real-time goroutine (which drives it).
+type calibration struct {
+	c        *controller.Calibrator
+	done     chan struct{} // closed by the real-time goroutine when c is Done or aborted
+	aborted  atomic.Bool
+	progress atomic.Int64 // frames consumed
+	started  bool         // real-time goroutine only: the first pattern has been sent
+}
+
+// session connects to both devices, learns the geometry and runs the real-time
+// loop until a device fails or ctx ends.
+func (d *Daemon) session(ctx context.Context) error {
+	camConn, err := rpc.Dial(d.cfg.CameraAddr)
+	if err != nil {
+		return err
+	}
+	defer camConn.Close()
+	mirConn, err := rpc.Dial(d.cfg.MirrorAddr)
+	if err != nil {
+		return err
+	}
+	defer mirConn.Close()
+	cam := stillskyv1.NewCameraServiceClient(camConn)
+	mir := stillskyv1.NewMirrorServiceClient(mirConn)
+
+	camDesc, err := cam.Describe(ctx, &stillskyv1.CameraServiceDescribeRequest{}, grpc.WaitForReady(true))
+	if err != nil {
+		return fmt.Errorf("camera describe: %w", err)
+	}
+	mirDesc, err := mir.Describe(ctx, &stillskyv1.MirrorServiceDescribeRequest{}, grpc.WaitForReady(true))
+	if err != nil {
+		return fmt.Errorf("mirror describe: %w", err)
+	}
+	g := &geometry{
+		slopes:      int(camDesc.GetSlopeCount()),
+		actuators:   int(mirDesc.GetActuatorCount()),
+		frameRate:   camDesc.GetFrameRateHz(),
+		stroke:      mirDesc.GetStrokeM(),
+		delayFrames: int(camDesc.GetDelayFrames()),
+		lockstep:    camDesc.GetLockstep(),
+	}
+	if g.slopes < 1 || g.actuators < 1 || !(g.frameRate > 0) || !(g.stroke > 0) {
+		return fmt.Errorf("devices describe an unusable geometry: %d slopes, %d actuators, %g Hz, stroke %g m", g.slopes, g.actuators, g.frameRate, g.stroke)
+	}
+	if old := d.geometry(); old != nil && (old.slopes != g.slopes || old.actuators != g.actuators) {
+		return fmt.Errorf("devices changed geometry from %d×%d to %d×%d: restart the daemon", old.slopes, old.actuators, g.slopes, g.actuators)
+	}
+	d.geomMu.Lock()
+	d.geom = g
+	d.geomMu.Unlock()
+	d.m.framePeriod.Set(1 / g.frameRate)
+	d.m.actuators.Set(float64(g.actuators))
+	d.log.Info("devices described", "slopes", g.slopes, "actuators", g.actuators, "frame_rate_hz", g.frameRate,
+		"stroke_m", g.stroke, "lockstep", g.lockstep, "camera", camDesc.GetDescription())
+	d.restoreOnce(g)
+
+	sctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	frames, err := cam.StreamFrames(sctx, &stillskyv1.StreamFramesRequest{Chunks: uint32(d.cfg.Chunks)})
+	if err != nil {
+		return fmt.Errorf("camera stream: %w", err)
+	}
+	cmds, err := mir.StreamCommands(sctx)
+	if err != nil {
+		return fmt.Errorf("mirror stream: %w", err)
+	}
+	d.cameraUp.Store(true)
+	d.mirrorUp.Store(true)
+	defer d.cameraUp.Store(false)
+	defer d.mirrorUp.Store(false)
+
+	rt := newRealtime(d, g)
+	ackErr := make(chan error, 1)
+	go func() { ackErr <- rt.acks(cmds) }()
+	err = rt.run(frames, cmds)
+	cancel()
+	<-ackErr
+	// Losing a device opens the loop: a mirror left integrating blind is unsafe.
+	if s := loopState(d.state.Load()); s == stateClosed || s == stateHold {
+		d.want.Store(int32(stateOpen))
+	}
+	d.setState(stateOpen)
+	return err
+}
+
+// realtime holds everything the real-time goroutine touches, allocated once per
+// session so that a frame allocates nothing in the daemon's own code.
+type realtime struct {
+	d       *Daemon
+	g       *geometry
+	frame   *stillskyv1.StreamFramesResponse
+	out     *stillskyv1.StreamCommandsRequest
+	slopes  []float32 // assembled frame
+	cmd     []float32 // command being sent
+	flat    []float32
+	discard []float32 // the open-loop estimator's command, never sent
+	next    int       // next slope index expected in a chunked frame
+	lastNum uint64
+	state   loopState
+	// readout times of recent frames by frame number, for end-to-end latency.
+	readout [readoutRing]atomic.Int64
+	tags    [readoutRing]atomic.Uint64
+}
+
+const readoutRing = 1024
+
+func newRealtime(d *Daemon, g *geometry) *realtime {
+	rt := &realtime{
+		d: d, g: g,
+		frame:   &stillskyv1.StreamFramesResponse{},
+		out:     &stillskyv1.StreamCommandsRequest{},
+		slopes:  make([]float32, g.slopes),
+		cmd:     make([]float32, g.actuators),
+		flat:    make([]float32, g.actuators),
+		discard: make([]float32, g.actuators),
+		state:   loopState(d.state.Load()),
+	}
+	rt.out.Values = rt.cmd
+	d.telemetry.init(g.slopes, g.actuators)
+	return rt
+}
+
+// run is the real-time goroutine: receive a frame, compute, send, on one locked OS
+// thread. Nothing else runs here.
+func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFramesResponse], cmds grpc.BidiStreamingClient[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
+	runtime.LockOSThread()
+	defer runtime.UnlockOSThread()
+	d, m := rt.d, rt.d.m
+	for {
+		if err := frames.RecvMsg(rt.frame); err != nil {
+			return fmt.Errorf("camera stream: %w", err)
+		}
+		received := monoclock.Now()
+		f := rt.frame
+		complete, ok := rt.assemble(f)
+		if !ok || !complete {
+			continue
+		}
+		num := f.GetFrameNumber()
+		m.frames.Inc()
+		d.stats.frames.Add(1)
+		d.stats.lastFrame.Store(num)
+		if gap := num - rt.lastNum; rt.lastNum != 0 && gap > 1 {
+			m.dropped.Add(float64(gap - 1))
+			d.stats.dropped.Add(gap - 1)
+		}
+		rt.lastNum = num
+		slot := num % readoutRing
+		rt.readout[slot].Store(f.GetReadoutEndNs())
+		rt.tags[slot].Store(num)
+
+		res := rt.compute()
+		computed := monoclock.Now()
+		rt.out.FrameNumber = num
+		if err := cmds.SendMsg(rt.out); err != nil {
+			d.m.tripMirror.Inc()
+			return fmt.Errorf("mirror stream: %w", err)
+		}
+		sent := monoclock.Now()
+		m.commands.Inc()
+		m.compute.Observe(float64(computed-received) * 1e-9)
+		m.rtc.Observe(float64(sent-received) * 1e-9)
+		d.stats.rtc.add(sent - received)
+		rt.publish(res)
+		d.telemetry.record(num, rt.state, rt.slopes, rt.cmd, res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated, float64(sent-received)*1e-9)
+	}
+}
+
+// assemble validates a frame message and copies its slopes into the frame buffer.
+// It reports whether the frame is complete, and false in ok when the message was
+// rejected (and counted).
+func (rt *realtime) assemble(f *stillskyv1.StreamFramesResponse) (complete, ok bool) {
+	d := rt.d
+	num := f.GetFrameNumber()
+	if f.GetChunkIndex() == 0 && rt.lastNum != 0 {
+		switch {
+		case num == rt.lastNum:
+			d.m.rejDup.Inc()
+			d.stats.rejected.Add(1)
+			return false, false
+		case num < rt.lastNum:
+			d.m.rejOrder.Inc()
+			d.stats.rejected.Add(1)
+			return false, false
+		}
+	}
+	s := f.GetSlopes()
+	off := int(f.GetOffset())
+	if f.GetChunkIndex() == 0 {
+		rt.next = 0
+	}
+	if off != rt.next || off+len(s) > len(rt.slopes) || len(s) == 0 {
+		d.m.rejLength.Inc()
+		d.stats.rejected.Add(1)
+		rt.next = -1 // the rest of this frame is refused too
+		return false, false
+	}
+	for _, v := range s {
+		if v-v != 0 {
+			d.m.rejNonFinite.Inc()
+			d.stats.rejected.Add(1)
+			rt.next = -1
+			return false, false
+		}
+	}
+	copy(rt.slopes[off:], s)
+	rt.next = off + len(s)
+	if rt.next < len(rt.slopes) {
+		return false, true
+	}
+	return true, true
+}
+
+// compute applies the loop state to the assembled frame and leaves the command to
+// send in rt.cmd.
+func (rt *realtime) compute() controller.Result {
+	d := rt.d
+	want := loopState(d.want.Load())
+	if want != rt.state {
+		rt.enter(want)
+	}
+	loop := d.loopPtr.Load()
+	var res controller.Result
+	switch rt.state {
+	case stateCalibrating:
+		cal := d.cal.Load()
+		if cal == nil || cal.aborted.Load() {
+			rt.finishCalibration(cal)
+			copy(rt.cmd, rt.flat)
+			break
+		}
+		if cal.started {
+			// The frame was validated by assemble, so Feed cannot refuse it.
+			_ = cal.c.Feed(rt.slopes)
+			cal.progress.Store(int64(progressOf(cal.c)))
+		}
+		cal.started = true
+		if cal.c.Done() {
+			rt.finishCalibration(cal)
+			copy(rt.cmd, rt.flat)
+			break
+		}
+		cal.c.Command(rt.cmd)
+		res.SlopeRMS = rms32(rt.slopes)
+	case stateClosed:
+		if loop == nil {
+			copy(rt.cmd, rt.flat)
+			break
+		}
+		res = loop.Step(rt.slopes, rt.cmd)
+	case stateHold:
+		// The mirror keeps the last command; estimates still come from the frame.
+		if loop != nil {
+			loop.Command(rt.cmd)
+		}
+		res.SlopeRMS = rms32(rt.slopes)
+	default: // open, tripped: flat mirror
+		copy(rt.cmd, rt.flat)
+		res.SlopeRMS = rms32(rt.slopes)
+		if est := d.estimator.Load(); est != nil {
+			r := est.Step(rt.slopes, rt.discard)
+			res.ResidualRMS, res.Strehl = r.ResidualRMS, r.Strehl
+		}
+	}
+	return res
+}
+
+// enter performs the side effects of a state change requested by the Control API.
+func (rt *realtime) enter(s loopState) {
+	d := rt.d
+	loop := d.loopPtr.Load()
+	switch s {
+	case stateClosed:
+		if loop != nil && rt.state != stateHold {
+			loop.Reset()
+		}
+	case stateOpen, stateTripped:
+		if loop != nil {
+			loop.Reset()
+		}
+	}
+	rt.state = s
+	d.setState(s)
+}
+
+func (rt *realtime) finishCalibration(cal *calibration) {
+	d := rt.d
+	if cal != nil {
+		close(cal.done)
+		d.cal.Store(nil)
+	}
+	d.want.CompareAndSwap(int32(stateCalibrating), int32(stateOpen))
+	rt.state = stateOpen
+	d.setState(stateOpen)
+}
+
+func progressOf(c *controller.Calibrator) int {
+	done, _ := c.Progress()
+	return done
+}
+
+// publish records the frame's estimates for the metrics and the status.
+func (rt *realtime) publish(res controller.Result) {
+	d, m := rt.d, rt.d.m
+	if !res.OK() {
+		switch res.Status {
+		case controller.StatusNonFinite:
+			m.rejNonFinite.Inc()
+		default:
+			m.rejLength.Inc()
+		}
+		d.stats.rejected.Add(1)
+		return
+	}
+	m.slopeRMS.Set(res.SlopeRMS)
+	m.wavefrontRMS.Set(res.ResidualRMS)
+	m.strehl.Set(res.Strehl)
+	m.saturated.Set(float64(res.Saturated))
+	var peak float32
+	for _, v := range rt.cmd {
+		peak = max(peak, v, -v)
+	}
+	m.strokeUsed.Set(float64(peak) / rt.g.stroke)
+	d.stats.store(res)
+}
+
+// acks reads the mirror's acknowledgements and turns them into end-to-end latency.
+func (rt *realtime) acks(cmds grpc.BidiStreamingClient[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
+	ack := &stillskyv1.StreamCommandsResponse{}
+	for {
+		if err := cmds.RecvMsg(ack); err != nil {
+			return err
+		}
+		num := ack.GetFrameNumber()
+		slot := num % readoutRing
+		if rt.tags[slot].Load() != num {
+			continue
+		}
+		e2e := ack.GetReceivedNs() - rt.readout[slot].Load()
+		if e2e < 0 {
+			continue
+		}
+		rt.d.m.endToEnd.Observe(float64(e2e) * 1e-9)
+		rt.d.stats.e2e.add(e2e)
+	}
+}
+
+func rms32(v []float32) float64 {
+	var s float64
+	for _, x := range v {
+		s += float64(x) * float64(x)
+	}
+	return math.Sqrt(s / float64(len(v)))
+}
+
+// runStats are the figures GetStatus reports, written by the real-time goroutine.
+type runStats struct {
+	frames, dropped, rejected, lastFrame atomic.Uint64
+	slopeRMS, wavefrontRMS, strehl       atomicFloat
+	saturated                            atomic.Int64
+	rtc, e2e                             latencyWindow
+	trips                                atomic.Uint64
+	lastTripReason                       atomic.Pointer[string]
+}
+
+func (s *runStats) lastTrip() string {
+	if p := s.lastTripReason.Load(); p != nil {
+		return *p
+	}
+	return ""
+}
+
+func (s *runStats) store(r controller.Result) {
+	s.slopeRMS.Store(r.SlopeRMS)
+	s.wavefrontRMS.Store(r.ResidualRMS)
+	s.strehl.Store(r.Strehl)
+	s.saturated.Store(int64(r.Saturated))
+}
+
+type atomicFloat struct{ bits atomic.Uint64 }
+
+func (f *atomicFloat) Store(v float64) { f.bits.Store(math.Float64bits(v)) }
+func (f *atomicFloat) Load() float64   { return math.Float64frombits(f.bits.Load()) }
+
+// latencyWindow keeps the most recent latencies (nanoseconds) for the status
+// quantiles; one writer, readers copy.
+type latencyWindow struct {
+	n    atomic.Uint64
+	ring [4096]atomic.Int64
+}
+
+func (w *latencyWindow) add(ns int64) {
+	i := w.n.Add(1) - 1
+	w.ring[i%uint64(len(w.ring))].Store(ns)
+}
+
+// summary returns quantiles over the window, in seconds.
+func (w *latencyWindow) summary() *stillskyv1.LatencySummary {
+	n := w.n.Load()
+	k := min(n, uint64(len(w.ring)))
+	if k == 0 {
+		return &stillskyv1.LatencySummary{}
+	}
+	v := make([]int64, k)
+	for i := range v {
+		v[i] = w.ring[i].Load()
+	}
+	slices.Sort(v)
+	q := func(p float64) float64 { return float64(v[int(p*float64(k-1)+0.5)]) * 1e-9 }
+	return &stillskyv1.LatencySummary{P50: q(0.5), P99: q(0.99), P999: q(0.999), Max: float64(v[k-1]) * 1e-9, Count: n}
+}
+
+var errNoReconstructor = errors.New("no reconstructor loaded: calibrate or load one first")
+
+// setState records the real state for metrics and status.
+func (d *Daemon) setState(s loopState) {
+	d.state.Store(int32(s))
+	d.m.setState(s)
+}
