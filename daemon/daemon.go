@@ -41,6 +41,8 @@ type Config struct {
 	// Chunks asks the camera for frames in this many chunks (pipelined
 	// reconstruction); 0 or 1 for whole frames.
 	Chunks int
+	// Interlocks are the safety limits; see Interlocks.
+	Interlocks Interlocks
 	// Security protects the Control API; see Security.
 	Security Security
 	// Logger receives the daemon's log; nil discards it.
@@ -69,7 +71,7 @@ func (c *Config) setDefaults() error {
 	if c.Logger == nil {
 		c.Logger = slog.New(slog.DiscardHandler)
 	}
-	return nil
+	return c.Interlocks.setDefaults()
 }
 
 // geometry is what the daemon learns from the devices' Describe.

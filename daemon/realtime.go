@@ -8,6 +8,7 @@ import (
 	"runtime"
 	"slices"
 	"sync/atomic"
+	"time"
 
 	"google.golang.org/grpc"
 
@@ -104,6 +105,9 @@ func (d *Daemon) session(ctx context.Context) error {
 	defer d.mirrorUp.Store(false)
 
 	rt := newRealtime(d, g)
+	watchDone := make(chan struct{})
+	defer close(watchDone)
+	go d.watchdog(watchDone, time.Duration(float64(time.Second)/g.frameRate), d.cfg.Interlocks.StalePeriods)
 	ackErr := make(chan error, 1)
 	go func() { ackErr <- rt.acks(cmds) }()
 	err = rt.run(frames, cmds)
@@ -131,6 +135,7 @@ type realtime struct {
 	next    int       // next slope index expected in a chunked frame
 	lastNum uint64
 	state   loopState
+	guard   guard
 	// readout times of recent frames by frame number, for end-to-end latency.
 	readout [readoutRing]atomic.Int64
 	tags    [readoutRing]atomic.Uint64
@@ -148,6 +153,7 @@ func newRealtime(d *Daemon, g *geometry) *realtime {
 		flat:    make([]float32, g.actuators),
 		discard: make([]float32, g.actuators),
 		state:   loopState(d.state.Load()),
+		guard:   guard{cfg: d.cfg.Interlocks},
 	}
 	rt.out.Values = rt.cmd
 	d.telemetry.init(g.slopes, g.actuators)
@@ -165,6 +171,7 @@ func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFrame
 			return fmt.Errorf("camera stream: %w", err)
 		}
 		received := monoclock.Now()
+		d.stats.lastArrival.Store(received)
 		f := rt.frame
 		complete, ok := rt.assemble(f)
 		if !ok || !complete {
@@ -187,7 +194,9 @@ func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFrame
 		computed := monoclock.Now()
 		rt.out.FrameNumber = num
 		if err := cmds.SendMsg(rt.out); err != nil {
-			d.m.tripMirror.Inc()
+			if s := rt.state; s == stateClosed || s == stateHold {
+				d.trip(tripMirrorUnreachable)
+			}
 			return fmt.Errorf("mirror stream: %w", err)
 		}
 		sent := monoclock.Now()
@@ -282,15 +291,27 @@ func (rt *realtime) compute() controller.Result {
 			break
 		}
 		res = loop.Step(rt.slopes, rt.cmd)
+		if !res.OK() {
+			break
+		}
+		if reason := rt.guard.check(res, rt.g.actuators); reason != "" {
+			d.want.CompareAndSwap(int32(stateClosed), int32(stateTripped))
+			d.trip(reason)
+			rt.enter(stateTripped)
+			rt.safeShape()
+		}
 	case stateHold:
 		// The mirror keeps the last command; estimates still come from the frame.
 		if loop != nil {
 			loop.Command(rt.cmd)
 		}
 		res.SlopeRMS = rms32(rt.slopes)
-	default: // open, tripped: flat mirror
-		copy(rt.cmd, rt.flat)
+	default: // open, tripped: the safe shape
+		rt.safeShape()
 		res.SlopeRMS = rms32(rt.slopes)
+		if rt.state == stateOpen {
+			rt.guard.observeOpen(res.SlopeRMS)
+		}
 		if est := d.estimator.Load(); est != nil {
 			r := est.Step(rt.slopes, rt.discard)
 			res.ResidualRMS, res.Strehl = r.ResidualRMS, r.Strehl
@@ -308,6 +329,7 @@ func (rt *realtime) enter(s loopState) {
 		if loop != nil && rt.state != stateHold {
 			loop.Reset()
 		}
+		rt.guard.closing()
 	case stateOpen, stateTripped:
 		if loop != nil {
 			loop.Reset()
@@ -315,6 +337,21 @@ func (rt *realtime) enter(s loopState) {
 	}
 	rt.state = s
 	d.setState(s)
+}
+
+// safeShape writes the command of an open or tripped loop: flat, or with a bleed
+// configured a tripped loop decays from the last command sent.
+func (rt *realtime) safeShape() {
+	b := float32(rt.d.cfg.Interlocks.Bleed)
+	if rt.state != stateTripped || b == 0 {
+		copy(rt.cmd, rt.flat)
+		return
+	}
+	// rt.cmd still holds the previous command.
+	keep := 1 - b
+	for i, v := range rt.cmd {
+		rt.cmd[i] = keep * v
+	}
 }
 
 func (rt *realtime) finishCalibration(cal *calibration) {
@@ -392,6 +429,7 @@ type runStats struct {
 	frames, dropped, rejected, lastFrame atomic.Uint64
 	slopeRMS, wavefrontRMS, strehl       atomicFloat
 	saturated                            atomic.Int64
+	lastArrival                          atomic.Int64 // CLOCK_MONOTONIC ns of the newest frame
 	rtc, e2e                             latencyWindow
 	trips                                atomic.Uint64
 	lastTripReason                       atomic.Pointer[string]

@@ -1,0 +1,151 @@
+package daemon
+
+import (
+	"fmt"
+	"math"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+
+	"stillsky/controller"
+	"stillsky/internal/monoclock"
+)
+
+// Interlocks are the safety limits the real-time goroutine enforces. Zero values
+// take the defaults given with each field.
+type Interlocks struct {
+	// DivergenceFactor trips the loop when the closed-loop slope rms, averaged over
+	// about 20 frames, exceeds this multiple of the open-loop slope rms measured
+	// just before closing (default 3). A stable loop only ever reduces it.
+	DivergenceFactor float64
+	// SaturationFraction and SaturationFrames trip the loop when more than this
+	// fraction of the actuators has been clipped for this many frames in a row
+	// (defaults 0.25 and 50).
+	SaturationFraction float64
+	SaturationFrames   int
+	// StalePeriods holds the mirror when no frame has arrived for this many frame
+	// periods while the loop is closed (default 20).
+	StalePeriods int
+	// Bleed, in (0, 1), makes the safe shape after a trip a decay of the last
+	// command by this factor per frame; 0 sends the mirror flat at once.
+	Bleed float64
+}
+
+func (c *Interlocks) setDefaults() error {
+	if c.DivergenceFactor == 0 {
+		c.DivergenceFactor = 3
+	}
+	if c.SaturationFraction == 0 {
+		c.SaturationFraction = 0.25
+	}
+	if c.SaturationFrames == 0 {
+		c.SaturationFrames = 50
+	}
+	if c.StalePeriods == 0 {
+		c.StalePeriods = 20
+	}
+	switch {
+	case !(c.DivergenceFactor > 1) || math.IsInf(c.DivergenceFactor, 0):
+		return fmt.Errorf("daemon: divergence factor %g: must be finite and > 1", c.DivergenceFactor)
+	case !(c.SaturationFraction > 0 && c.SaturationFraction <= 1):
+		return fmt.Errorf("daemon: saturation fraction %g: must be in (0, 1]", c.SaturationFraction)
+	case c.SaturationFrames < 1:
+		return fmt.Errorf("daemon: saturation frames %d: must be >= 1", c.SaturationFrames)
+	case c.StalePeriods < 2:
+		return fmt.Errorf("daemon: stale periods %d: must be >= 2", c.StalePeriods)
+	case !(c.Bleed >= 0 && c.Bleed < 1):
+		return fmt.Errorf("daemon: bleed %g: must be in [0, 1)", c.Bleed)
+	}
+	return nil
+}
+
+// guard is the interlock state of the real-time goroutine.
+type guard struct {
+	cfg Interlocks
+	// openRMS is an average of the slope rms while open, the turbulence level the
+	// closed loop must stay below.
+	openRMS    float64
+	closedRMS  float64
+	closedN    int
+	saturatedN int
+}
+
+// observeOpen tracks the open-loop slope rms (exponential average over ~50 frames).
+func (g *guard) observeOpen(rms float64) {
+	if g.openRMS == 0 {
+		g.openRMS = rms
+	} else {
+		g.openRMS += (rms - g.openRMS) / 50
+	}
+}
+
+// closing resets the closed-loop averages.
+func (g *guard) closing() {
+	g.closedRMS, g.closedN, g.saturatedN = 0, 0, 0
+}
+
+// check returns the reason to trip after a closed-loop frame, or "".
+func (g *guard) check(res controller.Result, actuators int) string {
+	if float64(res.Saturated) > g.cfg.SaturationFraction*float64(actuators) {
+		g.saturatedN++
+		if g.saturatedN >= g.cfg.SaturationFrames {
+			return tripSaturation
+		}
+	} else {
+		g.saturatedN = 0
+	}
+	g.closedN++
+	if g.closedN == 1 {
+		g.closedRMS = res.SlopeRMS
+	} else {
+		g.closedRMS += (res.SlopeRMS - g.closedRMS) / 20
+	}
+	if g.openRMS > 0 && g.closedN > 20 && g.closedRMS > g.cfg.DivergenceFactor*g.openRMS {
+		return tripDivergence
+	}
+	return ""
+}
+
+// trip records an interlock: counted, logged, visible in the status.
+func (d *Daemon) trip(reason string) {
+	var c prometheus.Counter
+	switch reason {
+	case tripDivergence:
+		c = d.m.tripDiv
+	case tripSaturation:
+		c = d.m.tripSat
+	case tripStaleCamera:
+		c = d.m.tripStale
+	default:
+		c = d.m.tripMirror
+	}
+	c.Inc()
+	d.stats.trips.Add(1)
+	r := reason
+	d.stats.lastTripReason.Store(&r)
+	// Logging allocates; a trip ends closed-loop operation, so it is off the
+	// steady-state hot path.
+	d.log.Warn("safety interlock tripped", "reason", reason)
+}
+
+// watchdog holds the loop when the camera goes quiet while the loop is closed.
+func (d *Daemon) watchdog(done <-chan struct{}, period time.Duration, stale int) {
+	t := time.NewTicker(period)
+	defer t.Stop()
+	for {
+		select {
+		case <-done:
+			return
+		case <-t.C:
+		}
+		last := d.stats.lastArrival.Load()
+		if last == 0 || loopState(d.want.Load()) != stateClosed {
+			continue
+		}
+		if quiet := time.Duration(monoclock.Now() - last); quiet > time.Duration(stale)*period {
+			if d.want.CompareAndSwap(int32(stateClosed), int32(stateHold)) {
+				d.trip(tripStaleCamera)
+			}
+		}
+	}
+}
