@@ -626,4 +626,7 @@ func TestNewParamsRejects(t *testing.T) {
 	}
 	q.Close()
 	q.Close()
+	if _, err := q.WithGain(0.1); err == nil {
+		t.Error("WithGain on a closed set accepted")
+	}
 }

@@ -198,6 +198,9 @@ func cloneSlice[T any](s []T) []T {
 // derive builds a new set from c, sharing p's control matrix when the
 // reconstructor and modal gains are unchanged.
 func (p *Params) derive(c ParamsConfig, rebuild bool) (*Params, error) {
+	if p.closed.Load() {
+		return nil, fmt.Errorf("controller: params: closed")
+	}
 	if !rebuild {
 		q, err := newParams(c)
 		if err != nil {
