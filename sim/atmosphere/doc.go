@@ -1,0 +1,26 @@
+// Package atmosphere simulates optical turbulence: von Kármán phase screens made by
+// FFT with subharmonic compensation of the lowest frequencies, and several frozen-flow
+// layers sampled on the pupil grid of package optics.
+//
+// Phase screens are in radians at the reference wavelength of 500 nm; the layers'
+// sum is returned as optical path difference in metres, which is achromatic.
+//
+// How the layers stay seamless and never repeat. Each layer owns two periodic FFT
+// screens X and Y, a few pupil diameters wide, and samples φ = cos θ·X + sin θ·Y at
+// the pupil shifted by the wind. Because the FFT part is periodic, wrapping around the
+// screen edge has no seam; the subharmonic part is a sum of plane waves translated
+// exactly by a phase factor. θ runs from 0 to π/2 during one screen-crossing time
+// (screen width / wind speed); then X is dropped, Y takes its place and a freshly
+// generated screen becomes the new Y. X and Y are independent Gaussian fields with the
+// same covariance C, so cos²θ·C + sin²θ·C = C: the spatial statistics are exact at
+// every instant, and φ is continuous in time. The extra temporal decorrelation is
+// 1 − cos(Δθ), about 10⁻⁶ over the few milliseconds of servo lag that matter to a
+// loop. The correlation of φ with itself one crossing time later is sin θ cos θ
+// (at most 0.5, 1/π on average) and zero after two: the screen never repeats.
+// The fresh screen is generated in slices (noise rows, row FFTs, column FFTs) spread
+// over the first three quarters of each crossing time, so no frame pays for a whole
+// screen.
+//
+// It is pure physics: it depends on package optics for the pupil grid and the FFT,
+// on gonum through it, and on nothing that does I/O or reads clocks.
+package atmosphere
