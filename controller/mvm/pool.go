@@ -19,22 +19,30 @@ import (
 // therefore costs two cache-line transfers each way and no channel
 // operation, lock or allocation.
 //
-// Idle workers. A worker spins on seq (PAUSE between loads) for spinRounds,
-// then yields its thread with runtime.Gosched for yieldRounds, then parks on
-// a one-slot channel. On this machine spinRounds is about 2 ms, longer than
-// the frame period of any loop rate of interest (≥ 500 Hz), so a running loop
-// never pays a wake-up; a stopped loop costs the CPU for a few milliseconds
-// only. Parking uses the classic flag-and-token protocol: the worker sets
-// parked, re-checks seq, then receives; the caller, after bumping seq,
-// clears any set flag with a compare-and-swap and only then sends one token.
-// Exactly one side wins the swap, so no wake-up is lost or doubled.
+// Idle workers. A waiting worker spins on seq with PAUSE between loads;
+// every goschedEvery rounds it lets other goroutines have its P
+// (runtime.Gosched), and every osYieldEvery rounds other threads have its
+// core (sched_yield), so a caller that the OS put on the same core is not
+// starved. Yielding the core more often hurt: on a loaded machine each
+// sched_yield may hand the core to another process for a time slice.
+// After spinRounds (about 1.5 ms here: PAUSE is ~35 ns) it parks on a
+// one-slot channel. That is longer than the frame period of any loop rate of
+// interest (>= 1 kHz), so a running loop never pays a wake-up, and a stopped
+// loop burns a core for 1.5 ms only. Parking uses the flag-and-token
+// protocol: the worker sets parked, re-checks seq, then receives; the caller,
+// after bumping seq, clears any set flag with a compare-and-swap and only
+// then sends one token. Exactly one side wins the swap, so no wake-up is lost
+// or doubled.
 //
-// The caller spins for waitSpins only, then yields: with more participants
-// than GOMAXPROCS a worker may be waiting for the caller's P.
+// The caller, waiting for done, spins for waitSpins rounds (a few µs, the
+// usual imbalance between shares), then yields core and P every goschedEvery
+// rounds: with more participants than cores, or a worker descheduled by the
+// OS, the worker may need the caller's core or P.
 const (
-	spinRounds  = 1 << 15
-	yieldRounds = 1 << 10
-	waitSpins   = 1 << 12
+	spinRounds   = 1 << 15
+	goschedEvery = 1 << 5
+	osYieldEvery = 1 << 10
+	waitSpins    = 1 << 7
 )
 
 // pad keeps the counters written by different cores on different cache lines.
@@ -78,10 +86,11 @@ func (p *pool) run(f *Fast) {
 	f.part(0)
 	target := s * uint64(len(p.workers))
 	for i := 0; p.done.Load() != target; i++ {
-		if i < waitSpins {
-			pause()
-		} else {
+		if i >= waitSpins && i%goschedEvery == 0 {
+			osYield()
 			runtime.Gosched()
+		} else {
+			pause()
 		}
 	}
 }
@@ -110,17 +119,18 @@ func (p *pool) loop(f *Fast, part int, w *worker) {
 // wait returns the first seq different from last.
 func (p *pool) wait(last uint64, w *worker) uint64 {
 	for {
-		for range spinRounds {
+		for i := 1; i <= spinRounds; i++ {
 			if s := p.seq.Load(); s != last {
 				return s
 			}
-			pause()
-		}
-		for range yieldRounds {
-			if s := p.seq.Load(); s != last {
-				return s
+			switch {
+			case i%osYieldEvery == 0:
+				osYield()
+			case i%goschedEvery == 0:
+				runtime.Gosched()
+			default:
+				pause()
 			}
-			runtime.Gosched()
 		}
 		w.parked.Store(1)
 		if s := p.seq.Load(); s != last {
