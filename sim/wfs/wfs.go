@@ -5,7 +5,6 @@ import (
 	"math"
 	"math/rand/v2"
 
-	"gonum.org/v1/gonum/dsp/fourier"
 	"gonum.org/v1/gonum/stat/distuv"
 
 	"stillsky/sim/optics"
@@ -278,21 +277,25 @@ func (s *ShackHartmann) Image(k int, opd []float64, out []float64) error {
 	return nil
 }
 
-// spotMaker forms subaperture spots by FFT. The subaperture field
-// mask·exp(2πi·OPD/λ), sampled every δ = d/per metres, is zero-padded to M×M
-// samples; the far field is then sampled every λ/(M·δ) radians, and
-// Oversampling×Oversampling samples are summed into one detector pixel, so
-// M = Oversampling·λ/(PixelScale·δ) must be an integer.
+// spotMaker forms subaperture spots by a discrete Fourier transform. The
+// subaperture field mask·exp(2πi·OPD/λ), sampled every δ = d/per metres, is
+// zero-padded to M×M samples; its DFT samples the far field every λ/(M·δ)
+// radians, and Oversampling×Oversampling samples are summed into one detector
+// pixel, so M = Oversampling·λ/(PixelScale·δ) must be an integer. Only per of
+// the M inputs per axis are non-zero and only the detector's q outputs are
+// needed, so the DFT is evaluated as two small matrix products with
+// precomputed twiddles (q·per² + q²·per operations) instead of M-point FFTs:
+// the numbers are those of gonum's FFT of the padded field (tested), about
+// eight times faster for the built-in geometries.
 type spotMaker struct {
 	s         *ShackHartmann
-	m, over   int // FFT size, FFT samples per pixel
-	npix, q   int // pixels across, detector width in FFT samples
-	start     int // frequency index of the first detector sample
-	fft       *fourier.CmplxFFT
+	m, over   int // DFT size, DFT samples per pixel
+	npix, q   int // pixels across, detector width in DFT samples
+	tw        []complex128   // q×per: exp(−2πi·(start+j)·n/M)
 	amp       [][]complex128 // per valid subaperture: mask·centring ramp, per×per
 	norm      []float64      // per valid subaperture: photons/(M²·lit samples)
-	rows      []complex128   // per×M: x-transformed rows
-	col       []complex128   // M: one column
+	field     []complex128   // per×per
+	half      []complex128   // per×q: field transformed along x
 	img       []float64      // npix×npix
 	k         float64        // 2π/λ
 	pixelPos  []float64      // pixel centre offsets from the detector centre, pixels
@@ -317,7 +320,7 @@ func newSpotMaker(s *ShackHartmann) (*spotMaker, error) {
 	if field := c.Wavelength / delta; float64(c.PixelsPerSubaperture)*c.PixelScale > field*(1+1e-9) {
 		return nil, fmt.Errorf("wfs: pixels per subaperture %d × pixel scale %g rad: field must be <= λ/δ = %g rad", c.PixelsPerSubaperture, c.PixelScale, field)
 	}
-	ratio := c.Wavelength / (c.PixelScale * delta) // FFT size per unit oversampling
+	ratio := c.Wavelength / (c.PixelScale * delta) // DFT size per unit oversampling
 	candidates := []int{2, 3, 4, 5, 6, 7, 8, 1}
 	if c.Oversampling > 0 {
 		candidates = []int{c.Oversampling}
@@ -334,22 +337,30 @@ func newSpotMaker(s *ShackHartmann) (*spotMaker, error) {
 		return nil, fmt.Errorf("wfs: pixel scale %g rad: oversampling×λ/(pixel scale·δ) = %d×%g must be an integer >= %d (λ/(2d), Nyquist, always is)",
 			c.PixelScale, candidates[0], ratio, s.per)
 	}
+	per, q := s.per, c.PixelsPerSubaperture*over
 	sm := &spotMaker{
-		s: s, m: m, over: over, npix: c.PixelsPerSubaperture, q: c.PixelsPerSubaperture * over,
-		fft:       fourier.NewCmplxFFT(m),
-		rows:      make([]complex128, s.per*m),
-		col:       make([]complex128, m),
+		s: s, m: m, over: over, npix: c.PixelsPerSubaperture, q: q,
+		tw:        make([]complex128, q*per),
+		field:     make([]complex128, per*per),
+		half:      make([]complex128, per*q),
 		img:       make([]float64, c.PixelsPerSubaperture*c.PixelsPerSubaperture),
 		k:         2 * math.Pi / c.Wavelength,
 		scale:     c.PixelScale,
 		threshold: c.CentroidThreshold,
 	}
-	sm.start = -sm.q / 2
-	// With an even detector width its centre lies half an FFT sample below
-	// frequency 0; a phase ramp exp(−iπ·j/M) moves the on-axis spot there, so a
+	// The detector spans DFT frequencies start … start+q−1 around 0.
+	start := -q / 2
+	for j := range q {
+		for n := range per {
+			a := -2 * math.Pi * float64((start+j)*n) / float64(m)
+			sm.tw[j*per+n] = complex(math.Cos(a), math.Sin(a))
+		}
+	}
+	// With an even detector width its centre lies half a DFT sample below
+	// frequency 0; a phase ramp exp(−iπ·n/M) moves the on-axis spot there, so a
 	// flat wavefront gives a centroid of exactly zero.
 	shift := 0.0
-	if sm.q%2 == 0 {
+	if q%2 == 0 {
 		shift = -0.5
 	}
 	sm.pixelPos = make([]float64, sm.npix)
@@ -358,14 +369,14 @@ func newSpotMaker(s *ShackHartmann) (*spotMaker, error) {
 	}
 	p := s.pupil
 	for k, o := range s.origin {
-		a := make([]complex128, s.per*s.per)
+		a := make([]complex128, per*per)
 		lit := 0.0
-		for y := 0; y < s.per; y++ {
-			for x := 0; x < s.per; x++ {
+		for y := range per {
+			for x := range per {
 				w := p.Mask[o+y*p.N+x]
 				lit += w * w
 				ph := 2 * math.Pi * shift * float64(x+y) / float64(m)
-				a[y*s.per+x] = complex(w*math.Cos(ph), w*math.Sin(ph))
+				a[y*per+x] = complex(w*math.Cos(ph), w*math.Sin(ph))
 			}
 		}
 		sm.amp = append(sm.amp, a)
@@ -374,42 +385,47 @@ func newSpotMaker(s *ShackHartmann) (*spotMaker, error) {
 	return sm, nil
 }
 
-// form computes the noiseless detector image of valid subaperture k into sm.img.
+// form computes the noiseless detector image of valid subaperture k into sm.img:
+// U = W·E·Wᵀ with W the q×per twiddles and E the subaperture field, then
+// |U|² binned over×over into pixels.
 func (sm *spotMaker) form(k int, opd []float64) {
-	s, m, per := sm.s, sm.m, sm.s.per
+	s, per, q := sm.s, sm.s.per, sm.q
 	n := s.pupil.N
 	o := s.origin[k]
 	a := sm.amp[k]
-	for y := 0; y < per; y++ {
-		row := sm.rows[y*m : (y+1)*m]
-		for x := range row {
-			row[x] = 0
-		}
-		for x := 0; x < per; x++ {
-			if v := a[y*per+x]; v != 0 {
+	for y := range per {
+		for x := range per {
+			v := a[y*per+x]
+			if v != 0 {
 				sn, cs := math.Sincos(sm.k * opd[o+y*n+x])
-				row[x] = v * complex(cs, sn)
+				v *= complex(cs, sn)
 			}
+			sm.field[y*per+x] = v
 		}
-		sm.fft.Coefficients(row, row)
 	}
-	for i := range sm.img {
-		sm.img[i] = 0
+	for y := range per {
+		e := sm.field[y*per : (y+1)*per]
+		h := sm.half[y*q : (y+1)*q]
+		for j := range h {
+			w := sm.tw[j*per : (j+1)*per]
+			var acc complex128
+			for x, ex := range e {
+				acc += ex * w[x]
+			}
+			h[j] = acc
+		}
 	}
+	clear(sm.img)
 	norm := sm.norm[k]
-	for jx := 0; jx < sm.q; jx++ {
-		u := (sm.start + jx + m) % m
-		for y := 0; y < per; y++ {
-			sm.col[y] = sm.rows[y*m+u]
-		}
-		for y := per; y < m; y++ {
-			sm.col[y] = 0
-		}
-		sm.fft.Coefficients(sm.col, sm.col)
-		px := jx / sm.over
-		for jy := 0; jy < sm.q; jy++ {
-			v := sm.col[(sm.start+jy+m)%m]
-			sm.img[(jy/sm.over)*sm.npix+px] += norm * (real(v)*real(v) + imag(v)*imag(v))
+	for jy := range q {
+		w := sm.tw[jy*per : (jy+1)*per]
+		row := sm.img[(jy/sm.over)*sm.npix : (jy/sm.over+1)*sm.npix]
+		for jx := range q {
+			var acc complex128
+			for y, wy := range w {
+				acc += wy * sm.half[y*q+jx]
+			}
+			row[jx/sm.over] += norm * (real(acc)*real(acc) + imag(acc)*imag(acc))
 		}
 	}
 }
