@@ -289,8 +289,8 @@ func (s *ShackHartmann) Image(k int, opd []float64, out []float64) error {
 // eight times faster for the built-in geometries.
 type spotMaker struct {
 	s         *ShackHartmann
-	m, over   int // DFT size, DFT samples per pixel
-	npix, q   int // pixels across, detector width in DFT samples
+	m, over   int            // DFT size, DFT samples per pixel
+	npix, q   int            // pixels across, detector width in DFT samples
 	tw        []complex128   // q×per: exp(−2πi·(start+j)·n/M)
 	amp       [][]complex128 // per valid subaperture: mask·centring ramp, per×per
 	norm      []float64      // per valid subaperture: photons/(M²·lit samples)
