@@ -285,8 +285,9 @@ func (s *ShackHartmann) Image(k int, opd []float64, out []float64) error {
 // the M inputs per axis are non-zero and only the detector's q outputs are
 // needed, so the DFT is evaluated as two small matrix products with
 // precomputed twiddles (q·per² + q²·per operations) instead of M-point FFTs:
-// the numbers are those of gonum's FFT of the padded field (tested), about
-// eight times faster for the built-in geometries.
+// the numbers are those of gonum's FFT of the padded field (tested), in about
+// half the time on the default geometry (measured: 2.3 ms against 5.3 ms of
+// CPU per frame for 442 subapertures, M = 16).
 type spotMaker struct {
 	s         *ShackHartmann
 	m, over   int            // DFT size, DFT samples per pixel
