@@ -102,7 +102,8 @@ func target(expr, legend string) *prometheus.DataqueryBuilder {
 // the job and the instance (all jobs and instances by default, so the bench's
 // panels show beside the loop's).
 func base(uid, title, description string) *dashboard.DashboardBuilder {
-	all := dashboard.VariableOption{Text: dashboard.StringOrArrayOfString{String: cog.ToPtr("All")}, Value: dashboard.StringOrArrayOfString{String: cog.ToPtr("$__all")}}
+	// A multi-value variable holds lists, so its current value is a list too.
+	all := dashboard.VariableOption{Text: dashboard.StringOrArrayOfString{ArrayOfString: []string{"All"}}, Value: dashboard.StringOrArrayOfString{ArrayOfString: []string{"$__all"}}}
 	labelValues := func(name, label, query string) *dashboard.QueryVariableBuilder {
 		return dashboard.NewQueryVariableBuilder(name).
 			Label(label).
