@@ -18,8 +18,9 @@ type kernel struct {
 	name string
 	f32  gemvFunc
 	b16  gemvFunc
-	// sum returns Σ p[i] for i < n, n a positive multiple of 64: a pure
-	// streaming read, the yardstick of the read-bandwidth benchmark.
+	// sum returns Σ p[i] for i < 4n, n a positive multiple of 32, read as
+	// four concurrent streams of n elements like the four rows of a gemv
+	// group: the yardstick of the read-bandwidth benchmark.
 	sum func(p *float32, n int) float32
 }
 
@@ -86,7 +87,7 @@ func gemvF32Go(a unsafe.Pointer, stride uintptr, groups int, x *float32, n int, 
 
 func sumF32Go(p *float32, n int) float32 {
 	var s float32
-	for _, v := range unsafe.Slice(p, n) {
+	for _, v := range unsafe.Slice(p, 4*n) {
 		s += v
 	}
 	return s

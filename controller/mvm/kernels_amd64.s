@@ -39,6 +39,16 @@
 	ADDQ $16, R12 \
 	LEAQ (SI)(BX*4), SI
 
+// SUMPTRS sets R8–R11 to the four segments of n floats starting at p.
+#define SUMPTRS \
+	MOVQ p+0(FP), R8 \
+	MOVQ n+8(FP), DX \
+	SHLQ $2, DX \
+	LEAQ (R8)(DX*1), R9 \
+	LEAQ (R9)(DX*1), R10 \
+	LEAQ (R10)(DX*1), R11 \
+	XORQ AX, AX
+
 // FOLD256 halves Y0–Y3 into X0–X3, with X12–X15 as scratch (reloaded by
 // every loop, unlike the bfloat16 mask in Y11).
 #define FOLD256 \
@@ -65,6 +75,32 @@
 	VADDPS Y10, Y2, Y2 \
 	VEXTRACTF64X4 $1, Z3, Y11 \
 	VADDPS Y11, Y3, Y3
+
+// One bfloat16 row step, AVX2: 64 bytes = 32 columns of row p. Word k of the
+// first 32 bytes holds columns k (low half) and 16+k (high half), of the
+// second 32 bytes columns 8+k and 24+k; x[0:8], x[8:16], x[16:24], x[24:32]
+// are in Y12–Y15 and Y11 is 0xffff0000 in every lane.
+#define B2ROW(p, lo, hi) \
+	VMOVDQU (p)(AX*1), Y8 \
+	VPSLLD $16, Y8, Y9 \
+	VPAND Y11, Y8, Y8 \
+	VFMADD231PS Y9, Y12, lo \
+	VFMADD231PS Y8, Y14, hi \
+	VMOVDQU 32(p)(AX*1), Y10 \
+	VPSLLD $16, Y10, Y9 \
+	VPAND Y11, Y10, Y10 \
+	VFMADD231PS Y9, Y13, lo \
+	VFMADD231PS Y10, Y15, hi
+
+// One bfloat16 row step, AVX-512: one cache line = 32 columns of row p; the
+// low halves are columns 0–15 (x in Z8), the high halves 16–31 (x in Z9);
+// Z31 is 0xffff0000 in every lane.
+#define B5ROW(p, t0, t1, lo, hi) \
+	VMOVDQU32 (p)(AX*1), t0 \
+	VPSLLD $16, t0, t1 \
+	VPANDD Z31, t0, t0 \
+	VFMADD231PS t1, Z8, lo \
+	VFMADD231PS t0, Z9, hi
 
 // func gemvF32AVX2(a unsafe.Pointer, stride uintptr, groups int, x *float32, n int, y *float32, add bool)
 TEXT ·gemvF32AVX2(SB), NOSPLIT, $0-49
@@ -147,22 +183,6 @@ f5loop:
 	VZEROUPPER
 	RET
 
-// One bfloat16 row step, AVX2: 64 bytes = 32 columns of row p. Word k of the
-// first 32 bytes holds columns k (low half) and 16+k (high half), of the
-// second 32 bytes columns 8+k and 24+k; x[0:8], x[8:16], x[16:24], x[24:32]
-// are in Y12–Y15 and Y11 is 0xffff0000 in every lane.
-#define B2ROW(p, lo, hi) \
-	VMOVDQU (p)(AX*1), Y8 \
-	VPSLLD $16, Y8, Y9 \
-	VPAND Y11, Y8, Y8 \
-	VFMADD231PS Y9, Y12, lo \
-	VFMADD231PS Y8, Y14, hi \
-	VMOVDQU 32(p)(AX*1), Y10 \
-	VPSLLD $16, Y10, Y9 \
-	VPAND Y11, Y10, Y10 \
-	VFMADD231PS Y9, Y13, lo \
-	VFMADD231PS Y10, Y15, hi
-
 // func gemvBF16AVX2(a unsafe.Pointer, stride uintptr, groups int, x *float32, n int, y *float32, add bool)
 TEXT ·gemvBF16AVX2(SB), NOSPLIT, $0-49
 	LOADARGS
@@ -205,16 +225,6 @@ b2loop:
 	VZEROUPPER
 	RET
 
-// One bfloat16 row step, AVX-512: one cache line = 32 columns of row p; the
-// low halves are columns 0–15 (x in Z8), the high halves 16–31 (x in Z9);
-// Z31 is 0xffff0000 in every lane.
-#define B5ROW(p, t0, t1, lo, hi) \
-	VMOVDQU32 (p)(AX*1), t0 \
-	VPSLLD $16, t0, t1 \
-	VPANDD Z31, t0, t0 \
-	VFMADD231PS t1, Z8, lo \
-	VFMADD231PS t0, Z9, hi
-
 // func gemvBF16AVX512(a unsafe.Pointer, stride uintptr, groups int, x *float32, n int, y *float32, add bool)
 TEXT ·gemvBF16AVX512(SB), NOSPLIT, $0-49
 	LOADARGS
@@ -254,10 +264,7 @@ b5loop:
 
 // func sumF32AVX2(p *float32, n int) float32
 TEXT ·sumF32AVX2(SB), NOSPLIT, $0-20
-	MOVQ p+0(FP), SI
-	MOVQ n+8(FP), DX
-	SHLQ $2, DX
-	XORQ AX, AX
+	SUMPTRS
 	VXORPS Y0, Y0, Y0
 	VXORPS Y1, Y1, Y1
 	VXORPS Y2, Y2, Y2
@@ -268,15 +275,15 @@ TEXT ·sumF32AVX2(SB), NOSPLIT, $0-20
 	VXORPS Y7, Y7, Y7
 
 s2loop:
-	VADDPS (SI)(AX*1), Y0, Y0
-	VADDPS 32(SI)(AX*1), Y1, Y1
-	VADDPS 64(SI)(AX*1), Y2, Y2
-	VADDPS 96(SI)(AX*1), Y3, Y3
-	VADDPS 128(SI)(AX*1), Y4, Y4
-	VADDPS 160(SI)(AX*1), Y5, Y5
-	VADDPS 192(SI)(AX*1), Y6, Y6
-	VADDPS 224(SI)(AX*1), Y7, Y7
-	ADDQ $256, AX
+	VADDPS (R8)(AX*1), Y0, Y0
+	VADDPS (R9)(AX*1), Y1, Y1
+	VADDPS (R10)(AX*1), Y2, Y2
+	VADDPS (R11)(AX*1), Y3, Y3
+	VADDPS 32(R8)(AX*1), Y4, Y4
+	VADDPS 32(R9)(AX*1), Y5, Y5
+	VADDPS 32(R10)(AX*1), Y6, Y6
+	VADDPS 32(R11)(AX*1), Y7, Y7
+	ADDQ $64, AX
 	CMPQ AX, DX
 	JB   s2loop
 
@@ -297,24 +304,33 @@ s2loop:
 
 // func sumF32AVX512(p *float32, n int) float32
 TEXT ·sumF32AVX512(SB), NOSPLIT, $0-20
-	MOVQ p+0(FP), SI
-	MOVQ n+8(FP), DX
-	SHLQ $2, DX
-	XORQ AX, AX
+	SUMPTRS
 	VXORPS Z0, Z0, Z0
 	VXORPS Z1, Z1, Z1
 	VXORPS Z2, Z2, Z2
 	VXORPS Z3, Z3, Z3
+	VXORPS Z4, Z4, Z4
+	VXORPS Z5, Z5, Z5
+	VXORPS Z6, Z6, Z6
+	VXORPS Z7, Z7, Z7
 
 s5loop:
-	VADDPS (SI)(AX*1), Z0, Z0
-	VADDPS 64(SI)(AX*1), Z1, Z1
-	VADDPS 128(SI)(AX*1), Z2, Z2
-	VADDPS 192(SI)(AX*1), Z3, Z3
-	ADDQ $256, AX
+	VADDPS (R8)(AX*1), Z0, Z0
+	VADDPS (R9)(AX*1), Z1, Z1
+	VADDPS (R10)(AX*1), Z2, Z2
+	VADDPS (R11)(AX*1), Z3, Z3
+	VADDPS 64(R8)(AX*1), Z4, Z4
+	VADDPS 64(R9)(AX*1), Z5, Z5
+	VADDPS 64(R10)(AX*1), Z6, Z6
+	VADDPS 64(R11)(AX*1), Z7, Z7
+	ADDQ $128, AX
 	CMPQ AX, DX
 	JB   s5loop
 
+	VADDPS Z4, Z0, Z0
+	VADDPS Z5, Z1, Z1
+	VADDPS Z6, Z2, Z2
+	VADDPS Z7, Z3, Z3
 	VADDPS Z1, Z0, Z0
 	VADDPS Z3, Z2, Z2
 	VADDPS Z2, Z0, Z0
