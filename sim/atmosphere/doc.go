@@ -17,9 +17,15 @@
 // 1 − cos(Δθ), about 10⁻⁶ over the few milliseconds of servo lag that matter to a
 // loop. The correlation of φ with itself one crossing time later is sin θ cos θ
 // (at most 0.5, 1/π on average) and zero after two: the screen never repeats.
-// The fresh screen is generated in slices (noise rows, row FFTs, column FFTs) spread
-// over the first three quarters of each crossing time, so no frame pays for a whole
-// screen.
+// Fresh screens are generated in slices (noise rows, row FFTs, column FFTs) spread
+// over the first three quarters of a crossing time, so no frame pays for a whole
+// screen. One complex FFT gives two independent screens (its real and imaginary
+// parts), so a generation runs every other crossing time. The random numbers are
+// drawn in the same order however the work is sliced.
+//
+// Sampling: the screens have the pupil's sample spacing; a sub-sample shift is a
+// bilinear interpolation, which smooths the smallest scales slightly at half-sample
+// offsets (the price of a fast OPD; integer shifts are exact).
 //
 // It is pure physics: it depends on package optics for the pupil grid and the FFT,
 // on gonum through it, and on nothing that does I/O or reads clocks.

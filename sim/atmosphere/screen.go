@@ -102,18 +102,23 @@ type shCoef [maxLevels][3][3]complex128
 type waveTable struct {
 	levels   int
 	nx, ny   int
-	xr, xi   [maxLevels][]float64 // cos and sin of 2π·df_p·x
+	xr, xi   [maxLevels + 1][]float64 // cos and sin of 2π·df_p·x
 	yc       [maxLevels][]complex128
-	alpha    [maxLevels]float64
-	beta     [maxLevels]float64
+	alpha    [maxLevels + 1]float64
+	beta     [maxLevels + 1]float64
 	rowWaves [maxLevels][3]complex128
 }
 
 func newWaveTable(levels, nx, ny int, dx, df float64) *waveTable {
 	w := &waveTable{levels: levels, nx: nx, ny: ny}
-	for p := 0; p < levels; p++ {
-		dfp := df / math.Pow(3, float64(p+1))
+	// Tables up to a multiple of three levels, so that eval can take three levels
+	// per pass; the extra levels have zero coefficients.
+	for p := 0; p < (levels+2)/3*3; p++ {
 		w.xr[p], w.xi[p] = make([]float64, nx), make([]float64, nx)
+		if p >= levels {
+			continue
+		}
+		dfp := df / math.Pow(3, float64(p+1))
 		for ix := 0; ix < nx; ix++ {
 			w.xi[p][ix], w.xr[p][ix] = math.Sincos(2 * math.Pi * dfp * float64(ix) * dx)
 		}
@@ -143,21 +148,21 @@ func (w *waveTable) eval(c *shCoef, out []float64, add bool) {
 			w.beta[p] = imag(m) - imag(pl)
 		}
 		row := out[iy*w.nx : (iy+1)*w.nx]
-		if !add {
+		for p := 0; p < w.levels; p += 3 {
+			x0r, x0i := w.xr[p][:len(row)], w.xi[p][:len(row)]
+			x1r, x1i := w.xr[p+1][:len(row)], w.xi[p+1][:len(row)]
+			x2r, x2i := w.xr[p+2][:len(row)], w.xi[p+2][:len(row)]
+			a0, b0, a1, b1, a2, b2 := w.alpha[p], w.beta[p], w.alpha[p+1], w.beta[p+1], w.alpha[p+2], w.beta[p+2]
+			first := p == 0 && !add
 			for ix := range row {
-				row[ix] = base
+				v := base + x0r[ix]*a0 + x0i[ix]*b0 + x1r[ix]*a1 + x1i[ix]*b1 + x2r[ix]*a2 + x2i[ix]*b2
+				if first {
+					row[ix] = v
+				} else {
+					row[ix] += v
+				}
 			}
-		} else {
-			for ix := range row {
-				row[ix] += base
-			}
-		}
-		for p := 0; p < w.levels; p++ {
-			xr, xi := w.xr[p][:len(row)], w.xi[p][:len(row)]
-			a, b := w.alpha[p], w.beta[p]
-			for ix := range row {
-				row[ix] += xr[ix]*a + xi[ix]*b
-			}
+			base = 0
 		}
 	}
 }
@@ -253,9 +258,18 @@ func (g *ScreenGenerator) Generate(rng *rand.Rand, out []float64) {
 type job struct {
 	work []complex128
 	rng  *rand.Rand
+	// dest receives the screen with row stride Size+ext; the first ext rows and
+	// columns are repeated after the last ones (the periodic extension), so that a
+	// window of up to ext+1 samples can be read without wrapping indices.
 	dest []float64
-	sh   shCoef // subharmonic coefficients drawn for this screen
-	done int    // units completed, out of 3·Size
+	// dest2, when not nil, receives the imaginary part: a second screen independent
+	// of the first with the same statistics, since the noise is circular Gaussian and
+	// the spectrum even in f.
+	dest2 []float64
+	ext   int
+	sh    shCoef // subharmonic coefficients drawn for dest
+	sh2   shCoef // and for dest2
+	done  int    // units completed, out of 3·Size
 }
 
 func (g *ScreenGenerator) units() int { return 3 * g.c.Size }
@@ -281,8 +295,12 @@ func (g *ScreenGenerator) step(j *job, max int) bool {
 		default:
 			x := k - 2*n
 			g.fft.Columns(j.work, x, x+1)
+			stride := n + j.ext
 			for y := 0; y < n; y++ {
-				j.dest[y*n+x] = real(j.work[y*n+x])
+				put(j.dest, stride, n, j.ext, x, y, real(j.work[y*n+x]))
+				if j.dest2 != nil {
+					put(j.dest2, stride, n, j.ext, x, y, imag(j.work[y*n+x]))
+				}
 			}
 		}
 		j.done++
@@ -290,12 +308,34 @@ func (g *ScreenGenerator) step(j *job, max int) bool {
 	return j.done == 3*n
 }
 
+// put stores sample (x, y) of an n×n screen with row stride stride, repeating it in
+// the periodic extension of ext rows and columns.
+func put(dest []float64, stride, n, ext, x, y int, v float64) {
+	dest[y*stride+x] = v
+	if x < ext {
+		dest[y*stride+x+n] = v
+	}
+	if y < ext {
+		dest[(y+n)*stride+x] = v
+		if x < ext {
+			dest[(y+n)*stride+x+n] = v
+		}
+	}
+}
+
 func (g *ScreenGenerator) drawSubharmonics(j *job) {
-	for p := range j.sh {
-		for a := range j.sh[p] {
-			for b := range j.sh[p][a] {
+	g.draw(j.rng, &j.sh)
+	if j.dest2 != nil {
+		g.draw(j.rng, &j.sh2)
+	}
+}
+
+func (g *ScreenGenerator) draw(rng *rand.Rand, c *shCoef) {
+	for p := range c {
+		for a := range c[p] {
+			for b := range c[p][a] {
 				amp := real(g.sh[p][a][b])
-				j.sh[p][a][b] = complex(j.rng.NormFloat64()*amp, j.rng.NormFloat64()*amp)
+				c[p][a][b] = complex(rng.NormFloat64()*amp, rng.NormFloat64()*amp)
 			}
 		}
 	}

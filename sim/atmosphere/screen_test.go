@@ -154,3 +154,19 @@ func TestNollResiduals(t *testing.T) {
 		t.Errorf("without subharmonics Δ1 = %.3f, expected the FFT screen to lose low-order power (< 85%% of %.4f)", without[1], nollTable[1])
 	}
 }
+
+func benchmarkGenerate(b *testing.B, n int) {
+	g, err := NewScreenGenerator(ScreenConfig{Size: n, PixelScale: 0.0375, R0: 0.12, L0: 25, Subharmonics: true})
+	if err != nil {
+		b.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(1, 1))
+	out := make([]float64, n*n)
+	b.ReportAllocs()
+	for b.Loop() {
+		g.Generate(rng, out)
+	}
+}
+
+func BenchmarkGenerate256(b *testing.B) { benchmarkGenerate(b, 256) }
+func BenchmarkGenerate512(b *testing.B) { benchmarkGenerate(b, 512) }

@@ -1,0 +1,285 @@
+package atmosphere
+
+import (
+	"math"
+	"testing"
+
+	"stillsky/sim/optics"
+)
+
+func pupil(t testing.TB, d float64, n int) *optics.Pupil {
+	t.Helper()
+	p, err := optics.NewPupil(optics.PupilConfig{Diameter: d, N: n})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+// defaultConfig is the turbulence of the default scenario (sim/scenario, default):
+// r0 0.12 m, L0 25 m, three layers.
+func defaultConfig() Config {
+	return Config{R0: 0.12, L0: 25, Seed: 1, Layers: []LayerConfig{
+		{Altitude: 0, Fraction: 0.60, WindSpeed: 6, WindDirectionDeg: 0},
+		{Altitude: 4000, Fraction: 0.25, WindSpeed: 10, WindDirectionDeg: 60},
+		{Altitude: 10000, Fraction: 0.15, WindSpeed: 15, WindDirectionDeg: 135},
+	}}
+}
+
+func newAtm(t testing.TB, c Config, p *optics.Pupil) *Atmosphere {
+	t.Helper()
+	a, err := New(c, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return a
+}
+
+// Fried 1966; Roddier 1981: r0 ∝ λ^(6/5) and r0 ∝ (cos z)^(3/5). R0At follows the
+// formula, and the phase structure function of the OPD converted to phase at 1.65 µm,
+// 30° from the zenith, matches 6.88 (r/r0(λ))^(5/3) within 10% (Fried 1966) over
+// 2 to 6 samples, averaged over 24 independent atmospheres.
+func TestR0Scaling(t *testing.T) {
+	const lambda, z = 1.65e-6, 30.0
+	c := Config{R0: 0.1, L0: 1e4, ZenithDeg: z, Layers: []LayerConfig{{Fraction: 0.7}, {Fraction: 0.3, WindSpeed: 5}}}
+	p := pupil(t, 2, 64)
+	want := 0.1 * math.Pow(math.Cos(z*math.Pi/180), 0.6) * math.Pow(lambda/500e-9, 1.2)
+	a := newAtm(t, c, p)
+	if got := a.R0At(lambda); math.Abs(got-want) > 1e-12 {
+		t.Fatalf("R0At(%g) = %g, want %g", lambda, got, want)
+	}
+	if got := a.R0At(500e-9); math.Abs(got-0.1*math.Pow(math.Cos(z*math.Pi/180), 0.6)) > 1e-15 {
+		t.Errorf("R0At(500 nm) = %g", got)
+	}
+	const count, maxLag = 24, 6
+	n := p.N
+	opd := make([]float64, n*n)
+	d := make([]float64, maxLag+1)
+	k := 2 * math.Pi / lambda
+	for seed := int64(0); seed < count; seed++ {
+		c.Seed = seed
+		newAtm(t, c, p).OPD(opd)
+		for r := 1; r <= maxLag; r++ {
+			var sum float64
+			for y := 0; y < n; y++ {
+				for x := 0; x+r < n; x++ {
+					a := k * (opd[y*n+x+r] - opd[y*n+x])
+					b := k * (opd[(x+r)*n+y] - opd[x*n+y])
+					sum += a*a + b*b
+				}
+			}
+			d[r] += sum / float64(2*n*(n-r)*count)
+		}
+	}
+	for r := 2; r <= maxLag; r++ {
+		w := 6.88 * math.Pow(float64(r)*p.Scale/want, 5.0/3)
+		t.Logf("D(%d samples) at %.2g m: %.4g rad², want %.4g (%+.1f%%)", r, lambda, d[r], w, 100*(d[r]/w-1))
+		if math.Abs(d[r]/w-1) > 0.10 {
+			t.Errorf("D(%d) = %.4g rad² at %g m, want %.4g within 10%%", r, d[r], lambda, w)
+		}
+	}
+}
+
+// freeze stops the screen rotation so that the flow is a pure translation.
+func freeze(a *Atmosphere) {
+	for _, l := range a.layers {
+		l.period = math.Inf(1)
+		l.elapsed = 0
+	}
+}
+
+// Frozen flow (Taylor's hypothesis, common practice): after the wind has carried the
+// layer by a whole number of samples, the OPD is the earlier OPD translated.
+func TestFrozenFlowTranslation(t *testing.T) {
+	const n = 48
+	p := pupil(t, 1.2, n)
+	for _, c := range []struct {
+		dir    float64
+		dx, dy int
+	}{{0, 3, 0}, {90, 0, 3}, {180, -2, 0}, {270, 0, -5}} {
+		cfg := Config{R0: 0.1, L0: 20, Seed: 5, Layers: []LayerConfig{{Fraction: 1, WindSpeed: 10, WindDirectionDeg: c.dir}}}
+		a := newAtm(t, cfg, p)
+		freeze(a)
+		a.Advance(0.0123) // start from a sub-sample position
+		before, after := make([]float64, n*n), make([]float64, n*n)
+		a.OPD(before)
+		shift := math.Hypot(float64(c.dx), float64(c.dy))
+		a.Advance(shift * p.Scale / 10)
+		a.OPD(after)
+		rms := optics.ResidualRMS(p, before)
+		worst := 0.0
+		for y := 0; y < n; y++ {
+			for x := 0; x < n; x++ {
+				xs, ys := x-c.dx, y-c.dy
+				if xs < 0 || ys < 0 || xs >= n || ys >= n {
+					continue
+				}
+				worst = math.Max(worst, math.Abs(after[y*n+x]-before[ys*n+xs]))
+			}
+		}
+		if worst > 1e-6*rms {
+			t.Errorf("wind towards %g°: translated OPD differs by %.3g m (rms %.3g m)", c.dir, worst, rms)
+		}
+	}
+}
+
+// corr is the normalised correlation of two maps.
+func corr(a, b []float64) float64 {
+	var ab, aa, bb float64
+	for i := range a {
+		ab += a[i] * b[i]
+		aa += a[i] * a[i]
+		bb += b[i] * b[i]
+	}
+	return ab / math.Sqrt(aa*bb)
+}
+
+// laplacian is the discrete Laplacian of an n×n map on its interior. Its spectrum
+// f⁴Φ(f) rises with f, so unlike the phase it decorrelates within a few samples and
+// a correlation measured on it has many degrees of freedom.
+func laplacian(m []float64, n int) []float64 {
+	out := make([]float64, 0, (n-2)*(n-2))
+	for y := 1; y < n-1; y++ {
+		for x := 1; x < n-1; x++ {
+			out = append(out, m[y*n+x-1]+m[y*n+x+1]+m[(y-1)*n+x]+m[(y+1)*n+x]-4*m[y*n+x])
+		}
+	}
+	return out
+}
+
+// A long run over several screen lengths: the frame-to-frame change stays steady
+// through every wrap of the periodic screen and every change of screen (no jump),
+// and the flow does not come back to the same turbulence. After one crossing time
+// the pupil sees the same samples of the periodic screens; the turbulence there
+// correlates as sin θ cos θ, 1/π on average, where a plain periodic screen would give
+// 1 (own derivation, see doc.go), and two crossings apart it is 0. The correlation is
+// taken on the Laplacian of the OPD (small scales, many degrees of freedom).
+func TestLongRunNoJumpNoRepeat(t *testing.T) {
+	const n, dt = 32, 1e-3
+	p := pupil(t, 1.6, n)
+	v := p.Scale / dt
+	a := newAtm(t, Config{R0: 0.1, L0: 30, Seed: 3, Layers: []LayerConfig{{Fraction: 1, WindSpeed: v}}}, p)
+	s := a.ScreenSize()
+	frames := 3*s + 1
+	lap := make([][]float64, frames)
+	prev, cur := make([]float64, n*n), make([]float64, n*n)
+	d := make([]float64, n*n)
+	a.OPD(prev)
+	rms := make([]float64, frames)
+	for k := 1; k < frames; k++ {
+		a.Advance(dt)
+		a.OPD(cur)
+		for i := range d {
+			d[i] = cur[i] - prev[i]
+		}
+		rms[k] = optics.ResidualRMS(p, d)
+		lap[k] = laplacian(cur, n)
+		prev, cur = cur, prev
+	}
+	var mean float64
+	for _, r := range rms[1:] {
+		mean += r / float64(frames-1)
+	}
+	for k, r := range rms[1:] {
+		if r > 1.35*mean || r < mean/1.35 {
+			t.Errorf("frame %d: change %.3g m rms, run mean %.3g m: a jump", k+1, r, mean)
+		}
+	}
+	var c1, c2 float64
+	for k := 1; k <= s; k++ {
+		c1 += corr(lap[k], lap[k+s]) / float64(s)
+		c2 += corr(lap[k], lap[k+2*s]) / float64(s)
+	}
+	t.Logf("screen %d samples: frame change %.3g m rms; correlation one crossing later %.3f (1/π = %.3f), two crossings later %.3f", s, mean, c1, 1/math.Pi, c2)
+	if math.Abs(c1-1/math.Pi) > 0.06 {
+		t.Errorf("correlation one crossing later %.3f, want 1/π = %.3f within 0.06", c1, 1/math.Pi)
+	}
+	if math.Abs(c2) > 0.06 {
+		t.Errorf("correlation two crossings later %.3f, want 0 within 0.06", c2)
+	}
+}
+
+// The same seed and the same sequence of steps give the same turbulence; how the
+// time is sliced into steps does not change it beyond rounding.
+func TestReproducible(t *testing.T) {
+	p := pupil(t, 3.6, 48)
+	c := defaultConfig()
+	a, b, other := newAtm(t, c, p), newAtm(t, c, p), newAtm(t, Config{R0: c.R0, L0: c.L0, Layers: c.Layers, Seed: 2}, p)
+	for k := 0; k < 500; k++ {
+		a.Advance(2e-3)
+		b.Advance(1e-3)
+		b.Advance(1e-3)
+		other.Advance(2e-3)
+	}
+	oa, ob, oo := make([]float64, 48*48), make([]float64, 48*48), make([]float64, 48*48)
+	a.OPD(oa)
+	b.OPD(ob)
+	other.OPD(oo)
+	rms := optics.ResidualRMS(p, oa)
+	for i := range oa {
+		if math.Abs(oa[i]-ob[i]) > 1e-9*rms {
+			t.Fatalf("sample %d: %g after 2 ms steps, %g after 1 ms steps", i, oa[i], ob[i])
+		}
+	}
+	if corr(oa, oo) > 0.9 {
+		t.Errorf("a different seed gave nearly the same turbulence")
+	}
+}
+
+func TestAdvanceAndOPDAllocateNothing(t *testing.T) {
+	p := pupil(t, 3.6, 48)
+	a := newAtm(t, defaultConfig(), p)
+	out := make([]float64, 48*48)
+	if n := testing.AllocsPerRun(200, func() { a.Advance(1e-3); a.OPD(out) }); n != 0 {
+		t.Errorf("%v allocations per frame, want 0", n)
+	}
+}
+
+func TestNewRejects(t *testing.T) {
+	p := pupil(t, 1, 16)
+	good := Config{R0: 0.1, L0: 20, Layers: []LayerConfig{{Fraction: 1, WindSpeed: 5}}}
+	bad := map[string]func(*Config){
+		"r0 zero":      func(c *Config) { c.R0 = 0 },
+		"r0 NaN":       func(c *Config) { c.R0 = math.NaN() },
+		"L0 negative":  func(c *Config) { c.L0 = -1 },
+		"zenith 85":    func(c *Config) { c.ZenithDeg = 85 },
+		"no layers":    func(c *Config) { c.Layers = nil },
+		"fraction sum": func(c *Config) { c.Layers = []LayerConfig{{Fraction: 0.5}} },
+		"fraction 0":   func(c *Config) { c.Layers = []LayerConfig{{Fraction: 0}, {Fraction: 1}} },
+		"wind -1":      func(c *Config) { c.Layers = []LayerConfig{{Fraction: 1, WindSpeed: -1}} },
+		"altitude NaN": func(c *Config) { c.Layers = []LayerConfig{{Fraction: 1, Altitude: math.NaN()}} },
+		"dir Inf":      func(c *Config) { c.Layers = []LayerConfig{{Fraction: 1, WindDirectionDeg: math.Inf(1)}} },
+	}
+	for name, f := range bad {
+		c := good
+		c.Layers = append([]LayerConfig(nil), good.Layers...)
+		f(&c)
+		if _, err := New(c, p); err == nil {
+			t.Errorf("%s: New accepted %+v", name, c)
+		}
+	}
+}
+
+// BenchmarkOPD is the default scenario: 3.6 m, 96 samples across, three layers.
+func BenchmarkOPD(b *testing.B) {
+	p := pupil(b, 3.6, 96)
+	a := newAtm(b, defaultConfig(), p)
+	out := make([]float64, 96*96)
+	b.ReportAllocs()
+	for b.Loop() {
+		a.OPD(out)
+	}
+}
+
+// BenchmarkFrame is one 1 kHz frame of the default scenario: Advance (with its share
+// of the next screens' generation) and OPD.
+func BenchmarkFrame(b *testing.B) {
+	p := pupil(b, 3.6, 96)
+	a := newAtm(b, defaultConfig(), p)
+	out := make([]float64, 96*96)
+	b.ReportAllocs()
+	for b.Loop() {
+		a.Advance(1e-3)
+		a.OPD(out)
+	}
+}
