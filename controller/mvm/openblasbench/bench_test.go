@@ -6,11 +6,35 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"os"
+	"syscall"
 	"testing"
 	"time"
 
 	"stillsky/controller/mvm"
 )
+
+// timeoutEnv bounds how long idle OpenBLAS threads keep spinning (with
+// sched_yield) for the next call: 2^v cycles, 2^28 (~0.1 s) by default,
+// read once when the library loads. Left at the default, OpenBLAS's idle
+// threads would still be spinning through our block after its own and take
+// our worker's core. 2^20 cycles (~0.4 ms) is the order of our own workers'
+// spin bound and far longer than the gap between back-to-back calls, so
+// OpenBLAS's timed calls are not slowed.
+const timeoutEnv = "OPENBLAS_THREAD_TIMEOUT"
+
+// TestMain re-executes the test binary with timeoutEnv set, since the
+// library reads it before any Go code runs.
+func TestMain(m *testing.M) {
+	if os.Getenv(timeoutEnv) == "" {
+		os.Setenv(timeoutEnv, "20")
+		if exe, err := os.Executable(); err == nil {
+			err = syscall.Exec(exe, os.Args, os.Environ())
+			fmt.Fprintf(os.Stderr, "openblasbench: re-exec with %s=20: %v; OpenBLAS keeps its default spin\n", timeoutEnv, err)
+		}
+	}
+	os.Exit(m.Run())
+}
 
 // Sizes of mvm.BenchmarkMVM: rows × columns, float32.
 var shapes = [][2]int{{850, 1600}, {1300, 2500}, {3300, 6400}}
@@ -52,8 +76,8 @@ func TestSgemvAgrees(t *testing.T) {
 // blockTime is the length of one uninterrupted run of one implementation;
 // gap lets the other side's spinning helper threads go idle first.
 const (
-	blockTime = 50 * time.Millisecond
-	gap       = 10 * time.Millisecond
+	blockTime = 20 * time.Millisecond
+	gap       = 5 * time.Millisecond
 )
 
 // BenchmarkVsOpenBLAS alternates blocks of our MVM and of cblas_sgemv with
