@@ -1,0 +1,236 @@
+package bench
+
+import (
+	"fmt"
+	"math/rand/v2"
+
+	"stillsky/sim/atmosphere"
+	"stillsky/sim/dm"
+	"stillsky/sim/optics"
+	"stillsky/sim/scenario"
+	"stillsky/sim/wfs"
+)
+
+// SciencePad is the zero-padding factor of the science imager: 2 samples the
+// PSF at Nyquist, λ/(2D) per pixel.
+const SciencePad = 2
+
+// noiseStream separates the sensor's noise stream from the turbulence, which
+// uses the scenario seed directly.
+const noiseStream = 0x5eed_0f_5105
+
+// System is the optical bench of one scenario in lockstep: SetCommand sets the
+// mirror shape that the following Frame calls see, and each Frame advances the
+// turbulence by one frame period and senses the residual
+// OPD = atmosphere − 2·surface (reflection doubles the path, common practice).
+// A System is not safe for concurrent use.
+type System struct {
+	sc       *scenario.Scenario
+	pupil    *optics.Pupil
+	atm      *atmosphere.Atmosphere
+	mirror   *dm.Mirror
+	sensor   *wfs.ShackHartmann
+	imager   *optics.Imager
+	noise    *rand.Rand
+	period   float64
+	cmd      []float32
+	dirty    bool // cmd changed since surface was computed
+	turb     bool
+	noiseOn  bool
+	atmOPD   []float64
+	surface  []float64
+	residual []float64
+	// Science exposure: sum of PSFs added by Expose, and their count.
+	psf, exposure []float64
+	exposed       int
+}
+
+// NewSystem builds the bench for scenario s. Errors name the part that refused
+// the scenario.
+func NewSystem(s *scenario.Scenario) (*System, error) {
+	if s == nil {
+		return nil, fmt.Errorf("bench: nil scenario")
+	}
+	p, err := optics.NewPupil(s.PupilConfig())
+	if err != nil {
+		return nil, fmt.Errorf("bench: scenario %s: %w", s.Name, err)
+	}
+	layers := make([]atmosphere.LayerConfig, len(s.Atmosphere.Layers))
+	for i, l := range s.Atmosphere.Layers {
+		layers[i] = atmosphere.LayerConfig{Altitude: l.Altitude, Fraction: l.Fraction,
+			WindSpeed: l.WindSpeed, WindDirectionDeg: l.WindDirectionDeg}
+	}
+	atm, err := atmosphere.New(atmosphere.Config{R0: s.Atmosphere.R0, L0: s.Atmosphere.L0,
+		ZenithDeg: s.Atmosphere.ZenithDeg, Layers: layers, Seed: s.Atmosphere.Seed}, p)
+	if err != nil {
+		return nil, fmt.Errorf("bench: scenario %s: %w", s.Name, err)
+	}
+	m, err := dm.New(p, dm.Config{Actuators: s.DM.Actuators, Coupling: s.DM.Coupling,
+		Stroke: s.DM.Stroke, Margin: s.DM.Margin})
+	if err != nil {
+		return nil, fmt.Errorf("bench: scenario %s: %w", s.Name, err)
+	}
+	w := s.WFS
+	g := s.GuideStar
+	sensor, err := wfs.New(p, wfs.Config{
+		Subapertures: w.Subapertures, Mode: w.Mode, ValidThreshold: w.ValidThreshold,
+		Wavelength: g.Wavelength, Magnitude: g.Magnitude, ZeroPoint: g.ZeroPoint,
+		Throughput: g.Throughput, FrameRate: s.Loop.FrameRate,
+		PixelsPerSubaperture: w.PixelsPerSubaperture, PixelScale: w.PixelScale,
+		ReadNoise: w.ReadNoise, Background: w.Background,
+		CentroidThreshold: w.CentroidThreshold, Noise: w.Noise,
+	})
+	if err != nil {
+		return nil, fmt.Errorf("bench: scenario %s: %w", s.Name, err)
+	}
+	im, err := optics.NewImager(p, s.Science.Wavelength, SciencePad)
+	if err != nil {
+		return nil, fmt.Errorf("bench: scenario %s: %w", s.Name, err)
+	}
+	n := p.N * p.N
+	return &System{
+		sc: s, pupil: p, atm: atm, mirror: m, sensor: sensor, imager: im,
+		noise:  rand.New(rand.NewPCG(uint64(s.Atmosphere.Seed), noiseStream)),
+		period: 1 / s.Loop.FrameRate,
+		cmd:    make([]float32, m.NumValid()),
+		turb:   true, noiseOn: w.Noise,
+		atmOPD: make([]float64, n), surface: make([]float64, n), residual: make([]float64, n),
+	}, nil
+}
+
+// Scenario returns the scenario the system was built from.
+func (s *System) Scenario() *scenario.Scenario { return s.sc }
+
+// NumSlopes returns the length of a slope vector (2 per valid subaperture).
+func (s *System) NumSlopes() int { return s.sensor.NumSlopes() }
+
+// NumActuators returns the length of a command (valid actuators).
+func (s *System) NumActuators() int { return s.mirror.NumValid() }
+
+// FramePeriod returns the time between frames in seconds, 1/frame rate.
+func (s *System) FramePeriod() float64 { return s.period }
+
+// SetCommand copies cmd (metres of surface per valid actuator; the mirror clips
+// it to ±stroke) as the mirror shape seen by subsequent Frame calls. It panics
+// if len(cmd) != NumActuators.
+func (s *System) SetCommand(cmd []float32) {
+	if len(cmd) != len(s.cmd) {
+		panic(fmt.Sprintf("bench: SetCommand: %d values, want %d", len(cmd), len(s.cmd)))
+	}
+	copy(s.cmd, cmd)
+	s.dirty = true
+}
+
+// SetTurbulence switches the atmosphere on or off. Off, frames see only the
+// mirror, as with a calibration source; the layers do not move.
+func (s *System) SetTurbulence(on bool) { s.turb = on }
+
+// SetNoise switches sensor noise on or off (it starts as the scenario says).
+func (s *System) SetNoise(on bool) { s.noiseOn = on }
+
+// Frame advances the turbulence by one frame period, forms the residual
+// OPD = atmosphere − 2·surface and writes its slopes (radians, wfs layout) into
+// slopes. It panics if len(slopes) != NumSlopes and allocates nothing.
+func (s *System) Frame(slopes []float32) {
+	if s.dirty {
+		s.mirror.Surface(s.cmd, s.surface)
+		s.dirty = false
+	}
+	if s.turb {
+		s.atm.Advance(s.period)
+		s.atm.OPD(s.atmOPD)
+		for i, a := range s.atmOPD {
+			s.residual[i] = a - 2*s.surface[i]
+		}
+	} else {
+		for i, h := range s.surface {
+			s.residual[i] = -2 * h
+		}
+	}
+	var rng *rand.Rand
+	if s.noiseOn {
+		rng = s.noise
+	}
+	s.sensor.Sense(s.residual, rng, slopes)
+}
+
+// ResidualRMS returns the rms over the pupil of the residual OPD of the last
+// frame, piston removed, in metres.
+func (s *System) ResidualRMS() float64 { return optics.ResidualRMS(s.pupil, s.residual) }
+
+// Strehl returns the science Strehl ratio of the last frame's residual at
+// Science.Wavelength: brightest PSF pixel over the diffraction-limited peak. It
+// costs a padded FFT of the pupil: call it on a subset of frames.
+func (s *System) Strehl() float64 { return s.imager.Strehl(s.residual) }
+
+// PSF writes the science point-spread function of the last frame's residual
+// into out (PSFSize()² values, diffraction-limited peak 1, zero frequency at
+// the centre pixel).
+func (s *System) PSF(out []float64) { s.imager.PSF(s.residual, out) }
+
+// Expose adds the PSF of the last frame's residual to the science exposure,
+// as a camera integrating over the frames it is called on (one padded FFT).
+func (s *System) Expose() {
+	if s.exposure == nil {
+		s.psf = make([]float64, s.imager.Size()*s.imager.Size())
+		s.exposure = make([]float64, len(s.psf))
+	}
+	s.imager.PSF(s.residual, s.psf)
+	for i, v := range s.psf {
+		s.exposure[i] += v
+	}
+	s.exposed++
+}
+
+// ExposureStrehl returns the Strehl ratio of the science exposure: the peak of
+// the mean PSF over the Expose calls since the last ResetExposure, against the
+// diffraction-limited peak. It is the long-exposure Strehl, which averages the
+// speckle that makes single-frame peaks of an uncorrected wavefront high. It
+// returns 0 before the first Expose.
+func (s *System) ExposureStrehl() float64 {
+	if s.exposed == 0 {
+		return 0
+	}
+	best := 0.0
+	for _, v := range s.exposure {
+		best = max(best, v)
+	}
+	return best / float64(s.exposed)
+}
+
+// ExposureFrames returns the number of frames in the science exposure.
+func (s *System) ExposureFrames() int { return s.exposed }
+
+// Exposure writes the mean PSF of the science exposure into out (PSFSize()²
+// values, diffraction-limited peak 1); all zero before the first Expose.
+func (s *System) Exposure(out []float64) {
+	if len(out) != s.imager.Size()*s.imager.Size() {
+		panic(fmt.Sprintf("bench: Exposure: %d values, want %d", len(out), s.imager.Size()*s.imager.Size()))
+	}
+	clear(out)
+	for i, v := range s.exposure {
+		out[i] = v / float64(s.exposed)
+	}
+}
+
+// ResetExposure starts a new science exposure.
+func (s *System) ResetExposure() {
+	clear(s.exposure)
+	s.exposed = 0
+}
+
+// PSFSize returns the side of the science PSF in pixels.
+func (s *System) PSFSize() int { return s.imager.Size() }
+
+// Residual returns the residual OPD of the last frame on the pupil grid
+// (metres). The slice is the system's own: copy it to keep it.
+func (s *System) Residual() []float64 { return s.residual }
+
+// Sensor returns the wavefront sensor.
+func (s *System) Sensor() *wfs.ShackHartmann { return s.sensor }
+
+// Mirror returns the deformable mirror.
+func (s *System) Mirror() *dm.Mirror { return s.mirror }
+
+// Pupil returns the sampled pupil shared by all parts.
+func (s *System) Pupil() *optics.Pupil { return s.pupil }
