@@ -1,18 +1,14 @@
 package optics
 
-import (
-	"fmt"
-
-	"gonum.org/v1/gonum/dsp/fourier"
-)
+import "fmt"
 
 // FFT2 is the 2-D discrete Fourier transform of an n×n row-major complex grid,
 // X[ky,kx] = Σ x[y,x] exp(−2πi (kx·x + ky·y)/n), unnormalised, computed in place as
-// 1-D transforms of the rows and then of the columns (gonum's FFTPACK port). It owns
-// its buffers, so a transform allocates nothing; it is not safe for concurrent use.
+// 1-D transforms of the rows and then of the columns. It owns its buffers, so a
+// transform allocates nothing; it is not safe for concurrent use.
 type FFT2 struct {
 	n   int
-	fft *fourier.CmplxFFT
+	fft *plan
 	col []complex128
 }
 
@@ -21,7 +17,7 @@ func NewFFT2(n int) (*FFT2, error) {
 	if n < 1 {
 		return nil, fmt.Errorf("optics: FFT size %d: must be >= 1", n)
 	}
-	return &FFT2{n: n, fft: fourier.NewCmplxFFT(n), col: make([]complex128, n)}, nil
+	return &FFT2{n: n, fft: newPlan(n), col: make([]complex128, colBlock*n)}, nil
 }
 
 // Len returns n.
@@ -31,21 +27,33 @@ func (f *FFT2) Len() int { return f.n }
 func (f *FFT2) Rows(data []complex128, from, to int) {
 	n := f.n
 	for y := from; y < to; y++ {
-		row := data[y*n : (y+1)*n]
-		f.fft.Coefficients(row, row)
+		f.fft.transform(data[y*n : (y+1)*n])
 	}
 }
+
+// colBlock columns are gathered together, so that each row of the grid is visited
+// once per block rather than once per column.
+const colBlock = 8
 
 // Columns transforms columns [from, to) of data (length n*n) in place.
 func (f *FFT2) Columns(data []complex128, from, to int) {
 	n := f.n
-	for x := from; x < to; x++ {
+	for x0 := from; x0 < to; x0 += colBlock {
+		w := min(colBlock, to-x0)
 		for y := 0; y < n; y++ {
-			f.col[y] = data[y*n+x]
+			row := data[y*n+x0 : y*n+x0+w]
+			for c, v := range row {
+				f.col[c*n+y] = v
+			}
 		}
-		f.fft.Coefficients(f.col, f.col)
+		for c := 0; c < w; c++ {
+			f.fft.transform(f.col[c*n : (c+1)*n])
+		}
 		for y := 0; y < n; y++ {
-			data[y*n+x] = f.col[y]
+			row := data[y*n+x0 : y*n+x0+w]
+			for c := range row {
+				row[c] = f.col[c*n+y]
+			}
 		}
 	}
 }
