@@ -95,6 +95,7 @@ func TestTiltSlopes(t *testing.T) {
 				worst = max(worst, math.Abs(float64(slopes[2*k+on])/want-1))
 				cross = max(cross, math.Abs(float64(slopes[2*k+off])/want))
 			}
+			t.Logf("%s x=%v: %d subapertures, worst relative error %.2g, cross-axis %.2g", c.name, xAxis, s.NumValid(), worst, cross)
 			if worst > c.tol || cross > c.tol {
 				t.Errorf("%s x=%v: worst relative error %.4g, cross-axis %.4g: want <= %g", c.name, xAxis, worst, cross, c.tol)
 			}
