@@ -236,7 +236,7 @@ func (g *ScreenGenerator) Generate(rng *rand.Rand, out []float64) {
 	if len(out) != g.c.Size*g.c.Size {
 		panic(fmt.Sprintf("atmosphere: screen length %d, want %d", len(out), g.c.Size*g.c.Size))
 	}
-	j := job{work: g.work, rng: rng, dest: out}
+	j := job{work: g.work, rng: rng, out: out}
 	for !g.step(&j, 1<<30) {
 	}
 	if !g.c.Subharmonics {
@@ -253,33 +253,42 @@ func (g *ScreenGenerator) Generate(rng *rand.Rand, out []float64) {
 	}
 }
 
-// job is one screen being generated in slices: noise rows, then row FFTs, then column
-// FFTs that also write the real part into dest. Each slice is one unit of work.
+// job is one screen (or two) being generated in slices, each one unit of work: noise
+// rows, row FFTs, blocks of columnsPerUnit column FFTs, then rows copied out.
 type job struct {
 	work []complex128
 	rng  *rand.Rand
-	// dest receives the screen with row stride Size+ext; the first ext rows and
-	// columns are repeated after the last ones (the periodic extension), so that a
-	// window of up to ext+1 samples can be read without wrapping indices.
-	dest []float64
-	// dest2, when not nil, receives the imaginary part: a second screen independent
-	// of the first with the same statistics, since the noise is circular Gaussian and
-	// the spectrum even in f.
-	dest2 []float64
-	ext   int
-	sh    shCoef // subharmonic coefficients drawn for dest
-	sh2   shCoef // and for dest2
-	done  int    // units completed, out of 3·Size
+	// out, when not nil, receives the real part as a plain Size×Size screen.
+	out []float64
+	// re and im, otherwise, receive the real and imaginary parts, two independent
+	// screens with the same statistics (the noise is circular Gaussian and the
+	// spectrum even in f), as float32 with row stride Size+ext. The first ext rows
+	// and columns are repeated after the last ones (the periodic extension), so that
+	// a window of up to ext+1 samples is read without wrapping indices.
+	re, im []float32
+	ext    int
+	sh     shCoef // subharmonic coefficients drawn for out or re
+	sh2    shCoef // and for im
+	done   int    // units completed, out of units()
 }
 
-func (g *ScreenGenerator) units() int { return 3 * g.c.Size }
+// columnsPerUnit column FFTs make one unit of work, so that the pass over the rows
+// that gathers the columns is shared.
+const columnsPerUnit = 8
+
+func (g *ScreenGenerator) units() int {
+	n := g.c.Size
+	return 3*n + (n+columnsPerUnit-1)/columnsPerUnit
+}
 
 // step does up to max units of j and reports whether the screen is complete. The
 // random numbers are drawn in the same order however the work is sliced, so a screen
 // depends only on the state of the generator's rng.
 func (g *ScreenGenerator) step(j *job, max int) bool {
 	n := g.c.Size
-	for ; max > 0 && j.done < 3*n; max-- {
+	nb := (n + columnsPerUnit - 1) / columnsPerUnit
+	total := 3*n + nb
+	for ; max > 0 && j.done < total; max-- {
 		switch k := j.done; {
 		case k < n:
 			row := j.work[k*n : (k+1)*n]
@@ -292,40 +301,42 @@ func (g *ScreenGenerator) step(j *job, max int) bool {
 			}
 		case k < 2*n:
 			g.fft.Rows(j.work, k-n, k-n+1)
+		case k < 2*n+nb:
+			x := (k - 2*n) * columnsPerUnit
+			g.fft.Columns(j.work, x, min(x+columnsPerUnit, n))
 		default:
-			x := k - 2*n
-			g.fft.Columns(j.work, x, x+1)
-			stride := n + j.ext
-			for y := 0; y < n; y++ {
-				put(j.dest, stride, n, j.ext, x, y, real(j.work[y*n+x]))
-				if j.dest2 != nil {
-					put(j.dest2, stride, n, j.ext, x, y, imag(j.work[y*n+x]))
-				}
-			}
+			g.copyOut(j, k-2*n-nb)
 		}
 		j.done++
 	}
-	return j.done == 3*n
+	return j.done == total
 }
 
-// put stores sample (x, y) of an n×n screen with row stride stride, repeating it in
-// the periodic extension of ext rows and columns.
-func put(dest []float64, stride, n, ext, x, y int, v float64) {
-	dest[y*stride+x] = v
-	if x < ext {
-		dest[y*stride+x+n] = v
-	}
-	if y < ext {
-		dest[(y+n)*stride+x] = v
-		if x < ext {
-			dest[(y+n)*stride+x+n] = v
+// copyOut writes row y of the transformed noise to the job's screens.
+func (g *ScreenGenerator) copyOut(j *job, y int) {
+	n := g.c.Size
+	row := j.work[y*n : (y+1)*n]
+	if j.out != nil {
+		dst := j.out[y*n : (y+1)*n]
+		for x, v := range row {
+			dst[x] = real(v)
 		}
+		return
+	}
+	stride := n + j.ext
+	for t := y; t < n+j.ext; t += n {
+		re, im := j.re[t*stride:(t+1)*stride], j.im[t*stride:(t+1)*stride]
+		for x, v := range row {
+			re[x], im[x] = float32(real(v)), float32(imag(v))
+		}
+		copy(re[n:], re[:j.ext])
+		copy(im[n:], im[:j.ext])
 	}
 }
 
 func (g *ScreenGenerator) drawSubharmonics(j *job) {
 	g.draw(j.rng, &j.sh)
-	if j.dest2 != nil {
+	if j.im != nil {
 		g.draw(j.rng, &j.sh2)
 	}
 }
