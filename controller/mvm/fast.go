@@ -147,10 +147,12 @@ func NewFast(a *Matrix, opts Options) (*Fast, error) {
 const maxWorkers = 256
 
 // parallelBytes is the smallest stored matrix (bytes) that AutoWorkers splits
-// across threads. Below it the hand-off (two cache-line transfers, ~0.3 µs)
-// costs more than the second core saves; measured on a 2-core Sapphire Rapids
-// guest with BenchmarkMVM (see doc.go).
-const parallelBytes = 256 << 10
+// across threads: about one core's L2. Below it the product takes a few µs
+// at most and the hand-off (a cache-line round trip, and on a loaded machine
+// the wait until the OS runs both threads at once) costs more than the
+// second core saves; measured by alternating 1 and 2 workers on a 2-core
+// guest (see doc.go).
+const parallelBytes = 2 << 20
 
 // AutoWorkers returns the thread count New uses when Options.Workers is 0:
 // one below parallelBytes of stored matrix, else every thread GOMAXPROCS
