@@ -111,7 +111,7 @@ type Atmosphere struct {
 
 // screenSize is the side of each layer's periodic screen: at least four pupil
 // diameters (so the wind crosses the pupil four times per screen) and 64 samples,
-// rounded up to a product of 2s and 3s, which FFTPACK transforms fastest.
+// rounded up to a product of 2s and 3s, the radices optics.FFT2 is fastest with.
 func screenSize(n int) int {
 	want := max(4*n, 64)
 	best := math.MaxInt
@@ -154,8 +154,6 @@ func New(c Config, p *optics.Pupil) (*Atmosphere, error) {
 			period: side / lc.WindSpeed,
 			from:   make([]float32, stride*stride),
 			to:     make([]float32, stride*stride),
-			spare:  make([]float32, stride*stride),
-			ready:  make([]float32, stride*stride),
 			rng:    rand.New(rand.NewPCG(uint64(c.Seed), uint64(i)+1)),
 		}
 		work := make([]complex128, s*s)
@@ -163,8 +161,13 @@ func New(c Config, p *optics.Pupil) (*Atmosphere, error) {
 		for !gen.step(&first, 1<<30) {
 		}
 		l.shFrom, l.shTo = first.sh, first.sh2
-		l.next = a.newJob(l, work)
-		l.running = true
+		// A layer without wind never leaves its first screen and needs no others.
+		if lc.WindSpeed > 0 {
+			l.spare = make([]float32, stride*stride)
+			l.ready = make([]float32, stride*stride)
+			l.next = a.newJob(l, work)
+			l.running = true
+		}
 		a.layers = append(a.layers, l)
 	}
 	return a, nil

@@ -283,3 +283,20 @@ func BenchmarkFrame(b *testing.B) {
 		a.OPD(out)
 	}
 }
+
+// A layer without wind stays put however long the run (frozen flow with v = 0).
+func TestStillLayer(t *testing.T) {
+	p := pupil(t, 1, 16)
+	a := newAtm(t, Config{R0: 0.1, L0: 20, Layers: []LayerConfig{{Fraction: 1}}}, p)
+	before, after := make([]float64, 256), make([]float64, 256)
+	a.OPD(before)
+	for k := 0; k < 100; k++ {
+		a.Advance(10)
+	}
+	a.OPD(after)
+	for i := range before {
+		if before[i] != after[i] {
+			t.Fatalf("sample %d moved from %g to %g", i, before[i], after[i])
+		}
+	}
+}

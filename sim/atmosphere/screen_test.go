@@ -170,3 +170,34 @@ func benchmarkGenerate(b *testing.B, n int) {
 
 func BenchmarkGenerate256(b *testing.B) { benchmarkGenerate(b, 256) }
 func BenchmarkGenerate512(b *testing.B) { benchmarkGenerate(b, 512) }
+
+func TestGenerateAllocatesNothing(t *testing.T) {
+	g, err := NewScreenGenerator(ScreenConfig{Size: 48, PixelScale: 0.05, R0: 0.1, L0: 20, Subharmonics: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(1, 2))
+	out := make([]float64, 48*48)
+	if n := testing.AllocsPerRun(5, func() { g.Generate(rng, out) }); n != 0 {
+		t.Errorf("%v allocations per screen, want 0", n)
+	}
+}
+
+func TestNewScreenGeneratorRejects(t *testing.T) {
+	good := ScreenConfig{Size: 64, PixelScale: 0.05, R0: 0.1, L0: 20}
+	for name, f := range map[string]func(*ScreenConfig){
+		"size 1":      func(c *ScreenConfig) { c.Size = 1 },
+		"size huge":   func(c *ScreenConfig) { c.Size = 1 << 15 },
+		"pixel 0":     func(c *ScreenConfig) { c.PixelScale = 0 },
+		"pixel Inf":   func(c *ScreenConfig) { c.PixelScale = math.Inf(1) },
+		"r0 negative": func(c *ScreenConfig) { c.R0 = -1 },
+		"L0 NaN":      func(c *ScreenConfig) { c.L0 = math.NaN() },
+		"L0 zero":     func(c *ScreenConfig) { c.L0 = 0 },
+	} {
+		c := good
+		f(&c)
+		if _, err := NewScreenGenerator(c); err == nil {
+			t.Errorf("%s: accepted %+v", name, c)
+		}
+	}
+}
