@@ -50,8 +50,9 @@ type ScreenConfig struct {
 	R0 float64
 	// L0 is the outer scale in metres; +Inf for Kolmogorov turbulence.
 	L0 float64
-	// Subharmonics adds the three-level 3×3 subharmonics of Lane, Glindemann & Dainty
-	// (1992), which restore the power below the screen's lowest FFT frequency.
+	// Subharmonics adds the 3×3 subharmonics of Lane, Glindemann & Dainty (1992), 3
+	// to 8 levels depending on L0 (see levelsFor), which restore the power below the
+	// screen's lowest FFT frequency.
 	Subharmonics bool
 }
 
