@@ -1,11 +1,14 @@
 package main
 
 import (
+	"bytes"
 	"math"
+	"os/exec"
 	"path/filepath"
 	"testing"
 
 	"stillsky/internal/fits"
+	"stillsky/internal/testtool"
 	"stillsky/sim/scenario"
 )
 
@@ -72,6 +75,20 @@ func TestScreenCommand(t *testing.T) {
 		if math.Abs(got/want-1) > 0.10 {
 			t.Errorf("D(%d samples) = %.4g rad², want %.4g within 10%%", r, got, want)
 		}
+	}
+}
+
+// The cube passes fitsverify (HEASARC; Debian package fitsverify) without errors or
+// warnings.
+func TestScreenFileVerifies(t *testing.T) {
+	bin := testtool.Require(t, "fitsverify", "fitsverify")
+	path := filepath.Join(t.TempDir(), "cube.fits")
+	if err := runScreen([]string{"--size", "32", "--count", "3", "--out", path}); err != nil {
+		t.Fatal(err)
+	}
+	out, err := exec.Command(bin, path).CombinedOutput()
+	if err != nil || !bytes.Contains(out, []byte("found 0 warning(s) and 0 error(s)")) {
+		t.Errorf("fitsverify: %v\n%s", err, out)
 	}
 }
 
