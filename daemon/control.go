@@ -158,6 +158,12 @@ func (d *Daemon) requestState(s loopState) error {
 	}
 	d.want.Store(int32(s))
 	d.log.Info("loop state requested", "state", stateNames[s])
+	// The real-time goroutine applies the change at its next frame; wait for it
+	// so that the status returned shows it, unless frames have stopped.
+	deadline := time.Now().Add(500 * time.Millisecond)
+	for loopState(d.state.Load()) != s && time.Now().Before(deadline) {
+		time.Sleep(200 * time.Microsecond)
+	}
 	return nil
 }
 
@@ -337,6 +343,9 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 	if !d.cal.CompareAndSwap(nil, cal) {
 		return status.Error(codes.FailedPrecondition, "a calibration is already running")
 	}
+	if restore := d.selectSource(ctx, stillskyv1.Source_SOURCE_CALIBRATION); restore {
+		defer d.selectSource(context.WithoutCancel(ctx), stillskyv1.Source_SOURCE_SKY)
+	}
 	_, total := c.Progress()
 	d.log.Info("calibration started", "patterns_frames", total, "amplitude_m", cc.Amplitude, "hadamard", cc.Hadamard)
 	d.want.Store(int32(stateCalibrating))
@@ -385,6 +394,26 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 	d.m.calibrationsOK.Inc()
 	d.log.Info("calibration done", "modes_kept", r.ModesKept, "unseen", r.Unseen)
 	return send(&stillskyv1.CalibrateResponse{Phase: "done", Done: uint32(total), Total: uint32(total), Reconstructor: reconstructorInfo(r)})
+}
+
+// selectSource asks the camera for a source and reports whether it switched; a
+// camera without a calibration source leaves the calibration on the sky, where
+// photon noise and turbulence make the interaction matrix noisier.
+func (d *Daemon) selectSource(ctx context.Context, src stillskyv1.Source) bool {
+	cam := d.camera.Load()
+	if cam == nil {
+		return false
+	}
+	_, err := (*cam).SetSource(ctx, &stillskyv1.SetSourceRequest{Source: src})
+	switch {
+	case status.Code(err) == codes.Unimplemented:
+		d.log.Info("camera has no calibration source; calibrating on the sky")
+		return false
+	case err != nil:
+		d.log.Warn("camera refused the source", "source", src.String(), "err", err)
+		return false
+	}
+	return true
 }
 
 // calibrationSettings turns a request into calibrator and reconstructor settings,

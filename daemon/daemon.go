@@ -115,6 +115,8 @@ type Daemon struct {
 	stats runStats
 
 	telemetry telemetryRing
+	// camera is the connected camera's client, for source selection.
+	camera atomic.Pointer[stillskyv1.CameraServiceClient]
 
 	cameraUp, mirrorUp atomic.Bool
 	restored           bool // guarded by restoreMu

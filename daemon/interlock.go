@@ -129,7 +129,7 @@ func (d *Daemon) trip(reason string) {
 }
 
 // watchdog holds the loop when the camera goes quiet while the loop is closed.
-func (d *Daemon) watchdog(done <-chan struct{}, period time.Duration, stale int) {
+func (d *Daemon) watchdog(done <-chan struct{}, period, stale time.Duration) {
 	t := time.NewTicker(period)
 	defer t.Stop()
 	for {
@@ -142,7 +142,7 @@ func (d *Daemon) watchdog(done <-chan struct{}, period time.Duration, stale int)
 		if last == 0 || loopState(d.want.Load()) != stateClosed {
 			continue
 		}
-		if quiet := time.Duration(monoclock.Now() - last); quiet > time.Duration(stale)*period {
+		if quiet := time.Duration(monoclock.Now() - last); quiet > stale {
 			if d.want.CompareAndSwap(int32(stateClosed), int32(stateHold)) {
 				d.trip(tripStaleCamera)
 			}

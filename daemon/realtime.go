@@ -57,6 +57,8 @@ func (d *Daemon) session(ctx context.Context) error {
 	defer mirConn.Close()
 	cam := stillskyv1.NewCameraServiceClient(camConn)
 	mir := stillskyv1.NewMirrorServiceClient(mirConn)
+	d.camera.Store(&cam)
+	defer d.camera.Store(nil)
 
 	camDesc, err := cam.Describe(ctx, &stillskyv1.CameraServiceDescribeRequest{}, grpc.WaitForReady(true))
 	if err != nil {
@@ -107,7 +109,14 @@ func (d *Daemon) session(ctx context.Context) error {
 	rt := newRealtime(d, g)
 	watchDone := make(chan struct{})
 	defer close(watchDone)
-	go d.watchdog(watchDone, time.Duration(float64(time.Second)/g.frameRate), d.cfg.Interlocks.StalePeriods)
+	period := time.Duration(float64(time.Second) / g.frameRate)
+	stale := time.Duration(d.cfg.Interlocks.StalePeriods) * period
+	if g.lockstep {
+		// A lockstep device paces frames by the loop, not by a clock: only a long
+		// silence means it is stuck.
+		stale = max(stale, time.Second)
+	}
+	go d.watchdog(watchDone, period, stale)
 	ackErr := make(chan error, 1)
 	go func() { ackErr <- rt.acks(cmds) }()
 	err = rt.run(frames, cmds)

@@ -5,11 +5,15 @@
 package main
 
 import (
+	"context"
 	"errors"
 	"flag"
 	"fmt"
+	"log/slog"
 	"os"
+	"os/signal"
 	"sort"
+	"syscall"
 )
 
 // subcommand is one verb of the binary. run receives the arguments after the verb
@@ -77,4 +81,18 @@ func parseFlags(fs *flag.FlagSet, args []string) error {
 		return fmt.Errorf("unexpected argument %q", fs.Arg(0))
 	}
 	return nil
+}
+
+// newLogger returns a text logger on standard error at the named level.
+func newLogger(level string) (*slog.Logger, error) {
+	var l slog.Level
+	if err := l.UnmarshalText([]byte(level)); err != nil {
+		return nil, fmt.Errorf("log level %q: want debug, info, warn or error", level)
+	}
+	return slog.New(slog.NewTextHandler(os.Stderr, &slog.HandlerOptions{Level: l})), nil
+}
+
+// signalContext ends on SIGINT or SIGTERM, for a clean shutdown.
+func signalContext() (context.Context, context.CancelFunc) {
+	return signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 }

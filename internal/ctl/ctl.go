@@ -128,12 +128,21 @@ func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out 
 	return nil
 }
 
-// oneLine turns a gRPC error into "code: message".
+// oneLine turns a gRPC error into "code: message", the code in snake case as in
+// the gRPC specification (FAILED_PRECONDITION → failed_precondition).
 func oneLine(err error) error {
-	if s, ok := status.FromError(err); ok {
-		return fmt.Errorf("%s: %s", strings.ToLower(s.Code().String()), s.Message())
+	s, ok := status.FromError(err)
+	if !ok {
+		return err
 	}
-	return err
+	var b strings.Builder
+	for i, r := range s.Code().String() {
+		if i > 0 && r >= 'A' && r <= 'Z' {
+			b.WriteByte('_')
+		}
+		b.WriteRune(r)
+	}
+	return fmt.Errorf("%s: %s", strings.ToLower(b.String()), s.Message())
 }
 
 // Calibrate runs a calibration and draws a progress bar on out.

@@ -21,6 +21,148 @@ const (
 	_ = protoimpl.EnforceVersion(protoimpl.MaxVersion - 20)
 )
 
+// Source is what the sensor looks at.
+type Source int32
+
+const (
+	Source_SOURCE_UNSPECIFIED Source = 0
+	// The sky through the atmosphere, with the guide star's photon budget.
+	Source_SOURCE_SKY Source = 1
+	// The internal calibration source: no turbulence, no photon noise.
+	Source_SOURCE_CALIBRATION Source = 2
+)
+
+// Enum value maps for Source.
+var (
+	Source_name = map[int32]string{
+		0: "SOURCE_UNSPECIFIED",
+		1: "SOURCE_SKY",
+		2: "SOURCE_CALIBRATION",
+	}
+	Source_value = map[string]int32{
+		"SOURCE_UNSPECIFIED": 0,
+		"SOURCE_SKY":         1,
+		"SOURCE_CALIBRATION": 2,
+	}
+)
+
+func (x Source) Enum() *Source {
+	p := new(Source)
+	*p = x
+	return p
+}
+
+func (x Source) String() string {
+	return protoimpl.X.EnumStringOf(x.Descriptor(), protoreflect.EnumNumber(x))
+}
+
+func (Source) Descriptor() protoreflect.EnumDescriptor {
+	return file_stillsky_v1_camera_proto_enumTypes[0].Descriptor()
+}
+
+func (Source) Type() protoreflect.EnumType {
+	return &file_stillsky_v1_camera_proto_enumTypes[0]
+}
+
+func (x Source) Number() protoreflect.EnumNumber {
+	return protoreflect.EnumNumber(x)
+}
+
+// Deprecated: Use Source.Descriptor instead.
+func (Source) EnumDescriptor() ([]byte, []int) {
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{0}
+}
+
+// SetSourceRequest selects the source.
+type SetSourceRequest struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	Source        Source                 `protobuf:"varint,1,opt,name=source,proto3,enum=stillsky.v1.Source" json:"source,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *SetSourceRequest) Reset() {
+	*x = SetSourceRequest{}
+	mi := &file_stillsky_v1_camera_proto_msgTypes[0]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *SetSourceRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*SetSourceRequest) ProtoMessage() {}
+
+func (x *SetSourceRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_camera_proto_msgTypes[0]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use SetSourceRequest.ProtoReflect.Descriptor instead.
+func (*SetSourceRequest) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{0}
+}
+
+func (x *SetSourceRequest) GetSource() Source {
+	if x != nil {
+		return x.Source
+	}
+	return Source_SOURCE_UNSPECIFIED
+}
+
+// SetSourceResponse confirms the source in use.
+type SetSourceResponse struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	Source        Source                 `protobuf:"varint,1,opt,name=source,proto3,enum=stillsky.v1.Source" json:"source,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *SetSourceResponse) Reset() {
+	*x = SetSourceResponse{}
+	mi := &file_stillsky_v1_camera_proto_msgTypes[1]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *SetSourceResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*SetSourceResponse) ProtoMessage() {}
+
+func (x *SetSourceResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_camera_proto_msgTypes[1]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use SetSourceResponse.ProtoReflect.Descriptor instead.
+func (*SetSourceResponse) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{1}
+}
+
+func (x *SetSourceResponse) GetSource() Source {
+	if x != nil {
+		return x.Source
+	}
+	return Source_SOURCE_UNSPECIFIED
+}
+
 // CameraServiceDescribeRequest has no fields.
 type CameraServiceDescribeRequest struct {
 	state         protoimpl.MessageState `protogen:"open.v1"`
@@ -30,7 +172,7 @@ type CameraServiceDescribeRequest struct {
 
 func (x *CameraServiceDescribeRequest) Reset() {
 	*x = CameraServiceDescribeRequest{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[0]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[2]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -42,7 +184,7 @@ func (x *CameraServiceDescribeRequest) String() string {
 func (*CameraServiceDescribeRequest) ProtoMessage() {}
 
 func (x *CameraServiceDescribeRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[0]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[2]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -55,7 +197,7 @@ func (x *CameraServiceDescribeRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CameraServiceDescribeRequest.ProtoReflect.Descriptor instead.
 func (*CameraServiceDescribeRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{0}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{2}
 }
 
 // CameraServiceDescribeResponse describes the sensor.
@@ -91,7 +233,7 @@ type CameraServiceDescribeResponse struct {
 
 func (x *CameraServiceDescribeResponse) Reset() {
 	*x = CameraServiceDescribeResponse{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[1]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[3]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -103,7 +245,7 @@ func (x *CameraServiceDescribeResponse) String() string {
 func (*CameraServiceDescribeResponse) ProtoMessage() {}
 
 func (x *CameraServiceDescribeResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[1]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[3]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -116,7 +258,7 @@ func (x *CameraServiceDescribeResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CameraServiceDescribeResponse.ProtoReflect.Descriptor instead.
 func (*CameraServiceDescribeResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{1}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{3}
 }
 
 func (x *CameraServiceDescribeResponse) GetSubapertures() uint32 {
@@ -208,7 +350,7 @@ type StreamFramesRequest struct {
 
 func (x *StreamFramesRequest) Reset() {
 	*x = StreamFramesRequest{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[2]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[4]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -220,7 +362,7 @@ func (x *StreamFramesRequest) String() string {
 func (*StreamFramesRequest) ProtoMessage() {}
 
 func (x *StreamFramesRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[2]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[4]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -233,7 +375,7 @@ func (x *StreamFramesRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamFramesRequest.ProtoReflect.Descriptor instead.
 func (*StreamFramesRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{2}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{4}
 }
 
 func (x *StreamFramesRequest) GetChunks() uint32 {
@@ -264,7 +406,7 @@ type StreamFramesResponse struct {
 
 func (x *StreamFramesResponse) Reset() {
 	*x = StreamFramesResponse{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[3]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[5]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -276,7 +418,7 @@ func (x *StreamFramesResponse) String() string {
 func (*StreamFramesResponse) ProtoMessage() {}
 
 func (x *StreamFramesResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[3]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[5]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -289,7 +431,7 @@ func (x *StreamFramesResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamFramesResponse.ProtoReflect.Descriptor instead.
 func (*StreamFramesResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{3}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{5}
 }
 
 func (x *StreamFramesResponse) GetFrameNumber() uint64 {
@@ -338,7 +480,11 @@ var File_stillsky_v1_camera_proto protoreflect.FileDescriptor
 
 const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\n" +
-	"\x18stillsky/v1/camera.proto\x12\vstillsky.v1\"\x1e\n" +
+	"\x18stillsky/v1/camera.proto\x12\vstillsky.v1\"?\n" +
+	"\x10SetSourceRequest\x12+\n" +
+	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"@\n" +
+	"\x11SetSourceResponse\x12+\n" +
+	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"\x1e\n" +
 	"\x1cCameraServiceDescribeRequest\"\xb2\x03\n" +
 	"\x1dCameraServiceDescribeResponse\x12\"\n" +
 	"\fsubapertures\x18\x01 \x01(\rR\fsubapertures\x12-\n" +
@@ -365,10 +511,16 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"chunkIndex\x12\x1f\n" +
 	"\vchunk_count\x18\x05 \x01(\rR\n" +
 	"chunkCount\x12\x16\n" +
-	"\x06slopes\x18\x06 \x03(\x02R\x06slopes2\xc9\x01\n" +
+	"\x06slopes\x18\x06 \x03(\x02R\x06slopes*H\n" +
+	"\x06Source\x12\x16\n" +
+	"\x12SOURCE_UNSPECIFIED\x10\x00\x12\x0e\n" +
+	"\n" +
+	"SOURCE_SKY\x10\x01\x12\x16\n" +
+	"\x12SOURCE_CALIBRATION\x10\x022\x95\x02\n" +
 	"\rCameraService\x12a\n" +
 	"\bDescribe\x12).stillsky.v1.CameraServiceDescribeRequest\x1a*.stillsky.v1.CameraServiceDescribeResponse\x12U\n" +
-	"\fStreamFrames\x12 .stillsky.v1.StreamFramesRequest\x1a!.stillsky.v1.StreamFramesResponse0\x01B'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
+	"\fStreamFrames\x12 .stillsky.v1.StreamFramesRequest\x1a!.stillsky.v1.StreamFramesResponse0\x01\x12J\n" +
+	"\tSetSource\x12\x1d.stillsky.v1.SetSourceRequest\x1a\x1e.stillsky.v1.SetSourceResponseB'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
 
 var (
 	file_stillsky_v1_camera_proto_rawDescOnce sync.Once
@@ -382,23 +534,31 @@ func file_stillsky_v1_camera_proto_rawDescGZIP() []byte {
 	return file_stillsky_v1_camera_proto_rawDescData
 }
 
-var file_stillsky_v1_camera_proto_msgTypes = make([]protoimpl.MessageInfo, 4)
+var file_stillsky_v1_camera_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
+var file_stillsky_v1_camera_proto_msgTypes = make([]protoimpl.MessageInfo, 6)
 var file_stillsky_v1_camera_proto_goTypes = []any{
-	(*CameraServiceDescribeRequest)(nil),  // 0: stillsky.v1.CameraServiceDescribeRequest
-	(*CameraServiceDescribeResponse)(nil), // 1: stillsky.v1.CameraServiceDescribeResponse
-	(*StreamFramesRequest)(nil),           // 2: stillsky.v1.StreamFramesRequest
-	(*StreamFramesResponse)(nil),          // 3: stillsky.v1.StreamFramesResponse
+	(Source)(0),                           // 0: stillsky.v1.Source
+	(*SetSourceRequest)(nil),              // 1: stillsky.v1.SetSourceRequest
+	(*SetSourceResponse)(nil),             // 2: stillsky.v1.SetSourceResponse
+	(*CameraServiceDescribeRequest)(nil),  // 3: stillsky.v1.CameraServiceDescribeRequest
+	(*CameraServiceDescribeResponse)(nil), // 4: stillsky.v1.CameraServiceDescribeResponse
+	(*StreamFramesRequest)(nil),           // 5: stillsky.v1.StreamFramesRequest
+	(*StreamFramesResponse)(nil),          // 6: stillsky.v1.StreamFramesResponse
 }
 var file_stillsky_v1_camera_proto_depIdxs = []int32{
-	0, // 0: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
-	2, // 1: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
-	1, // 2: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
-	3, // 3: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
-	2, // [2:4] is the sub-list for method output_type
-	0, // [0:2] is the sub-list for method input_type
-	0, // [0:0] is the sub-list for extension type_name
-	0, // [0:0] is the sub-list for extension extendee
-	0, // [0:0] is the sub-list for field type_name
+	0, // 0: stillsky.v1.SetSourceRequest.source:type_name -> stillsky.v1.Source
+	0, // 1: stillsky.v1.SetSourceResponse.source:type_name -> stillsky.v1.Source
+	3, // 2: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
+	5, // 3: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
+	1, // 4: stillsky.v1.CameraService.SetSource:input_type -> stillsky.v1.SetSourceRequest
+	4, // 5: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
+	6, // 6: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
+	2, // 7: stillsky.v1.CameraService.SetSource:output_type -> stillsky.v1.SetSourceResponse
+	5, // [5:8] is the sub-list for method output_type
+	2, // [2:5] is the sub-list for method input_type
+	2, // [2:2] is the sub-list for extension type_name
+	2, // [2:2] is the sub-list for extension extendee
+	0, // [0:2] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_camera_proto_init() }
@@ -411,13 +571,14 @@ func file_stillsky_v1_camera_proto_init() {
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_camera_proto_rawDesc), len(file_stillsky_v1_camera_proto_rawDesc)),
-			NumEnums:      0,
-			NumMessages:   4,
+			NumEnums:      1,
+			NumMessages:   6,
 			NumExtensions: 0,
 			NumServices:   1,
 		},
 		GoTypes:           file_stillsky_v1_camera_proto_goTypes,
 		DependencyIndexes: file_stillsky_v1_camera_proto_depIdxs,
+		EnumInfos:         file_stillsky_v1_camera_proto_enumTypes,
 		MessageInfos:      file_stillsky_v1_camera_proto_msgTypes,
 	}.Build()
 	File_stillsky_v1_camera_proto = out.File

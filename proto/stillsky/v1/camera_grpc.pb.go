@@ -21,6 +21,7 @@ const _ = grpc.SupportPackageIsVersion9
 const (
 	CameraService_Describe_FullMethodName     = "/stillsky.v1.CameraService/Describe"
 	CameraService_StreamFrames_FullMethodName = "/stillsky.v1.CameraService/StreamFrames"
+	CameraService_SetSource_FullMethodName    = "/stillsky.v1.CameraService/SetSource"
 )
 
 // CameraServiceClient is the client API for CameraService service.
@@ -40,6 +41,12 @@ type CameraServiceClient interface {
 	// rows into non-empty groups; RESOURCE_EXHAUSTED when another client already holds
 	// the stream (one consumer per camera); UNAVAILABLE when the device stops.
 	StreamFrames(ctx context.Context, in *StreamFramesRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[StreamFramesResponse], error)
+	// SetSource selects what the sensor sees: the sky, or the instrument's internal
+	// calibration source (bright and free of turbulence), which makes interaction
+	// matrices noise-free. The change applies from the next frame.
+	// Errors: INVALID_ARGUMENT for SOURCE_UNSPECIFIED; UNIMPLEMENTED for a device that
+	// has no calibration source (callers then calibrate on the sky).
+	SetSource(ctx context.Context, in *SetSourceRequest, opts ...grpc.CallOption) (*SetSourceResponse, error)
 }
 
 type cameraServiceClient struct {
@@ -79,6 +86,16 @@ func (c *cameraServiceClient) StreamFrames(ctx context.Context, in *StreamFrames
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type CameraService_StreamFramesClient = grpc.ServerStreamingClient[StreamFramesResponse]
 
+func (c *cameraServiceClient) SetSource(ctx context.Context, in *SetSourceRequest, opts ...grpc.CallOption) (*SetSourceResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(SetSourceResponse)
+	err := c.cc.Invoke(ctx, CameraService_SetSource_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // CameraServiceServer is the server API for CameraService service.
 // All implementations must embed UnimplementedCameraServiceServer
 // for forward compatibility.
@@ -96,6 +113,12 @@ type CameraServiceServer interface {
 	// rows into non-empty groups; RESOURCE_EXHAUSTED when another client already holds
 	// the stream (one consumer per camera); UNAVAILABLE when the device stops.
 	StreamFrames(*StreamFramesRequest, grpc.ServerStreamingServer[StreamFramesResponse]) error
+	// SetSource selects what the sensor sees: the sky, or the instrument's internal
+	// calibration source (bright and free of turbulence), which makes interaction
+	// matrices noise-free. The change applies from the next frame.
+	// Errors: INVALID_ARGUMENT for SOURCE_UNSPECIFIED; UNIMPLEMENTED for a device that
+	// has no calibration source (callers then calibrate on the sky).
+	SetSource(context.Context, *SetSourceRequest) (*SetSourceResponse, error)
 	mustEmbedUnimplementedCameraServiceServer()
 }
 
@@ -111,6 +134,9 @@ func (UnimplementedCameraServiceServer) Describe(context.Context, *CameraService
 }
 func (UnimplementedCameraServiceServer) StreamFrames(*StreamFramesRequest, grpc.ServerStreamingServer[StreamFramesResponse]) error {
 	return status.Error(codes.Unimplemented, "method StreamFrames not implemented")
+}
+func (UnimplementedCameraServiceServer) SetSource(context.Context, *SetSourceRequest) (*SetSourceResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method SetSource not implemented")
 }
 func (UnimplementedCameraServiceServer) mustEmbedUnimplementedCameraServiceServer() {}
 func (UnimplementedCameraServiceServer) testEmbeddedByValue()                       {}
@@ -162,6 +188,24 @@ func _CameraService_StreamFrames_Handler(srv interface{}, stream grpc.ServerStre
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type CameraService_StreamFramesServer = grpc.ServerStreamingServer[StreamFramesResponse]
 
+func _CameraService_SetSource_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(SetSourceRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(CameraServiceServer).SetSource(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: CameraService_SetSource_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(CameraServiceServer).SetSource(ctx, req.(*SetSourceRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // CameraService_ServiceDesc is the grpc.ServiceDesc for CameraService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -172,6 +216,10 @@ var CameraService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "Describe",
 			Handler:    _CameraService_Describe_Handler,
+		},
+		{
+			MethodName: "SetSource",
+			Handler:    _CameraService_SetSource_Handler,
 		},
 	},
 	Streams: []grpc.StreamDesc{

@@ -1,0 +1,42 @@
+package main
+
+import (
+	"os"
+
+	"stillsky/internal/demo"
+)
+
+func init() {
+	register("demo", "run bench and loop together: calibrate, open loop, closed loop, summary", runDemo)
+}
+
+func runDemo(args []string) error {
+	fs := newFlagSet("demo")
+	scn := fs.String("scenario", "", "built-in scenario name or path to a scenario YAML file (default: the default scenario)")
+	frames := fs.Int("frames", 5000, "closed-loop frames (the open-loop phase runs 2000)")
+	gain := fs.Float64("gain", -1, "integrator gain in closed loop, in [0, 2) (default: the daemon's 0.4)")
+	summary := fs.String("summary", "", "write the summary as JSON to this file")
+	lockstep := fs.Bool("lockstep", false, "run the bench in lockstep mode (reproducible) instead of free-running")
+	logLevel := fs.String("log-level", "warn", "log level of bench and loop: debug, info, warn, error")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	log, err := newLogger(*logLevel)
+	if err != nil {
+		return err
+	}
+	cfg := demo.Config{Scenario: *scn, FramesClosed: *frames, Lockstep: *lockstep, Out: os.Stdout, Logger: log}
+	if *gain != -1 {
+		cfg.Gain = gain
+	}
+	ctx, stop := signalContext()
+	defer stop()
+	s, err := demo.Run(ctx, cfg)
+	if err != nil {
+		return err
+	}
+	if *summary != "" {
+		return s.WriteJSON(*summary)
+	}
+	return nil
+}

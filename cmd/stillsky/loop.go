@@ -1,0 +1,57 @@
+package main
+
+import "stillsky/daemon"
+
+func init() {
+	register("loop", "run the loop daemon against a camera and a mirror", runLoop)
+}
+
+const loopCaution = `
+Caution: on real hardware this daemon drives a deformable mirror. Set the stroke
+limits from the manufacturer's data sheet, never above it: a mirror driven past its
+stroke or inter-actuator limits can be damaged. A simulator proves software, not
+hardware or human safety; follow the manufacturer's limits, local codes and
+licensed practice (laser guide stars and retinal imaging have their own rules).
+`
+
+func runLoop(args []string) error {
+	fs := newFlagSet("loop")
+	camera := fs.String("camera", "127.0.0.1:7401", "camera gRPC address (host:port or unix:/path)")
+	mirror := fs.String("mirror", "127.0.0.1:7402", "mirror gRPC address")
+	listen := fs.String("listen", "127.0.0.1:7411", "Control API gRPC address")
+	metrics := fs.String("metrics", "127.0.0.1:7412", "HTTP address of /metrics and the live view (\"-\" to disable)")
+	stateDir := fs.String("state-dir", "", "directory keeping the committed reconstructor and settings across restarts")
+	gain := fs.Float64("gain", 0.4, "integrator gain at start, in [0, 2)")
+	leak := fs.Float64("leak", 0.01, "integrator leak at start, in [0, 1)")
+	wavelength := fs.Float64("science-wavelength", 1.65e-6, "wavelength of the Strehl estimate, metres")
+	chunks := fs.Int("chunks", 0, "ask the camera for frames in this many chunks (pipelined reconstruction)")
+	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
+	var sec daemon.Security
+	fs.StringVar(&sec.CertFile, "tls-cert", "", "TLS certificate of the Control API (PEM); required off loopback")
+	fs.StringVar(&sec.KeyFile, "tls-key", "", "TLS key of the Control API (PEM)")
+	fs.StringVar(&sec.ClientCAFile, "client-ca", "", "CA that signs client certificates allowed to change the loop (mutual TLS)")
+	fs.StringVar(&sec.TokenFile, "token-file", "", "file holding the bearer token allowed to change the loop")
+	fs.Usage = func() {
+		fs.PrintDefaults()
+		fs.Output().Write([]byte(loopCaution))
+	}
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	log, err := newLogger(*logLevel)
+	if err != nil {
+		return err
+	}
+	cfg := daemon.Config{
+		CameraAddr: *camera, MirrorAddr: *mirror, ListenAddr: *listen, MetricsAddr: *metrics,
+		StateDir: *stateDir, Gain: gain, Leak: leak, ScienceWavelength: *wavelength,
+		Chunks: *chunks, Security: sec, Logger: log,
+	}
+	d, err := daemon.New(cfg)
+	if err != nil {
+		return err
+	}
+	ctx, stop := signalContext()
+	defer stop()
+	return d.Run(ctx)
+}

@@ -1,0 +1,47 @@
+package main
+
+import (
+	"stillsky/sim/bench"
+	"stillsky/sim/scenario"
+)
+
+func init() {
+	register("sim", "run the simulated optical bench (camera and mirror devices)", runSim)
+}
+
+func runSim(args []string) error {
+	fs := newFlagSet("sim")
+	scn := fs.String("scenario", scenario.Default, "built-in scenario name or path to a scenario YAML file")
+	camera := fs.String("camera", "127.0.0.1:7401", "camera gRPC address (host:port or unix:/path)")
+	mirror := fs.String("mirror", "127.0.0.1:7402", "mirror gRPC address (may equal --camera)")
+	metrics := fs.String("metrics", "127.0.0.1:7403", "HTTP address of /metrics (\"\" to disable)")
+	lockstep := fs.Bool("lockstep", false, "produce frame k only after the command for frame k−delay (reproducible)")
+	delay := fs.Int("delay-frames", 0, "loop delay in frames modelled in lockstep mode (0: the scenario's)")
+	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	log, err := newLogger(*logLevel)
+	if err != nil {
+		return err
+	}
+	s, err := scenario.Load(*scn)
+	if err != nil {
+		return err
+	}
+	srv, err := bench.NewServer(s, bench.Options{Lockstep: *lockstep, DelayFrames: *delay, Logger: log})
+	if err != nil {
+		return err
+	}
+	addrs := bench.Addrs{Camera: *camera, Mirror: *mirror, Metrics: *metrics}
+	if addrs.Mirror == addrs.Camera {
+		addrs.Mirror = ""
+	}
+	l, err := bench.Listen(addrs)
+	if err != nil {
+		return err
+	}
+	ctx, stop := signalContext()
+	defer stop()
+	return srv.Serve(ctx, l)
+}

@@ -1,0 +1,295 @@
+// Package demo runs the whole system in one process: the simulated bench and the
+// loop daemon talking real gRPC on loopback, calibrated, run open and then closed
+// loop, with a status line a second and a summary at the end. It is what
+// `stillsky demo` calls.
+package demo
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"math"
+
+	"time"
+
+	"stillsky/daemon"
+	"stillsky/internal/atomicfile"
+	"stillsky/internal/ctl"
+	"stillsky/internal/rpc"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/sim/bench"
+	"stillsky/sim/scenario"
+)
+
+// Config selects what the demo runs. Zero values take the defaults.
+type Config struct {
+	// Scenario is a built-in name or a YAML path; default scenario.Default.
+	Scenario string
+	// FramesOpen and FramesClosed are the frames run in each phase; defaults 2000
+	// and 5000.
+	FramesOpen, FramesClosed int
+	// Gain of the integrator in closed loop; nil keeps the daemon's default.
+	Gain *float64
+	// Lockstep runs the bench in lockstep mode instead of free-running.
+	Lockstep bool
+	// Out receives the progress bar, status lines and summary table.
+	Out io.Writer
+	// Logger receives the log of the bench and the daemon; nil discards it.
+	Logger *slog.Logger
+}
+
+// Latency gives quantiles of a latency in microseconds.
+type Latency struct {
+	P50  float64 `json:"p50"`
+	P99  float64 `json:"p99"`
+	P999 float64 `json:"p999"`
+	Max  float64 `json:"max"`
+}
+
+// Summary is the result of a demo run, as written by --summary.
+type Summary struct {
+	Scenario             string  `json:"scenario"`
+	FramesOpen           int     `json:"frames_open"`
+	FramesClosed         int     `json:"frames_closed"`
+	StrehlOpen           float64 `json:"strehl_open"`
+	StrehlClosed         float64 `json:"strehl_closed"`
+	StrehlEstimateClosed float64 `json:"strehl_estimate_closed"`
+	ScienceWavelengthM   float64 `json:"science_wavelength_m"`
+	ResidualRMSNmOpen    float64 `json:"residual_rms_nm_open"`
+	ResidualRMSNmClosed  float64 `json:"residual_rms_nm_closed"`
+	RTCLatencyUs         Latency `json:"rtc_latency_us"`
+	EndToEndLatencyUs    Latency `json:"end_to_end_latency_us"`
+	FramesDropped        uint64  `json:"frames_dropped"`
+	FramesRejected       uint64  `json:"frames_rejected"`
+	InterlockTrips       uint64  `json:"interlock_trips"`
+	FinalLoopState       string  `json:"final_loop_state"`
+	Gain                 float64 `json:"gain"`
+	Lockstep             bool    `json:"lockstep"`
+}
+
+// Run executes the demo and returns its summary.
+func Run(ctx context.Context, c Config) (*Summary, error) {
+	if c.Scenario == "" {
+		c.Scenario = scenario.Default
+	}
+	if c.FramesOpen == 0 {
+		c.FramesOpen = 2000
+	}
+	if c.FramesClosed == 0 {
+		c.FramesClosed = 5000
+	}
+	if c.FramesOpen < 1 || c.FramesClosed < 1 {
+		return nil, fmt.Errorf("demo: frames %d open, %d closed: both must be >= 1", c.FramesOpen, c.FramesClosed)
+	}
+	if c.Out == nil {
+		c.Out = io.Discard
+	}
+	if c.Logger == nil {
+		c.Logger = slog.New(slog.DiscardHandler)
+	}
+	scn, err := scenario.Load(c.Scenario)
+	if err != nil {
+		return nil, err
+	}
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+
+	b, err := bench.NewServer(scn, bench.Options{Lockstep: c.Lockstep, Logger: c.Logger.With("process", "sim")})
+	if err != nil {
+		return nil, err
+	}
+	bl, err := bench.Listen(bench.Addrs{Camera: "127.0.0.1:0", Mirror: "127.0.0.1:0"})
+	if err != nil {
+		return nil, err
+	}
+	benchDone := make(chan error, 1)
+	go func() { benchDone <- b.Serve(ctx, bl) }()
+
+	d, err := daemon.New(daemon.Config{
+		CameraAddr:        bl.Camera.Addr().String(),
+		MirrorAddr:        bl.Mirror.Addr().String(),
+		ListenAddr:        "127.0.0.1:0",
+		MetricsAddr:       "127.0.0.1:0",
+		Gain:              c.Gain,
+		ScienceWavelength: scn.Science.Wavelength,
+		Logger:            c.Logger.With("process", "loop"),
+	})
+	if err != nil {
+		return nil, err
+	}
+	loopDone := make(chan error, 1)
+	go func() { loopDone <- d.Run(ctx) }()
+
+	conn, err := rpc.Dial(d.ControlAddr())
+	if err != nil {
+		return nil, err
+	}
+	defer conn.Close()
+	client := stillskyv1.NewControlServiceClient(conn)
+	fmt.Fprintf(c.Out, "stillsky demo: scenario %q — %s\n", scn.Name, scn.Description)
+	fmt.Fprintf(c.Out, "bench camera %s, mirror %s; loop control %s, metrics http://%s/metrics\n",
+		bl.Camera.Addr(), bl.Mirror.Addr(), d.ControlAddr(), d.MetricsAddr())
+
+	if err := waitConnected(ctx, client); err != nil {
+		return nil, err
+	}
+	if err := ctl.Calibrate(ctx, client, &stillskyv1.CalibrateRequest{}, c.Out); err != nil {
+		return nil, fmt.Errorf("demo: calibration: %w", err)
+	}
+
+	sum := &Summary{Scenario: scn.Name, FramesOpen: c.FramesOpen, FramesClosed: c.FramesClosed,
+		ScienceWavelengthM: scn.Science.Wavelength, Lockstep: c.Lockstep}
+	fmt.Fprintf(c.Out, "open loop: %d frames\n", c.FramesOpen)
+	b.ResetStats()
+	if _, err := runPhase(ctx, client, b, c.FramesOpen, c.Out); err != nil {
+		return nil, err
+	}
+	open := b.Stats()
+	sum.StrehlOpen, sum.ResidualRMSNmOpen = open.Strehl, open.ResidualRMS*1e9
+
+	if _, err := client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
+		return nil, fmt.Errorf("demo: close loop: %w", err)
+	}
+	// Let the integrator converge before averaging: 50 frames is many time
+	// constants 1/g of the integrator at the usual gains.
+	settle := 50
+	fmt.Fprintf(c.Out, "closed loop: %d frames (after %d to converge)\n", c.FramesClosed, settle)
+	if _, err := runPhase(ctx, client, b, settle, io.Discard); err != nil {
+		return nil, err
+	}
+	b.ResetStats()
+	var estSum float64
+	var estN int
+	st, err := runPhase(ctx, client, b, c.FramesClosed, c.Out, func(s *stillskyv1.GetStatusResponse) {
+		if s.GetState() == stillskyv1.LoopState_LOOP_STATE_CLOSED {
+			estSum += s.GetStrehlEstimate()
+			estN++
+		}
+	})
+	if err != nil {
+		return nil, err
+	}
+	closed := b.Stats()
+	sum.StrehlClosed, sum.ResidualRMSNmClosed = closed.Strehl, closed.ResidualRMS*1e9
+	if estN > 0 {
+		sum.StrehlEstimateClosed = estSum / float64(estN)
+	}
+	sum.RTCLatencyUs = micro(st.GetRtcLatency())
+	sum.EndToEndLatencyUs = micro(st.GetEndToEndLatency())
+	sum.FramesDropped = st.GetFramesDropped()
+	sum.FramesRejected = st.GetFramesRejected()
+	sum.InterlockTrips = st.GetInterlockTrips()
+	sum.FinalLoopState = stateName(st.GetState())
+	sum.Gain = st.GetGain()
+
+	cancel()
+	for _, ch := range []chan error{benchDone, loopDone} {
+		if err := <-ch; err != nil && !errors.Is(err, context.Canceled) {
+			return sum, err
+		}
+	}
+	writeTable(c.Out, sum)
+	return sum, nil
+}
+
+// WriteJSON writes the summary to path atomically.
+func (s *Summary) WriteJSON(path string) error {
+	b, err := json.MarshalIndent(s, "", "  ")
+	if err != nil {
+		return err
+	}
+	return atomicfile.Write(path, func(w io.Writer) error {
+		_, err := w.Write(append(b, '\n'))
+		return err
+	})
+}
+
+func waitConnected(ctx context.Context, c stillskyv1.ControlServiceClient) error {
+	deadline := time.Now().Add(30 * time.Second)
+	for time.Now().Before(deadline) {
+		s, err := c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+		if err == nil && s.GetCameraConnected() && s.GetMirrorConnected() && s.GetFrames() > 0 {
+			return nil
+		}
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case <-time.After(20 * time.Millisecond):
+		}
+	}
+	return errors.New("demo: the loop did not connect to the bench within 30 s")
+}
+
+// runPhase waits for n more frames, printing a status line a second; each status
+// polled is also handed to observe.
+func runPhase(ctx context.Context, c stillskyv1.ControlServiceClient, b *bench.Server, n int, out io.Writer, observe ...func(*stillskyv1.GetStatusResponse)) (*stillskyv1.GetStatusResponse, error) {
+	s, err := c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+	if err != nil {
+		return nil, err
+	}
+	target := s.GetFrames() + uint64(n)
+	lastLine, lastFrames, lastT := time.Now(), s.GetFrames(), time.Now()
+	for s.GetFrames() < target {
+		select {
+		case <-ctx.Done():
+			return nil, ctx.Err()
+		case <-time.After(50 * time.Millisecond):
+		}
+		if s, err = c.GetStatus(ctx, &stillskyv1.GetStatusRequest{}); err != nil {
+			return nil, err
+		}
+		for _, f := range observe {
+			f(s)
+		}
+		if st := s.GetState(); st == stillskyv1.LoopState_LOOP_STATE_TRIPPED {
+			fmt.Fprintf(out, "interlock tripped: %s\n", s.GetLastInterlock())
+		}
+		if time.Since(lastLine) >= time.Second {
+			now := time.Now()
+			rate := float64(s.GetFrames()-lastFrames) / now.Sub(lastT).Seconds()
+			rms, strehl := b.Latest()
+			l := s.GetRtcLatency()
+			fmt.Fprintf(out, "  %-8s %6.0f frames/s  rtc p50 %5.1f µs p99 %6.1f µs  residual %6.1f nm (true %6.1f nm)  Strehl est %.3f true %.3f\n",
+				stateName(s.GetState()), rate, l.GetP50()*1e6, l.GetP99()*1e6,
+				s.GetResidualWavefrontRmsM()*1e9, rms*1e9, s.GetStrehlEstimate(), strehl)
+			lastLine, lastFrames, lastT = now, s.GetFrames(), now
+		}
+	}
+	return s, nil
+}
+
+func micro(l *stillskyv1.LatencySummary) Latency {
+	r := func(v float64) float64 { return math.Round(v*1e7) / 10 }
+	return Latency{P50: r(l.GetP50()), P99: r(l.GetP99()), P999: r(l.GetP999()), Max: r(l.GetMax())}
+}
+
+func stateName(s stillskyv1.LoopState) string {
+	switch s {
+	case stillskyv1.LoopState_LOOP_STATE_OPEN:
+		return "open"
+	case stillskyv1.LoopState_LOOP_STATE_CLOSED:
+		return "closed"
+	case stillskyv1.LoopState_LOOP_STATE_HOLD:
+		return "hold"
+	case stillskyv1.LoopState_LOOP_STATE_CALIBRATING:
+		return "calibrating"
+	case stillskyv1.LoopState_LOOP_STATE_TRIPPED:
+		return "tripped"
+	}
+	return "unknown"
+}
+
+func writeTable(out io.Writer, s *Summary) {
+	fmt.Fprintf(out, "\nsummary (%s, science at %.3g µm)\n", s.Scenario, s.ScienceWavelengthM*1e6)
+	fmt.Fprintf(out, "  %-28s %12s %12s\n", "", "open loop", "closed loop")
+	fmt.Fprintf(out, "  %-28s %12d %12d\n", "frames", s.FramesOpen, s.FramesClosed)
+	fmt.Fprintf(out, "  %-28s %12.3f %12.3f\n", "true Strehl (PSF)", s.StrehlOpen, s.StrehlClosed)
+	fmt.Fprintf(out, "  %-28s %12s %12.3f\n", "estimated Strehl (Maréchal)", "", s.StrehlEstimateClosed)
+	fmt.Fprintf(out, "  %-28s %12.1f %12.1f\n", "true residual rms (nm)", s.ResidualRMSNmOpen, s.ResidualRMSNmClosed)
+	fmt.Fprintf(out, "  rtc latency (µs)             p50 %.1f  p99 %.1f  p99.9 %.1f  max %.1f\n", s.RTCLatencyUs.P50, s.RTCLatencyUs.P99, s.RTCLatencyUs.P999, s.RTCLatencyUs.Max)
+	fmt.Fprintf(out, "  end-to-end latency (µs)      p50 %.1f  p99 %.1f  p99.9 %.1f  max %.1f\n", s.EndToEndLatencyUs.P50, s.EndToEndLatencyUs.P99, s.EndToEndLatencyUs.P999, s.EndToEndLatencyUs.Max)
+	fmt.Fprintf(out, "  frames dropped %d, rejected %d; interlock trips %d; final state %s\n", s.FramesDropped, s.FramesRejected, s.InterlockTrips, s.FinalLoopState)
+}

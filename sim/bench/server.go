@@ -1,0 +1,606 @@
+package bench
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math"
+	"sync"
+	"sync/atomic"
+	"time"
+
+	"github.com/prometheus/client_golang/prometheus"
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
+	"stillsky/internal/buildinfo"
+	"stillsky/internal/monoclock"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/sim/scenario"
+)
+
+// Options set how the bench keeps time.
+type Options struct {
+	// Lockstep produces frame k only after the command for frame k−DelayFrames has
+	// arrived (reproducible runs); otherwise frames come at the scenario's rate and
+	// commands apply on arrival.
+	Lockstep bool
+	// DelayFrames is the loop delay modelled in lockstep mode (>= 1); 0 takes the
+	// scenario's value.
+	DelayFrames int
+	// StrehlEvery is the number of frames between evaluations of the true science
+	// Strehl ratio (a PSF computation); 0 chooses 10.
+	StrehlEvery int
+	// LockstepTimeout bounds the wait for a command in lockstep mode, after which the
+	// bench goes on with the mirror's current shape; 0 chooses one second.
+	LockstepTimeout time.Duration
+	// Logger receives the bench's log lines; nil discards them.
+	Logger *slog.Logger
+}
+
+// ringSize is the number of frames buffered between the bench's clock and the
+// camera stream; a consumer that falls further behind loses frames.
+const ringSize = 8
+
+// pendingRing holds lockstep commands in flight; it must exceed any delay.
+const pendingRing = 64
+
+type pendingCommand struct {
+	frame  uint64
+	values []float32
+}
+
+type frameSlot struct {
+	number     uint64
+	readoutEnd int64
+	slopes     []float32
+}
+
+// Server is the simulated bench behind the Camera and Mirror services: it owns a
+// System, advances it frame by frame, streams the slopes and applies the commands.
+type Server struct {
+	stillskyv1.UnimplementedCameraServiceServer
+
+	scn *scenario.Scenario
+	opt Options
+	log *slog.Logger
+
+	mu  sync.Mutex // guards sys and cmd
+	sys *System
+	cmd []float32 // the command the mirror holds
+
+	// Lockstep hand-off: the newest command's frame number, and a wake-up.
+	lastCmdFrame atomic.Uint64
+	cmdArrived   chan struct{}
+	// Lockstep commands wait here until the frame that must see them: the command
+	// answering frame j shapes frame j+DelayFrames, exactly. Guarded by mu.
+	pending [pendingRing]pendingCommand
+
+	slots        [ringSize]frameSlot
+	scratch      []float32   // slopes of a frame nobody will read
+	ready        chan uint64 // sequence numbers of filled slots
+	cameraBusy   atomic.Bool
+	mirrorBusy   atomic.Bool
+	frameCounter uint64
+
+	psf          []float64 // the sampled frame's science PSF
+	stats        statsAccumulator
+	gauge        exposure // the last second's exposure, for the Strehl gauge
+	gaugeSamples int
+	lastStrehl   atomic.Uint64 // float64 bits of the last gauge value
+	metrics      *benchMetrics
+}
+
+// NewServer builds the bench for scenario s.
+func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
+	if opt.DelayFrames == 0 {
+		opt.DelayFrames = s.Loop.DelayFrames
+	}
+	if opt.DelayFrames < 1 || opt.DelayFrames >= pendingRing {
+		return nil, fmt.Errorf("bench: delay frames %d: must be in [1, %d)", opt.DelayFrames, pendingRing)
+	}
+	if opt.StrehlEvery == 0 {
+		opt.StrehlEvery = 10
+	}
+	if opt.StrehlEvery < 1 {
+		return nil, fmt.Errorf("bench: strehl every %d frames: must be >= 1", opt.StrehlEvery)
+	}
+	if opt.LockstepTimeout == 0 {
+		opt.LockstepTimeout = time.Second
+	}
+	if opt.Logger == nil {
+		opt.Logger = slog.New(slog.DiscardHandler)
+	}
+	sys, err := NewSystem(s)
+	if err != nil {
+		return nil, err
+	}
+	b := &Server{
+		scn:        s,
+		opt:        opt,
+		log:        opt.Logger,
+		sys:        sys,
+		cmd:        make([]float32, sys.NumActuators()),
+		cmdArrived: make(chan struct{}, 1),
+		ready:      make(chan uint64, ringSize-2),
+		metrics:    newBenchMetrics(s.Science.Wavelength, sys.FramePeriod()),
+	}
+	b.scratch = make([]float32, sys.NumSlopes())
+	n := sys.PSFSize() * sys.PSFSize()
+	b.psf = make([]float64, n)
+	b.stats.exp.sum = make([]float64, n)
+	b.gauge.sum = make([]float64, n)
+	b.gaugeSamples = max(1, int(s.Loop.FrameRate)/opt.StrehlEvery)
+	for i := range b.pending {
+		b.pending[i].values = make([]float32, sys.NumActuators())
+	}
+	for i := range b.slots {
+		b.slots[i].slopes = make([]float32, sys.NumSlopes())
+	}
+	return b, nil
+}
+
+// RegisterCamera adds the Camera service to g. Camera and mirror may share one
+// server or each have its own listener, as separate devices would.
+func (b *Server) RegisterCamera(g *grpc.Server) { stillskyv1.RegisterCameraServiceServer(g, b) }
+
+// RegisterMirror adds the Mirror service to g.
+func (b *Server) RegisterMirror(g *grpc.Server) {
+	stillskyv1.RegisterMirrorServiceServer(g, mirrorService{b: b})
+}
+
+// mirrorService is the bench's Mirror service; it is a separate type because both
+// services have a Describe method.
+type mirrorService struct {
+	stillskyv1.UnimplementedMirrorServiceServer
+	b *Server
+}
+
+// Describe returns the actuator layout and stroke.
+func (m mirrorService) Describe(context.Context, *stillskyv1.MirrorServiceDescribeRequest) (*stillskyv1.MirrorServiceDescribeResponse, error) {
+	return m.b.describeMirror(), nil
+}
+
+// StreamCommands applies and acknowledges each command.
+func (m mirrorService) StreamCommands(stream grpc.BidiStreamingServer[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
+	return m.b.streamCommands(stream)
+}
+
+// Registry returns the bench's own Prometheus registry: what only the simulator
+// knows (true residual, true Strehl) and its frame counters.
+func (b *Server) Registry() *prometheus.Registry { return b.metrics.reg }
+
+// Scenario returns the scenario the bench simulates.
+func (b *Server) Scenario() *scenario.Scenario { return b.scn }
+
+// Run keeps the bench's time until ctx ends: in free-run mode a frame every frame
+// period, in lockstep mode a frame whenever the loop has answered.
+func (b *Server) Run(ctx context.Context) error {
+	period := time.Duration(b.sys.FramePeriod() * float64(time.Second))
+	next := time.Now()
+	for k := uint64(1); ; k++ {
+		if b.opt.Lockstep {
+			if err := b.awaitCommand(ctx, k); err != nil {
+				return err
+			}
+		} else {
+			next = next.Add(period)
+			if d := time.Until(next); d > 0 {
+				t := time.NewTimer(d)
+				select {
+				case <-ctx.Done():
+					t.Stop()
+					return nil
+				case <-t.C:
+				}
+			} else if d < -10*period {
+				// Fell far behind (machine overloaded): resynchronise instead of bursting.
+				next = time.Now()
+			}
+			if ctx.Err() != nil {
+				return nil
+			}
+		}
+		b.produce(k)
+	}
+}
+
+// awaitCommand blocks, in lockstep mode, until the command for frame k−d has
+// arrived (or the timeout passes, or no camera consumer is connected).
+func (b *Server) awaitCommand(ctx context.Context, k uint64) error {
+	d := uint64(b.opt.DelayFrames)
+	for !b.cameraBusy.Load() {
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case <-time.After(10 * time.Millisecond):
+		}
+	}
+	if k <= d {
+		return nil
+	}
+	deadline := time.NewTimer(b.opt.LockstepTimeout)
+	defer deadline.Stop()
+	for b.lastCmdFrame.Load() < k-d {
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case <-b.cmdArrived:
+		case <-deadline.C:
+			b.metrics.lockstepTimeouts.Inc()
+			return nil
+		}
+	}
+	return nil
+}
+
+// produce simulates frame k and hands it to the camera stream.
+func (b *Server) produce(k uint64) {
+	b.frameCounter = k
+	// Only the producer writes slots; len(b.ready) only shrinks concurrently, so a
+	// free place in the channel means the slot k%ringSize is not being read.
+	full := len(b.ready) == cap(b.ready)
+	slot := &b.slots[k%ringSize]
+	var scratch []float32
+	if full {
+		scratch = b.scratch
+	} else {
+		scratch = slot.slopes
+	}
+	b.mu.Lock()
+	if d := uint64(b.opt.DelayFrames); b.opt.Lockstep && k > d {
+		if p := &b.pending[(k-d)%pendingRing]; p.frame == k-d {
+			copy(b.cmd, p.values)
+			b.sys.SetCommand(b.cmd)
+		}
+	}
+	b.sys.Frame(scratch)
+	rms := b.sys.ResidualRMS()
+	sample := k%uint64(b.opt.StrehlEvery) == 0
+	if sample {
+		b.sys.PSF(b.psf)
+	}
+	b.mu.Unlock()
+	now := monoclock.Now()
+	b.stats.add(rms, sample, b.psf)
+	if sample && b.gauge.add(b.psf) >= b.gaugeSamples {
+		st := b.gauge.strehl()
+		b.metrics.strehl.Set(st)
+		b.lastStrehl.Store(math.Float64bits(st))
+		b.gauge.reset()
+	}
+	b.metrics.frames.Inc()
+	b.metrics.residual.Set(rms)
+	if !b.cameraBusy.Load() {
+		return
+	}
+	if full {
+		b.metrics.framesLost.Inc()
+		return
+	}
+	slot.number, slot.readoutEnd = k, now
+	b.ready <- k
+}
+
+// Describe returns the sensor geometry.
+func (b *Server) Describe(context.Context, *stillskyv1.CameraServiceDescribeRequest) (*stillskyv1.CameraServiceDescribeResponse, error) {
+	wfs := b.sys.Sensor()
+	valid := wfs.Valid()
+	idx := make([]uint32, 0, wfs.NumValid())
+	for i, v := range valid {
+		if v {
+			idx = append(idx, uint32(i))
+		}
+	}
+	return &stillskyv1.CameraServiceDescribeResponse{
+		Subapertures:      uint32(b.scn.WFS.Subapertures),
+		ValidSubapertures: idx,
+		SlopeCount:        uint32(b.sys.NumSlopes()),
+		FrameRateHz:       b.scn.Loop.FrameRate,
+		SubapertureSizeM:  b.scn.Telescope.Diameter / float64(b.scn.WFS.Subapertures),
+		PupilDiameterM:    b.scn.Telescope.Diameter,
+		WavelengthM:       b.scn.GuideStar.Wavelength,
+		SlopeUnit:         "rad",
+		Lockstep:          b.opt.Lockstep,
+		DelayFrames:       uint32(b.opt.DelayFrames),
+		Description:       b.scn.Name + ": " + b.scn.Description,
+	}, nil
+}
+
+// StreamFrames streams the frames to one consumer at a time.
+func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.ServerStreamingServer[stillskyv1.StreamFramesResponse]) error {
+	rows, err := b.chunkRows(req.GetChunks())
+	if err != nil {
+		return err
+	}
+	if !b.cameraBusy.CompareAndSwap(false, true) {
+		return status.Error(codes.ResourceExhausted, "camera: another client holds the frame stream")
+	}
+	defer b.cameraBusy.Store(false)
+	// Frames queued for a previous consumer are stale.
+	for len(b.ready) > 0 {
+		<-b.ready
+	}
+	msg := &stillskyv1.StreamFramesResponse{}
+	ctx := stream.Context()
+	for {
+		select {
+		case <-ctx.Done():
+			return nil
+		case seq := <-b.ready:
+			slot := &b.slots[seq%ringSize]
+			msg.FrameNumber = slot.number
+			msg.ChunkCount = uint32(len(rows))
+			for c, r := range rows {
+				msg.ChunkIndex = uint32(c)
+				msg.Offset = uint32(r[0])
+				msg.Slopes = slot.slopes[r[0]:r[1]]
+				msg.ReadoutEndNs = slot.readoutEnd
+				if c > 0 {
+					msg.ReadoutEndNs = monoclock.Now()
+				}
+				if err := stream.Send(msg); err != nil {
+					return err
+				}
+			}
+		}
+	}
+}
+
+// SetSource switches between the sky and the calibration source.
+func (b *Server) SetSource(_ context.Context, req *stillskyv1.SetSourceRequest) (*stillskyv1.SetSourceResponse, error) {
+	var sky bool
+	switch req.GetSource() {
+	case stillskyv1.Source_SOURCE_SKY:
+		sky = true
+	case stillskyv1.Source_SOURCE_CALIBRATION:
+	default:
+		return nil, status.Errorf(codes.InvalidArgument, "camera: source %v: want SOURCE_SKY or SOURCE_CALIBRATION", req.GetSource())
+	}
+	b.mu.Lock()
+	b.sys.SetTurbulence(sky)
+	b.sys.SetNoise(sky && b.scn.WFS.Noise)
+	b.mu.Unlock()
+	b.log.Info("source selected", "source", req.GetSource().String())
+	return &stillskyv1.SetSourceResponse{Source: req.GetSource()}, nil
+}
+
+// chunkRows splits the slope vector into n groups of whole subaperture rows, as
+// [start, end) slope index ranges in readout order.
+func (b *Server) chunkRows(n uint32) ([][2]int, error) {
+	nsub := b.scn.WFS.Subapertures
+	if n <= 1 {
+		return [][2]int{{0, b.sys.NumSlopes()}}, nil
+	}
+	if int(n) > nsub {
+		return nil, status.Errorf(codes.InvalidArgument, "camera: %d chunks: must be at most the %d subaperture rows", n, nsub)
+	}
+	// Slopes before each subaperture row.
+	valid := b.sys.Sensor().Valid()
+	rowStart := make([]int, nsub+1)
+	for r := 0; r < nsub; r++ {
+		cnt := 0
+		for c := 0; c < nsub; c++ {
+			if valid[r*nsub+c] {
+				cnt += 2
+			}
+		}
+		rowStart[r+1] = rowStart[r] + cnt
+	}
+	out := make([][2]int, 0, n)
+	for c := 0; c < int(n); c++ {
+		r0, r1 := c*nsub/int(n), (c+1)*nsub/int(n)
+		if rowStart[r1] == rowStart[r0] {
+			return nil, status.Errorf(codes.InvalidArgument, "camera: %d chunks: chunk %d has no valid subaperture", n, c)
+		}
+		out = append(out, [2]int{rowStart[r0], rowStart[r1]})
+	}
+	return out, nil
+}
+
+func (b *Server) describeMirror() *stillskyv1.MirrorServiceDescribeResponse {
+	m := b.sys.Mirror()
+	pos := m.Positions()
+	flat := make([]float64, 0, 2*len(pos))
+	for _, p := range pos {
+		flat = append(flat, p[0], p[1])
+	}
+	return &stillskyv1.MirrorServiceDescribeResponse{
+		ActuatorCount:   uint32(m.NumValid()),
+		ActuatorsAcross: uint32(b.scn.DM.Actuators),
+		PositionsM:      flat,
+		PitchM:          b.scn.Telescope.Diameter / float64(b.scn.DM.Actuators-1),
+		StrokeM:         m.Stroke(),
+		CommandUnit:     "m",
+		Coupling:        b.scn.DM.Coupling,
+	}
+}
+
+func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
+	if !b.mirrorBusy.CompareAndSwap(false, true) {
+		return status.Error(codes.ResourceExhausted, "mirror: another client drives the mirror")
+	}
+	defer b.mirrorBusy.Store(false)
+	n := len(b.cmd)
+	stroke := float32(b.sys.Mirror().Stroke())
+	req := &stillskyv1.StreamCommandsRequest{}
+	ack := &stillskyv1.StreamCommandsResponse{}
+	for {
+		if err := stream.RecvMsg(req); err != nil {
+			if errors.Is(err, context.Canceled) || status.Code(err) == codes.Canceled {
+				return nil
+			}
+			return err
+		}
+		received := monoclock.Now()
+		v := req.GetValues()
+		if len(v) != n {
+			b.metrics.commandsRejected.Inc()
+			return status.Errorf(codes.InvalidArgument, "mirror: command for frame %d has %d values, want %d", req.GetFrameNumber(), len(v), n)
+		}
+		clipped := uint32(0)
+		for i, x := range v {
+			if math.IsNaN(float64(x)) || math.IsInf(float64(x), 0) {
+				b.metrics.commandsRejected.Inc()
+				return status.Errorf(codes.InvalidArgument, "mirror: command for frame %d: value %d is %v", req.GetFrameNumber(), i, x)
+			}
+			if x > stroke || x < -stroke {
+				clipped++
+			}
+		}
+		b.mu.Lock()
+		if f := req.GetFrameNumber(); b.opt.Lockstep && f != 0 {
+			p := &b.pending[f%pendingRing]
+			p.frame = f
+			copy(p.values, v)
+		} else {
+			copy(b.cmd, v)
+			b.sys.SetCommand(b.cmd)
+		}
+		b.mu.Unlock()
+		if f := req.GetFrameNumber(); f > b.lastCmdFrame.Load() {
+			b.lastCmdFrame.Store(f)
+		}
+		select {
+		case b.cmdArrived <- struct{}{}:
+		default:
+		}
+		b.metrics.commands.Inc()
+		ack.FrameNumber, ack.ReceivedNs, ack.Clipped = req.GetFrameNumber(), received, clipped
+		if err := stream.Send(ack); err != nil {
+			return err
+		}
+	}
+}
+
+// Stats are the bench's true figures of merit since the last ResetStats.
+type Stats struct {
+	Frames int
+	// ResidualRMS is the mean over frames of the true residual OPD rms, metres.
+	ResidualRMS float64
+	// Strehl is the long-exposure science Strehl ratio: the peak of the PSF
+	// averaged over the sampled frames, over the diffraction-limited peak. It is
+	// what a science camera integrating over the window would measure; single-frame
+	// peaks of an uncorrected wavefront are speckles and read far higher.
+	Strehl float64
+	// StrehlSamples is the number of PSFs in the exposure.
+	StrehlSamples int
+}
+
+// exposure sums PSFs, as a science camera integrates.
+type exposure struct {
+	sum []float64
+	n   int
+}
+
+func (e *exposure) add(psf []float64) int {
+	for i, v := range psf {
+		e.sum[i] += v
+	}
+	e.n++
+	return e.n
+}
+
+// strehl returns the peak of the mean PSF (the diffraction-limited peak is 1).
+func (e *exposure) strehl() float64 {
+	if e.n == 0 {
+		return 0
+	}
+	peak := 0.0
+	for _, v := range e.sum {
+		peak = max(peak, v)
+	}
+	return peak / float64(e.n)
+}
+
+func (e *exposure) reset() {
+	clear(e.sum)
+	e.n = 0
+}
+
+type statsAccumulator struct {
+	mu           sync.Mutex
+	frames       int
+	sumResidual  float64
+	lastResidual float64
+	exp          exposure
+}
+
+func (a *statsAccumulator) add(rms float64, sampled bool, psf []float64) {
+	a.mu.Lock()
+	a.frames++
+	a.sumResidual += rms
+	a.lastResidual = rms
+	if sampled {
+		a.exp.add(psf)
+	}
+	a.mu.Unlock()
+}
+
+// Latest returns the true residual OPD rms (metres) of the newest frame and the
+// Strehl ratio of the last completed one-second exposure.
+func (b *Server) Latest() (residualRMS, strehl float64) {
+	a := &b.stats
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.lastResidual, math.Float64frombits(b.lastStrehl.Load())
+}
+
+// Stats returns the figures since the last ResetStats.
+func (b *Server) Stats() Stats {
+	a := &b.stats
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	s := Stats{Frames: a.frames, StrehlSamples: a.exp.n, Strehl: a.exp.strehl()}
+	if a.frames > 0 {
+		s.ResidualRMS = a.sumResidual / float64(a.frames)
+	}
+	return s
+}
+
+// ResetStats starts a new averaging window and science exposure.
+func (b *Server) ResetStats() {
+	a := &b.stats
+	a.mu.Lock()
+	a.frames, a.sumResidual = 0, 0
+	a.exp.reset()
+	a.mu.Unlock()
+}
+
+type benchMetrics struct {
+	reg                                          *prometheus.Registry
+	frames, framesLost, commands                 prometheus.Counter
+	commandsRejected, lockstepTimeouts           prometheus.Counter
+	residual, strehl, wavelength, framePeriodGau prometheus.Gauge
+}
+
+func newBenchMetrics(wavelength, period float64) *benchMetrics {
+	m := &benchMetrics{reg: prometheus.NewRegistry()}
+	counter := func(name, help string) prometheus.Counter {
+		c := prometheus.NewCounter(prometheus.CounterOpts{Name: name, Help: help})
+		m.reg.MustRegister(c)
+		return c
+	}
+	gauge := func(name, help string) prometheus.Gauge {
+		g := prometheus.NewGauge(prometheus.GaugeOpts{Name: name, Help: help})
+		m.reg.MustRegister(g)
+		return g
+	}
+	m.frames = counter("stillsky_bench_frames_total", "Frames simulated by the bench.")
+	m.framesLost = counter("stillsky_bench_frames_lost_total", "Frames discarded because the camera consumer fell behind.")
+	m.commands = counter("stillsky_bench_commands_total", "Mirror commands applied.")
+	m.commandsRejected = counter("stillsky_bench_commands_rejected_total", "Mirror commands refused (wrong length or non-finite).")
+	m.lockstepTimeouts = counter("stillsky_bench_lockstep_timeouts_total", "Lockstep frames produced without the awaited command.")
+	m.residual = gauge("stillsky_bench_residual_wavefront_rms_meters", "True residual optical path rms over the pupil, piston removed.")
+	m.strehl = gauge("stillsky_bench_strehl_ratio", "True science Strehl ratio at the science wavelength, from the PSF.")
+	m.wavelength = gauge("stillsky_bench_science_wavelength_meters", "Science wavelength of the Strehl ratio.")
+	m.framePeriodGau = gauge("stillsky_bench_frame_period_seconds", "Frame period of the simulated camera.")
+	m.wavelength.Set(wavelength)
+	m.framePeriodGau.Set(period)
+	if err := buildinfo.Register(m.reg); err != nil {
+		panic(err) // a fresh registry cannot hold a duplicate
+	}
+	return m
+}
