@@ -118,7 +118,7 @@ func TestClosedLoopOnBench(t *testing.T) {
 	// Moore–Penrose conditions on the measured matrix (Penrose 1955; REFERENCES.md
 	// "Control law"); agreement with gonum's SVD is checked on random matrices in
 	// package controller.
-	full, err := controller.BuildReconstructor(m, controller.ReconstructorConfig{UnseenCondition: 1e12, KeepPiston: true})
+	full, err := controller.BuildReconstructor(m, controller.ReconstructorConfig{MaxCondition: 1e12, UnseenCondition: 1e12, KeepPiston: true})
 	if err != nil {
 		t.Fatal(err)
 	}

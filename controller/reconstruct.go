@@ -48,6 +48,12 @@ func ParseMethod(s string) (Method, error) {
 // magnitude: well above the conditioning of the controlled modes, below noise level).
 const DefaultUnseenCondition = 1e3
 
+// DefaultMaxCondition is the truncated-SVD cut used when neither ModesKept nor
+// MaxCondition is given (*common practice*: tens). On the Fried-geometry benches of
+// this project the spectrum has a gap near it, between the modes the sensor sees
+// well and the waffle-like edge modes and piston at noise level.
+const DefaultMaxCondition = 30
+
 // ReconstructorConfig chooses how BuildReconstructor inverts the interaction matrix.
 type ReconstructorConfig struct {
 	// Method is MethodTruncatedSVD or MethodTikhonov.
@@ -56,7 +62,8 @@ type ReconstructorConfig struct {
 	// inverted; 0 keeps every mode within MaxCondition.
 	ModesKept int
 	// MaxCondition, for truncated SVD, keeps modes with s_max/sᵢ <= MaxCondition;
-	// 0 means UnseenCondition.
+	// 0 means UnseenCondition when ModesKept is set, else DefaultMaxCondition (or
+	// UnseenCondition if that is smaller).
 	MaxCondition float64
 	// Regularization is Tikhonov's α relative to the largest singular value
 	// (α_abs = Regularization·s_max); it must be > 0 for MethodTikhonov.
@@ -238,8 +245,11 @@ func modesToKeep(c ReconstructorConfig, sv []float64, seen int, unseenCond float
 		return seen, nil
 	}
 	maxCond := c.MaxCondition
-	if maxCond == 0 {
-		maxCond = unseenCond
+	switch {
+	case maxCond == 0 && c.ModesKept > 0:
+		maxCond = unseenCond // the count rules; only unseen modes are excluded
+	case maxCond == 0:
+		maxCond = min(DefaultMaxCondition, unseenCond)
 	}
 	byCond := 0
 	for byCond < seen && sv[0]/sv[byCond] <= maxCond {

@@ -61,7 +61,7 @@ func gonumPinv(t *testing.T, m *mat.Dense, rcond float64) *mat.Dense {
 // projection of piston, and returns M⁺ = −Control.
 func pinvOf(t *testing.T, m *mat.Dense) *mat.Dense {
 	t.Helper()
-	r, err := BuildReconstructor(m, ReconstructorConfig{UnseenCondition: 1e8, KeepPiston: true})
+	r, err := BuildReconstructor(m, ReconstructorConfig{MaxCondition: 1e8, UnseenCondition: 1e8, KeepPiston: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -213,7 +213,7 @@ func TestModalBasis(t *testing.T) {
 	rng := rand.New(rand.NewPCG(9, 10))
 	m := randomDense(rng, 50, 20)
 	b := randomDense(rng, 20, 20)
-	r, err := BuildReconstructor(m, ReconstructorConfig{Basis: b, UnseenCondition: 1e8, KeepPiston: true})
+	r, err := BuildReconstructor(m, ReconstructorConfig{Basis: b, MaxCondition: 1e8, UnseenCondition: 1e8, KeepPiston: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -232,7 +232,7 @@ func TestModalBasis(t *testing.T) {
 func TestModalGains(t *testing.T) {
 	rng := rand.New(rand.NewPCG(11, 12))
 	m := randomDense(rng, 40, 12)
-	r, err := BuildReconstructor(m, ReconstructorConfig{UnseenCondition: 1e8, KeepPiston: true})
+	r, err := BuildReconstructor(m, ReconstructorConfig{MaxCondition: 1e8, UnseenCondition: 1e8, KeepPiston: true})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -318,5 +318,45 @@ func TestBuildReconstructorRejects(t *testing.T) {
 				t.Log(err)
 			}
 		})
+	}
+}
+
+// The truncation rules on a matrix of known spectrum M = U·diag(s)·Vᵀ.
+func TestTruncationRules(t *testing.T) {
+	rng := rand.New(rand.NewPCG(17, 18))
+	s := []float64{100, 50, 10, 4, 3, 2, 1, 0.05} // conditions 1 … 50, 100, 2000
+	var qu, qv mat.QR
+	qu.Factorize(randomDense(rng, 20, 8))
+	qv.Factorize(randomDense(rng, 8, 8))
+	var u, v, us, m mat.Dense
+	qu.QTo(&u)
+	qv.QTo(&v)
+	us.Mul(u.Slice(0, 20, 0, 8), mat.NewDiagDense(8, s))
+	m.Mul(&us, v.T())
+	cases := []struct {
+		name         string
+		c            ReconstructorConfig
+		kept, unseen int
+	}{
+		{"defaults", ReconstructorConfig{}, 4, 1},
+		{"modes kept", ReconstructorConfig{ModesKept: 7}, 7, 1},
+		{"max condition", ReconstructorConfig{MaxCondition: 60}, 6, 1},
+		{"unseen condition below the default cut", ReconstructorConfig{UnseenCondition: 20}, 3, 5},
+		{"tikhonov uses every seen mode", ReconstructorConfig{Method: MethodTikhonov, Regularization: 0.01}, 7, 1},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			c.c.KeepPiston = true
+			r, err := BuildReconstructor(&m, c.c)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if r.ModesKept != c.kept || r.Unseen != c.unseen {
+				t.Errorf("kept %d, unseen %d; want %d and %d", r.ModesKept, r.Unseen, c.kept, c.unseen)
+			}
+		})
+	}
+	if _, err := BuildReconstructor(&m, ReconstructorConfig{ModesKept: 8}); err == nil {
+		t.Error("keeping the unseen eighth mode accepted")
 	}
 }
