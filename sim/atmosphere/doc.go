@@ -30,7 +30,8 @@
 // by 15%. Over a run this modulates the finest scales at the sample-crossing rate
 // v/Δx and biases the DM fitting error low by roughly 5% on average, on top of the
 // power above the grid's Nyquist frequency that no sampled screen has. Cubic
-// interpolation would halve the artefact at twice the cost of OPD.
+// convolution would remove most of it below half the Nyquist frequency, at about
+// twice the cost of OPD; it is not done.
 //
 // It is pure physics: it depends on package optics for the pupil grid and the FFT,
 // on gonum through it, and on nothing that does I/O or reads clocks.
