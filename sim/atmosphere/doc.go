@@ -28,7 +28,8 @@
 // attenuates spatial frequency f by cos²(π f Δx) in power: the one-sample structure
 // function dips by about 20% (25% for a diagonal shift), a quarter-Nyquist frequency
 // by 15%. Over a run this modulates the finest scales at the sample-crossing rate
-// v/Δx and biases the DM fitting error low by roughly 5% on average, on top of the
+// v/Δx and biases the DM fitting error low by roughly 5% on average (our estimate
+// from Φ ∝ f^(−11/3) above the DM cut-off), on top of the
 // power above the grid's Nyquist frequency that no sampled screen has. Cubic
 // convolution would remove most of it below half the Nyquist frequency, at about
 // twice the cost of OPD; it is not done.
