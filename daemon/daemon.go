@@ -47,6 +47,9 @@ type Config struct {
 	Security Security
 	// Logger receives the daemon's log; nil discards it.
 	Logger *slog.Logger
+	// BenchURL is the HTTP base URL of the simulated bench, whose PSF the live view
+	// shows; "" for none.
+	BenchURL string
 }
 
 func (c *Config) setDefaults() error {
@@ -115,6 +118,8 @@ type Daemon struct {
 	stats runStats
 
 	telemetry telemetryRing
+	// describes holds the devices' Describe answers, for the live view.
+	describes atomic.Pointer[describes]
 	// camera is the connected camera's client, for source selection.
 	camera atomic.Pointer[stillskyv1.CameraServiceClient]
 
@@ -162,6 +167,7 @@ func New(cfg Config) (*Daemon, error) {
 	stillskyv1.RegisterControlServiceServer(d.grpcServer, &controlServer{d: d})
 	mux := http.NewServeMux()
 	mux.Handle("/metrics", promhttp.HandlerFor(d.m.reg, promhttp.HandlerOpts{Registry: d.m.reg}))
+	d.registerLiveView(mux)
 	d.httpServer = &http.Server{Handler: mux, ReadHeaderTimeout: 5 * time.Second}
 	return d, nil
 }

@@ -85,6 +85,7 @@ func (d *Daemon) session(ctx context.Context) error {
 	d.geomMu.Lock()
 	d.geom = g
 	d.geomMu.Unlock()
+	d.describes.Store(&describes{cam: camDesc, mir: mirDesc})
 	d.m.framePeriod.Set(1 / g.frameRate)
 	d.m.actuators.Set(float64(g.actuators))
 	d.log.Info("devices described", "slopes", g.slopes, "actuators", g.actuators, "frame_rate_hz", g.frameRate,
