@@ -433,7 +433,7 @@ func structure(cards []Card, primary bool) (*HDU, error) {
 // readChunk is how many bytes of data are read at a time. Data slices grow chunk by
 // chunk, so a header that claims more data than the input holds fails at the end of
 // the input instead of allocating the claimed size up front.
-const readChunk = 1 << 20
+const readChunk = 1 << 16
 
 func readData(r io.Reader, h *HDU, n int) error {
 	if n == 0 {
