@@ -69,9 +69,12 @@ func (l *Loop) Params() *Params { return l.params.Load() }
 // The residual estimate is σ = 2·rms_i(Δᵢ − mean Δ) metres of optical path: with
 // unit modal gains Δ = −M⁺s' is the mirror surface that would null the slopes, so
 // 2Δ is the reconstructed residual optical path in actuator space (reflection
-// doubles it), piston removed. It sees only what the sensor and mirror can
-// represent (no fitting or aliasing error), and with non-unit modal gains it weighs
-// each mode by its gain. Step allocates nothing.
+// doubles it), piston removed. It is cheap (no second MVM) but only an indicator:
+// it sees only what the sensor and mirror can represent (no fitting or aliasing
+// error), it includes the frame's measurement noise, it counts actuator values
+// rather than surface (influence functions that sum to more than one, as a
+// Gaussian with 15 % coupling does, about 1.7, make the surface larger), and with
+// non-unit modal gains it weighs each mode by its gain. Step allocates nothing.
 func (l *Loop) Step(slopes, cmd []float32) Result {
 	if len(slopes) != l.ns {
 		return l.hold(cmd, StatusSlopesLength)
