@@ -1,0 +1,601 @@
+package daemon_test
+
+import (
+	"bytes"
+	"context"
+	"encoding/binary"
+	"fmt"
+	"io"
+	"math"
+	"math/rand/v2"
+	"net"
+	"net/http"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/prometheus/common/expfmt"
+	"github.com/prometheus/common/model"
+	"gonum.org/v1/gonum/mat"
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
+	"stillsky/controller"
+	"stillsky/daemon"
+	"stillsky/internal/monoclock"
+	"stillsky/internal/rpc"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+)
+
+// hostile is a camera and a mirror written for these tests: the camera sends
+// exactly the messages a test scripts, however malformed, and the mirror records
+// every command it receives. Both are real gRPC devices on their own loopback
+// servers, so the daemon sees them exactly as it sees the bench.
+type hostile struct {
+	stillskyv1.UnimplementedCameraServiceServer
+	slopes, actuators int
+	frameRate         float64
+	stroke            float64
+
+	frames chan *stillskyv1.StreamFramesResponse
+
+	mu       sync.Mutex
+	commands int
+	bad      []string // commands of the wrong length or with non-finite values
+	lastCmd  uint64   // frame number of the newest command
+	lastVals []float32
+	arrived  chan struct{}
+}
+
+type hostileMirror struct {
+	stillskyv1.UnimplementedMirrorServiceServer
+	h *hostile
+}
+
+func (h *hostile) Describe(context.Context, *stillskyv1.CameraServiceDescribeRequest) (*stillskyv1.CameraServiceDescribeResponse, error) {
+	return &stillskyv1.CameraServiceDescribeResponse{
+		SlopeCount: uint32(h.slopes), FrameRateHz: h.frameRate, SlopeUnit: "rad", DelayFrames: 1,
+		Description: "hostile test camera",
+	}, nil
+}
+
+func (h *hostile) StreamFrames(_ *stillskyv1.StreamFramesRequest, s grpc.ServerStreamingServer[stillskyv1.StreamFramesResponse]) error {
+	for {
+		select {
+		case <-s.Context().Done():
+			return nil
+		case f := <-h.frames:
+			if err := s.Send(f); err != nil {
+				return err
+			}
+		}
+	}
+}
+
+func (m hostileMirror) Describe(context.Context, *stillskyv1.MirrorServiceDescribeRequest) (*stillskyv1.MirrorServiceDescribeResponse, error) {
+	return &stillskyv1.MirrorServiceDescribeResponse{ActuatorCount: uint32(m.h.actuators), StrokeM: m.h.stroke, CommandUnit: "m"}, nil
+}
+
+func (m hostileMirror) StreamCommands(s grpc.BidiStreamingServer[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
+	h := m.h
+	for {
+		req, err := s.Recv()
+		if err != nil {
+			return nil
+		}
+		received := monoclock.Now()
+		v := req.GetValues()
+		h.mu.Lock()
+		h.commands++
+		h.lastCmd = req.GetFrameNumber()
+		h.lastVals = append(h.lastVals[:0], v...)
+		if len(v) != h.actuators {
+			h.bad = append(h.bad, fmt.Sprintf("frame %d: %d values", req.GetFrameNumber(), len(v)))
+		}
+		for i, x := range v {
+			if math.IsNaN(float64(x)) || math.IsInf(float64(x), 0) {
+				h.bad = append(h.bad, fmt.Sprintf("frame %d: value %d = %v", req.GetFrameNumber(), i, x))
+				break
+			}
+		}
+		h.mu.Unlock()
+		select {
+		case h.arrived <- struct{}{}:
+		default:
+		}
+		if err := s.Send(&stillskyv1.StreamCommandsResponse{FrameNumber: req.GetFrameNumber(), ReceivedNs: received}); err != nil {
+			return nil
+		}
+	}
+}
+
+// hostileRig is a hostile camera and mirror and a daemon connected to them.
+type hostileRig struct {
+	h              *hostile
+	d              *daemon.Daemon
+	client         stillskyv1.ControlServiceClient
+	camSrv, mirSrv *grpc.Server
+	next           uint64 // next frame number a script should use
+	rng            *rand.Rand
+}
+
+func startHostile(t *testing.T, cfg daemon.Config) *hostileRig {
+	t.Helper()
+	h := &hostile{slopes: 40, actuators: 12, frameRate: 1000, stroke: 1e-6,
+		frames: make(chan *stillskyv1.StreamFramesResponse), arrived: make(chan struct{}, 1)}
+	camLis, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	mirLis, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	camSrv, mirSrv := grpc.NewServer(), grpc.NewServer()
+	stillskyv1.RegisterCameraServiceServer(camSrv, h)
+	stillskyv1.RegisterMirrorServiceServer(mirSrv, hostileMirror{h: h})
+	go camSrv.Serve(camLis)
+	go mirSrv.Serve(mirLis)
+	cfg.CameraAddr, cfg.MirrorAddr = camLis.Addr().String(), mirLis.Addr().String()
+	cfg.ListenAddr, cfg.MetricsAddr = "127.0.0.1:0", "127.0.0.1:0"
+	d, err := daemon.New(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- d.Run(ctx) }()
+	conn, err := rpc.Dial(d.ControlAddr())
+	if err != nil {
+		t.Fatal(err)
+	}
+	r := &hostileRig{h: h, d: d, client: stillskyv1.NewControlServiceClient(conn), camSrv: camSrv, mirSrv: mirSrv,
+		next: 1, rng: rand.New(rand.NewPCG(7, 11))}
+	t.Cleanup(func() {
+		conn.Close()
+		cancel()
+		camSrv.Stop()
+		mirSrv.Stop()
+		select {
+		case <-done:
+		case <-time.After(10 * time.Second):
+			t.Error("daemon did not stop within 10 s")
+		}
+	})
+	deadline := time.Now().Add(10 * time.Second)
+	for s := r.status(t); !s.GetCameraConnected() || !s.GetMirrorConnected(); s = r.status(t) {
+		if time.Now().After(deadline) {
+			t.Fatal("daemon did not connect to the hostile devices within 10 s")
+		}
+		time.Sleep(5 * time.Millisecond)
+	}
+	return r
+}
+
+func (r *hostileRig) status(t *testing.T) *stillskyv1.GetStatusResponse {
+	t.Helper()
+	s, err := r.client.GetStatus(context.Background(), &stillskyv1.GetStatusRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return s
+}
+
+// good returns a valid frame with the next frame number.
+func (r *hostileRig) good() *stillskyv1.StreamFramesResponse {
+	f := r.frame(r.next, r.h.slopes)
+	r.next++
+	return f
+}
+
+// frame returns a frame numbered num of n finite slopes (µrad-sized noise).
+func (r *hostileRig) frame(num uint64, n int) *stillskyv1.StreamFramesResponse {
+	s := make([]float32, n)
+	for i := range s {
+		s[i] = float32(1e-6 * r.rng.NormFloat64())
+	}
+	return &stillskyv1.StreamFramesResponse{FrameNumber: num, ReadoutEndNs: monoclock.Now(), ChunkCount: 1, Slopes: s}
+}
+
+func (r *hostileRig) send(t *testing.T, fs ...*stillskyv1.StreamFramesResponse) {
+	t.Helper()
+	for _, f := range fs {
+		select {
+		case r.h.frames <- f:
+		case <-time.After(5 * time.Second):
+			t.Fatalf("the daemon took no frame within 5 s")
+		}
+	}
+}
+
+// sync sends a good frame and waits until its command reached the mirror: the
+// daemon handles frames in order, so everything sent before has been handled.
+func (r *hostileRig) sync(t *testing.T) {
+	t.Helper()
+	f := r.good()
+	r.send(t, f)
+	deadline := time.After(5 * time.Second)
+	for {
+		r.h.mu.Lock()
+		got := r.h.lastCmd
+		r.h.mu.Unlock()
+		if got >= f.GetFrameNumber() {
+			return
+		}
+		select {
+		case <-r.h.arrived:
+		case <-time.After(time.Millisecond):
+		case <-deadline:
+			t.Fatalf("no command for frame %d within 5 s", f.GetFrameNumber())
+		}
+	}
+}
+
+// pump sends good frames at about 1 kHz until the returned stop is called; for
+// requests (close, open) that wait for the real-time goroutine's next frame.
+func (r *hostileRig) pump(t *testing.T) (stop func()) {
+	quit, done := make(chan struct{}), make(chan struct{})
+	go func() {
+		defer close(done)
+		for {
+			f := r.good()
+			select {
+			case <-quit:
+				r.next-- // f was not sent
+				return
+			case r.h.frames <- f:
+			}
+			time.Sleep(time.Millisecond)
+		}
+	}()
+	return func() { close(quit); <-done }
+}
+
+// loadMatrix uploads a reconstructor built from a random control matrix of the
+// devices' geometry through the Control API.
+func (r *hostileRig) loadMatrix(t *testing.T) *controller.Reconstructor {
+	t.Helper()
+	m := mat.NewDense(r.h.actuators, r.h.slopes, nil)
+	for i := range r.h.actuators {
+		for j := range r.h.slopes {
+			m.Set(i, j, 0.01*r.rng.NormFloat64())
+		}
+	}
+	rec, err := controller.ReconstructorFromMatrix(m, time.Date(2026, 3, 4, 5, 6, 7, 0, time.UTC))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := uploadReconstructor(r.client, encode(t, rec)); err != nil {
+		t.Fatalf("loading a valid reconstructor: %v", err)
+	}
+	return rec
+}
+
+// closeLoop closes the loop while frames flow, so that the real-time goroutine
+// takes the request.
+func (r *hostileRig) closeLoop(t *testing.T) {
+	t.Helper()
+	stop := r.pump(t)
+	defer stop()
+	if _, err := r.client.CloseLoop(context.Background(), &stillskyv1.CloseLoopRequest{}); err != nil {
+		t.Fatalf("close: %v", err)
+	}
+}
+
+func encode(t *testing.T, rec *controller.Reconstructor) []byte {
+	t.Helper()
+	var b bytes.Buffer
+	if err := controller.WriteReconstructor(&b, rec); err != nil {
+		t.Fatal(err)
+	}
+	return b.Bytes()
+}
+
+func uploadReconstructor(c stillskyv1.ControlServiceClient, file []byte) error {
+	s, err := c.LoadReconstructor(context.Background())
+	if err != nil {
+		return err
+	}
+	if err := s.Send(&stillskyv1.LoadReconstructorRequest{Chunk: file}); err != nil && err != io.EOF {
+		return err
+	}
+	_, err = s.CloseAndRecv()
+	return err
+}
+
+// scrape reads /metrics at addr into "name" or "name{label}" → value, using the
+// Prometheus text parser.
+func scrape(t *testing.T, addr string) map[string]float64 {
+	t.Helper()
+	resp, err := http.Get("http://" + addr + "/metrics")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	parser := expfmt.NewTextParser(model.UTF8Validation)
+	fams, err := parser.TextToMetricFamilies(resp.Body)
+	if err != nil {
+		t.Fatalf("parsing /metrics: %v", err)
+	}
+	out := map[string]float64{}
+	for name, f := range fams {
+		for _, m := range f.GetMetric() {
+			key := name
+			for _, l := range m.GetLabel() {
+				key += "{" + l.GetValue() + "}"
+			}
+			switch {
+			case m.GetCounter() != nil:
+				out[key] = m.GetCounter().GetValue()
+			case m.GetGauge() != nil:
+				out[key] = m.GetGauge().GetValue()
+			}
+		}
+	}
+	return out
+}
+
+// TestHostileCameraFrames feeds a closed loop every kind of malformed frame from
+// a real (if hostile) camera. Each must be refused and counted under its reason in
+// stillsky_frames_rejected_total (gaps under stillsky_frames_dropped_total), the
+// mirror must never receive a wrong-length or non-finite command, and the loop
+// must stay closed with the same gain and reconstructor (DESIGN.md, the hot path
+// contract).
+func TestHostileCameraFrames(t *testing.T) {
+	// The scripted camera is silent between messages: no stale-camera hold here.
+	r := startHostile(t, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 1 << 20}})
+	r.sync(t)
+	rec := r.loadMatrix(t)
+	r.sync(t)
+	r.closeLoop(t)
+	r.sync(t)
+	before := r.status(t)
+	if before.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED {
+		t.Fatalf("state %v after close, want closed", before.GetState())
+	}
+	n := r.h.slopes
+	nanAt := func(v float32) *stillskyv1.StreamFramesResponse {
+		f := r.frame(r.next, n)
+		f.Slopes[n/2] = v
+		return f
+	}
+	last := func() uint64 { return r.next - 1 }
+	cases := []struct {
+		name   string
+		frames func() []*stillskyv1.StreamFramesResponse
+		reason string // label of stillsky_frames_rejected_total, or "dropped"
+		count  float64
+	}{
+		{"one slope too many", func() []*stillskyv1.StreamFramesResponse {
+			return []*stillskyv1.StreamFramesResponse{r.frame(r.next, n+1)}
+		}, "length", 1},
+		{"twice the slopes", func() []*stillskyv1.StreamFramesResponse {
+			return []*stillskyv1.StreamFramesResponse{r.frame(r.next, 2*n)}
+		}, "length", 1},
+		{"no slopes", func() []*stillskyv1.StreamFramesResponse {
+			return []*stillskyv1.StreamFramesResponse{r.frame(r.next, 0)}
+		}, "length", 1},
+		{"offset past the start", func() []*stillskyv1.StreamFramesResponse {
+			f := r.frame(r.next, n-3)
+			f.Offset = 3
+			return []*stillskyv1.StreamFramesResponse{f}
+		}, "length", 1},
+		{"one slope short", func() []*stillskyv1.StreamFramesResponse {
+			f := r.frame(r.next, n-1)
+			return []*stillskyv1.StreamFramesResponse{f}
+		}, "length", 1},
+		{"second chunk from another frame", func() []*stillskyv1.StreamFramesResponse {
+			a := r.frame(r.next, n-5)
+			a.ChunkCount = 2
+			b := r.frame(r.next+1, 5)
+			b.ChunkIndex, b.ChunkCount, b.Offset = 1, 2, uint32(n-5)
+			return []*stillskyv1.StreamFramesResponse{a, b}
+		}, "length", 1},
+		{"NaN", func() []*stillskyv1.StreamFramesResponse {
+			return []*stillskyv1.StreamFramesResponse{nanAt(float32(math.NaN()))}
+		}, "nonfinite", 1},
+		{"+Inf", func() []*stillskyv1.StreamFramesResponse {
+			return []*stillskyv1.StreamFramesResponse{nanAt(float32(math.Inf(1)))}
+		}, "nonfinite", 1},
+		{"-Inf", func() []*stillskyv1.StreamFramesResponse {
+			return []*stillskyv1.StreamFramesResponse{nanAt(float32(math.Inf(-1)))}
+		}, "nonfinite", 1},
+		{"duplicate", func() []*stillskyv1.StreamFramesResponse {
+			return []*stillskyv1.StreamFramesResponse{r.frame(last(), n)}
+		}, "duplicate", 1},
+		{"out of order", func() []*stillskyv1.StreamFramesResponse {
+			return []*stillskyv1.StreamFramesResponse{r.frame(last()-3, n), r.frame(last()-1, n)}
+		}, "out_of_order", 2},
+		{"gap of five", func() []*stillskyv1.StreamFramesResponse {
+			r.next += 5
+			return []*stillskyv1.StreamFramesResponse{r.good()}
+		}, "dropped", 5},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			m0, s0 := scrape(t, r.d.MetricsAddr()), r.status(t)
+			r.send(t, c.frames()...)
+			r.sync(t)
+			m1, s1 := scrape(t, r.d.MetricsAddr()), r.status(t)
+			if c.reason == "dropped" {
+				if got := m1["stillsky_frames_dropped_total"] - m0["stillsky_frames_dropped_total"]; got != c.count {
+					t.Errorf("stillsky_frames_dropped_total rose by %g, want %g", got, c.count)
+				}
+				if got := s1.GetFramesDropped() - s0.GetFramesDropped(); float64(got) != c.count {
+					t.Errorf("status frames_dropped rose by %d, want %g", got, c.count)
+				}
+				return
+			}
+			key := "stillsky_frames_rejected_total{" + c.reason + "}"
+			if got := m1[key] - m0[key]; got != c.count {
+				t.Errorf("%s rose by %g, want %g", key, got, c.count)
+			}
+			if got := s1.GetFramesRejected() - s0.GetFramesRejected(); float64(got) != c.count {
+				t.Errorf("status frames_rejected rose by %d, want %g", got, c.count)
+			}
+			if got := s1.GetFramesDropped() - s0.GetFramesDropped(); got != 0 {
+				t.Errorf("a refused frame counted %d frames as dropped", got)
+			}
+		})
+	}
+	after := r.status(t)
+	if after.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED || after.GetGain() != before.GetGain() ||
+		after.GetReconstructor().GetCreatedUnix() != rec.Created.Unix() || after.GetInterlockTrips() != 0 {
+		t.Errorf("bad frames changed the running state: %v gain %g created %d trips %d",
+			after.GetState(), after.GetGain(), after.GetReconstructor().GetCreatedUnix(), after.GetInterlockTrips())
+	}
+	r.h.mu.Lock()
+	defer r.h.mu.Unlock()
+	if len(r.h.bad) > 0 {
+		t.Errorf("the mirror received %d malformed commands, first %s", len(r.h.bad), r.h.bad[0])
+	}
+	t.Logf("%d commands reached the mirror, all of %d finite values", r.h.commands, r.h.actuators)
+}
+
+// TestHostileCameraStrayChunk sends a message that claims to be the second chunk
+// of a frame whose first chunk never came. It is refused (the loop does not use
+// it) but counted nowhere, so a camera that loses the start of its frames looks
+// healthy in stillsky_frames_rejected_total.
+func TestHostileCameraStrayChunk(t *testing.T) {
+	t.Skip("bug: daemon/realtime.go assemble drops a chunk whose frame never started without counting it (see report)")
+	r := startHostile(t, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 1 << 20}})
+	r.sync(t)
+	s0 := r.status(t)
+	f := r.frame(r.next, r.h.slopes)
+	f.ChunkIndex, f.ChunkCount = 1, 2
+	r.next++
+	r.send(t, f)
+	r.sync(t)
+	if got := r.status(t).GetFramesRejected() - s0.GetFramesRejected(); got != 1 {
+		t.Errorf("frames_rejected rose by %d, want 1", got)
+	}
+}
+
+// TestRejectedFrameNotDropped sends a NaN frame k followed by a good frame k+1.
+// The camera lost nothing, so frame k must count as rejected only; the daemon
+// also counts it under stillsky_frames_dropped_total, because the gap is taken
+// between accepted frames.
+func TestRejectedFrameNotDropped(t *testing.T) {
+	t.Skip("bug: daemon/realtime.go run counts a rejected frame's number as a gap (dropped) too (see report)")
+	r := startHostile(t, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 1 << 20}})
+	r.sync(t)
+	s0 := r.status(t)
+	f := r.good()
+	f.Slopes[0] = float32(math.NaN())
+	r.send(t, f)
+	r.sync(t)
+	s1 := r.status(t)
+	if d, j := s1.GetFramesDropped()-s0.GetFramesDropped(), s1.GetFramesRejected()-s0.GetFramesRejected(); d != 0 || j != 1 {
+		t.Errorf("one NaN frame: dropped +%d, rejected +%d; want +0 and +1", d, j)
+	}
+}
+
+// TestBadControlRequests sends refused Control API requests to a closed loop:
+// each gets InvalidArgument or FailedPrecondition with a message, is counted
+// nowhere as a success, and leaves state, gain, leak and reconstructor as they were.
+func TestBadControlRequests(t *testing.T) {
+	r := startHostile(t, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 1 << 20}})
+	r.sync(t)
+	rec := r.loadMatrix(t)
+	r.closeLoop(t)
+	ctx := context.Background()
+	valid := encode(t, rec)
+
+	wrongSize := func(ns, na int) []byte {
+		m := mat.NewDense(na, ns, nil)
+		m.Set(0, 0, 1)
+		w, err := controller.ReconstructorFromMatrix(m, time.Now())
+		if err != nil {
+			t.Fatal(err)
+		}
+		return encode(t, w)
+	}
+	// The primary data unit starts at the first 2880-byte block after the END
+	// card (FITS Standard 4.0 §3.3.1 and §4.4.1); its first value is R(0, 0), a
+	// big-endian IEEE 754 double (§5.3).
+	withValue := func(v float64) []byte {
+		b := bytes.Clone(valid)
+		end := -1
+		for i := 0; i+80 <= len(b); i += 80 {
+			if string(b[i:i+8]) == "END     " {
+				end = i
+				break
+			}
+		}
+		if end < 0 {
+			t.Fatal("no END card in the written file")
+		}
+		data := (end/2880 + 1) * 2880
+		binary.BigEndian.PutUint64(b[data:], math.Float64bits(v))
+		return b
+	}
+	corrupt := bytes.Clone(valid)
+	copy(corrupt[80*3:], "NAXIS1  =                  -40")
+
+	calibrate := func(req *stillskyv1.CalibrateRequest) error {
+		s, err := r.client.Calibrate(ctx, req)
+		if err != nil {
+			return err
+		}
+		_, err = s.Recv()
+		return err
+	}
+	cases := []struct {
+		name string
+		call func() error
+		code codes.Code
+	}{
+		{"gain 2 (the stability bound)", func() error { _, err := r.client.SetGain(ctx, &stillskyv1.SetGainRequest{Gain: 2}); return err }, codes.InvalidArgument},
+		{"gain +Inf", func() error {
+			_, err := r.client.SetGain(ctx, &stillskyv1.SetGainRequest{Gain: math.Inf(1)})
+			return err
+		}, codes.InvalidArgument},
+		{"gain NaN", func() error {
+			_, err := r.client.SetGain(ctx, &stillskyv1.SetGainRequest{Gain: math.NaN()})
+			return err
+		}, codes.InvalidArgument},
+		{"gain -1e-300", func() error {
+			_, err := r.client.SetGain(ctx, &stillskyv1.SetGainRequest{Gain: -1e-300})
+			return err
+		}, codes.InvalidArgument},
+		{"leak NaN", func() error {
+			_, err := r.client.SetLeak(ctx, &stillskyv1.SetLeakRequest{Leak: math.NaN()})
+			return err
+		}, codes.InvalidArgument},
+		{"leak 1", func() error { _, err := r.client.SetLeak(ctx, &stillskyv1.SetLeakRequest{Leak: 1}); return err }, codes.InvalidArgument},
+		{"modal gains on a matrix reconstructor", func() error {
+			_, err := r.client.SetModalGains(ctx, &stillskyv1.SetModalGainsRequest{Gains: []float64{1}})
+			return err
+		}, codes.InvalidArgument},
+		{"reconstructor with one slope too many", func() error { return uploadReconstructor(r.client, wrongSize(r.h.slopes+1, r.h.actuators)) }, codes.InvalidArgument},
+		{"reconstructor with one actuator too few", func() error { return uploadReconstructor(r.client, wrongSize(r.h.slopes, r.h.actuators-1)) }, codes.InvalidArgument},
+		{"reconstructor with a NaN", func() error { return uploadReconstructor(r.client, withValue(math.NaN())) }, codes.InvalidArgument},
+		{"reconstructor with an Inf", func() error { return uploadReconstructor(r.client, withValue(math.Inf(-1))) }, codes.InvalidArgument},
+		{"reconstructor truncated in the data", func() error { return uploadReconstructor(r.client, valid[:len(valid)-2880]) }, codes.InvalidArgument},
+		{"reconstructor truncated in the header", func() error { return uploadReconstructor(r.client, valid[:1000]) }, codes.InvalidArgument},
+		{"reconstructor with a corrupt axis", func() error { return uploadReconstructor(r.client, corrupt) }, codes.InvalidArgument},
+		{"empty reconstructor", func() error { return uploadReconstructor(r.client, nil) }, codes.InvalidArgument},
+		{"hold while closed is fine, calibrate while closed is not", func() error { return calibrate(&stillskyv1.CalibrateRequest{}) }, codes.FailedPrecondition},
+	}
+	for _, c := range cases {
+		before := r.status(t)
+		err := c.call()
+		if status.Code(err) != c.code || status.Convert(err).Message() == "" {
+			t.Errorf("%s: %v, want %v with a message", c.name, err, c.code)
+		}
+		r.sync(t)
+		after := r.status(t)
+		if after.GetState() != before.GetState() || after.GetGain() != before.GetGain() || after.GetLeak() != before.GetLeak() ||
+			after.GetReconstructor().GetCreatedUnix() != rec.Created.Unix() || after.GetReconstructor().GetSlopeCount() != uint32(r.h.slopes) {
+			t.Errorf("%s changed the state: %v/%g/%g/%d → %v/%g/%g/%d", c.name,
+				before.GetState(), before.GetGain(), before.GetLeak(), before.GetReconstructor().GetCreatedUnix(),
+				after.GetState(), after.GetGain(), after.GetLeak(), after.GetReconstructor().GetCreatedUnix())
+		}
+	}
+	r.h.mu.Lock()
+	defer r.h.mu.Unlock()
+	if len(r.h.bad) > 0 {
+		t.Errorf("the mirror received %d malformed commands, first %s", len(r.h.bad), r.h.bad[0])
+	}
+}
