@@ -9,6 +9,8 @@ import (
 	"time"
 
 	"gonum.org/v1/gonum/mat"
+
+	"stillsky/controller/mvm"
 )
 
 // identityParams returns parameters for a plant whose sensor sees e = φ − c
@@ -589,6 +591,8 @@ func TestNewParamsRejects(t *testing.T) {
 		{"modal gain NaN", func(c *ParamsConfig) { c.ModalGains = []float64{1, nan, 1, 1} }},
 		{"modal gain × gain >= 2", func(c *ParamsConfig) { c.ModalGains = []float64{1, 4, 1, 1} }},
 		{"modal gains on a matrix reconstructor", func(c *ParamsConfig) { c.Reconstructor, c.ModalGains = zonal, []float64{1, 1, 1, 1} }},
+		{"kernel workers", func(c *ParamsConfig) { c.Kernel.Workers = -1 }},
+		{"kernel name", func(c *ParamsConfig) { c.Kernel.Kernel = "abacus" }},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -628,5 +632,55 @@ func TestNewParamsRejects(t *testing.T) {
 	q.Close()
 	if _, err := q.WithGain(0.1); err == nil {
 		t.Error("WithGain on a closed set accepted")
+	}
+}
+
+// Every kernel behind the seam runs the same control law: the pure-Go kernel
+// agrees with the default to float32 rounding, bfloat16 storage (8-bit mantissa,
+// relative rounding 2⁻⁹ per element) to about a percent.
+func TestKernelOptions(t *testing.T) {
+	rng := rand.New(rand.NewPCG(43, 44))
+	r, err := ReconstructorFromMatrix(randomDense(rng, 50, 120), time.Time{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := randomSlopes(rng, 120)
+	run := func(opts mvm.Options) []float32 {
+		p, err := NewParams(ParamsConfig{Reconstructor: r, Gain: 0.5, Stroke: 1e3, StrehlWavelength: 1e-6, Kernel: opts})
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer p.Close()
+		l, _ := NewLoop(p)
+		cmd := make([]float32, 50)
+		if res := l.Step(s, cmd); !res.OK() {
+			t.Fatal(res.Status)
+		}
+		return cmd
+	}
+	ref := run(mvm.Options{})
+	var norm float64
+	for _, v := range ref {
+		norm += float64(v) * float64(v)
+	}
+	norm = math.Sqrt(norm)
+	for _, c := range []struct {
+		name string
+		opts mvm.Options
+		tol  float64
+	}{
+		{"plain", mvm.Options{Kernel: "plain"}, 1e-5},
+		{"bfloat16", mvm.Options{Precision: mvm.BFloat16}, 1e-2},
+	} {
+		got := run(c.opts)
+		var d float64
+		for i := range got {
+			d += math.Pow(float64(got[i]-ref[i]), 2)
+		}
+		if rel := math.Sqrt(d) / norm; rel > c.tol {
+			t.Errorf("%s: command differs from the default kernel by %.3g (relative), want <= %g", c.name, rel, c.tol)
+		} else {
+			t.Logf("%s: relative difference %.2g", c.name, rel)
+		}
 	}
 }

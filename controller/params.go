@@ -35,6 +35,9 @@ type ParamsConfig struct {
 	Reference []float32
 	// StrehlWavelength is the wavelength in metres of the Maréchal estimate (> 0).
 	StrehlWavelength float64
+	// Kernel chooses the matrix–vector kernel; the zero value picks the fastest
+	// float32 kernel the CPU supports with threads chosen by matrix size.
+	Kernel mvm.Options
 }
 
 // Params is an immutable, validated parameter set. Build it with NewParams off the
@@ -61,13 +64,12 @@ type kernel struct {
 	refs atomic.Int32
 }
 
-// newMultiplier is the one place that chooses the MVM kernel: the fastest one the
-// CPU supports, with worker threads chosen by matrix size.
-func newMultiplier(a *mvm.Matrix) (mvm.Multiplier, error) {
-	return mvm.New(a, mvm.Options{})
+// newMultiplier is the one place that builds the MVM kernel.
+func newMultiplier(a *mvm.Matrix, opts mvm.Options) (mvm.Multiplier, error) {
+	return mvm.New(a, opts)
 }
 
-func newKernel(r *Reconstructor, modalGains []float64) (*kernel, error) {
+func newKernel(r *Reconstructor, modalGains []float64, opts mvm.Options) (*kernel, error) {
 	c, err := r.ControlMatrix(modalGains)
 	if err != nil {
 		return nil, err
@@ -87,7 +89,7 @@ func newKernel(r *Reconstructor, modalGains []float64) (*kernel, error) {
 			return nil, fmt.Errorf("controller: control matrix entry (%d, %d) overflows float32", i/a.Stride, i%a.Stride)
 		}
 	}
-	mul, err := newMultiplier(a)
+	mul, err := newMultiplier(a, opts)
 	if err != nil {
 		return nil, fmt.Errorf("controller: control matrix kernel: %w", err)
 	}
@@ -103,7 +105,7 @@ func NewParams(c ParamsConfig) (*Params, error) {
 	if err != nil {
 		return nil, err
 	}
-	if p.kern, err = newKernel(c.Reconstructor, c.ModalGains); err != nil {
+	if p.kern, err = newKernel(c.Reconstructor, c.ModalGains, c.Kernel); err != nil {
 		return nil, err
 	}
 	return p, nil
