@@ -1,0 +1,81 @@
+package bench
+
+import (
+	"bytes"
+	"image"
+	"image/color"
+	"image/png"
+	"math"
+	"net/http"
+)
+
+// psfDecades is the dynamic range of the PSF image: log10 of the PSF over the
+// diffraction-limited peak, from −psfDecades (black) to 0 (white). Five decades
+// show the first Airy rings and the halo of a partly corrected PSF.
+const psfDecades = 5
+
+// psfMinSide is the smallest side of the PSF image in pixels; smaller PSFs are
+// enlarged by an integer factor so that a browser does not blur them.
+const psfMinSide = 256
+
+// RegisterLiveView adds GET /psf.png to mux: the science PSF of the last sampled
+// frame, log scale. Pass it to Serve to offer it on the bench's metrics port, for
+// the loop's live view.
+func (b *Server) RegisterLiveView(mux *http.ServeMux) {
+	mux.HandleFunc("GET /psf.png", b.servePSF)
+}
+
+func (b *Server) servePSF(w http.ResponseWriter, _ *http.Request) {
+	n := b.sys.PSFSize()
+	psf := make([]float64, n*n)
+	// produce writes b.psf only under b.mu.
+	b.mu.Lock()
+	copy(psf, b.psf)
+	b.mu.Unlock()
+	var buf bytes.Buffer
+	if err := png.Encode(&buf, psfImage(psf, n)); err != nil {
+		http.Error(w, "bench: psf image: "+err.Error(), http.StatusInternalServerError)
+		return
+	}
+	w.Header().Set("Content-Type", "image/png")
+	w.Header().Set("Cache-Control", "no-store")
+	w.Write(buf.Bytes())
+}
+
+// psfImage renders an n×n PSF (diffraction-limited peak 1) on a log scale,
+// enlarged to at least psfMinSide pixels.
+func psfImage(psf []float64, n int) *image.RGBA {
+	scale := max(1, (psfMinSide+n-1)/n)
+	img := image.NewRGBA(image.Rect(0, 0, n*scale, n*scale))
+	for y := range n {
+		for x := range n {
+			c := heat(1 + math.Log10(max(psf[y*n+x], 1e-300))/psfDecades)
+			for dy := range scale {
+				for dx := range scale {
+					img.SetRGBA(x*scale+dx, y*scale+dy, c)
+				}
+			}
+		}
+	}
+	return img
+}
+
+// heatStops is a sequential colour scale of our own, dark to light, for
+// intensities: black, deep blue, orange, near white.
+var heatStops = [...]color.RGBA{{0, 0, 0, 255}, {36, 28, 120, 255}, {226, 116, 36, 255}, {255, 252, 236, 255}}
+
+// heat maps t in [0, 1] (clamped) onto heatStops, linearly between stops.
+func heat(t float64) color.RGBA {
+	if !(t > 0) {
+		return heatStops[0]
+	}
+	if t >= 1 {
+		return heatStops[len(heatStops)-1]
+	}
+	f := t * float64(len(heatStops)-1)
+	i := int(f)
+	f -= float64(i)
+	a, c := heatStops[i], heatStops[i+1]
+	mix := func(p, q uint8) uint8 { return uint8(float64(p) + f*(float64(q)-float64(p)) + 0.5) }
+	return color.RGBA{mix(a.R, c.R), mix(a.G, c.G), mix(a.B, c.B), 255}
+}
