@@ -120,7 +120,10 @@ type hostileRig struct {
 	rng            *rand.Rand
 }
 
-func startHostile(t *testing.T, cfg daemon.Config) *hostileRig {
+// startHostile starts the hostile devices and a daemon on them with cfg (the
+// Control API on loopback unless cfg.ListenAddr is set); dial options, if any,
+// are those of the rig's own Control API client.
+func startHostile(t *testing.T, cfg daemon.Config, dial ...grpc.DialOption) *hostileRig {
 	t.Helper()
 	h := &hostile{slopes: 40, actuators: 12, frameRate: 1000, stroke: 1e-6,
 		frames: make(chan *stillskyv1.StreamFramesResponse), arrived: make(chan struct{}, 1)}
@@ -138,7 +141,10 @@ func startHostile(t *testing.T, cfg daemon.Config) *hostileRig {
 	go camSrv.Serve(camLis)
 	go mirSrv.Serve(mirLis)
 	cfg.CameraAddr, cfg.MirrorAddr = camLis.Addr().String(), mirLis.Addr().String()
-	cfg.ListenAddr, cfg.MetricsAddr = "127.0.0.1:0", "127.0.0.1:0"
+	if cfg.ListenAddr == "" {
+		cfg.ListenAddr = "127.0.0.1:0"
+	}
+	cfg.MetricsAddr = "127.0.0.1:0"
 	d, err := daemon.New(cfg)
 	if err != nil {
 		t.Fatal(err)
@@ -146,7 +152,7 @@ func startHostile(t *testing.T, cfg daemon.Config) *hostileRig {
 	ctx, cancel := context.WithCancel(context.Background())
 	done := make(chan error, 1)
 	go func() { done <- d.Run(ctx) }()
-	conn, err := rpc.Dial(d.ControlAddr())
+	conn, err := rpc.Dial(loopbackAddr(t, d.ControlAddr()), dial...)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -180,6 +186,17 @@ func (r *hostileRig) status(t *testing.T) *stillskyv1.GetStatusResponse {
 		t.Fatal(err)
 	}
 	return s
+}
+
+// loopbackAddr returns 127.0.0.1 with the port of a listening address (which may
+// be a wildcard such as [::]:port).
+func loopbackAddr(t *testing.T, addr string) string {
+	t.Helper()
+	_, port, err := net.SplitHostPort(addr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return net.JoinHostPort("127.0.0.1", port)
 }
 
 // good returns a valid frame with the next frame number.
