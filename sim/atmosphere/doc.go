@@ -30,7 +30,11 @@
 // by 15%. Over a run this modulates the finest scales at the sample-crossing rate
 // v/Δx and biases the DM fitting error low by roughly 5% on average (our estimate
 // from Φ ∝ f^(−11/3) above the DM cut-off), on top of the
-// power above the grid's Nyquist frequency that no sampled screen has. Cubic
+// power above the grid's Nyquist frequency that no sampled screen has. Together they
+// make the change of the phase over shifts of about one sample smaller than the
+// continuum's: with piston and tilt removed, 28% below it at 0.4 to 1.6 samples,
+// 10% at 2 to 6, 5% beyond (TestTemporalStructureFunction). Slopes averaged over
+// subapertures several samples wide are much less affected. Cubic
 // convolution would remove most of it below half the Nyquist frequency, at about
 // twice the cost of OPD; it is not done.
 //

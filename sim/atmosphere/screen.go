@@ -3,6 +3,7 @@ package atmosphere
 import (
 	"fmt"
 	"math"
+	"math/cmplx"
 	"math/rand/v2"
 
 	"stillsky/sim/optics"
@@ -97,14 +98,20 @@ func levelsFor(df, l0 float64) int {
 type shCoef [maxLevels][3][3]complex128
 
 // waveTable evaluates the subharmonic field Re Σ c·exp(2πi(fx·x + fy·y)) on a grid of
-// nx × ny samples at x = ix·dx, y = iy·dx. The plane waves are separable, and the
-// a = ±1 columns are complex conjugates, so one sample costs two multiply-adds per
-// level.
+// nx × ny samples at x = ix·dx, y = iy·dx, minus its mean over the grid. The plane
+// waves are separable, and the a = ±1 columns are complex conjugates, so one sample
+// costs two multiply-adds per level.
+//
+// The mean matters: for a large outer scale the lowest waves are metres to
+// kilometres long and their amplitude is huge, but over the grid they are nearly a
+// constant, a piston that no sensor or camera sees. Left in, it would dominate the
+// frame-to-frame change of the phase at a point when the layers blend their screens.
 type waveTable struct {
 	levels   int
 	nx, ny   int
 	xr, xi   [maxLevels + 1][]float64 // cos and sin of 2π·df_p·x
 	yc       [maxLevels][]complex128
+	mx, my   [maxLevels]complex128 // grid means of exp(2πi·df_p·x) and of exp(2πi·df_p·y)
 	alpha    [maxLevels + 1]float64
 	beta     [maxLevels + 1]float64
 	rowWaves [maxLevels][3]complex128
@@ -127,16 +134,36 @@ func newWaveTable(levels, nx, ny int, dx, df float64) *waveTable {
 		for iy := 0; iy < ny; iy++ {
 			s, c := math.Sincos(2 * math.Pi * dfp * float64(iy) * dx)
 			w.yc[p][iy] = complex(c, s)
+			w.my[p] += w.yc[p][iy] / complex(float64(ny), 0)
+		}
+		for ix := 0; ix < nx; ix++ {
+			w.mx[p] += complex(w.xr[p][ix], w.xi[p][ix]) / complex(float64(nx), 0)
 		}
 	}
 	return w
 }
 
+// mean returns the grid mean of the field of coefficients c.
+func (w *waveTable) mean(c *shCoef) float64 {
+	var m float64
+	for p := 0; p < w.levels; p++ {
+		x := [3]complex128{cmplx.Conj(w.mx[p]), 1, w.mx[p]}
+		y := [3]complex128{cmplx.Conj(w.my[p]), 1, w.my[p]}
+		for a := 0; a < 3; a++ {
+			for b := 0; b < 3; b++ {
+				m += real(c[p][a][b] * x[a] * y[b])
+			}
+		}
+	}
+	return m
+}
+
 // eval writes (add false) or adds (add true) the field of coefficients c into out
 // (row-major, nx per row).
 func (w *waveTable) eval(c *shCoef, out []float64, add bool) {
+	mean := w.mean(c)
 	for iy := 0; iy < w.ny; iy++ {
-		base := 0.0
+		base := -mean
 		for p := 0; p < w.levels; p++ {
 			ey := w.yc[p][iy]
 			eyc := complex(real(ey), -imag(ey))
@@ -231,7 +258,8 @@ func NewScreenGenerator(c ScreenConfig) (*ScreenGenerator, error) {
 func (g *ScreenGenerator) Config() ScreenConfig { return g.c }
 
 // Generate writes a new screen into out (length Size², row-major), drawing its noise
-// from rng; the screen has zero mean over the grid. It allocates nothing. It panics
+// from rng; the screen has zero mean over the grid (the FFT part has no f = 0 term
+// and the subharmonics are evaluated without their mean). It allocates nothing. It panics
 // if out has the wrong length.
 func (g *ScreenGenerator) Generate(rng *rand.Rand, out []float64) {
 	if len(out) != g.c.Size*g.c.Size {
@@ -244,14 +272,6 @@ func (g *ScreenGenerator) Generate(rng *rand.Rand, out []float64) {
 		return
 	}
 	g.grid.eval(&j.sh, out, true)
-	var mean float64
-	for _, v := range out {
-		mean += v
-	}
-	mean /= float64(len(out))
-	for i := range out {
-		out[i] -= mean
-	}
 }
 
 // job is one screen (or two) being generated in slices, each one unit of work: noise
