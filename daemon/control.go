@@ -343,9 +343,16 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 	if !d.cal.CompareAndSwap(nil, cal) {
 		return status.Error(codes.FailedPrecondition, "a calibration is already running")
 	}
-	if restore := d.selectSource(ctx, stillskyv1.Source_SOURCE_CALIBRATION); restore {
-		defer d.selectSource(context.WithoutCancel(ctx), stillskyv1.Source_SOURCE_SKY)
+	restore := d.selectSource(ctx, stillskyv1.Source_SOURCE_CALIBRATION)
+	backToSky := func() {
+		if restore {
+			restore = false
+			d.selectSource(context.WithoutCancel(ctx), stillskyv1.Source_SOURCE_SKY)
+		}
 	}
+	// The sky returns as soon as the pokes end, before the inversion: the open
+	// loop that follows must see it (the divergence interlock learns its level).
+	defer backToSky()
 	_, total := c.Progress()
 	d.log.Info("calibration started", "patterns_frames", total, "amplitude_m", cc.Amplitude, "hadamard", cc.Hadamard)
 	d.want.Store(int32(stateCalibrating))
@@ -374,6 +381,7 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 			_ = send(&stillskyv1.CalibrateResponse{Phase: "pokes", Done: uint32(cal.progress.Load()), Total: uint32(total)})
 		}
 	}
+	backToSky()
 	if cal.aborted.Load() || !c.Done() {
 		return fail(codes.Aborted, "calibration aborted after %d of %d frames", cal.progress.Load(), total)
 	}

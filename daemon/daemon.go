@@ -41,6 +41,11 @@ type Config struct {
 	// Chunks asks the camera for frames in this many chunks (pipelined
 	// reconstruction); 0 or 1 for whole frames.
 	Chunks int
+	// Realtime asks for CPU affinity, SCHED_FIFO and locked memory; the zero value
+	// asks for none.
+	Realtime Realtime
+	// Recorder, if set, records every frame's timings while started.
+	Recorder *Recorder
 	// Interlocks are the safety limits; see Interlocks.
 	Interlocks Interlocks
 	// Security protects the Control API; see Security.
@@ -73,6 +78,9 @@ func (c *Config) setDefaults() error {
 	}
 	if c.Logger == nil {
 		c.Logger = slog.New(slog.DiscardHandler)
+	}
+	if err := c.Realtime.validate(); err != nil {
+		return err
 	}
 	return c.Interlocks.setDefaults()
 }
@@ -195,6 +203,7 @@ func (d *Daemon) Run(ctx context.Context) error {
 			}
 		}()
 	}
+	d.processSettings()
 	d.log.Info("loop daemon listening", "control", d.ControlAddr(), "metrics", d.MetricsAddr())
 	go d.devices(ctx)
 

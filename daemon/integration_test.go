@@ -168,6 +168,31 @@ func TestClosedLoopRaisesStrehl(t *testing.T) {
 	checkMetrics(t, r.d.MetricsAddr())
 }
 
+// TestPipelinedReconstruction sends every frame in 4 chunks of subaperture rows;
+// the daemon multiplies each chunk's columns as it arrives. The control law is the
+// same, so the closed loop must reach the same Strehl band as whole frames.
+func TestPipelinedReconstruction(t *testing.T) {
+	if testing.Short() {
+		t.Skip("closed-loop integration takes ~15 s")
+	}
+	r := startRig(t, scenario.Default, bench.Options{Lockstep: true}, daemon.Config{Chunks: 4})
+	r.calibrate(t)
+	if _, err := r.client.CloseLoop(context.Background(), &stillskyv1.CloseLoopRequest{}); err != nil {
+		t.Fatal(err)
+	}
+	r.waitFrames(t, 100)
+	r.bench.ResetStats()
+	st := r.waitFrames(t, 600)
+	closed := r.bench.Stats()
+	t.Logf("chunked frames: true H-band Strehl closed %.3f, %d frames rejected", closed.Strehl, st.GetFramesRejected())
+	if closed.Strehl < 0.5 {
+		t.Errorf("closed-loop Strehl with chunked frames %.3f, want >= 0.5", closed.Strehl)
+	}
+	if st.GetFramesRejected() != 0 || st.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED {
+		t.Errorf("state %v with %d rejected frames", st.GetState(), st.GetFramesRejected())
+	}
+}
+
 // checkMetrics parses /metrics with the Prometheus text parser and checks that the
 // families of the metrics contract are present with sane values.
 func checkMetrics(t *testing.T, addr string) {

@@ -65,6 +65,7 @@ type guard struct {
 	// openRMS is an average of the slope rms while open, the turbulence level the
 	// closed loop must stay below.
 	openRMS    float64
+	ref        float64 // the level the closed loop must stay below
 	closedRMS  float64
 	closedN    int
 	saturatedN int
@@ -78,6 +79,10 @@ func (g *guard) observeOpen(rms float64) {
 		g.openRMS += (rms - g.openRMS) / 50
 	}
 }
+
+// opening forgets the open-loop level: the sky may have changed (or a
+// calibration source been in the beam) since the loop was last open.
+func (g *guard) opening() { g.openRMS = 0 }
 
 // closing resets the closed-loop averages.
 func (g *guard) closing() {
@@ -96,11 +101,14 @@ func (g *guard) check(res controller.Result, actuators int) string {
 	}
 	g.closedN++
 	if g.closedN == 1 {
+		// The first closed frame is still uncorrected: it measures the sky too, and
+		// guards against an open-loop average taken on a calibration source.
 		g.closedRMS = res.SlopeRMS
+		g.ref = max(g.openRMS, res.SlopeRMS)
 	} else {
 		g.closedRMS += (res.SlopeRMS - g.closedRMS) / 20
 	}
-	if g.openRMS > 0 && g.closedN > 20 && g.closedRMS > g.cfg.DivergenceFactor*g.openRMS {
+	if g.ref > 0 && g.closedN > 20 && g.closedRMS > g.cfg.DivergenceFactor*g.ref {
 		return tripDivergence
 	}
 	return ""

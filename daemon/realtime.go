@@ -10,6 +10,7 @@ import (
 	"sync/atomic"
 	"time"
 
+	"github.com/prometheus/client_golang/prometheus"
 	"google.golang.org/grpc"
 
 	"stillsky/controller"
@@ -146,6 +147,10 @@ type realtime struct {
 	lastNum uint64
 	state   loopState
 	guard   guard
+	// The frame being assembled from chunks, and the loop multiplying its chunks
+	// as they arrive (nil when not pipelining this frame).
+	assembling uint64
+	pipe       *controller.Loop
 	// readout times of recent frames by frame number, for end-to-end latency.
 	readout [readoutRing]atomic.Int64
 	tags    [readoutRing]atomic.Uint64
@@ -174,8 +179,12 @@ func newRealtime(d *Daemon, g *geometry) *realtime {
 // thread. Nothing else runs here.
 func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFramesResponse], cmds grpc.BidiStreamingClient[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
 	runtime.LockOSThread()
-	defer runtime.UnlockOSThread()
 	d, m := rt.d, rt.d.m
+	if !d.threadSettings() {
+		// A thread whose affinity or policy changed stays locked, so the runtime
+		// ends it with this goroutine instead of reusing it.
+		defer runtime.UnlockOSThread()
+	}
 	for {
 		if err := frames.RecvMsg(rt.frame); err != nil {
 			return fmt.Errorf("camera stream: %w", err)
@@ -214,54 +223,73 @@ func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFrame
 		m.compute.Observe(float64(computed-received) * 1e-9)
 		m.rtc.Observe(float64(sent-received) * 1e-9)
 		d.stats.rtc.add(sent - received)
+		if rec := d.cfg.Recorder; rec != nil {
+			rec.frame(received, computed-received, sent-received)
+		}
 		rt.publish(res)
 		d.telemetry.record(num, rt.state, rt.slopes, rt.cmd, res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated, float64(sent-received)*1e-9)
 	}
 }
 
-// assemble validates a frame message and copies its slopes into the frame buffer.
-// It reports whether the frame is complete, and false in ok when the message was
-// rejected (and counted).
+// assemble validates a frame message (a whole frame or one chunk) and copies its
+// slopes into the frame buffer; with pipelined reconstruction it also multiplies
+// the chunk's columns at once. It reports whether the frame is complete, and false
+// in ok when the message was rejected (and counted).
 func (rt *realtime) assemble(f *stillskyv1.StreamFramesResponse) (complete, ok bool) {
-	d := rt.d
 	num := f.GetFrameNumber()
-	if f.GetChunkIndex() == 0 && rt.lastNum != 0 {
-		switch {
-		case num == rt.lastNum:
-			d.m.rejDup.Inc()
-			d.stats.rejected.Add(1)
-			return false, false
-		case num < rt.lastNum:
-			d.m.rejOrder.Inc()
-			d.stats.rejected.Add(1)
-			return false, false
+	first := f.GetChunkIndex() == 0
+	if first {
+		if rt.next > 0 {
+			// The previous frame never got its last chunk.
+			rt.reject(rt.d.m.rejLength)
 		}
+		if rt.lastNum != 0 {
+			switch {
+			case num == rt.lastNum:
+				return false, rt.reject(rt.d.m.rejDup)
+			case num < rt.lastNum:
+				return false, rt.reject(rt.d.m.rejOrder)
+			}
+		}
+		rt.next, rt.assembling = 0, num
+		rt.pipe = nil
+		if loop := rt.d.loopPtr.Load(); f.GetChunkCount() > 1 && loop != nil && rt.state == stateClosed &&
+			loopState(rt.d.want.Load()) == stateClosed {
+			rt.pipe = loop
+		}
+	} else if rt.next <= 0 || num != rt.assembling {
+		// A chunk of a frame whose start was refused or never came.
+		return false, false
 	}
 	s := f.GetSlopes()
 	off := int(f.GetOffset())
-	if f.GetChunkIndex() == 0 {
-		rt.next = 0
-	}
-	if off != rt.next || off+len(s) > len(rt.slopes) || len(s) == 0 {
-		d.m.rejLength.Inc()
-		d.stats.rejected.Add(1)
+	if off != rt.next || len(s) == 0 || len(s) > len(rt.slopes)-off {
 		rt.next = -1 // the rest of this frame is refused too
-		return false, false
+		return false, rt.reject(rt.d.m.rejLength)
 	}
 	for _, v := range s {
 		if v-v != 0 {
-			d.m.rejNonFinite.Inc()
-			d.stats.rejected.Add(1)
 			rt.next = -1
-			return false, false
+			return false, rt.reject(rt.d.m.rejNonFinite)
 		}
 	}
 	copy(rt.slopes[off:], s)
 	rt.next = off + len(s)
+	if rt.pipe != nil {
+		rt.pipe.StepChunk(rt.slopes, off, rt.next)
+	}
 	if rt.next < len(rt.slopes) {
 		return false, true
 	}
+	rt.next = 0
 	return true, true
+}
+
+// reject counts a refused frame; it returns false for the caller's ok.
+func (rt *realtime) reject(c prometheus.Counter) bool {
+	c.Inc()
+	rt.d.stats.rejected.Add(1)
+	return false
 }
 
 // compute applies the loop state to the assembled frame and leaves the command to
@@ -300,7 +328,11 @@ func (rt *realtime) compute() controller.Result {
 			copy(rt.cmd, rt.flat)
 			break
 		}
-		res = loop.Step(rt.slopes, rt.cmd)
+		if rt.pipe == loop {
+			res = loop.Finish(rt.cmd)
+		} else {
+			res = loop.Step(rt.slopes, rt.cmd)
+		}
 		if !res.OK() {
 			break
 		}
@@ -344,6 +376,7 @@ func (rt *realtime) enter(s loopState) {
 		if loop != nil {
 			loop.Reset()
 		}
+		rt.guard.opening()
 	}
 	rt.state = s
 	d.setState(s)
@@ -372,6 +405,7 @@ func (rt *realtime) finishCalibration(cal *calibration) {
 	}
 	d.want.CompareAndSwap(int32(stateCalibrating), int32(stateOpen))
 	rt.state = stateOpen
+	rt.guard.opening()
 	d.setState(stateOpen)
 }
 
@@ -423,6 +457,9 @@ func (rt *realtime) acks(cmds grpc.BidiStreamingClient[stillskyv1.StreamCommands
 		}
 		rt.d.m.endToEnd.Observe(float64(e2e) * 1e-9)
 		rt.d.stats.e2e.add(e2e)
+		if rec := rt.d.cfg.Recorder; rec != nil {
+			rec.endToEnd(e2e)
+		}
 	}
 }
 

@@ -26,6 +26,9 @@ func runLoop(args []string) error {
 	wavelength := fs.Float64("science-wavelength", 1.65e-6, "wavelength of the Strehl estimate, metres")
 	chunks := fs.Int("chunks", 0, "ask the camera for frames in this many chunks (pipelined reconstruction)")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
+	cpu := fs.Int("rt-cpu", -1, "pin the real-time thread to this CPU (-1: no pinning)")
+	fifo := fs.Int("rt-fifo", 0, "run the real-time thread under SCHED_FIFO at this priority, 1-99 (0: normal scheduling)")
+	mlock := fs.Bool("mlock", false, "lock the process's memory (mlockall)")
 	var sec daemon.Security
 	fs.StringVar(&sec.CertFile, "tls-cert", "", "TLS certificate of the Control API (PEM); required off loopback")
 	fs.StringVar(&sec.KeyFile, "tls-key", "", "TLS key of the Control API (PEM)")
@@ -46,6 +49,7 @@ func runLoop(args []string) error {
 		CameraAddr: *camera, MirrorAddr: *mirror, ListenAddr: *listen, MetricsAddr: *metrics,
 		StateDir: *stateDir, Gain: gain, Leak: leak, ScienceWavelength: *wavelength,
 		Chunks: *chunks, Security: sec, Logger: log,
+		Realtime: daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo, LockMemory: *mlock},
 	}
 	d, err := daemon.New(cfg)
 	if err != nil {

@@ -17,6 +17,7 @@ func runSim(args []string) error {
 	metrics := fs.String("metrics", "127.0.0.1:7403", "HTTP address of /metrics (\"\" to disable)")
 	lockstep := fs.Bool("lockstep", false, "produce frame k only after the command for frame k−delay (reproducible)")
 	delay := fs.Int("delay-frames", 0, "loop delay in frames modelled in lockstep mode (0: the scenario's)")
+	readout := fs.Duration("readout-time", 0, "spread the chunks of a chunked frame over this readout time (0: back to back)")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
 	if err := parseFlags(fs, args); err != nil {
 		return err
@@ -29,7 +30,7 @@ func runSim(args []string) error {
 	if err != nil {
 		return err
 	}
-	srv, err := bench.NewServer(s, bench.Options{Lockstep: *lockstep, DelayFrames: *delay, Logger: log})
+	srv, err := bench.NewServer(s, bench.Options{Lockstep: *lockstep, DelayFrames: *delay, ReadoutTime: *readout, Logger: log})
 	if err != nil {
 		return err
 	}

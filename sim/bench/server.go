@@ -36,6 +36,9 @@ type Options struct {
 	// LockstepTimeout bounds the wait for a command in lockstep mode, after which the
 	// bench goes on with the mirror's current shape; 0 chooses one second.
 	LockstepTimeout time.Duration
+	// ReadoutTime spreads the chunks of a chunked frame over this time, as a
+	// detector read out row by row would deliver them; 0 sends them back to back.
+	ReadoutTime time.Duration
 	// Logger receives the bench's log lines; nil discards them.
 	Logger *slog.Logger
 }
@@ -339,6 +342,9 @@ func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 				msg.Slopes = slot.slopes[r[0]:r[1]]
 				msg.ReadoutEndNs = slot.readoutEnd
 				if c > 0 {
+					if b.opt.ReadoutTime > 0 {
+						waitUntil(slot.readoutEnd + int64(b.opt.ReadoutTime)*int64(c)/int64(len(rows)))
+					}
 					msg.ReadoutEndNs = monoclock.Now()
 				}
 				if err := stream.Send(msg); err != nil {
@@ -365,6 +371,17 @@ func (b *Server) SetSource(_ context.Context, req *stillskyv1.SetSourceRequest) 
 	b.mu.Unlock()
 	b.log.Info("source selected", "source", req.GetSource().String())
 	return &stillskyv1.SetSourceResponse{Source: req.GetSource()}, nil
+}
+
+// waitUntil blocks until CLOCK_MONOTONIC reaches t: a sleep for the bulk, then a
+// short spin, since timer wake-ups are late by tens of microseconds.
+func waitUntil(t int64) {
+	const spin = 80 * time.Microsecond
+	if d := time.Duration(t - monoclock.Now()); d > spin {
+		time.Sleep(d - spin)
+	}
+	for monoclock.Now() < t {
+	}
 }
 
 // chunkRows splits the slope vector into n groups of whole subaperture rows, as

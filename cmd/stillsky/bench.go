@@ -1,0 +1,53 @@
+package main
+
+import (
+	"os"
+	"strings"
+
+	"stillsky/internal/latbench"
+)
+
+func init() {
+	register("bench", "measure compute, rtc and end-to-end latency against the transport floor", runBench)
+}
+
+// listFlag collects a repeatable flag.
+type listFlag []string
+
+func (l *listFlag) String() string { return strings.Join(*l, ",") }
+func (l *listFlag) Set(v string) error {
+	*l = append(*l, v)
+	return nil
+}
+
+func runBench(args []string) error {
+	fs := newFlagSet("bench")
+	var scenarios, transports listFlag
+	fs.Var(&scenarios, "scenario", "scenario to measure (repeatable; default: the default scenario)")
+	fs.Var(&transports, "transport", "tcp or unix (repeatable; default: both)")
+	rate := fs.Float64("rate", 0, "frame rate in Hz (default: each scenario's)")
+	duration := fs.Duration("duration", 0, "closed-loop measurement per scenario and transport (default 10s)")
+	chunks := fs.Int("chunks", 0, "send each frame in this many chunks (pipelined reconstruction)")
+	jsonOut := fs.String("json", "", "write the results as a JSON array to this file")
+	logLevel := fs.String("log-level", "warn", "log level of bench and loop")
+	if err := parseFlags(fs, args); err != nil {
+		return err
+	}
+	log, err := newLogger(*logLevel)
+	if err != nil {
+		return err
+	}
+	ctx, stop := signalContext()
+	defer stop()
+	rs, err := latbench.Run(ctx, latbench.Config{
+		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
+		Chunks: *chunks, Out: os.Stdout, Logger: log,
+	})
+	if err != nil {
+		return err
+	}
+	if *jsonOut != "" {
+		return latbench.WriteJSON(*jsonOut, rs)
+	}
+	return nil
+}

@@ -1,0 +1,70 @@
+package daemon
+
+import "sync/atomic"
+
+// Recorder keeps the timings of every frame during a measurement window, in
+// arrays allocated up front, so that a latency benchmark reports exact quantiles
+// rather than histogram buckets. Attach it with Config.Recorder.
+type Recorder struct {
+	on                    atomic.Bool
+	n, ne                 atomic.Int64
+	arrival, compute, rtc []atomic.Int64
+	e2e                   []atomic.Int64
+}
+
+// NewRecorder returns a recorder for up to capacity frames.
+func NewRecorder(capacity int) *Recorder {
+	return &Recorder{
+		arrival: make([]atomic.Int64, capacity),
+		compute: make([]atomic.Int64, capacity),
+		rtc:     make([]atomic.Int64, capacity),
+		e2e:     make([]atomic.Int64, capacity),
+	}
+}
+
+// Start begins (or resumes) recording.
+func (r *Recorder) Start() { r.on.Store(true) }
+
+// Stop ends recording.
+func (r *Recorder) Stop() { r.on.Store(false) }
+
+func (r *Recorder) frame(arrival, compute, rtc int64) {
+	if !r.on.Load() {
+		return
+	}
+	if i := r.n.Add(1) - 1; i < int64(len(r.rtc)) {
+		r.arrival[i].Store(arrival)
+		r.compute[i].Store(compute)
+		r.rtc[i].Store(rtc)
+	}
+}
+
+func (r *Recorder) endToEnd(ns int64) {
+	if !r.on.Load() {
+		return
+	}
+	if i := r.ne.Add(1) - 1; i < int64(len(r.e2e)) {
+		r.e2e[i].Store(ns)
+	}
+}
+
+// Samples are the recorded timings in nanoseconds: frame arrival times
+// (CLOCK_MONOTONIC), compute and rtc latency per frame, and end-to-end latency per
+// acknowledged command.
+type Samples struct {
+	Arrival, Compute, RTC, EndToEnd []int64
+}
+
+// Samples copies what has been recorded.
+func (r *Recorder) Samples() Samples {
+	load := func(a []atomic.Int64, n int64) []int64 {
+		n = min(n, int64(len(a)))
+		out := make([]int64, n)
+		for i := range out {
+			out[i] = a[i].Load()
+		}
+		return out
+	}
+	n, ne := r.n.Load(), r.ne.Load()
+	return Samples{Arrival: load(r.arrival, n), Compute: load(r.compute, n), RTC: load(r.rtc, n), EndToEnd: load(r.e2e, ne)}
+}

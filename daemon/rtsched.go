@@ -1,0 +1,97 @@
+package daemon
+
+import (
+	"fmt"
+	"runtime/debug"
+	"strings"
+
+	"golang.org/x/sys/unix"
+)
+
+// Realtime asks the operating system for real-time treatment of the loop. Each
+// request that the process is not permitted (no CAP_SYS_NICE, CAP_IPC_LOCK or the
+// matching rlimits) is reported in one log line and the loop runs without it.
+type Realtime struct {
+	// Pin pins the real-time goroutine's OS thread to CPU.
+	Pin bool
+	CPU int
+	// FIFOPriority, in 1–99, puts that thread under SCHED_FIFO; 0 leaves it under
+	// the normal scheduler. On a machine with few cores keep one core for the rest.
+	FIFOPriority int
+	// LockMemory calls mlockall so that no page of the process is swapped out or
+	// faulted in during a frame.
+	LockMemory bool
+}
+
+func (r Realtime) validate() error {
+	if r.Pin && r.CPU < 0 {
+		return fmt.Errorf("daemon: real-time cpu %d: must be >= 0", r.CPU)
+	}
+	if r.FIFOPriority < 0 || r.FIFOPriority > 99 {
+		return fmt.Errorf("daemon: SCHED_FIFO priority %d: must be in 1–99, or 0 for none", r.FIFOPriority)
+	}
+	return nil
+}
+
+// gcPercent is the GOGC the daemon runs with unless the GOGC environment variable
+// says otherwise. The hot path allocates nothing in the daemon's own code, so the
+// garbage comes from the control plane and gRPC's per-message buffers; a
+// collection every 4× growth of the live heap keeps collections rare without
+// letting the heap grow without bound. The soft memory limit below bounds it
+// absolutely.
+const (
+	gcPercent   = 400
+	memoryLimit = 2 << 30
+)
+
+// processSettings applies the GC settings and mlockall, once at start.
+func (d *Daemon) processSettings() {
+	if debug.SetGCPercent(-1) == 100 { // 100 is the default: GOGC was not set
+		debug.SetGCPercent(gcPercent)
+	} else {
+		debug.SetGCPercent(debug.SetGCPercent(-1))
+	}
+	if debug.SetMemoryLimit(-1) == int64(^uint64(0)>>1) { // GOMEMLIMIT not set
+		debug.SetMemoryLimit(memoryLimit)
+	}
+	if d.cfg.Realtime.LockMemory {
+		if err := unix.Mlockall(unix.MCL_CURRENT | unix.MCL_FUTURE); err != nil {
+			d.log.Warn("memory not locked (needs CAP_IPC_LOCK or a high RLIMIT_MEMLOCK); pages may fault during frames", "err", err)
+		} else {
+			d.log.Info("memory locked (mlockall)")
+		}
+	}
+}
+
+// threadSettings pins and prioritises the calling OS thread (the real-time
+// goroutine, already locked to it) and reports what it could not do, in one line.
+// It reports whether it changed the thread, which must then never return to the
+// runtime's pool.
+func (d *Daemon) threadSettings() (changed bool) {
+	rt := d.cfg.Realtime
+	var done, refused []string
+	if rt.Pin {
+		var set unix.CPUSet
+		set.Set(rt.CPU)
+		if err := unix.SchedSetaffinity(0, &set); err != nil {
+			refused = append(refused, fmt.Sprintf("cpu %d affinity: %v", rt.CPU, err))
+		} else {
+			done = append(done, fmt.Sprintf("pinned to cpu %d", rt.CPU))
+		}
+	}
+	if rt.FIFOPriority > 0 {
+		attr := unix.SchedAttr{Size: unix.SizeofSchedAttr, Policy: unix.SCHED_FIFO, Priority: uint32(rt.FIFOPriority)}
+		if err := unix.SchedSetAttr(0, &attr, 0); err != nil {
+			refused = append(refused, fmt.Sprintf("SCHED_FIFO %d: %v (needs CAP_SYS_NICE or RLIMIT_RTPRIO)", rt.FIFOPriority, err))
+		} else {
+			done = append(done, fmt.Sprintf("SCHED_FIFO priority %d", rt.FIFOPriority))
+		}
+	}
+	changed = len(done) > 0
+	if len(refused) > 0 {
+		d.log.Warn("real-time thread settings not permitted; running without them", "refused", strings.Join(refused, "; "), "applied", strings.Join(done, ", "))
+	} else if len(done) > 0 {
+		d.log.Info("real-time thread", "settings", strings.Join(done, ", "))
+	}
+	return changed
+}

@@ -1,0 +1,389 @@
+// Package latbench is the latency benchmark behind `stillsky bench`: for each
+// scenario and transport (TCP loopback, unix socket) it runs the bench
+// free-running and the loop daemon closed, records every frame's timings, and in
+// the same run measures the transport floor with a bare gRPC ping-pong of the same
+// payload sizes.
+package latbench
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"math"
+	"os"
+	"path/filepath"
+	"slices"
+	"time"
+
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
+	"stillsky/daemon"
+	"stillsky/internal/atomicfile"
+	"stillsky/internal/ctl"
+	"stillsky/internal/monoclock"
+	"stillsky/internal/rpc"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/sim/bench"
+	"stillsky/sim/scenario"
+)
+
+// Config selects what to measure. Zero values take the defaults.
+type Config struct {
+	// Scenarios to run; default the default scenario.
+	Scenarios []string
+	// Rate overrides the scenarios' frame rates, hertz (0 keeps them).
+	Rate float64
+	// Duration of the closed-loop measurement per scenario and transport; default 10 s.
+	Duration time.Duration
+	// Chunks sends each frame in this many chunks (pipelined reconstruction).
+	Chunks int
+	// Transports to run, "tcp" and/or "unix"; default both.
+	Transports []string
+	// Out receives progress lines and the table.
+	Out io.Writer
+	// Logger receives the bench's and the daemon's log.
+	Logger *slog.Logger
+}
+
+// Quantiles of a latency, microseconds.
+type Quantiles struct {
+	P50  float64 `json:"p50"`
+	P99  float64 `json:"p99"`
+	P999 float64 `json:"p999"`
+	Max  float64 `json:"max"`
+}
+
+// Result is one scenario on one transport.
+type Result struct {
+	Scenario        string    `json:"scenario"`
+	Transport       string    `json:"transport"`
+	RateHz          float64   `json:"rate_hz"`
+	Frames          int       `json:"frames"`
+	Chunks          int       `json:"chunks"`
+	Slopes          int       `json:"slopes"`
+	Actuators       int       `json:"actuators"`
+	ComputeUs       Quantiles `json:"compute_us"`
+	RTCUs           Quantiles `json:"rtc_us"`
+	EndToEndUs      Quantiles `json:"end_to_end_us"`
+	FloorUs         Quantiles `json:"floor_us"`
+	ArrivalJitterUs Quantiles `json:"arrival_jitter_us"`
+	// MissedDeadlines counts commands whose end-to-end latency exceeded one frame period.
+	MissedDeadlines int `json:"missed_deadlines"`
+	// FramesDropped counts frames the loop never received (gaps in frame numbers).
+	FramesDropped uint64 `json:"frames_dropped"`
+	// MaxRateHz is 1 / p99 of the rtc latency: the frame rate at which the
+	// controller's own per-frame work fills 99% of frame periods. The simulated
+	// camera may be slower than that.
+	MaxRateHz float64 `json:"max_rate_hz"`
+}
+
+// Run measures every scenario on every transport.
+func Run(ctx context.Context, c Config) ([]Result, error) {
+	if len(c.Scenarios) == 0 {
+		c.Scenarios = []string{scenario.Default}
+	}
+	if c.Duration == 0 {
+		c.Duration = 10 * time.Second
+	}
+	if c.Duration < 100*time.Millisecond {
+		return nil, fmt.Errorf("bench: duration %v: must be at least 100ms", c.Duration)
+	}
+	if c.Rate < 0 || math.IsInf(c.Rate, 0) || math.IsNaN(c.Rate) {
+		return nil, fmt.Errorf("bench: rate %g Hz: must be > 0 (or 0 for the scenario's)", c.Rate)
+	}
+	if len(c.Transports) == 0 {
+		c.Transports = []string{"tcp", "unix"}
+	}
+	for _, t := range c.Transports {
+		if t != "tcp" && t != "unix" {
+			return nil, fmt.Errorf("bench: transport %q: want tcp or unix", t)
+		}
+	}
+	if c.Out == nil {
+		c.Out = io.Discard
+	}
+	if c.Logger == nil {
+		c.Logger = slog.New(slog.DiscardHandler)
+	}
+	var out []Result
+	for _, name := range c.Scenarios {
+		scn, err := scenario.Load(name)
+		if err != nil {
+			return nil, err
+		}
+		if c.Rate > 0 {
+			scn.Loop.FrameRate = c.Rate
+		}
+		for _, tr := range c.Transports {
+			fmt.Fprintf(c.Out, "%s over %s at %.0f Hz: calibrating, then %v closed loop\n", scn.Name, tr, scn.Loop.FrameRate, c.Duration)
+			r, err := runOne(ctx, c, scn, tr)
+			if err != nil {
+				return nil, fmt.Errorf("bench: %s over %s: %w", scn.Name, tr, err)
+			}
+			out = append(out, *r)
+		}
+	}
+	WriteTable(c.Out, out)
+	return out, nil
+}
+
+// addrs returns the three addresses of one run on a transport.
+func addrs(transport, dir string) (camera, mirror, control, probe string) {
+	if transport == "unix" {
+		return "unix:" + filepath.Join(dir, "camera.sock"), "unix:" + filepath.Join(dir, "mirror.sock"),
+			"unix:" + filepath.Join(dir, "control.sock"), "unix:" + filepath.Join(dir, "probe.sock")
+	}
+	return "127.0.0.1:0", "127.0.0.1:0", "127.0.0.1:0", "127.0.0.1:0"
+}
+
+func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport string) (*Result, error) {
+	dir, err := os.MkdirTemp("", "stillsky-bench-")
+	if err != nil {
+		return nil, err
+	}
+	defer os.RemoveAll(dir)
+	camAddr, mirAddr, ctlAddr, probeAddr := addrs(transport, dir)
+
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	b, err := bench.NewServer(scn, bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50})
+	if err != nil {
+		return nil, err
+	}
+	bl, err := bench.Listen(bench.Addrs{Camera: camAddr, Mirror: mirAddr})
+	if err != nil {
+		return nil, err
+	}
+	benchDone := make(chan error, 1)
+	go func() { benchDone <- b.Serve(ctx, bl) }()
+
+	period := 1 / scn.Loop.FrameRate
+	capacity := int(c.Duration.Seconds()*scn.Loop.FrameRate*1.5) + 1000
+	rec := daemon.NewRecorder(capacity)
+	d, err := daemon.New(daemon.Config{
+		CameraAddr: addrString(bl.Camera.Addr().Network(), bl.Camera.Addr().String()),
+		MirrorAddr: addrString(bl.Mirror.Addr().Network(), bl.Mirror.Addr().String()),
+		ListenAddr: ctlAddr, MetricsAddr: "-", Chunks: c.Chunks,
+		ScienceWavelength: scn.Science.Wavelength, Recorder: rec,
+		Logger: c.Logger.With("process", "loop"),
+	})
+	if err != nil {
+		return nil, err
+	}
+	loopDone := make(chan error, 1)
+	go func() { loopDone <- d.Run(ctx) }()
+	conn, err := rpc.Dial(addrString(ctlNetwork(transport), d.ControlAddr()))
+	if err != nil {
+		return nil, err
+	}
+	defer conn.Close()
+	client := stillskyv1.NewControlServiceClient(conn)
+	if err := waitFrames(ctx, client, 10); err != nil {
+		return nil, err
+	}
+	if err := ctl.Calibrate(ctx, client, &stillskyv1.CalibrateRequest{FramesPerPattern: 1}, io.Discard); err != nil {
+		return nil, fmt.Errorf("calibration: %w", err)
+	}
+	if _, err := client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
+		return nil, err
+	}
+	time.Sleep(500 * time.Millisecond) // converge, warm caches
+	before, err := client.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+	if err != nil {
+		return nil, err
+	}
+	rec.Start()
+	select {
+	case <-ctx.Done():
+		return nil, ctx.Err()
+	case <-time.After(c.Duration):
+	}
+	rec.Stop()
+	after, err := client.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+	if err != nil {
+		return nil, err
+	}
+	if after.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED {
+		return nil, fmt.Errorf("the loop left the closed state during the run (now %v, last interlock %q)", after.GetState(), after.GetLastInterlock())
+	}
+	cancel()
+	for _, ch := range []chan error{benchDone, loopDone} {
+		if err := <-ch; err != nil && !errors.Is(err, context.Canceled) {
+			return nil, err
+		}
+	}
+	s := rec.Samples()
+	if len(s.RTC) < 10 {
+		return nil, fmt.Errorf("only %d frames recorded", len(s.RTC))
+	}
+
+	floor, err := measureFloor(context.Background(), transport, probeAddr, int(after.GetSlopeCount()), int(after.GetActuatorCount()),
+		time.Duration(period*float64(time.Second)), min(len(s.RTC), 20000))
+	if err != nil {
+		return nil, fmt.Errorf("transport floor: %w", err)
+	}
+
+	r := &Result{
+		Scenario: scn.Name, Transport: transport, RateHz: scn.Loop.FrameRate, Frames: len(s.RTC), Chunks: c.Chunks,
+		Slopes: int(after.GetSlopeCount()), Actuators: int(after.GetActuatorCount()),
+		ComputeUs: quantiles(s.Compute), RTCUs: quantiles(s.RTC), EndToEndUs: quantiles(s.EndToEnd),
+		FloorUs: quantiles(floor), FramesDropped: after.GetFramesDropped() - before.GetFramesDropped(),
+	}
+	jitter := make([]int64, 0, len(s.Arrival))
+	pns := int64(period * 1e9)
+	for i := 1; i < len(s.Arrival); i++ {
+		dt := s.Arrival[i] - s.Arrival[i-1]
+		jitter = append(jitter, max(dt-pns, pns-dt))
+	}
+	r.ArrivalJitterUs = quantiles(jitter)
+	for _, e := range s.EndToEnd {
+		if e > pns {
+			r.MissedDeadlines++
+		}
+	}
+	if r.RTCUs.P99 > 0 {
+		r.MaxRateHz = math.Round(1e6 / r.RTCUs.P99)
+	}
+	return r, nil
+}
+
+// addrString turns a listener address back into one rpc.Dial accepts.
+func addrString(network, addr string) string {
+	if network == "unix" {
+		return "unix:" + addr
+	}
+	return addr
+}
+
+func ctlNetwork(transport string) string {
+	if transport == "unix" {
+		return "unix"
+	}
+	return "tcp"
+}
+
+func waitFrames(ctx context.Context, c stillskyv1.ControlServiceClient, n uint64) error {
+	deadline := time.Now().Add(30 * time.Second)
+	for time.Now().Before(deadline) {
+		s, err := c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+		if err == nil && s.GetFrames() >= n && s.GetCameraConnected() && s.GetMirrorConnected() {
+			return nil
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	return errors.New("the loop received no frames within 30 s")
+}
+
+// probeServer answers pings with pongs of the requested size.
+type probeServer struct {
+	stillskyv1.UnimplementedTransportProbeServiceServer
+}
+
+func (probeServer) Echo(stream grpc.BidiStreamingServer[stillskyv1.EchoRequest, stillskyv1.EchoResponse]) error {
+	req := &stillskyv1.EchoRequest{}
+	resp := &stillskyv1.EchoResponse{}
+	for {
+		if err := stream.RecvMsg(req); err != nil {
+			return nil
+		}
+		n := int(req.GetReplyValues())
+		if n > 1_000_000 {
+			return status.Errorf(codes.InvalidArgument, "probe: reply of %d values: at most 1000000", n)
+		}
+		if cap(resp.Values) < n {
+			resp.Values = make([]float32, n)
+		}
+		resp.Values = resp.Values[:n]
+		if err := stream.Send(resp); err != nil {
+			return err
+		}
+	}
+}
+
+// measureFloor runs count ping-pongs, one per frame period, of a slope frame
+// out and a command back, and returns the round-trip times in nanoseconds.
+func measureFloor(ctx context.Context, transport, addr string, slopes, actuators int, period time.Duration, count int) ([]int64, error) {
+	lis, err := rpc.Listen(addr)
+	if err != nil {
+		return nil, err
+	}
+	g, _ := rpc.NewServer([]string{stillskyv1.TransportProbeService_ServiceDesc.ServiceName})
+	stillskyv1.RegisterTransportProbeServiceServer(g, probeServer{})
+	go g.Serve(lis)
+	defer g.Stop()
+	conn, err := rpc.Dial(addrString(ctlNetwork(transport), lis.Addr().String()))
+	if err != nil {
+		return nil, err
+	}
+	defer conn.Close()
+	stream, err := stillskyv1.NewTransportProbeServiceClient(conn).Echo(ctx)
+	if err != nil {
+		return nil, err
+	}
+	req := &stillskyv1.EchoRequest{Values: make([]float32, slopes), ReplyValues: uint32(actuators)}
+	for i := range req.Values {
+		req.Values[i] = float32(i) * 1e-7 // non-zero, like slopes
+	}
+	resp := &stillskyv1.EchoResponse{}
+	rtt := make([]int64, 0, count)
+	next := time.Now()
+	for i := 0; i < count+100; i++ {
+		next = next.Add(period)
+		if d := time.Until(next); d > 0 {
+			time.Sleep(d)
+		}
+		t0 := monoclock.Now()
+		if err := stream.Send(req); err != nil {
+			return nil, err
+		}
+		if err := stream.RecvMsg(resp); err != nil {
+			return nil, err
+		}
+		if i >= 100 { // the first pings warm the connection
+			rtt = append(rtt, monoclock.Now()-t0)
+		}
+	}
+	stream.CloseSend()
+	return rtt, nil
+}
+
+func quantiles(ns []int64) Quantiles {
+	if len(ns) == 0 {
+		return Quantiles{}
+	}
+	v := slices.Clone(ns)
+	slices.Sort(v)
+	q := func(p float64) float64 {
+		return math.Round(float64(v[int(p*float64(len(v)-1)+0.5)])/100) / 10
+	}
+	return Quantiles{P50: q(0.5), P99: q(0.99), P999: q(0.999), Max: math.Round(float64(v[len(v)-1])/100) / 10}
+}
+
+// WriteJSON writes the results as a JSON array, atomically.
+func WriteJSON(path string, rs []Result) error {
+	b, err := json.MarshalIndent(rs, "", "  ")
+	if err != nil {
+		return err
+	}
+	return atomicfile.Write(path, func(w io.Writer) error {
+		_, err := w.Write(append(b, '\n'))
+		return err
+	})
+}
+
+// WriteTable prints the results as a Markdown table (µs).
+func WriteTable(w io.Writer, rs []Result) {
+	fmt.Fprintln(w, "\n| scenario | transport | rate | frames | compute p50/p99/p99.9/max | rtc p50/p99/p99.9/max | end-to-end p50/p99/p99.9/max | floor p50/p99 | arrival jitter p99 | missed | dropped | max rate |")
+	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
+	for _, r := range rs {
+		f := func(q Quantiles) string { return fmt.Sprintf("%.1f / %.1f / %.1f / %.1f", q.P50, q.P99, q.P999, q.Max) }
+		fmt.Fprintf(w, "| %s | %s | %.0f Hz | %d | %s | %s | %s | %.1f / %.1f | %.1f | %d | %d | %.0f Hz |\n",
+			r.Scenario, r.Transport, r.RateHz, r.Frames, f(r.ComputeUs), f(r.RTCUs), f(r.EndToEndUs),
+			r.FloorUs.P50, r.FloorUs.P99, r.ArrivalJitterUs.P99, r.MissedDeadlines, r.FramesDropped, r.MaxRateHz)
+	}
+}
