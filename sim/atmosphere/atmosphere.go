@@ -243,8 +243,8 @@ func (a *Atmosphere) swap(l *layer) {
 // OPD writes the optical path difference of all layers, in metres, at every sample
 // of the pupil grid (length N*N): OPD = λ500/(2π)·Σ √f_i·φ_i, with φ_i the layer's
 // blended screen sampled at x − v_i·t by bilinear interpolation plus its subharmonic
-// plane waves evaluated exactly. It allocates nothing; it panics if out has the wrong
-// length.
+// plane waves evaluated exactly, less their mean over the grid (a piston, see
+// waveTable). It allocates nothing; it panics if out has the wrong length.
 func (a *Atmosphere) OPD(out []float64) {
 	n := a.p.N
 	if len(out) != n*n {

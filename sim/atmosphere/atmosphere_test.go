@@ -90,7 +90,8 @@ func freeze(a *Atmosphere) {
 }
 
 // Frozen flow (Taylor's hypothesis, common practice): after the wind has carried the
-// layer by a whole number of samples, the OPD is the earlier OPD translated.
+// layer by a whole number of samples, the OPD is the earlier OPD translated, up to a
+// piston (the subharmonic waves are evaluated without their grid mean).
 func TestFrozenFlowTranslation(t *testing.T) {
 	const n = 48
 	p := pupil(t, 1.2, n)
@@ -108,15 +109,23 @@ func TestFrozenFlowTranslation(t *testing.T) {
 		a.Advance(shift * p.Scale / 10)
 		a.OPD(after)
 		rms := optics.ResidualRMS(p, before)
-		worst := 0.0
+		var diffs []float64
 		for y := 0; y < n; y++ {
 			for x := 0; x < n; x++ {
 				xs, ys := x-c.dx, y-c.dy
 				if xs < 0 || ys < 0 || xs >= n || ys >= n {
 					continue
 				}
-				worst = math.Max(worst, math.Abs(after[y*n+x]-before[ys*n+xs]))
+				diffs = append(diffs, after[y*n+x]-before[ys*n+xs])
 			}
+		}
+		var piston float64
+		for _, d := range diffs {
+			piston += d / float64(len(diffs))
+		}
+		worst := 0.0
+		for _, d := range diffs {
+			worst = math.Max(worst, math.Abs(d-piston))
 		}
 		if worst > 1e-6*rms {
 			t.Errorf("wind towards %g°: translated OPD differs by %.3g m (rms %.3g m)", c.dir, worst, rms)
