@@ -106,7 +106,7 @@ type Atmosphere struct {
 	layers []*layer
 	waves  *waveTable
 	coef   shCoef
-	rowBuf []float64 // one row of a layer's vertically interpolated window
+	rowBuf []float32 // one row of a layer's vertically interpolated window
 }
 
 // screenSize is the side of each layer's periodic screen: at least four pupil
@@ -142,7 +142,7 @@ func New(c Config, p *optics.Pupil) (*Atmosphere, error) {
 	// with its interpolation margin is always contiguous.
 	ext := p.N + 1
 	stride := s + ext
-	a := &Atmosphere{p: p, r0: r0, gen: gen, size: s, df: 1 / side, stride: stride, rowBuf: make([]float64, p.N+1)}
+	a := &Atmosphere{p: p, r0: r0, gen: gen, size: s, df: 1 / side, stride: stride, rowBuf: make([]float32, p.N+1)}
 	a.wrap = side * math.Pow(3, float64(gen.levels))
 	a.waves = newWaveTable(gen.levels, p.N, p.N, p.Scale, a.df)
 	for i, lc := range c.Layers {
@@ -300,8 +300,11 @@ func (a *Atmosphere) addLayer(l *layer, out []float64) {
 	i0, j0 := min(int(u), s-1), min(int(v), s-1)
 	fx, fy := u-float64(i0), v-float64(j0)
 	sn, cs := math.Sincos(l.theta())
-	a0, a1 := cs*l.weight*(1-fy), cs*l.weight*fy
-	b0, b1 := sn*l.weight*(1-fy), sn*l.weight*fy
+	// The blend and vertical weights are applied in float32, like the screens;
+	// the OPD of one layer keeps 7 significant digits, the sum is float64.
+	a0, a1 := float32(cs*(1-fy)), float32(cs*fy)
+	b0, b1 := float32(sn*(1-fy)), float32(sn*fy)
+	wl, wr := (1-fx)*l.weight, fx*l.weight
 	buf := a.rowBuf[:n+1]
 	for iy := 0; iy < n; iy++ {
 		r0 := (j0+iy)*stride + i0
@@ -309,12 +312,12 @@ func (a *Atmosphere) addLayer(l *layer, out []float64) {
 		f0, f1 := l.from[r0:r0+len(buf)], l.from[r1:r1+len(buf)]
 		t0, t1 := l.to[r0:r0+len(buf)], l.to[r1:r1+len(buf)]
 		for k := range buf {
-			buf[k] = a0*float64(f0[k]) + a1*float64(f1[k]) + b0*float64(t0[k]) + b1*float64(t1[k])
+			buf[k] = a0*f0[k] + a1*f1[k] + b0*t0[k] + b1*t1[k]
 		}
 		row := out[iy*n : iy*n+n]
 		left, right := buf[:len(row)], buf[1:len(row)+1]
 		for ix := range row {
-			row[ix] += (1-fx)*left[ix] + fx*right[ix]
+			row[ix] += wl*float64(left[ix]) + wr*float64(right[ix])
 		}
 	}
 }
