@@ -4,10 +4,10 @@
 // header cards, big-endian two's-complement integers and IEEE floats.
 //
 // Header keywords are strings, logicals, integers and floats; commentary cards
-// (COMMENT, HISTORY, blank) are kept in order. Long-string (CONTINUE) cards, tables,
-// random groups and BSCALE/BZERO scaling are not handled: a file that uses them is
-// refused or, for BSCALE/BZERO, returned with raw values and the keywords kept in the
-// header.
+// (COMMENT, HISTORY, blank) are kept in order. Not handled: long strings (a CONTINUE
+// card is read as a card without a value, its text in Comment), complex values, table
+// and random-groups extensions (refused), and BSCALE/BZERO scaling (data are returned
+// raw, the keywords kept in the header).
 //
 // Read never panics on corrupt or truncated input; it returns an error. The package
 // depends only on the standard library.
