@@ -94,7 +94,8 @@ type layer struct {
 	running         bool // next is in progress
 }
 
-// Atmosphere is a set of frozen-flow layers sampled on a pupil grid.
+// Atmosphere is a set of frozen-flow layers sampled on a pupil grid. It is not safe
+// for concurrent use.
 type Atmosphere struct {
 	p      *optics.Pupil
 	r0     float64 // line of sight, 500 nm
