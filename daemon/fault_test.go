@@ -45,6 +45,7 @@ type hostile struct {
 	bad      []string // commands of the wrong length or with non-finite values
 	lastCmd  uint64   // frame number of the newest command
 	lastVals []float32
+	history  [][]float32 // every command, in order of arrival
 	arrived  chan struct{}
 }
 
@@ -90,6 +91,7 @@ func (m hostileMirror) StreamCommands(s grpc.BidiStreamingServer[stillskyv1.Stre
 		h.commands++
 		h.lastCmd = req.GetFrameNumber()
 		h.lastVals = append(h.lastVals[:0], v...)
+		h.history = append(h.history, append([]float32(nil), v...))
 		if len(v) != h.actuators {
 			h.bad = append(h.bad, fmt.Sprintf("frame %d: %d values", req.GetFrameNumber(), len(v)))
 		}
@@ -116,6 +118,7 @@ type hostileRig struct {
 	d              *daemon.Daemon
 	client         stillskyv1.ControlServiceClient
 	camSrv, mirSrv *grpc.Server
+	mirAddr        string
 	next           uint64 // next frame number a script should use
 	rng            *rand.Rand
 }
@@ -157,12 +160,12 @@ func startHostile(t *testing.T, cfg daemon.Config, dial ...grpc.DialOption) *hos
 		t.Fatal(err)
 	}
 	r := &hostileRig{h: h, d: d, client: stillskyv1.NewControlServiceClient(conn), camSrv: camSrv, mirSrv: mirSrv,
-		next: 1, rng: rand.New(rand.NewPCG(7, 11))}
+		mirAddr: cfg.MirrorAddr, next: 1, rng: rand.New(rand.NewPCG(7, 11))}
 	t.Cleanup(func() {
 		conn.Close()
 		cancel()
 		camSrv.Stop()
-		mirSrv.Stop()
+		r.mirSrv.Stop()
 		select {
 		case <-done:
 		case <-time.After(10 * time.Second):
@@ -177,6 +180,19 @@ func startHostile(t *testing.T, cfg daemon.Config, dial ...grpc.DialOption) *hos
 		time.Sleep(5 * time.Millisecond)
 	}
 	return r
+}
+
+// restartMirror serves the mirror again on its old address, as a device that
+// was power-cycled.
+func (r *hostileRig) restartMirror(t *testing.T) {
+	t.Helper()
+	lis, err := net.Listen("tcp", r.mirAddr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	r.mirSrv = grpc.NewServer()
+	stillskyv1.RegisterMirrorServiceServer(r.mirSrv, hostileMirror{h: r.h})
+	go r.mirSrv.Serve(lis)
 }
 
 func (r *hostileRig) status(t *testing.T) *stillskyv1.GetStatusResponse {
@@ -230,7 +246,12 @@ func (r *hostileRig) send(t *testing.T, fs ...*stillskyv1.StreamFramesResponse) 
 // daemon handles frames in order, so everything sent before has been handled.
 func (r *hostileRig) sync(t *testing.T) {
 	t.Helper()
-	f := r.good()
+	r.answer(t, r.good())
+}
+
+// answer sends the valid frame f and waits until its command reached the mirror.
+func (r *hostileRig) answer(t *testing.T, f *stillskyv1.StreamFramesResponse) {
+	t.Helper()
 	r.send(t, f)
 	deadline := time.After(5 * time.Second)
 	for {
