@@ -128,7 +128,14 @@ type hostileRig struct {
 // are those of the rig's own Control API client.
 func startHostile(t *testing.T, cfg daemon.Config, dial ...grpc.DialOption) *hostileRig {
 	t.Helper()
-	h := &hostile{slopes: 40, actuators: 12, frameRate: 1000, stroke: 1e-6,
+	return startHostileRate(t, cfg, 1000, dial...)
+}
+
+// startHostileRate is startHostile with a camera that describes its frame rate as
+// rate (Hz); the test sends frames at its own pace whatever the rate.
+func startHostileRate(t *testing.T, cfg daemon.Config, rate float64, dial ...grpc.DialOption) *hostileRig {
+	t.Helper()
+	h := &hostile{slopes: 40, actuators: 12, frameRate: rate, stroke: 1e-6,
 		frames: make(chan *stillskyv1.StreamFramesResponse), arrived: make(chan struct{}, 1)}
 	camLis, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
