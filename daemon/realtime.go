@@ -46,12 +46,12 @@ type calibration struct {
 // session connects to both devices, learns the geometry and runs the real-time
 // loop until a device fails or ctx ends.
 func (d *Daemon) session(ctx context.Context) error {
-	camConn, err := rpc.Dial(d.cfg.CameraAddr)
+	camConn, err := rpc.Dial(d.cfg.CameraAddr, rpc.DeviceDialOptions()...)
 	if err != nil {
 		return err
 	}
 	defer camConn.Close()
-	mirConn, err := rpc.Dial(d.cfg.MirrorAddr)
+	mirConn, err := rpc.Dial(d.cfg.MirrorAddr, rpc.DeviceDialOptions()...)
 	if err != nil {
 		return err
 	}
@@ -95,11 +95,11 @@ func (d *Daemon) session(ctx context.Context) error {
 
 	sctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	frames, err := cam.StreamFrames(sctx, &stillskyv1.StreamFramesRequest{Chunks: uint32(d.cfg.Chunks)})
+	frames, err := cam.StreamFrames(sctx, &stillskyv1.StreamFramesRequest{Chunks: uint32(d.cfg.Chunks)}, rpc.FrameCodecOption())
 	if err != nil {
 		return fmt.Errorf("camera stream: %w", err)
 	}
-	cmds, err := mir.StreamCommands(sctx)
+	cmds, err := mir.StreamCommands(sctx, rpc.FrameCodecOption())
 	if err != nil {
 		return fmt.Errorf("mirror stream: %w", err)
 	}
@@ -161,7 +161,7 @@ const readoutRing = 1024
 func newRealtime(d *Daemon, g *geometry) *realtime {
 	rt := &realtime{
 		d: d, g: g,
-		frame:   &stillskyv1.StreamFramesResponse{},
+		frame:   &stillskyv1.StreamFramesResponse{Slopes: make([]float32, 0, g.slopes)},
 		out:     &stillskyv1.StreamCommandsRequest{},
 		slopes:  make([]float32, g.slopes),
 		cmd:     make([]float32, g.actuators),

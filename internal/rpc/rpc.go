@@ -90,6 +90,28 @@ func NewServer(services []string, opts ...grpc.ServerOption) (*grpc.Server, *hea
 	return s, h
 }
 
+// realTimeWindow is the fixed HTTP/2 flow-control window of the real-time links:
+// a fixed window turns off gRPC's bandwidth-delay probing, whose ping frames cost
+// allocations and wake-ups on every few messages, and a megabyte holds hundreds
+// of frames of the largest geometry.
+const realTimeWindow = 1 << 20
+
+// DeviceDialOptions are the client options of the camera and mirror links.
+func DeviceDialOptions() []grpc.DialOption {
+	return []grpc.DialOption{
+		grpc.WithInitialWindowSize(realTimeWindow),
+		grpc.WithInitialConnWindowSize(realTimeWindow),
+	}
+}
+
+// DeviceServerOptions are the matching server options of the devices.
+func DeviceServerOptions() []grpc.ServerOption {
+	return []grpc.ServerOption{
+		grpc.InitialWindowSize(realTimeWindow),
+		grpc.InitialConnWindowSize(realTimeWindow),
+	}
+}
+
 // ClientCredentials are a client's TLS and authentication settings. All empty
 // means a plain connection.
 type ClientCredentials struct {

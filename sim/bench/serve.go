@@ -65,15 +65,15 @@ func (b *Server) Serve(ctx context.Context, l *Listeners, extra ...func(*http.Se
 	var servers []*grpc.Server
 	errc := make(chan error, 4)
 	if l.Mirror == nil {
-		g, _ := rpc.NewServer([]string{camSvc, mirSvc})
+		g, _ := rpc.NewServer([]string{camSvc, mirSvc}, rpc.DeviceServerOptions()...)
 		b.RegisterCamera(g)
 		b.RegisterMirror(g)
 		servers = append(servers, g)
 		go func() { errc <- g.Serve(l.Camera) }()
 	} else {
-		gc, _ := rpc.NewServer([]string{camSvc})
+		gc, _ := rpc.NewServer([]string{camSvc}, rpc.DeviceServerOptions()...)
 		b.RegisterCamera(gc)
-		gm, _ := rpc.NewServer([]string{mirSvc})
+		gm, _ := rpc.NewServer([]string{mirSvc}, rpc.DeviceServerOptions()...)
 		b.RegisterMirror(gm)
 		servers = append(servers, gc, gm)
 		go func() { errc <- gc.Serve(l.Camera) }()

@@ -1,0 +1,64 @@
+package daemon_test
+
+import (
+	"context"
+	"os/exec"
+	"path/filepath"
+	"runtime"
+	"testing"
+	"time"
+
+	"stillsky/daemon"
+	"stillsky/internal/rpc"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+)
+
+// TestHotPathAllocations runs the bench as its own process and counts the heap
+// allocations of this process — the daemon — per closed-loop frame.
+func TestHotPathAllocations(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds the binary and runs a closed loop")
+	}
+	dir := t.TempDir()
+	bin := filepath.Join(dir, "stillsky")
+	if out, err := exec.Command("go", "build", "-o", bin, "stillsky/cmd/stillsky").CombinedOutput(); err != nil {
+		t.Fatalf("go build: %v\n%s", err, out)
+	}
+	cam, mir := "unix:"+filepath.Join(dir, "cam.sock"), "unix:"+filepath.Join(dir, "mir.sock")
+	sim := exec.Command(bin, "sim", "--scenario", "default", "--lockstep", "--camera", cam, "--mirror", mir, "--metrics", "", "--log-level", "warn")
+	if err := sim.Start(); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { sim.Process.Kill(); sim.Wait() })
+	d, err := daemon.New(daemon.Config{CameraAddr: cam, MirrorAddr: mir, ListenAddr: "127.0.0.1:0", MetricsAddr: "-"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- d.Run(ctx) }()
+	t.Cleanup(func() { cancel(); <-done })
+	conn, err := rpc.Dial(d.ControlAddr())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	c := stillskyv1.NewControlServiceClient(conn)
+	r := &rig{client: c}
+	r.waitFrames(t, 10)
+	r.calibrate(t)
+	if _, err := c.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
+		t.Fatal(err)
+	}
+	r.waitFrames(t, 200)
+	var m0, m1 runtime.MemStats
+	s0 := r.status(t)
+	runtime.ReadMemStats(&m0)
+	time.Sleep(2 * time.Second)
+	runtime.ReadMemStats(&m1)
+	s1 := r.status(t)
+	frames := s1.GetFrames() - s0.GetFrames()
+	allocs := m1.Mallocs - m0.Mallocs
+	t.Logf("%d frames, %d heap allocations: %.2f per frame, %.0f bytes per frame (daemon process: receive, Step, send, metrics, gRPC transport, status polling)",
+		frames, allocs, float64(allocs)/float64(frames), float64(m1.TotalAlloc-m0.TotalAlloc)/float64(frames))
+}

@@ -1,0 +1,94 @@
+package rpc
+
+import (
+	"math/rand/v2"
+	"testing"
+
+	"google.golang.org/grpc/mem"
+	"google.golang.org/protobuf/encoding/protowire"
+	"google.golang.org/protobuf/proto"
+
+	stillskyv1 "stillsky/proto/stillsky/v1"
+)
+
+// DecodeFrame must agree with the generated protobuf decoder, the reference.
+func TestDecodeFrameMatchesProto(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	for trial := 0; trial < 200; trial++ {
+		in := &stillskyv1.StreamFramesResponse{
+			FrameNumber:  rng.Uint64(),
+			ReadoutEndNs: rng.Int64() - rng.Int64(),
+			Offset:       rng.Uint32() % 4096,
+			ChunkIndex:   rng.Uint32() % 8,
+			ChunkCount:   rng.Uint32() % 9,
+		}
+		for range rng.IntN(50) {
+			in.Slopes = append(in.Slopes, float32(rng.NormFloat64()))
+		}
+		b, err := proto.Marshal(in)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if trial%3 == 0 { // an unknown field, as a newer camera might send
+			b = protowire.AppendTag(b, 99, protowire.BytesType)
+			b = protowire.AppendBytes(b, []byte("future"))
+		}
+		want := &stillskyv1.StreamFramesResponse{}
+		if err := proto.Unmarshal(b, want); err != nil {
+			t.Fatal(err)
+		}
+		got := &stillskyv1.StreamFramesResponse{FrameNumber: 7, ChunkIndex: 3, Slopes: make([]float32, 64)}
+		if err := DecodeFrame(b, got); err != nil {
+			t.Fatal(err)
+		}
+		want.ProtoReflect().SetUnknown(nil)
+		if !proto.Equal(got, want) {
+			t.Fatalf("trial %d: decoded %v, want %v", trial, got, want)
+		}
+	}
+}
+
+func TestDecodeFrameRefusesGarbage(t *testing.T) {
+	f := &stillskyv1.StreamFramesResponse{}
+	for _, b := range [][]byte{{0x32, 0x05, 1, 2, 3, 4, 5}, {0x08}, {0xff, 0xff, 0xff}} {
+		if err := DecodeFrame(b, f); err == nil {
+			t.Errorf("DecodeFrame(%x) accepted malformed input", b)
+		}
+	}
+}
+
+func TestDecodeFrameReusesSlopes(t *testing.T) {
+	in := &stillskyv1.StreamFramesResponse{FrameNumber: 1, Slopes: make([]float32, 1000)}
+	b, _ := proto.Marshal(in)
+	f := &stillskyv1.StreamFramesResponse{Slopes: make([]float32, 0, 1000)}
+	data := mem.BufferSlice{mem.SliceBuffer(b)}
+	allocs := testing.AllocsPerRun(100, func() {
+		if err := (FrameCodec{}).Unmarshal(data, f); err != nil {
+			t.Fatal(err)
+		}
+	})
+	if allocs != 0 {
+		t.Fatalf("%v allocations per decoded frame, want 0", allocs)
+	}
+}
+
+func FuzzDecodeFrame(f *testing.F) {
+	seed, _ := proto.Marshal(&stillskyv1.StreamFramesResponse{FrameNumber: 5, Slopes: []float32{1, 2, 3}})
+	f.Add(seed)
+	f.Add([]byte{})
+	f.Fuzz(func(t *testing.T, b []byte) {
+		var want stillskyv1.StreamFramesResponse
+		werr := proto.Unmarshal(b, &want)
+		var got stillskyv1.StreamFramesResponse
+		gerr := DecodeFrame(b, &got)
+		if werr == nil && gerr != nil {
+			t.Fatalf("standard decoder accepts %x, DecodeFrame refuses: %v", b, gerr)
+		}
+		if werr == nil && gerr == nil {
+			want.ProtoReflect().SetUnknown(nil)
+			if !proto.Equal(&got, &want) {
+				t.Fatalf("decoded %v, want %v", &got, &want)
+			}
+		}
+	})
+}
