@@ -26,6 +26,8 @@ import (
 	"stillsky/internal/monoclock"
 	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/sim/bench"
+	"stillsky/sim/scenario"
 )
 
 // hostile is a camera and a mirror written for these tests: the camera sends
@@ -642,5 +644,121 @@ func TestBadControlRequests(t *testing.T) {
 	defer r.h.mu.Unlock()
 	if len(r.h.bad) > 0 {
 		t.Errorf("the mirror received %d malformed commands, first %s", len(r.h.bad), r.h.bad[0])
+	}
+}
+
+// benchProcess is a bench serving on fixed addresses that a test can stop and
+// start again, as a power-cycled device.
+type benchProcess struct {
+	addrs  bench.Addrs
+	cancel context.CancelFunc
+	done   chan error
+}
+
+func (p *benchProcess) start(t *testing.T, name string, opt bench.Options) {
+	t.Helper()
+	scn, err := scenario.Load(name)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := bench.NewServer(scn, opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var bl *bench.Listeners
+	// The old sockets may linger for a moment after Serve returned.
+	for i := 0; ; i++ {
+		if bl, err = bench.Listen(p.addrs); err == nil {
+			break
+		}
+		if i == 100 {
+			t.Fatal(err)
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	p.addrs = bench.Addrs{Camera: bl.Camera.Addr().String(), Mirror: bl.Mirror.Addr().String()}
+	ctx, cancel := context.WithCancel(context.Background())
+	p.cancel, p.done = cancel, make(chan error, 1)
+	go func() { p.done <- b.Serve(ctx, bl) }()
+}
+
+func (p *benchProcess) stop(t *testing.T) {
+	t.Helper()
+	p.cancel()
+	select {
+	case err := <-p.done:
+		if err != nil {
+			t.Errorf("bench: %v", err)
+		}
+	case <-time.After(10 * time.Second):
+		t.Fatal("bench did not stop within 10 s")
+	}
+}
+
+// TestBenchRestart kills the bench under a closed loop and starts a new one on
+// the same addresses. The loop must open when the devices go, the daemon must
+// reconnect by itself (with backoff) and the loop must stay open until a client
+// closes it again.
+func TestBenchRestart(t *testing.T) {
+	p := &benchProcess{addrs: bench.Addrs{Camera: "127.0.0.1:0", Mirror: "127.0.0.1:0"}}
+	opt := bench.Options{Lockstep: true}
+	p.start(t, "small", opt)
+	t.Cleanup(func() { p.cancel() })
+	d, err := daemon.New(daemon.Config{CameraAddr: p.addrs.Camera, MirrorAddr: p.addrs.Mirror, ListenAddr: "127.0.0.1:0", MetricsAddr: "-"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- d.Run(ctx) }()
+	t.Cleanup(func() {
+		cancel()
+		<-done
+	})
+	conn, err := rpc.Dial(d.ControlAddr())
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	r := &rig{d: d, client: stillskyv1.NewControlServiceClient(conn), conn: conn}
+	r.waitFrames(t, 10)
+	r.calibrate(t)
+	if _, err := r.client.CloseLoop(context.Background(), &stillskyv1.CloseLoopRequest{}); err != nil {
+		t.Fatal(err)
+	}
+	r.waitFrames(t, 50)
+
+	p.stop(t)
+	deadline := time.Now().Add(5 * time.Second)
+	for s := r.status(t); s.GetCameraConnected() || s.GetState() != stillskyv1.LoopState_LOOP_STATE_OPEN; s = r.status(t) {
+		if time.Now().After(deadline) {
+			t.Fatalf("5 s after the bench died: camera connected %v, state %v; want false, open", s.GetCameraConnected(), s.GetState())
+		}
+		time.Sleep(time.Millisecond)
+	}
+	// Down for a while, so the daemon's retries back off.
+	time.Sleep(1500 * time.Millisecond)
+	before := r.status(t).GetFrames()
+	p.start(t, "small", opt)
+	back := time.Now()
+	s := r.waitFrames(t, 20)
+	reconnect := time.Since(back)
+	// Backoff doubles from 100 ms to at most 5 s (daemon.go), so the new bench is
+	// found within the current backoff step: after 1.5 s down, under 2 s.
+	t.Logf("reconnected and 20 frames received %v after the bench restarted", reconnect.Round(time.Millisecond))
+	if reconnect > 5*time.Second {
+		t.Errorf("reconnect took %v, want under the 5 s backoff cap", reconnect)
+	}
+	if s.GetState() != stillskyv1.LoopState_LOOP_STATE_OPEN || s.GetFrames() <= before {
+		t.Errorf("after the restart: state %v, frames %d → %d; want open and counting", s.GetState(), before, s.GetFrames())
+	}
+	if s.GetReconstructor() == nil {
+		t.Error("the reconstructor was lost with the bench")
+	}
+	if _, err := r.client.CloseLoop(context.Background(), &stillskyv1.CloseLoopRequest{}); err != nil {
+		t.Fatalf("closing after the restart: %v", err)
+	}
+	if s := r.waitFrames(t, 20); s.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED {
+		t.Errorf("state %v after closing on the new bench, want closed", s.GetState())
 	}
 }
