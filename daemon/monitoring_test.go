@@ -79,9 +79,14 @@ func TestPrometheusSeesTheRig(t *testing.T) {
 		t.Skip("Prometheus integration takes ~40 s")
 	}
 	// Free-running, as in operation, at the small scenario's 500 Hz: light enough
-	// for a loaded machine. A stall of the test machine must not trip the stale
-	// camera interlock (which would leave the loop tripped, not open): allow 1 s.
-	r := startRig(t, "small", bench.Options{}, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 500}})
+	// for a loaded machine. A stall of the test machine must not trip the loop
+	// (which would leave it tripped, not open): the stale camera interlock waits
+	// 1 s, and the gain is low enough for the loop to stay stable when frames
+	// queue for several periods (an integrator with d frames of delay is stable
+	// for gains below 2 sin(π/(4d+2)), 0.24 for d = 6: the root locus of
+	// z^(d+1) − z^d + g on the unit circle, derived here).
+	gain := 0.2
+	r := startRig(t, "small", bench.Options{}, daemon.Config{Gain: &gain, Interlocks: daemon.Interlocks{StalePeriods: 500}})
 	prom := promtest.Start(t, map[string]string{
 		"stillsky-sim":  r.bl.Metrics.Addr().String(),
 		"stillsky-loop": r.d.MetricsAddr(),
