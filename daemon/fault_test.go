@@ -10,7 +10,11 @@ import (
 	"math/rand/v2"
 	"net"
 	"net/http"
+	"os"
+	"os/exec"
+	"path/filepath"
 	"sync"
+	"syscall"
 	"testing"
 	"time"
 
@@ -760,5 +764,143 @@ func TestBenchRestart(t *testing.T) {
 	}
 	if s := r.waitFrames(t, 20); s.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED {
 		t.Errorf("state %v after closing on the new bench, want closed", s.GetState())
+	}
+}
+
+// TestKillDuringCalibration runs the real binary: `stillsky sim` and `stillsky
+// loop --state-dir`, as separate processes on unix sockets. It sets a gain,
+// calibrates once to the end, starts a second, slower calibration and kills the
+// loop with SIGKILL halfway. The restarted loop must come back with the first
+// reconstructor (same creation time and modes) and the gain, and the committed
+// file must be byte for byte the one written by the first calibration.
+func TestKillDuringCalibration(t *testing.T) {
+	if testing.Short() {
+		t.Skip("builds the binary and runs two processes")
+	}
+	dir, err := os.MkdirTemp("", "ss7") // short: unix socket paths are limited to 108 bytes
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { os.RemoveAll(dir) })
+	bin := filepath.Join(dir, "stillsky")
+	if out, err := exec.Command("go", "build", "-o", bin, "stillsky/cmd/stillsky").CombinedOutput(); err != nil {
+		t.Fatalf("go build: %v\n%s", err, out)
+	}
+	state := filepath.Join(dir, "state")
+	if err := os.Mkdir(state, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	cam, mir, ctlAddr := "unix:"+filepath.Join(dir, "cam"), "unix:"+filepath.Join(dir, "mir"), "unix:"+filepath.Join(dir, "ctl")
+	start := func(name string, args ...string) *exec.Cmd {
+		t.Helper()
+		cmd := exec.Command(bin, args...)
+		logf, err := os.Create(filepath.Join(dir, name+".log"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		cmd.Stdout, cmd.Stderr = logf, logf
+		if err := cmd.Start(); err != nil {
+			t.Fatal(err)
+		}
+		t.Cleanup(func() {
+			cmd.Process.Kill()
+			cmd.Wait()
+			logf.Close()
+			if t.Failed() {
+				b, _ := os.ReadFile(logf.Name())
+				t.Logf("%s log:\n%s", name, b)
+			}
+		})
+		return cmd
+	}
+	start("sim", "sim", "--scenario", "small", "--camera", cam, "--mirror", mir, "--metrics", "")
+	loopArgs := []string{"loop", "--camera", cam, "--mirror", mir, "--listen", ctlAddr, "--metrics", "-", "--state-dir", state}
+	loop := start("loop", loopArgs...)
+	conn, err := rpc.Dial(ctlAddr)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	r := &rig{client: stillskyv1.NewControlServiceClient(conn), conn: conn}
+	waitUp := func() {
+		t.Helper()
+		deadline := time.Now().Add(30 * time.Second)
+		for {
+			s, err := r.client.GetStatus(context.Background(), &stillskyv1.GetStatusRequest{})
+			if err == nil && s.GetCameraConnected() && s.GetMirrorConnected() && s.GetFrames() > 10 {
+				return
+			}
+			if time.Now().After(deadline) {
+				t.Fatalf("loop not running with frames 30 s after start: %v", err)
+			}
+			time.Sleep(20 * time.Millisecond)
+		}
+	}
+	waitUp()
+	if _, err := r.client.SetGain(context.Background(), &stillskyv1.SetGainRequest{Gain: 0.3}); err != nil {
+		t.Fatal(err)
+	}
+	r.calibrate(t)
+	first := r.status(t).GetReconstructor()
+	committed, err := os.ReadFile(filepath.Join(state, "reconstructor.fits"))
+	if err != nil {
+		t.Fatalf("no committed reconstructor after a calibration: %v", err)
+	}
+	time.Sleep(1100 * time.Millisecond) // a second calibration would carry a later creation second
+
+	// Fifty frames per pattern make the second calibration last tens of seconds.
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	cal, err := r.client.Calibrate(ctx, &stillskyv1.CalibrateRequest{FramesPerPattern: 50})
+	if err != nil {
+		t.Fatal(err)
+	}
+	for {
+		m, err := cal.Recv()
+		if err != nil {
+			t.Fatalf("second calibration: %v", err)
+		}
+		if m.GetDone() > 0 {
+			t.Logf("killing the loop at %d of %d calibration frames", m.GetDone(), m.GetTotal())
+			break
+		}
+	}
+	if err := loop.Process.Signal(syscall.SIGKILL); err != nil {
+		t.Fatal(err)
+	}
+	loop.Wait()
+
+	got, err := os.ReadFile(filepath.Join(state, "reconstructor.fits"))
+	if err != nil || !bytes.Equal(got, committed) {
+		t.Fatalf("committed reconstructor changed by the killed calibration (%v; %d → %d bytes)", err, len(committed), len(got))
+	}
+	if _, err := controller.LoadReconstructor(filepath.Join(state, "reconstructor.fits")); err != nil {
+		t.Errorf("committed reconstructor does not read back: %v", err)
+	}
+	entries, _ := os.ReadDir(state)
+	var names []string
+	for _, e := range entries {
+		names = append(names, e.Name())
+	}
+	t.Logf("state directory after the kill: %v", names)
+
+	start("loop2", loopArgs...)
+	waitUp()
+	deadline := time.Now().Add(10 * time.Second)
+	s := r.status(t)
+	for s.GetReconstructor() == nil && time.Now().Before(deadline) {
+		time.Sleep(20 * time.Millisecond)
+		s = r.status(t)
+	}
+	rec := s.GetReconstructor()
+	if rec.GetCreatedUnix() != first.GetCreatedUnix() || rec.GetModesKept() != first.GetModesKept() || rec.GetModesKept() == 0 {
+		t.Errorf("restored reconstructor created %d with %d modes; want the first, created %d with %d modes",
+			rec.GetCreatedUnix(), rec.GetModesKept(), first.GetCreatedUnix(), first.GetModesKept())
+	}
+	if s.GetGain() != 0.3 {
+		t.Errorf("restored gain %g, want 0.3", s.GetGain())
+	}
+	if s.GetState() != stillskyv1.LoopState_LOOP_STATE_OPEN {
+		t.Errorf("restarted loop is %v, want open", s.GetState())
 	}
 }
