@@ -25,6 +25,7 @@ func runLoop(args []string) error {
 	leak := fs.Float64("leak", 0.01, "integrator leak at start, in [0, 1)")
 	wavelength := fs.Float64("science-wavelength", 1.65e-6, "wavelength of the Strehl estimate, metres")
 	chunks := fs.Int("chunks", 0, "ask the camera for frames in this many chunks (pipelined reconstruction)")
+	benchURL := fs.String("bench-url", "", "HTTP base URL of the simulated bench (its --metrics address, e.g. http://127.0.0.1:7403), whose PSF the live view shows")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
 	cpu := fs.Int("rt-cpu", -1, "pin the real-time thread to this CPU (-1: no pinning)")
 	fifo := fs.Int("rt-fifo", 0, "run the real-time thread under SCHED_FIFO at this priority, 1-99 (0: normal scheduling)")
@@ -48,7 +49,7 @@ func runLoop(args []string) error {
 	cfg := daemon.Config{
 		CameraAddr: *camera, MirrorAddr: *mirror, ListenAddr: *listen, MetricsAddr: *metrics,
 		StateDir: *stateDir, Gain: gain, Leak: leak, ScienceWavelength: *wavelength,
-		Chunks: *chunks, Security: sec, Logger: log,
+		Chunks: *chunks, Security: sec, Logger: log, BenchURL: *benchURL,
 		Realtime: daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo, LockMemory: *mlock},
 	}
 	d, err := daemon.New(cfg)

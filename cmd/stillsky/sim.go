@@ -14,7 +14,7 @@ func runSim(args []string) error {
 	scn := fs.String("scenario", scenario.Default, "built-in scenario name or path to a scenario YAML file")
 	camera := fs.String("camera", "127.0.0.1:7401", "camera gRPC address (host:port or unix:/path)")
 	mirror := fs.String("mirror", "127.0.0.1:7402", "mirror gRPC address (may equal --camera)")
-	metrics := fs.String("metrics", "127.0.0.1:7403", "HTTP address of /metrics (\"\" to disable)")
+	metrics := fs.String("metrics", "127.0.0.1:7403", "HTTP address of /metrics and /psf.png (\"\" to disable)")
 	lockstep := fs.Bool("lockstep", false, "produce frame k only after the command for frame k−delay (reproducible)")
 	delay := fs.Int("delay-frames", 0, "loop delay in frames modelled in lockstep mode (0: the scenario's)")
 	readout := fs.Duration("readout-time", 0, "spread the chunks of a chunked frame over this readout time (0: back to back)")
@@ -44,5 +44,5 @@ func runSim(args []string) error {
 	}
 	ctx, stop := signalContext()
 	defer stop()
-	return srv.Serve(ctx, l)
+	return srv.Serve(ctx, l, srv.RegisterLiveView)
 }

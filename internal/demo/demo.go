@@ -101,18 +101,19 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	if err != nil {
 		return nil, err
 	}
-	bl, err := bench.Listen(bench.Addrs{Camera: "127.0.0.1:0", Mirror: "127.0.0.1:0"})
+	bl, err := bench.Listen(bench.Addrs{Camera: "127.0.0.1:0", Mirror: "127.0.0.1:0", Metrics: "127.0.0.1:0"})
 	if err != nil {
 		return nil, err
 	}
 	benchDone := make(chan error, 1)
-	go func() { benchDone <- b.Serve(ctx, bl) }()
+	go func() { benchDone <- b.Serve(ctx, bl, b.RegisterLiveView) }()
 
 	d, err := daemon.New(daemon.Config{
 		CameraAddr:        bl.Camera.Addr().String(),
 		MirrorAddr:        bl.Mirror.Addr().String(),
 		ListenAddr:        "127.0.0.1:0",
 		MetricsAddr:       "127.0.0.1:0",
+		BenchURL:          "http://" + bl.Metrics.Addr().String(),
 		Gain:              c.Gain,
 		ScienceWavelength: scn.Science.Wavelength,
 		Logger:            c.Logger.With("process", "loop"),
@@ -130,8 +131,8 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	defer conn.Close()
 	client := stillskyv1.NewControlServiceClient(conn)
 	fmt.Fprintf(c.Out, "stillsky demo: scenario %q — %s\n", scn.Name, scn.Description)
-	fmt.Fprintf(c.Out, "bench camera %s, mirror %s; loop control %s, metrics http://%s/metrics\n",
-		bl.Camera.Addr(), bl.Mirror.Addr(), d.ControlAddr(), d.MetricsAddr())
+	fmt.Fprintf(c.Out, "bench camera %s, mirror %s; loop control %s, metrics http://%s/metrics, live view http://%s/\n",
+		bl.Camera.Addr(), bl.Mirror.Addr(), d.ControlAddr(), d.MetricsAddr(), d.MetricsAddr())
 
 	if err := waitConnected(ctx, client); err != nil {
 		return nil, err
