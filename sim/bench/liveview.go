@@ -7,6 +7,8 @@ import (
 	"image/png"
 	"math"
 	"net/http"
+
+	"stillsky/sim/optics"
 )
 
 // psfDecades is the dynamic range of the PSF image: log10 of the PSF over the
@@ -18,20 +20,29 @@ const psfDecades = 5
 // enlarged by an integer factor so that a browser does not blur them.
 const psfMinSide = 256
 
-// RegisterLiveView adds GET /psf.png to mux: the science PSF of the last sampled
-// frame, log scale. Pass it to Serve to offer it on the bench's metrics port, for
-// the loop's live view.
+// RegisterLiveView adds GET /psf.png to mux: the science PSF of the newest
+// frame's residual, log scale. Pass it to Serve to offer it on the bench's
+// metrics port, for the loop's live view.
 func (b *Server) RegisterLiveView(mux *http.ServeMux) {
 	mux.HandleFunc("GET /psf.png", b.servePSF)
 }
 
+// servePSF images the newest residual with an imager of its own, so that a
+// viewer costs the bench's clock nothing but a copy under the lock, whichever
+// mode the bench runs in and however often it samples its own Strehl ratio.
 func (b *Server) servePSF(w http.ResponseWriter, _ *http.Request) {
-	n := b.sys.PSFSize()
-	psf := make([]float64, n*n)
-	// produce writes b.psf only under b.mu.
+	im, err := optics.NewImager(b.sys.Pupil(), b.scn.Science.Wavelength, SciencePad)
+	if err != nil {
+		http.Error(w, "bench: psf image: "+err.Error(), http.StatusInternalServerError)
+		return
+	}
+	// Frame writes the residual only under b.mu.
 	b.mu.Lock()
-	copy(psf, b.psf)
+	opd := append([]float64(nil), b.sys.Residual()...)
 	b.mu.Unlock()
+	n := im.Size()
+	psf := make([]float64, n*n)
+	im.PSF(opd, psf)
 	var buf bytes.Buffer
 	if err := png.Encode(&buf, psfImage(psf, n)); err != nil {
 		http.Error(w, "bench: psf image: "+err.Error(), http.StatusInternalServerError)
