@@ -18,6 +18,7 @@ import (
 	"stillsky/internal/buildinfo"
 	"stillsky/internal/monoclock"
 	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/sim/optics"
 	"stillsky/sim/scenario"
 )
 
@@ -88,7 +89,12 @@ type Server struct {
 	mirrorBusy   atomic.Bool
 	frameCounter uint64
 
-	psf          []float64 // the sampled frame's science PSF
+	psf          []float64 // the newest sampled science PSF; guarded by mu
+	sci          *optics.Imager
+	sciIn        []float64 // residual handed to the science camera (free-run)
+	sciPSF       []float64
+	sciBusy      atomic.Bool
+	sciWake      chan struct{}
 	stats        statsAccumulator
 	gauge        exposure // the last second's exposure, for the Strehl gauge
 	gaugeSamples int
@@ -133,6 +139,12 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	b.scratch = make([]float32, sys.NumSlopes())
 	n := sys.PSFSize() * sys.PSFSize()
 	b.psf = make([]float64, n)
+	b.sciPSF = make([]float64, n)
+	b.sciIn = make([]float64, len(sys.Residual()))
+	b.sciWake = make(chan struct{}, 1)
+	if b.sci, err = optics.NewImager(sys.Pupil(), s.Science.Wavelength, sys.PSFSize()/sys.Pupil().N); err != nil {
+		return nil, err
+	}
 	b.stats.exp.sum = make([]float64, n)
 	b.gauge.sum = make([]float64, n)
 	b.gaugeSamples = max(1, int(s.Loop.FrameRate)/opt.StrehlEvery)
@@ -181,6 +193,9 @@ func (b *Server) Scenario() *scenario.Scenario { return b.scn }
 // Run keeps the bench's time until ctx ends: in free-run mode a frame every frame
 // period, in lockstep mode a frame whenever the loop has answered.
 func (b *Server) Run(ctx context.Context) error {
+	sctx, stop := context.WithCancel(ctx)
+	defer stop()
+	go b.science(sctx)
 	period := time.Duration(b.sys.FramePeriod() * float64(time.Second))
 	next := time.Now()
 	for k := uint64(1); ; k++ {
@@ -260,19 +275,24 @@ func (b *Server) produce(k uint64) {
 		}
 	}
 	b.sys.Frame(scratch)
+	now := monoclock.Now()
 	rms := b.sys.ResidualRMS()
 	sample := k%uint64(b.opt.StrehlEvery) == 0
-	if sample {
+	async := sample && !b.opt.Lockstep && b.sciBusy.CompareAndSwap(false, true)
+	if async {
+		// Free-running, the science camera works on its own goroutine, so that
+		// its FFT never delays the wavefront sensor's frames.
+		copy(b.sciIn, b.sys.Residual())
+		b.sciWake <- struct{}{}
+	}
+	if sample && b.opt.Lockstep {
+		// Lockstep runs are reproducible: every sampled frame is exposed.
 		b.sys.PSF(b.psf)
 	}
 	b.mu.Unlock()
-	now := monoclock.Now()
-	b.stats.add(rms, sample, b.psf)
-	if sample && b.gauge.add(b.psf) >= b.gaugeSamples {
-		st := b.gauge.strehl()
-		b.metrics.strehl.Set(st)
-		b.lastStrehl.Store(math.Float64bits(st))
-		b.gauge.reset()
+	b.stats.add(rms)
+	if sample && b.opt.Lockstep {
+		b.expose(b.psf)
 	}
 	b.metrics.frames.Inc()
 	b.metrics.residual.Set(rms)
@@ -285,6 +305,35 @@ func (b *Server) produce(k uint64) {
 	}
 	slot.number, slot.readoutEnd = k, now
 	b.ready <- k
+}
+
+// expose adds a science PSF to the window's exposure and the gauge's.
+func (b *Server) expose(psf []float64) {
+	b.stats.expose(psf)
+	if b.gauge.add(psf) >= b.gaugeSamples {
+		st := b.gauge.strehl()
+		b.metrics.strehl.Set(st)
+		b.lastStrehl.Store(math.Float64bits(st))
+		b.gauge.reset()
+	}
+}
+
+// science is the free-running science camera: it images the residuals that
+// produce hands it, one at a time.
+func (b *Server) science(ctx context.Context) {
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-b.sciWake:
+		}
+		b.sci.PSF(b.sciIn, b.sciPSF)
+		b.expose(b.sciPSF)
+		b.mu.Lock()
+		copy(b.psf, b.sciPSF)
+		b.mu.Unlock()
+		b.sciBusy.Store(false)
+	}
 }
 
 // Describe returns the sensor geometry.
@@ -545,14 +594,17 @@ type statsAccumulator struct {
 	exp          exposure
 }
 
-func (a *statsAccumulator) add(rms float64, sampled bool, psf []float64) {
+func (a *statsAccumulator) add(rms float64) {
 	a.mu.Lock()
 	a.frames++
 	a.sumResidual += rms
 	a.lastResidual = rms
-	if sampled {
-		a.exp.add(psf)
-	}
+	a.mu.Unlock()
+}
+
+func (a *statsAccumulator) expose(psf []float64) {
+	a.mu.Lock()
+	a.exp.add(psf)
 	a.mu.Unlock()
 }
 
