@@ -457,6 +457,21 @@ func TestStepAllocatesNothing(t *testing.T) {
 			t.Errorf("%s: %g allocations per frame, want 0", name, a)
 		}
 	}
+	// With the kernel's worker threads sharing the product.
+	r, err := ReconstructorFromMatrix(randomDense(rng, 400, 800), time.Time{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	big, err := NewParams(ParamsConfig{Reconstructor: r, Gain: 0.4, Stroke: 1, StrehlWavelength: 1e-6, Kernel: mvm.Options{Workers: 2}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer big.Close()
+	lb, _ := NewLoop(big)
+	sb, cb := randomSlopes(rng, 800), make([]float32, 400)
+	if a := testing.AllocsPerRun(200, func() { lb.Step(sb, cb) }); a != 0 {
+		t.Errorf("two workers: %g allocations per frame, want 0", a)
+	}
 }
 
 // A parameter swap never tears a frame: a chunked frame finishes with the set it
