@@ -665,6 +665,11 @@ func (p *benchProcess) start(t *testing.T, name string, opt bench.Options) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	p.startScenario(t, scn, opt)
+}
+
+func (p *benchProcess) startScenario(t *testing.T, scn *scenario.Scenario, opt bench.Options) {
+	t.Helper()
 	b, err := bench.NewServer(scn, opt)
 	if err != nil {
 		t.Fatal(err)
