@@ -28,6 +28,10 @@ type Config struct {
 	CameraAddr, MirrorAddr string
 	// ListenAddr is the Control API's gRPC address; default 127.0.0.1:7411.
 	ListenAddr string
+	// HealthAddr, if set, serves only the standard gRPC health service, in
+	// plain text, for orchestrator probes that cannot present TLS credentials (a
+	// kubelet's gRPC probe); it exposes nothing else and changes nothing.
+	HealthAddr string
 	// MetricsAddr is the HTTP address of /metrics and the live view; default
 	// 127.0.0.1:7412. "-" disables it.
 	MetricsAddr string
@@ -101,9 +105,9 @@ type Daemon struct {
 	log *slog.Logger
 	m   *metrics
 
-	ctlLis, httpLis net.Listener
-	grpcServer      *grpc.Server
-	httpServer      *http.Server
+	ctlLis, httpLis, healthLis net.Listener
+	grpcServer, healthServer   *grpc.Server
+	httpServer                 *http.Server
 
 	// Set once the devices have been described.
 	geomMu sync.Mutex
@@ -171,6 +175,16 @@ func New(cfg Config) (*Daemon, error) {
 			return nil, fmt.Errorf("daemon: metrics listener: %w", err)
 		}
 	}
+	if cfg.HealthAddr != "" {
+		if d.healthLis, err = rpc.Listen(cfg.HealthAddr); err != nil {
+			d.ctlLis.Close()
+			if d.httpLis != nil {
+				d.httpLis.Close()
+			}
+			return nil, fmt.Errorf("daemon: health listener: %w", err)
+		}
+		d.healthServer = rpc.NewHealthOnlyServer([]string{stillskyv1.ControlService_ServiceDesc.ServiceName})
+	}
 	d.grpcServer, _ = rpc.NewServer([]string{stillskyv1.ControlService_ServiceDesc.ServiceName}, opts...)
 	stillskyv1.RegisterControlServiceServer(d.grpcServer, &controlServer{d: d})
 	mux := http.NewServeMux()
@@ -194,8 +208,11 @@ func (d *Daemon) MetricsAddr() string {
 // Run serves the Control API and metrics, connects to the devices (retrying with
 // backoff) and runs the loop until ctx ends.
 func (d *Daemon) Run(ctx context.Context) error {
-	errc := make(chan error, 2)
+	errc := make(chan error, 3)
 	go func() { errc <- d.grpcServer.Serve(d.ctlLis) }()
+	if d.healthServer != nil {
+		go func() { errc <- d.healthServer.Serve(d.healthLis) }()
+	}
 	if d.httpLis != nil {
 		go func() {
 			if err := d.httpServer.Serve(d.httpLis); !errors.Is(err, http.ErrServerClosed) {
@@ -213,6 +230,9 @@ func (d *Daemon) Run(ctx context.Context) error {
 	case err = <-errc:
 	}
 	d.grpcServer.GracefulStop()
+	if d.healthServer != nil {
+		d.healthServer.Stop()
+	}
 	shut, cancel := context.WithTimeout(context.Background(), 2*time.Second)
 	defer cancel()
 	d.httpServer.Shutdown(shut)

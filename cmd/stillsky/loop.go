@@ -19,6 +19,7 @@ func runLoop(args []string) error {
 	camera := fs.String("camera", "127.0.0.1:7401", "camera gRPC address (host:port or unix:/path)")
 	mirror := fs.String("mirror", "127.0.0.1:7402", "mirror gRPC address")
 	listen := fs.String("listen", "127.0.0.1:7411", "Control API gRPC address")
+	health := fs.String("health-listen", "", "plain-text address serving only the gRPC health service, for probes (\"\" for none)")
 	metrics := fs.String("metrics", "127.0.0.1:7412", "HTTP address of /metrics and the live view (\"-\" to disable)")
 	stateDir := fs.String("state-dir", "", "directory keeping the committed reconstructor and settings across restarts")
 	gain := fs.Float64("gain", 0.4, "integrator gain at start, in [0, 2)")
@@ -47,7 +48,7 @@ func runLoop(args []string) error {
 		return err
 	}
 	cfg := daemon.Config{
-		CameraAddr: *camera, MirrorAddr: *mirror, ListenAddr: *listen, MetricsAddr: *metrics,
+		CameraAddr: *camera, MirrorAddr: *mirror, ListenAddr: *listen, HealthAddr: *health, MetricsAddr: *metrics,
 		StateDir: *stateDir, Gain: gain, Leak: leak, ScienceWavelength: *wavelength,
 		Chunks: *chunks, Security: sec, Logger: log, BenchURL: *benchURL,
 		Realtime: daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo, LockMemory: *mlock},

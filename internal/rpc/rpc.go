@@ -80,14 +80,27 @@ func Dial(addr string, opts ...grpc.DialOption) (*grpc.ClientConn, error) {
 // application services on it before serving.
 func NewServer(services []string, opts ...grpc.ServerOption) (*grpc.Server, *health.Server) {
 	s := grpc.NewServer(opts...)
+	h := registerHealth(s, services)
+	reflection.Register(s)
+	return s, h
+}
+
+func registerHealth(s *grpc.Server, services []string) *health.Server {
 	h := health.NewServer()
 	h.SetServingStatus("", healthpb.HealthCheckResponse_SERVING)
 	for _, name := range services {
 		h.SetServingStatus(name, healthpb.HealthCheckResponse_SERVING)
 	}
 	healthpb.RegisterHealthServer(s, h)
-	reflection.Register(s)
-	return s, h
+	return h
+}
+
+// NewHealthOnlyServer returns a plain gRPC server with nothing but the health
+// service, reporting SERVING for "" and each of services.
+func NewHealthOnlyServer(services []string) *grpc.Server {
+	s := grpc.NewServer()
+	registerHealth(s, services)
+	return s
 }
 
 // realTimeWindow is the fixed HTTP/2 flow-control window of the real-time links:
