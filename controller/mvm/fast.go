@@ -77,7 +77,9 @@ type Fast struct {
 	f32        []float32
 	b16        []uint16
 	xs         []float32 // x padded with zeros outside the requested columns
-	parts      []rowSpan // rows of each participant; parts[0] is the caller's
+	workers    int       // participants, the caller included
+	per        int       // row blocks owned by each participant
+	parts      []rowSpan // row blocks; participant p owns [p·per, (p+1)·per)
 	tails      [][16]float32
 	job        job
 	pool       *pool
@@ -100,7 +102,11 @@ type job struct {
 // kernels pad ranges of columns with zeros in x, and 0·Inf would not vanish.
 // The result must be released with Close when it has worker goroutines.
 func New(a *Matrix, opts Options) (Multiplier, error) {
-	return NewFast(a, opts)
+	f, err := NewFast(a, opts)
+	if err != nil {
+		return nil, err // not a Multiplier holding a nil *Fast
+	}
+	return f, nil
 }
 
 // NewFast is New with the concrete type, for callers that want to report the
@@ -137,8 +143,8 @@ func NewFast(a *Matrix, opts Options) (*Fast, error) {
 		w = AutoWorkers(a.Rows, a.Cols, f.prec)
 	}
 	f.split(w)
-	if len(f.parts) > 1 {
-		f.pool = startPool(f, len(f.parts)-1)
+	if f.workers > 1 {
+		f.pool = startPool(f, f.workers-1)
 	}
 	return f, nil
 }
@@ -187,21 +193,32 @@ func validate(a *Matrix) error {
 	return nil
 }
 
-// split assigns rows to w participants in groups of 4 rows, as evenly as the
-// groups allow; participants that would get no rows are dropped.
+// sharesPer is how many row blocks each participant owns. More than one lets
+// a participant that starts late still take part: the others steal its
+// blocks from the far end.
+const sharesPer = 4
+
+// split assigns rows to w participants: each owns sharesPer contiguous
+// blocks (fewer for small matrices) of whole 4-row groups, as even as the
+// groups allow. Participants that would get no rows are dropped.
 func (f *Fast) split(w int) {
 	groups := (f.rows + 3) / 4
-	w = max(1, min(w, groups))
-	f.parts = make([]rowSpan, w)
-	f.tails = make([][16]float32, w)
+	f.workers = max(1, min(w, groups))
+	f.per = max(1, min(sharesPer, groups/f.workers))
+	if f.workers == 1 {
+		f.per = 1
+	}
+	n := f.workers * f.per
+	f.parts = make([]rowSpan, n)
+	f.tails = make([][16]float32, n)
 	lo := 0
-	for p := range w {
-		g := groups / w
-		if p < groups%w {
+	for i := range n {
+		g := groups / n
+		if i < groups%n {
 			g++
 		}
 		hi := min(lo+4*g, f.rows)
-		f.parts[p] = rowSpan{lo, hi}
+		f.parts[i] = rowSpan{lo, hi}
 		lo = hi
 	}
 }
@@ -216,7 +233,7 @@ func (f *Fast) Cols() int { return f.cols }
 func (f *Fast) Kernel() string { return f.kern.name }
 
 // Workers returns the number of threads sharing each product, the caller included.
-func (f *Fast) Workers() int { return len(f.parts) }
+func (f *Fast) Workers() int { return f.workers }
 
 // Precision returns the storage format of the matrix.
 func (f *Fast) Precision() Precision { return f.prec }
@@ -268,7 +285,7 @@ func (f *Fast) run(y, x []float32, c0, c1 int, add bool) {
 	f.pool.run(f)
 }
 
-// part computes the rows of participant p for the current job.
+// part computes row block p of the current job.
 func (f *Fast) part(p int) {
 	s := f.parts[p]
 	j := &f.job

@@ -221,6 +221,9 @@ func TestNewRejects(t *testing.T) {
 				m.Close()
 				t.Fatal("New accepted it")
 			}
+			if m != nil {
+				t.Errorf("New returned a non-nil Multiplier with error %v", err)
+			}
 		})
 	}
 }
@@ -331,6 +334,34 @@ func TestSumKernels(t *testing.T) {
 		}
 		if !closeTo(got, float32(want), len(v), abs, 0) {
 			t.Errorf("%s: sum %v, float64 sum %v", k.name, got, want)
+		}
+	}
+}
+
+// The caller steals every block when no worker takes part: here the workers
+// have exited (Close), which no caller may rely on, but a worker the OS has
+// not scheduled looks the same to the caller.
+func TestCallerStealsBlocks(t *testing.T) {
+	rng := rand.New(rand.NewPCG(15, 16))
+	a := randomMatrix(rng, 203, 150)
+	f, err := NewFast(a, Options{Workers: 3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	x := randomVector(rng, 150)
+	want, y := make([]float32, 203), make([]float32, 203)
+	NewPlain(a).MulVec(want, x)
+	f.MulVec(y, x)
+	f.Close()
+	for round := range 2 {
+		for i := range y {
+			y[i] = float32(math.NaN())
+		}
+		f.MulVec(y, x)
+		for i := range y {
+			if !closeTo(y[i], want[i], 150, absDot(a, i, x, 0, 150), 0) {
+				t.Fatalf("round %d without workers: y[%d] = %v, want %v", round, i, y[i], want[i])
+			}
 		}
 	}
 }

@@ -11,13 +11,20 @@ import (
 // multiplier splits its rows across n-1 persistent workers plus the caller.
 //
 // Hand-off. The caller writes the job into Fast.job, then increments seq;
-// each worker, waiting for seq to change, computes its rows and increments
-// done; the caller computes its own rows and spins until done reaches
-// seq·(n-1). Go's atomics are sequentially consistent, so the job written
-// before the seq store is visible to a worker that loads the new seq, and the
-// workers' y writes are visible to the caller once it sees done. A product
-// therefore costs two cache-line transfers each way and no channel
-// operation, lock or allocation.
+// each worker, waiting for seq to change, claims row blocks and computes
+// them; the caller claims and computes blocks too, then spins until the done
+// counter shows every block of the job finished. A block is claimed by
+// raising its claimed word to the job number k with a compare-and-swap, so
+// each block is computed exactly once per job, and a worker that wakes after
+// its job is over claims nothing. Each participant first claims the blocks
+// it owns, in order (under no contention every core reads the same rows on
+// every product, which stay in its caches), then steals the others' from
+// their far end: a worker the OS has not scheduled yet no longer holds up the
+// product, the caller does its blocks. Go's atomics are sequentially
+// consistent, so the job written before the seq store is visible to a worker
+// that loads the new seq, and the y written by a block is visible to the
+// caller once it sees done. A product costs a few cache-line transfers and
+// no channel operation, lock or allocation.
 //
 // Idle workers. A waiting worker spins on seq with PAUSE between loads;
 // every goschedEvery rounds it lets other goroutines have its P
@@ -55,9 +62,16 @@ type pool struct {
 	done    atomic.Uint64
 	_       pad
 	stop    atomic.Bool
+	runs    uint64  // products started; touched by the caller only
+	claimed []claim // per row block: the last job that claimed it
 	workers []*worker
 	wg      sync.WaitGroup
 	once    sync.Once
+}
+
+type claim struct {
+	job atomic.Uint64
+	_   [56]byte
 }
 
 type worker struct {
@@ -68,7 +82,7 @@ type worker struct {
 }
 
 func startPool(f *Fast, n int) *pool {
-	p := &pool{workers: make([]*worker, n)}
+	p := &pool{workers: make([]*worker, n), claimed: make([]claim, len(f.parts))}
 	p.wg.Add(n)
 	for i := range p.workers {
 		w := &worker{wake: make(chan struct{}, 1)}
@@ -78,13 +92,45 @@ func startPool(f *Fast, n int) *pool {
 	return p
 }
 
-// run publishes the job in f.job, computes the caller's share and waits for
-// the workers.
+// work computes, for job k, the blocks participant me can claim: its own in
+// order, then the others' from the end of each owner's range. It returns how
+// many it computed.
+func (p *pool) work(f *Fast, me int, k uint64) uint64 {
+	var n uint64
+	try := func(b int) {
+		c := &p.claimed[b].job
+		for {
+			old := c.Load()
+			if old >= k {
+				return
+			}
+			if c.CompareAndSwap(old, k) {
+				f.part(b)
+				n++
+				return
+			}
+		}
+	}
+	for b := me * f.per; b < (me+1)*f.per; b++ {
+		try(b)
+	}
+	for i := 1; i < f.workers; i++ {
+		q := (me + i) % f.workers
+		for b := (q+1)*f.per - 1; b >= q*f.per; b-- {
+			try(b)
+		}
+	}
+	return n
+}
+
+// run publishes the job in f.job, computes blocks with the workers and
+// waits until all are done.
 func (p *pool) run(f *Fast) {
-	s := p.seq.Add(1)
+	k := p.seq.Add(1)
 	p.wakeParked()
-	f.part(0)
-	target := s * uint64(len(p.workers))
+	p.done.Add(p.work(f, 0, k))
+	p.runs++
+	target := p.runs * uint64(len(f.parts))
 	for i := 0; p.done.Load() != target; i++ {
 		if i >= waitSpins && i%goschedEvery == 0 {
 			osYield()
@@ -103,7 +149,7 @@ func (p *pool) wakeParked() {
 	}
 }
 
-func (p *pool) loop(f *Fast, part int, w *worker) {
+func (p *pool) loop(f *Fast, me int, w *worker) {
 	defer p.wg.Done()
 	var last uint64
 	for {
@@ -111,8 +157,9 @@ func (p *pool) loop(f *Fast, part int, w *worker) {
 		if p.stop.Load() {
 			return
 		}
-		f.part(part)
-		p.done.Add(1)
+		if n := p.work(f, me, last); n > 0 {
+			p.done.Add(n)
+		}
 	}
 }
 
