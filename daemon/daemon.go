@@ -262,20 +262,6 @@ func (d *Daemon) devices(ctx context.Context) {
 	}
 }
 
-// waitDevices blocks until the devices are described or ctx ends.
-func (d *Daemon) waitDevices(ctx context.Context) (*geometry, error) {
-	for {
-		if g := d.geometry(); g != nil {
-			return g, nil
-		}
-		select {
-		case <-ctx.Done():
-			return nil, ctx.Err()
-		case <-time.After(20 * time.Millisecond):
-		}
-	}
-}
-
 func (d *Daemon) geometry() *geometry {
 	d.geomMu.Lock()
 	defer d.geomMu.Unlock()
