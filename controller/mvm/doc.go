@@ -44,10 +44,12 @@
 //
 // The controller core starts no goroutines. A Fast multiplier with
 // Workers > 1 is the single exception: it starts Workers-1 goroutines in New,
-// which live until Close. Each product splits the rows in contiguous blocks;
-// the caller publishes the job with an atomic sequence number, computes its
-// own block and spins until an atomic done counter shows every worker
-// finished: no channel operation, lock or allocation per product. Idle
+// which live until Close. Each participant owns a few contiguous row
+// blocks; the caller publishes the job with an atomic sequence number, every
+// participant claims its own blocks and then steals unclaimed ones (so a
+// worker the OS has not scheduled delays nothing), and the caller spins until
+// an atomic done counter shows every block finished: no channel operation,
+// lock or allocation per product. Idle
 // workers spin (PAUSE, yielding P and core now and then) for about 1.5 ms,
 // longer than a frame at any loop rate of interest, then park on a channel
 // until the next product; see pool.go for the protocol. Options.Workers = 0
