@@ -233,6 +233,7 @@ func TestStaleCameraHolds(t *testing.T) {
 	stop := r.pump(t)
 	time.Sleep(50 * time.Millisecond)
 	stop()
+	r.sync(t) // the last command before the silence has reached the mirror
 	r.h.mu.Lock()
 	held := append([]float32(nil), r.h.lastVals...)
 	r.h.mu.Unlock()
