@@ -151,6 +151,10 @@ type realtime struct {
 	// as they arrive (nil when not pipelining this frame).
 	assembling uint64
 	pipe       *controller.Loop
+	// staleNs is the age at which a frame counts as late; skipped says whether
+	// the previous frame was skipped for it.
+	staleNs int64
+	skipped bool
 	// readout times of recent frames by frame number, for end-to-end latency.
 	readout [readoutRing]atomic.Int64
 	tags    [readoutRing]atomic.Uint64
@@ -169,6 +173,7 @@ func newRealtime(d *Daemon, g *geometry) *realtime {
 		discard: make([]float32, g.actuators),
 		state:   loopState(d.state.Load()),
 		guard:   guard{cfg: d.cfg.Interlocks},
+		staleNs: int64(2e9 / g.frameRate),
 	}
 	rt.out.Values = rt.cmd
 	d.telemetry.init(g.slopes, g.actuators)
@@ -205,6 +210,11 @@ func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFrame
 			d.stats.dropped.Add(gap - 1)
 		}
 		rt.lastNum = num
+		if rt.behind(f, received) {
+			m.dropped.Inc()
+			d.stats.dropped.Add(1)
+			continue
+		}
 		slot := num % readoutRing
 		rt.readout[slot].Store(f.GetReadoutEndNs())
 		rt.tags[slot].Store(num)
@@ -229,6 +239,20 @@ func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFrame
 		rt.publish(res)
 		d.telemetry.record(num, rt.state, rt.slopes, rt.cmd, res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated, float64(sent-received)*1e-9)
 	}
+}
+
+// behind reports whether to skip a frame that arrived more than two periods after
+// its readout while the loop is closed: the loop has fallen behind a
+// free-running camera, and correcting with stale frames would only add delay. It
+// never skips two in a row, so a uniformly slow link still gets every other frame
+// corrected; lockstep cameras wait for the loop, and calibration needs every frame.
+func (rt *realtime) behind(f *stillskyv1.StreamFramesResponse, received int64) bool {
+	if rt.g.lockstep || rt.skipped || rt.state != stateClosed || received-f.GetReadoutEndNs() <= rt.staleNs {
+		rt.skipped = false
+		return false
+	}
+	rt.skipped = true
+	return true
 }
 
 // assemble validates a frame message (a whole frame or one chunk) and copies its

@@ -110,6 +110,7 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 	if c.Logger == nil {
 		c.Logger = slog.New(slog.DiscardHandler)
 	}
+	rpc.ShareProcessWithSimulator()
 	var out []Result
 	for _, name := range c.Scenarios {
 		scn, err := scenario.Load(name)
