@@ -63,12 +63,16 @@ func NewCalibrator(c CalibrationConfig) (*Calibrator, error) {
 		return nil, fmt.Errorf("controller: calibration slopes %d: must be >= 1", c.Slopes)
 	case !(c.Amplitude > 0) || math.IsInf(c.Amplitude, 0):
 		return nil, fmt.Errorf("controller: calibration amplitude %g m: must be finite and > 0", c.Amplitude)
-	case c.FramesPerPattern < 1:
-		return nil, fmt.Errorf("controller: calibration frames per pattern %d: must be >= 1", c.FramesPerPattern)
-	case c.SettleFrames < 0:
-		return nil, fmt.Errorf("controller: calibration settle frames %d: must be >= 0", c.SettleFrames)
+	case c.Actuators > maxCalibrationSize:
+		return nil, fmt.Errorf("controller: calibration actuators %d: must be <= %d", c.Actuators, maxCalibrationSize)
+	case c.Slopes > maxCalibrationSize:
+		return nil, fmt.Errorf("controller: calibration slopes %d: must be <= %d", c.Slopes, maxCalibrationSize)
+	case c.FramesPerPattern < 1 || c.FramesPerPattern > maxCalibrationFrames:
+		return nil, fmt.Errorf("controller: calibration frames per pattern %d: must be in [1, %d]", c.FramesPerPattern, maxCalibrationFrames)
+	case c.SettleFrames < 0 || c.SettleFrames > maxCalibrationFrames:
+		return nil, fmt.Errorf("controller: calibration settle frames %d: must be in [0, %d]", c.SettleFrames, maxCalibrationFrames)
 	}
-	cal := &Calibrator{cfg: c, patterns: c.Actuators, sum: make([]float64, c.Slopes)}
+	cal := &Calibrator{cfg: c, patterns: c.Actuators}
 	if c.Hadamard {
 		n := 1
 		for n < c.Actuators {
@@ -76,10 +80,22 @@ func NewCalibrator(c CalibrationConfig) (*Calibrator, error) {
 		}
 		cal.order, cal.patterns = n, n
 	}
+	if c.Slopes*cal.patterns > maxCalibrationElements {
+		return nil, fmt.Errorf("controller: calibration of %d slopes × %d patterns: more than %d matrix elements", c.Slopes, cal.patterns, maxCalibrationElements)
+	}
+	cal.sum = make([]float64, c.Slopes)
 	cal.total = cal.patterns * 2 * (c.SettleFrames + c.FramesPerPattern)
 	cal.y = mat.NewDense(c.Slopes, cal.patterns, nil)
 	return cal, nil
 }
+
+// Bounds that keep a mistyped geometry from exhausting memory: a 40 m class
+// system has about 10⁴ actuators and 10⁵ slopes.
+const (
+	maxCalibrationSize     = 1 << 20
+	maxCalibrationFrames   = 1 << 20
+	maxCalibrationElements = 1 << 30 // 8 GB of float64
+)
 
 // hadamard returns entry (i, j) of the Sylvester Hadamard matrix: (−1)^popcount(i&j).
 func hadamard(i, j int) float64 {

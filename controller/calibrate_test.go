@@ -155,6 +155,9 @@ func TestNewCalibratorRejects(t *testing.T) {
 		{"amplitude Inf", func(c *CalibrationConfig) { c.Amplitude = math.Inf(1) }},
 		{"frames", func(c *CalibrationConfig) { c.FramesPerPattern = 0 }},
 		{"settle", func(c *CalibrationConfig) { c.SettleFrames = -1 }},
+		{"actuators huge", func(c *CalibrationConfig) { c.Actuators = 1 << 40 }},
+		{"slopes × patterns huge", func(c *CalibrationConfig) { c.Actuators, c.Slopes = 1<<20, 1<<20 }},
+		{"frames huge", func(c *CalibrationConfig) { c.FramesPerPattern = 1 << 50 }},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
