@@ -224,7 +224,10 @@ func TestClosedLoopOnBench(t *testing.T) {
 	t.Logf("r0 %.3f m at %.2g m; f_G %.1f Hz, f_3dB %.1f Hz", r0, lambda, fG, f3)
 	t.Logf("budget (rad²): fitting %.4f + aliasing %.4f + servo %.4f + noise %.4f = %.4f", fitting, aliasing, servo, noise, predicted)
 	t.Logf("closed loop %.4f rad² (Maréchal Strehl %.3f), loop's own estimate %.4f rad²", clVar, math.Exp(-clVar), estVar)
-	t.Logf("open loop %.2f rad², Noll Δ1 %.2f rad²: reduction measured %.0f×, predicted %.0f×", olVar, noll, olVar/clVar, noll/predicted)
+	// The open loop sits below Noll's value: a 25 m outer scale removes much of the
+	// tilt. The predicted reduction is therefore measured open loop / budget.
+	t.Logf("open loop %.2f rad² (Noll Δ1 %.2f rad²): reduction measured %.0f×, predicted %.0f× (%.0f× from Noll)",
+		olVar, noll, olVar/clVar, olVar/predicted, noll/predicted)
 	// Tolerance: a factor 2 on the residual variance covers the spread of a_F
 	// (0.23–0.35), the rough aliasing share and the single-pole servo model.
 	if !(clVar > predicted/2 && clVar < 2*predicted) {
