@@ -89,8 +89,8 @@ func (s Security) serverOptions(addr string) ([]grpc.ServerOption, error) {
 	a := authorizer{token: token, mtls: s.ClientCAFile != ""}
 	return []grpc.ServerOption{
 		grpc.Creds(credentials.NewTLS(cfg)),
-		grpc.UnaryInterceptor(a.unary),
-		grpc.StreamInterceptor(a.stream),
+		grpc.ChainUnaryInterceptor(a.unary),
+		grpc.ChainStreamInterceptor(a.stream),
 	}, nil
 }
 

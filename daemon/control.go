@@ -5,6 +5,8 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"math"
+	"path"
 	"time"
 
 	"google.golang.org/grpc"
@@ -128,6 +130,31 @@ func (s *controlServer) StreamTelemetry(req *stillskyv1.StreamTelemetryRequest, 
 		return status.Error(codes.InvalidArgument, "telemetry decimation 0: must be >= 1")
 	}
 	return s.d.telemetry.stream(stream.Context(), uint64(n), stream.Send)
+}
+
+// countRefused counts Control API calls that end in an error, by method and code:
+// every refused request is visible in the metrics.
+func (d *Daemon) countRefused(method string, err error) {
+	if err == nil {
+		return
+	}
+	code := status.Code(err)
+	if code == codes.Canceled {
+		return // the client went away; nothing was refused
+	}
+	d.m.refused.WithLabelValues(path.Base(method), code.String()).Inc()
+}
+
+func (d *Daemon) unaryCounter(ctx context.Context, req any, info *grpc.UnaryServerInfo, h grpc.UnaryHandler) (any, error) {
+	resp, err := h(ctx, req)
+	d.countRefused(info.FullMethod, err)
+	return resp, err
+}
+
+func (d *Daemon) streamCounter(srv any, ss grpc.ServerStream, info *grpc.StreamServerInfo, h grpc.StreamHandler) error {
+	err := h(srv, ss)
+	d.countRefused(info.FullMethod, err)
+	return err
 }
 
 // requestState asks the real-time goroutine for a state change, after checking
@@ -454,13 +481,16 @@ func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (control
 		MaxCondition: req.GetMaxCondition(),
 	}
 	if t := req.GetTikhonov(); t != 0 {
-		if !(t > 0) {
-			return cc, rc, fmt.Errorf("tikhonov weight %g: must be > 0", t)
+		if !(t > 0) || math.IsInf(t, 0) {
+			return cc, rc, fmt.Errorf("tikhonov weight %g: must be finite and > 0", t)
 		}
 		rc.Method, rc.Regularization = controller.MethodTikhonov, t
 	}
-	if rc.MaxCondition < 0 {
-		return cc, rc, fmt.Errorf("max condition %g: must be >= 0", rc.MaxCondition)
+	if c := rc.MaxCondition; c != 0 && !(c >= 1 && !math.IsInf(c, 0)) {
+		return cc, rc, fmt.Errorf("max condition %g: must be finite and >= 1 (or 0 for the default)", c)
+	}
+	if a := req.GetAmplitudeM(); a != 0 && (!(a > 0) || math.IsInf(a, 0)) {
+		return cc, rc, fmt.Errorf("poke amplitude %g m: must be finite and > 0 (or 0 for the default)", a)
 	}
 	return cc, rc, nil
 }

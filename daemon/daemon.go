@@ -162,10 +162,12 @@ func New(cfg Config) (*Daemon, error) {
 	d.m.leak.Set(d.leak)
 	d.m.wavelength.Set(cfg.ScienceWavelength)
 
-	opts, err := cfg.Security.serverOptions(cfg.ListenAddr)
+	secOpts, err := cfg.Security.serverOptions(cfg.ListenAddr)
 	if err != nil {
 		return nil, err
 	}
+	// The refusal counter wraps everything, authentication included.
+	opts := append([]grpc.ServerOption{grpc.ChainUnaryInterceptor(d.unaryCounter), grpc.ChainStreamInterceptor(d.streamCounter)}, secOpts...)
 	if d.ctlLis, err = rpc.Listen(cfg.ListenAddr); err != nil {
 		return nil, fmt.Errorf("daemon: control listener: %w", err)
 	}

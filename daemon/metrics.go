@@ -44,6 +44,7 @@ type metrics struct {
 	state                                     [len(stateNames)]prometheus.Gauge
 	tripDiv, tripSat, tripStale, tripMirror   prometheus.Counter
 	calibrationsOK, calibrationsFailed        prometheus.Counter
+	refused                                   *prometheus.CounterVec
 }
 
 func newMetrics() *metrics {
@@ -117,6 +118,14 @@ func newMetrics() *metrics {
 	m.reg.MustRegister(cals)
 	m.calibrationsOK = cals.WithLabelValues("ok")
 	m.calibrationsFailed = cals.WithLabelValues("failed")
+
+	m.refused = prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "stillsky_control_requests_refused_total",
+		Help: "Control API calls refused, by method and gRPC status code.",
+	}, []string{"method", "code"})
+	m.reg.MustRegister(m.refused)
+	// Pre-create the common case so the family is always exported.
+	m.refused.WithLabelValues("SetGain", "InvalidArgument")
 
 	if err := buildinfo.Register(m.reg); err != nil {
 		panic(err) // a fresh registry cannot hold a duplicate

@@ -143,6 +143,7 @@ type realtime struct {
 	cmd     []float32 // command being sent
 	flat    []float32
 	discard []float32 // the open-loop estimator's command, never sent
+	sent    []float32 // the last command sent
 	next    int       // next slope index expected in a chunked frame
 	lastNum uint64
 	state   loopState
@@ -171,6 +172,7 @@ func newRealtime(d *Daemon, g *geometry) *realtime {
 		cmd:     make([]float32, g.actuators),
 		flat:    make([]float32, g.actuators),
 		discard: make([]float32, g.actuators),
+		sent:    make([]float32, g.actuators),
 		state:   loopState(d.state.Load()),
 		guard:   guard{cfg: d.cfg.Interlocks},
 		staleNs: int64(2e9 / g.frameRate),
@@ -195,12 +197,14 @@ func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFrame
 			return fmt.Errorf("camera stream: %w", err)
 		}
 		received := monoclock.Now()
-		d.stats.lastArrival.Store(received)
 		f := rt.frame
 		complete, ok := rt.assemble(f)
 		if !ok || !complete {
 			continue
 		}
+		// Only a frame that passed validation is a sign of life for the
+		// stale-camera watchdog.
+		d.stats.lastArrival.Store(received)
 		num := f.GetFrameNumber()
 		m.frames.Inc()
 		d.stats.frames.Add(1)
@@ -229,6 +233,7 @@ func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFrame
 			return fmt.Errorf("mirror stream: %w", err)
 		}
 		sent := monoclock.Now()
+		copy(rt.sent, rt.cmd)
 		m.commands.Inc()
 		m.compute.Observe(float64(computed-received) * 1e-9)
 		m.rtc.Observe(float64(sent-received) * 1e-9)
@@ -281,19 +286,23 @@ func (rt *realtime) assemble(f *stillskyv1.StreamFramesResponse) (complete, ok b
 			loopState(rt.d.want.Load()) == stateClosed {
 			rt.pipe = loop
 		}
-	} else if rt.next <= 0 || num != rt.assembling {
-		// A chunk of a frame whose start was refused or never came.
+	} else if rt.next < 0 && num == rt.assembling {
+		// The rest of a frame already refused (and counted).
 		return false, false
+	} else if rt.next <= 0 || num != rt.assembling {
+		// A chunk of a frame whose start never came.
+		rt.next = -1
+		return false, rt.reject(rt.d.m.rejOrder)
 	}
 	s := f.GetSlopes()
 	off := int(f.GetOffset())
 	if off != rt.next || len(s) == 0 || len(s) > len(rt.slopes)-off {
-		rt.next = -1 // the rest of this frame is refused too
+		rt.refuseFrame(num)
 		return false, rt.reject(rt.d.m.rejLength)
 	}
 	for _, v := range s {
 		if v-v != 0 {
-			rt.next = -1
+			rt.refuseFrame(num)
 			return false, rt.reject(rt.d.m.rejNonFinite)
 		}
 	}
@@ -307,6 +316,13 @@ func (rt *realtime) assemble(f *stillskyv1.StreamFramesResponse) (complete, ok b
 	}
 	rt.next = 0
 	return true, true
+}
+
+// refuseFrame marks frame num as received but refused: the rest of its chunks are
+// ignored, and its number is not a gap (dropped) when the next frame comes.
+func (rt *realtime) refuseFrame(num uint64) {
+	rt.next = -1
+	rt.lastNum = num
 }
 
 // reject counts a refused frame; it returns false for the caller's ok.
@@ -364,6 +380,9 @@ func (rt *realtime) compute() controller.Result {
 			d.want.CompareAndSwap(int32(stateClosed), int32(stateTripped))
 			d.trip(reason)
 			rt.enter(stateTripped)
+			// The diverging command of this frame is never sent: the safe shape
+			// starts from the last command the mirror received.
+			copy(rt.cmd, rt.sent)
 			rt.safeShape()
 		}
 	case stateHold:

@@ -38,6 +38,7 @@ var KnownMetrics = []Metric{
 	{Name: "stillsky_loop_gain", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_loop_leak", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_interlock_trips_total", Type: "counter", Labels: []string{"reason"}, Exporter: "loop"},
+	{Name: "stillsky_control_requests_refused_total", Type: "counter", Labels: []string{"method", "code"}, Exporter: "loop"},
 	{Name: "stillsky_calibrations_total", Type: "counter", Labels: []string{"result"}, Exporter: "loop"},
 
 	{Name: "stillsky_build_info", Type: "gauge", Labels: []string{"version", "goversion"}, Exporter: "bench"},

@@ -87,7 +87,7 @@ type Server struct {
 	ready        chan uint64 // sequence numbers of filled slots
 	cameraBusy   atomic.Bool
 	mirrorBusy   atomic.Bool
-	frameCounter uint64
+	written      uint64 // slots filled so far; the next goes to written%ringSize
 
 	psf          []float64 // the newest sampled science PSF; guarded by mu
 	sci          *optics.Imager
@@ -256,11 +256,12 @@ func (b *Server) awaitCommand(ctx context.Context, k uint64) error {
 
 // produce simulates frame k and hands it to the camera stream.
 func (b *Server) produce(k uint64) {
-	b.frameCounter = k
-	// Only the producer writes slots; len(b.ready) only shrinks concurrently, so a
-	// free place in the channel means the slot k%ringSize is not being read.
+	// Slots are filled in sequence, whatever frames were lost. Only the producer
+	// writes them, and len(b.ready) only shrinks concurrently: a free place in the
+	// channel means the consumer holds at most the slot ringSize−1 writes back,
+	// never the next one.
 	full := len(b.ready) == cap(b.ready)
-	slot := &b.slots[k%ringSize]
+	slot := &b.slots[b.written%ringSize]
 	var scratch []float32
 	if full {
 		scratch = b.scratch
@@ -304,7 +305,8 @@ func (b *Server) produce(k uint64) {
 		return
 	}
 	slot.number, slot.readoutEnd = k, now
-	b.ready <- k
+	b.ready <- b.written
+	b.written++
 }
 
 // expose adds a science PSF to the window's exposure and the gauge's.
