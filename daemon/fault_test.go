@@ -73,6 +73,9 @@ func (h *hostile) StreamFrames(_ *stillskyv1.StreamFramesRequest, s grpc.ServerS
 		case <-s.Context().Done():
 			return nil
 		case f := <-h.frames:
+			// Read out now: a scripted frame may wait in the test for a while, and
+			// the daemon skips frames that reach it late.
+			f.ReadoutEndNs = monoclock.Now()
 			if err := s.Send(f); err != nil {
 				return err
 			}
@@ -131,10 +134,12 @@ type hostileRig struct {
 
 // startHostile starts the hostile devices and a daemon on them with cfg (the
 // Control API on loopback unless cfg.ListenAddr is set); dial options, if any,
-// are those of the rig's own Control API client.
+// are those of the rig's own Control API client. The camera describes 100 Hz, so
+// that the daemon's time limits (a late frame is two periods old, a stale camera
+// twenty) sit far above the pauses of a test on a loaded machine.
 func startHostile(t *testing.T, cfg daemon.Config, dial ...grpc.DialOption) *hostileRig {
 	t.Helper()
-	return startHostileRate(t, cfg, 1000, dial...)
+	return startHostileRate(t, cfg, 100, dial...)
 }
 
 // startHostileRate is startHostile with a camera that describes its frame rate as
