@@ -269,8 +269,10 @@ func (rt *realtime) assemble(f *stillskyv1.StreamFramesResponse) (complete, ok b
 	first := f.GetChunkIndex() == 0
 	if first {
 		if rt.next > 0 {
-			// The previous frame never got its last chunk.
+			// The previous frame never got its last chunk: refused, and its number
+			// consumed so it is not also counted as a gap.
 			rt.reject(rt.d.m.rejLength)
+			rt.lastNum = rt.assembling
 		}
 		if rt.lastNum != 0 {
 			switch {
@@ -290,8 +292,14 @@ func (rt *realtime) assemble(f *stillskyv1.StreamFramesResponse) (complete, ok b
 		// The rest of a frame already refused (and counted).
 		return false, false
 	} else if rt.next <= 0 || num != rt.assembling {
-		// A chunk of a frame whose start never came.
+		// A chunk of a frame whose start never came. A frame in progress is
+		// abandoned with it; both numbers are consumed, so neither is also a gap.
+		if rt.next > 0 {
+			rt.reject(rt.d.m.rejLength)
+		}
 		rt.next = -1
+		rt.lastNum = max(rt.lastNum, rt.assembling, num)
+		rt.assembling = num
 		return false, rt.reject(rt.d.m.rejOrder)
 	}
 	s := f.GetSlopes()
