@@ -239,7 +239,7 @@ func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFrame
 		m.rtc.Observe(float64(sent-received) * 1e-9)
 		d.stats.rtc.add(sent - received)
 		if rec := d.cfg.Recorder; rec != nil {
-			rec.frame(received, computed-received, sent-received)
+			rec.frame(received, received-f.GetReadoutEndNs(), computed-received, sent-received)
 		}
 		rt.publish(res)
 		d.telemetry.record(num, rt.state, rt.slopes, rt.cmd, res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated, float64(sent-received)*1e-9)

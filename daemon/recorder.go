@@ -9,7 +9,7 @@ type Recorder struct {
 	on                    atomic.Bool
 	n, ne                 atomic.Int64
 	arrival, compute, rtc []atomic.Int64
-	e2e                   []atomic.Int64
+	transit, e2e          []atomic.Int64
 }
 
 // NewRecorder returns a recorder for up to capacity frames.
@@ -18,6 +18,7 @@ func NewRecorder(capacity int) *Recorder {
 		arrival: make([]atomic.Int64, capacity),
 		compute: make([]atomic.Int64, capacity),
 		rtc:     make([]atomic.Int64, capacity),
+		transit: make([]atomic.Int64, capacity),
 		e2e:     make([]atomic.Int64, capacity),
 	}
 }
@@ -28,12 +29,13 @@ func (r *Recorder) Start() { r.on.Store(true) }
 // Stop ends recording.
 func (r *Recorder) Stop() { r.on.Store(false) }
 
-func (r *Recorder) frame(arrival, compute, rtc int64) {
+func (r *Recorder) frame(arrival, transit, compute, rtc int64) {
 	if !r.on.Load() {
 		return
 	}
 	if i := r.n.Add(1) - 1; i < int64(len(r.rtc)) {
 		r.arrival[i].Store(arrival)
+		r.transit[i].Store(transit)
 		r.compute[i].Store(compute)
 		r.rtc[i].Store(rtc)
 	}
@@ -49,10 +51,10 @@ func (r *Recorder) endToEnd(ns int64) {
 }
 
 // Samples are the recorded timings in nanoseconds: frame arrival times
-// (CLOCK_MONOTONIC), compute and rtc latency per frame, and end-to-end latency per
-// acknowledged command.
+// (CLOCK_MONOTONIC), the camera-to-loop transit (readout end to arrival), compute
+// and rtc latency per frame, and end-to-end latency per acknowledged command.
 type Samples struct {
-	Arrival, Compute, RTC, EndToEnd []int64
+	Arrival, Transit, Compute, RTC, EndToEnd []int64
 }
 
 // Samples copies what has been recorded.
@@ -66,5 +68,5 @@ func (r *Recorder) Samples() Samples {
 		return out
 	}
 	n, ne := r.n.Load(), r.ne.Load()
-	return Samples{Arrival: load(r.arrival, n), Compute: load(r.compute, n), RTC: load(r.rtc, n), EndToEnd: load(r.e2e, ne)}
+	return Samples{Arrival: load(r.arrival, n), Transit: load(r.transit, n), Compute: load(r.compute, n), RTC: load(r.rtc, n), EndToEnd: load(r.e2e, ne)}
 }
