@@ -119,8 +119,9 @@ func (a authorizer) check(ctx context.Context, method string) error {
 		if len(vals) == 0 {
 			return status.Error(codes.Unauthenticated, "this call changes the loop: present a client certificate or a bearer token")
 		}
-		got, ok := strings.CutPrefix(vals[0], "Bearer ")
-		if !ok || subtle.ConstantTimeCompare([]byte(got), a.token) != 1 {
+		// The scheme name is case-insensitive (RFC 7235, section 2.1).
+		scheme, got, ok := strings.Cut(vals[0], " ")
+		if !ok || !strings.EqualFold(scheme, "Bearer") || subtle.ConstantTimeCompare([]byte(got), a.token) != 1 {
 			return status.Error(codes.PermissionDenied, "bearer token not accepted")
 		}
 		return nil

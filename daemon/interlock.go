@@ -152,6 +152,9 @@ func (d *Daemon) watchdog(done <-chan struct{}, period, stale time.Duration) {
 		}
 		if quiet := time.Duration(monoclock.Now() - last); quiet > stale {
 			if d.want.CompareAndSwap(int32(stateClosed), int32(stateHold)) {
+				// The real-time goroutine, blocked waiting for a frame, takes the
+				// state at its next frame; the status shows it now.
+				d.setState(stateHold)
 				d.trip(tripStaleCamera)
 			}
 		}

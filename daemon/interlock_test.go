@@ -214,12 +214,6 @@ func TestTripBleedStartsFromLastSent(t *testing.T) {
 	}
 }
 
-// silentStateBug marks a known bug: while the camera is silent the watchdog has
-// asked for hold, but the status and stillsky_loop_state keep saying closed until
-// the next frame, because only the real-time goroutine (blocked waiting for that
-// frame) records the state. Set it to false once daemon/interlock.go records it.
-const silentStateBug = true
-
 // TestStaleCameraHolds closes the loop on the hostile camera and then stops
 // sending frames: after StalePeriods frame periods the loop holds (the mirror
 // keeps its command) and the trip is counted as stale_camera. When frames come
@@ -250,9 +244,7 @@ func TestStaleCameraHolds(t *testing.T) {
 	if s.GetLastInterlock() != "stale_camera" || s.GetInterlockTrips() != 1 {
 		t.Errorf("status: %d trips, last %q; want 1 stale_camera", s.GetInterlockTrips(), s.GetLastInterlock())
 	}
-	if silentStateBug {
-		t.Logf("state %v while the camera is silent (known bug: want hold)", s.GetState())
-	} else if s.GetState() != stillskyv1.LoopState_LOOP_STATE_HOLD {
+	if s.GetState() != stillskyv1.LoopState_LOOP_STATE_HOLD {
 		t.Errorf("state %v while the camera is silent, want hold", s.GetState())
 	}
 	// Frames return: the loop holds the command it had, and stays held.

@@ -35,6 +35,13 @@ func (d *Daemon) restoreOnce(g *geometry) {
 		return
 	}
 	d.restored = true
+	// A daemon killed while writing leaves its temporary file behind; the
+	// committed files were never touched, so the leftovers can go.
+	if stale, err := filepath.Glob(filepath.Join(d.cfg.StateDir, ".*.tmp*")); err == nil {
+		for _, f := range stale {
+			os.Remove(f)
+		}
+	}
 	if b, err := os.ReadFile(filepath.Join(d.cfg.StateDir, settingsFile)); err == nil {
 		var s settings
 		if err := json.Unmarshal(b, &s); err != nil {

@@ -293,10 +293,8 @@ func (rt *realtime) assemble(f *stillskyv1.StreamFramesResponse) (complete, ok b
 		return false, false
 	} else if rt.next <= 0 || num != rt.assembling {
 		// A chunk of a frame whose start never came. A frame in progress is
-		// abandoned with it; both numbers are consumed, so neither is also a gap.
-		if rt.next > 0 {
-			rt.reject(rt.d.m.rejLength)
-		}
+		// abandoned with it, one refusal for the pair; both numbers are
+		// consumed, so neither is also a gap.
 		rt.next = -1
 		rt.lastNum = max(rt.lastNum, rt.assembling, num)
 		rt.assembling = num
@@ -320,6 +318,11 @@ func (rt *realtime) assemble(f *stillskyv1.StreamFramesResponse) (complete, ok b
 		rt.pipe.StepChunk(rt.slopes, off, rt.next)
 	}
 	if rt.next < len(rt.slopes) {
+		if f.GetChunkIndex()+1 >= f.GetChunkCount() {
+			// The frame's last (or only) message, and still short.
+			rt.refuseFrame(num)
+			return false, rt.reject(rt.d.m.rejLength)
+		}
 		return false, true
 	}
 	rt.next = 0
