@@ -82,12 +82,12 @@ type Server struct {
 	// answering frame j shapes frame j+DelayFrames, exactly. Guarded by mu.
 	pending [pendingRing]pendingCommand
 
-	slots        [ringSize]frameSlot
-	scratch      []float32   // slopes of a frame nobody will read
-	ready        chan uint64 // sequence numbers of filled slots
-	cameraBusy   atomic.Bool
-	mirrorBusy   atomic.Bool
-	written      uint64 // slots filled so far; the next goes to written%ringSize
+	slots      [ringSize]frameSlot
+	scratch    []float32   // slopes of a frame nobody will read
+	ready      chan uint64 // sequence numbers of filled slots
+	cameraBusy atomic.Bool
+	mirrorBusy atomic.Bool
+	written    uint64 // slots filled so far; the next goes to written%ringSize
 
 	psf          []float64 // the newest sampled science PSF; guarded by mu
 	sci          *optics.Imager
@@ -196,32 +196,28 @@ func (b *Server) Run(ctx context.Context) error {
 	sctx, stop := context.WithCancel(ctx)
 	defer stop()
 	go b.science(sctx)
-	period := time.Duration(b.sys.FramePeriod() * float64(time.Second))
-	next := time.Now()
+	period := int64(b.sys.FramePeriod() * 1e9)
+	// Free-running, frame k is read out at tick k of the camera's clock: the bench
+	// simulates it as soon as frame k−1 is out, then holds it until its tick, so
+	// frames leave on the clock however long each took to simulate.
+	tick := monoclock.Now()
 	for k := uint64(1); ; k++ {
+		if ctx.Err() != nil {
+			return nil
+		}
 		if b.opt.Lockstep {
 			if err := b.awaitCommand(ctx, k); err != nil {
 				return err
 			}
-		} else {
-			next = next.Add(period)
-			if d := time.Until(next); d > 0 {
-				t := time.NewTimer(d)
-				select {
-				case <-ctx.Done():
-					t.Stop()
-					return nil
-				case <-t.C:
-				}
-			} else if d < -10*period {
-				// Fell far behind (machine overloaded): resynchronise instead of bursting.
-				next = time.Now()
-			}
-			if ctx.Err() != nil {
-				return nil
-			}
+			b.produce(k, 0)
+			continue
 		}
-		b.produce(k)
+		tick += period
+		if late := monoclock.Now() - tick; late > 10*period {
+			// Far behind (an overloaded machine): resynchronise instead of bursting.
+			tick = monoclock.Now()
+		}
+		b.produce(k, tick)
 	}
 }
 
@@ -254,8 +250,9 @@ func (b *Server) awaitCommand(ctx context.Context, k uint64) error {
 	return nil
 }
 
-// produce simulates frame k and hands it to the camera stream.
-func (b *Server) produce(k uint64) {
+// produce simulates frame k and hands it to the camera stream, at readout time
+// tick (CLOCK_MONOTONIC ns) when tick is not 0, else at once.
+func (b *Server) produce(k uint64, tick int64) {
 	// Slots are filled in sequence, whatever frames were lost. Only the producer
 	// writes them, and len(b.ready) only shrinks concurrently: a free place in the
 	// channel means the consumer holds at most the slot ringSize−1 writes back,
@@ -276,7 +273,6 @@ func (b *Server) produce(k uint64) {
 		}
 	}
 	b.sys.Frame(scratch)
-	now := monoclock.Now()
 	rms := b.sys.ResidualRMS()
 	sample := k%uint64(b.opt.StrehlEvery) == 0
 	async := sample && !b.opt.Lockstep && b.sciBusy.CompareAndSwap(false, true)
@@ -297,6 +293,10 @@ func (b *Server) produce(k uint64) {
 	}
 	b.metrics.frames.Inc()
 	b.metrics.residual.Set(rms)
+	if tick != 0 {
+		waitUntil(tick)
+	}
+	now := monoclock.Now()
 	if !b.cameraBusy.Load() {
 		return
 	}
