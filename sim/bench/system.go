@@ -40,9 +40,9 @@ type System struct {
 	atmOPD   []float64
 	surface  []float64
 	residual []float64
-	// Science exposure: sum of PSFs added by Expose, and their count.
-	psf, exposure []float64
-	exposed       int
+	// Science exposure: the PSFs added by Expose.
+	psf []float64
+	exp exposure
 }
 
 // NewSystem builds the bench for scenario s. Errors name the part that refused
@@ -171,15 +171,12 @@ func (s *System) PSF(out []float64) { s.imager.PSF(s.residual, out) }
 // Expose adds the PSF of the last frame's residual to the science exposure,
 // as a camera integrating over the frames it is called on (one padded FFT).
 func (s *System) Expose() {
-	if s.exposure == nil {
+	if s.exp.sum == nil {
 		s.psf = make([]float64, s.imager.Size()*s.imager.Size())
-		s.exposure = make([]float64, len(s.psf))
+		s.exp.sum = make([]float64, len(s.psf))
 	}
 	s.imager.PSF(s.residual, s.psf)
-	for i, v := range s.psf {
-		s.exposure[i] += v
-	}
-	s.exposed++
+	s.exp.add(s.psf)
 }
 
 // ExposureStrehl returns the Strehl ratio of the science exposure: the peak of
@@ -187,19 +184,10 @@ func (s *System) Expose() {
 // diffraction-limited peak. It is the long-exposure Strehl, which averages the
 // speckle that makes single-frame peaks of an uncorrected wavefront high. It
 // returns 0 before the first Expose.
-func (s *System) ExposureStrehl() float64 {
-	if s.exposed == 0 {
-		return 0
-	}
-	best := 0.0
-	for _, v := range s.exposure {
-		best = max(best, v)
-	}
-	return best / float64(s.exposed)
-}
+func (s *System) ExposureStrehl() float64 { return s.exp.strehl() }
 
 // ExposureFrames returns the number of frames in the science exposure.
-func (s *System) ExposureFrames() int { return s.exposed }
+func (s *System) ExposureFrames() int { return s.exp.n }
 
 // Exposure writes the mean PSF of the science exposure into out (PSFSize()²
 // values, diffraction-limited peak 1); all zero before the first Expose.
@@ -208,16 +196,13 @@ func (s *System) Exposure(out []float64) {
 		panic(fmt.Sprintf("bench: Exposure: %d values, want %d", len(out), s.imager.Size()*s.imager.Size()))
 	}
 	clear(out)
-	for i, v := range s.exposure {
-		out[i] = v / float64(s.exposed)
+	for i, v := range s.exp.sum {
+		out[i] = v / float64(s.exp.n)
 	}
 }
 
 // ResetExposure starts a new science exposure.
-func (s *System) ResetExposure() {
-	clear(s.exposure)
-	s.exposed = 0
-}
+func (s *System) ResetExposure() { s.exp.reset() }
 
 // PSFSize returns the side of the science PSF in pixels.
 func (s *System) PSFSize() int { return s.imager.Size() }
