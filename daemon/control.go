@@ -324,6 +324,7 @@ func (d *Daemon) installReconstructor(r *controller.Reconstructor, persist bool)
 		Leak:             d.leak,
 		Stroke:           g.stroke,
 		StrehlWavelength: d.cfg.ScienceWavelength,
+		Kernel:           d.cfg.Kernel,
 	})
 	if err != nil {
 		return status.Error(codes.InvalidArgument, err.Error())

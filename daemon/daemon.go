@@ -16,6 +16,7 @@ import (
 	"google.golang.org/grpc"
 
 	"stillsky/controller"
+	"stillsky/controller/mvm"
 	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
@@ -45,6 +46,10 @@ type Config struct {
 	// Chunks asks the camera for frames in this many chunks (pipelined
 	// reconstruction); 0 or 1 for whole frames.
 	Chunks int
+	// Kernel chooses the matrix–vector kernel, its threads and the storage
+	// precision of the control matrix; the zero value picks the fastest float32
+	// kernel and the thread count by size.
+	Kernel mvm.Options
 	// Realtime asks for CPU affinity, SCHED_FIFO and locked memory; the zero value
 	// asks for none.
 	Realtime Realtime

@@ -4,6 +4,7 @@ import (
 	"os"
 	"strings"
 
+	"stillsky/controller/mvm"
 	"stillsky/internal/latbench"
 )
 
@@ -29,6 +30,7 @@ func runBench(args []string) error {
 	duration := fs.Duration("duration", 0, "closed-loop measurement per scenario and transport (default 10s)")
 	chunks := fs.Int("chunks", 0, "send each frame in this many chunks (pipelined reconstruction)")
 	jsonOut := fs.String("json", "", "write the results as a JSON array to this file")
+	bf16 := fs.Bool("bf16", false, "store the control matrix as bfloat16")
 	logLevel := fs.String("log-level", "warn", "log level of bench and loop")
 	if err := parseFlags(fs, args); err != nil {
 		return err
@@ -41,7 +43,7 @@ func runBench(args []string) error {
 	defer stop()
 	rs, err := latbench.Run(ctx, latbench.Config{
 		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
-		Chunks: *chunks, Out: os.Stdout, Logger: log,
+		Chunks: *chunks, Out: os.Stdout, Logger: log, Kernel: kernelOptions(*bf16),
 	})
 	if err != nil {
 		return err
@@ -50,4 +52,12 @@ func runBench(args []string) error {
 		return latbench.WriteJSON(*jsonOut, rs)
 	}
 	return nil
+}
+
+// kernelOptions is the matrix–vector kernel a --bf16 flag asks for.
+func kernelOptions(bf16 bool) mvm.Options {
+	if bf16 {
+		return mvm.Options{Precision: mvm.BFloat16}
+	}
+	return mvm.Options{}
 }

@@ -31,6 +31,8 @@ func runLoop(args []string) error {
 	cpu := fs.Int("rt-cpu", -1, "pin the real-time thread to this CPU (-1: no pinning)")
 	fifo := fs.Int("rt-fifo", 0, "run the real-time thread under SCHED_FIFO at this priority, 1-99 (0: normal scheduling)")
 	mlock := fs.Bool("mlock", false, "lock the process's memory (mlockall)")
+	bf16 := fs.Bool("bf16", false, "store the control matrix as bfloat16 (half the memory traffic, ~0.1% command error)")
+	workers := fs.Int("mvm-workers", 0, "threads of the matrix-vector multiply (0: chosen by size)")
 	var sec daemon.Security
 	fs.StringVar(&sec.CertFile, "tls-cert", "", "TLS certificate of the Control API (PEM); required off loopback")
 	fs.StringVar(&sec.KeyFile, "tls-key", "", "TLS key of the Control API (PEM)")
@@ -52,7 +54,9 @@ func runLoop(args []string) error {
 		StateDir: *stateDir, Gain: gain, Leak: leak, ScienceWavelength: *wavelength,
 		Chunks: *chunks, Security: sec, Logger: log, BenchURL: *benchURL,
 		Realtime: daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo, LockMemory: *mlock},
+		Kernel:   kernelOptions(*bf16),
 	}
+	cfg.Kernel.Workers = *workers
 	d, err := daemon.New(cfg)
 	if err != nil {
 		return err

@@ -22,6 +22,7 @@ import (
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
 
+	"stillsky/controller/mvm"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
 	"stillsky/internal/ctl"
@@ -42,6 +43,8 @@ type Config struct {
 	Duration time.Duration
 	// Chunks sends each frame in this many chunks (pipelined reconstruction).
 	Chunks int
+	// Kernel is handed to the loop's matrix–vector multiply.
+	Kernel mvm.Options
 	// Transports to run, "tcp" and/or "unix"; default both.
 	Transports []string
 	// Out receives progress lines and the table.
@@ -173,7 +176,7 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 		CameraAddr: addrString(bl.Camera.Addr().Network(), bl.Camera.Addr().String()),
 		MirrorAddr: addrString(bl.Mirror.Addr().Network(), bl.Mirror.Addr().String()),
 		ListenAddr: ctlAddr, MetricsAddr: "-", Chunks: c.Chunks,
-		ScienceWavelength: scn.Science.Wavelength, Recorder: rec,
+		ScienceWavelength: scn.Science.Wavelength, Recorder: rec, Kernel: c.Kernel,
 		Logger: c.Logger.With("process", "loop"),
 		// The benchmark measures the timing of the closed loop, so the loop must
 		// stay closed through whatever the shared machine does to it: a low gain
