@@ -121,7 +121,7 @@ func (d *Daemon) session(ctx context.Context) error {
 	go d.watchdog(watchDone, period, stale)
 	ackErr := make(chan error, 1)
 	go func() { ackErr <- rt.acks(cmds) }()
-	err = rt.run(frames, cmds)
+	err = rt.run(ctx, frames, cmds)
 	cancel()
 	<-ackErr
 	// Losing a device opens the loop: a mirror left integrating blind is unsafe.
@@ -184,7 +184,7 @@ func newRealtime(d *Daemon, g *geometry) *realtime {
 
 // run is the real-time goroutine: receive a frame, compute, send, on one locked OS
 // thread. Nothing else runs here.
-func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFramesResponse], cmds grpc.BidiStreamingClient[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
+func (rt *realtime) run(ctx context.Context, frames grpc.ServerStreamingClient[stillskyv1.StreamFramesResponse], cmds grpc.BidiStreamingClient[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
 	runtime.LockOSThread()
 	d, m := rt.d, rt.d.m
 	if !d.threadSettings() {
@@ -227,7 +227,7 @@ func (rt *realtime) run(frames grpc.ServerStreamingClient[stillskyv1.StreamFrame
 		computed := monoclock.Now()
 		rt.out.FrameNumber = num
 		if err := cmds.SendMsg(rt.out); err != nil {
-			if s := rt.state; s == stateClosed || s == stateHold {
+			if s := rt.state; (s == stateClosed || s == stateHold) && ctx.Err() == nil {
 				d.trip(tripMirrorUnreachable)
 			}
 			return fmt.Errorf("mirror stream: %w", err)
