@@ -5,6 +5,7 @@ import (
 	"strings"
 
 	"stillsky/controller/mvm"
+	"stillsky/daemon"
 	"stillsky/internal/latbench"
 )
 
@@ -31,6 +32,9 @@ func runBench(args []string) error {
 	chunks := fs.Int("chunks", 0, "send each frame in this many chunks (pipelined reconstruction)")
 	jsonOut := fs.String("json", "", "write the results as a JSON array to this file")
 	bf16 := fs.Bool("bf16", false, "store the control matrix as bfloat16")
+	cpu := fs.Int("rt-cpu", -1, "pin the loop's real-time thread to this CPU (-1: no pinning)")
+	fifo := fs.Int("rt-fifo", 0, "run the loop's real-time thread under SCHED_FIFO at this priority (0: normal)")
+	inProcess := fs.Bool("in-process", false, "run the simulated bench inside the loop's process instead of as its own")
 	logLevel := fs.String("log-level", "warn", "log level of bench and loop")
 	if err := parseFlags(fs, args); err != nil {
 		return err
@@ -39,10 +43,18 @@ func runBench(args []string) error {
 	if err != nil {
 		return err
 	}
+	var sim string
+	if !*inProcess {
+		if sim, err = os.Executable(); err != nil {
+			return err
+		}
+	}
 	ctx, stop := signalContext()
 	defer stop()
 	rs, err := latbench.Run(ctx, latbench.Config{
-		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
+		SimulatorExecutable: sim,
+		Realtime:            daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo},
+		Scenarios:           scenarios, Transports: transports, Rate: *rate, Duration: *duration,
 		Chunks: *chunks, Out: os.Stdout, Logger: log, Kernel: kernelOptions(*bf16),
 	})
 	if err != nil {

@@ -13,7 +13,9 @@ import (
 	"io"
 	"log/slog"
 	"math"
+	"net"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"slices"
 	"time"
@@ -43,6 +45,11 @@ type Config struct {
 	Duration time.Duration
 	// Chunks sends each frame in this many chunks (pipelined reconstruction).
 	Chunks int
+	// SimulatorExecutable, if set, runs the bench as its own process from this
+	// stillsky binary; empty runs it inside this process.
+	SimulatorExecutable string
+	// Realtime is handed to the loop (affinity, SCHED_FIFO, mlockall).
+	Realtime daemon.Realtime
 	// Kernel is handed to the loop's matrix–vector multiply.
 	Kernel mvm.Options
 	// Transports to run, "tcp" and/or "unix"; default both.
@@ -158,25 +165,24 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	b, err := bench.NewServer(scn, bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50})
-	if err != nil {
-		return nil, err
-	}
-	bl, err := bench.Listen(bench.Addrs{Camera: camAddr, Mirror: mirAddr})
-	if err != nil {
-		return nil, err
-	}
 	benchDone := make(chan error, 1)
-	go func() { benchDone <- b.Serve(ctx, bl) }()
+	var cameraAddr, mirrorAddr string
+	if c.SimulatorExecutable != "" {
+		cameraAddr, mirrorAddr, err = startSimulator(ctx, c, scn, transport, dir, benchDone)
+	} else {
+		cameraAddr, mirrorAddr, err = startInProcess(ctx, c, scn, camAddr, mirAddr, benchDone)
+	}
+	if err != nil {
+		return nil, err
+	}
 
 	period := 1 / scn.Loop.FrameRate
 	capacity := int(c.Duration.Seconds()*scn.Loop.FrameRate*1.5) + 1000
 	rec := daemon.NewRecorder(capacity)
 	d, err := daemon.New(daemon.Config{
-		CameraAddr: addrString(bl.Camera.Addr().Network(), bl.Camera.Addr().String()),
-		MirrorAddr: addrString(bl.Mirror.Addr().Network(), bl.Mirror.Addr().String()),
+		CameraAddr: cameraAddr, MirrorAddr: mirrorAddr,
 		ListenAddr: ctlAddr, MetricsAddr: "-", Chunks: c.Chunks,
-		ScienceWavelength: scn.Science.Wavelength, Recorder: rec, Kernel: c.Kernel,
+		ScienceWavelength: scn.Science.Wavelength, Recorder: rec, Kernel: c.Kernel, Realtime: c.Realtime,
 		Logger: c.Logger.With("process", "loop"),
 		// The benchmark measures the timing of the closed loop, so the loop must
 		// stay closed through whatever the shared machine does to it: a low gain
@@ -263,6 +269,68 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 		r.MaxRateHz = math.Round(1e6 / r.RTCUs.P99)
 	}
 	return r, nil
+}
+
+// startInProcess serves the bench from this process, the loop's own.
+func startInProcess(ctx context.Context, c Config, scn *scenario.Scenario, camAddr, mirAddr string, done chan<- error) (string, string, error) {
+	b, err := bench.NewServer(scn, bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50})
+	if err != nil {
+		return "", "", err
+	}
+	bl, err := bench.Listen(bench.Addrs{Camera: camAddr, Mirror: mirAddr})
+	if err != nil {
+		return "", "", err
+	}
+	go func() { done <- b.Serve(ctx, bl) }()
+	return addrString(bl.Camera.Addr().Network(), bl.Camera.Addr().String()),
+		addrString(bl.Mirror.Addr().Network(), bl.Mirror.Addr().String()), nil
+}
+
+// startSimulator runs the bench as its own process (`stillsky sim`), as the
+// camera and mirror are separate devices on a real system: the loop's runtime
+// then schedules only the loop.
+func startSimulator(ctx context.Context, c Config, scn *scenario.Scenario, transport, dir string, done chan<- error) (string, string, error) {
+	y, err := scn.YAML()
+	if err != nil {
+		return "", "", err
+	}
+	path := filepath.Join(dir, "scenario.yaml")
+	if err := os.WriteFile(path, y, 0o644); err != nil {
+		return "", "", err
+	}
+	cam, mir := "unix:"+filepath.Join(dir, "camera.sock"), "unix:"+filepath.Join(dir, "mirror.sock")
+	if transport == "tcp" {
+		if cam, err = freePort(); err == nil {
+			mir, err = freePort()
+		}
+		if err != nil {
+			return "", "", err
+		}
+	}
+	cmd := exec.CommandContext(ctx, c.SimulatorExecutable, "sim", "--scenario", path, "--camera", cam, "--mirror", mir,
+		"--metrics", "", "--log-level", "warn")
+	cmd.Stderr = os.Stderr
+	if err := cmd.Start(); err != nil {
+		return "", "", fmt.Errorf("starting the simulator: %w", err)
+	}
+	go func() {
+		err := cmd.Wait()
+		if ctx.Err() != nil {
+			err = nil // stopped by us
+		}
+		done <- err
+	}()
+	return cam, mir, nil
+}
+
+// freePort returns a loopback address no one listens on at the moment.
+func freePort() (string, error) {
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		return "", err
+	}
+	defer l.Close()
+	return l.Addr().String(), nil
 }
 
 // addrString turns a listener address back into one rpc.Dial accepts.
