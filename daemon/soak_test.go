@@ -19,11 +19,14 @@ import (
 // 2-core machine: the goroutine count must come back to within 5 of its
 // warmed-up value, the heap in use may not grow by more than 20 % over the
 // warmed-up sample, and the loop may miss (frames dropped by the camera because
-// the loop fell behind) at most 5 % of the frames.
+// the loop fell behind) at most 5 % of the frames in a soak of its own
+// (STILLSKY_SOAK), or 15 % in the default 5 s run, which shares the machine with
+// the rest of `go test ./...` running in parallel.
 const (
 	soakGoroutineSlack = 5
 	soakHeapGrowth     = 0.20
 	soakMissedFraction = 0.05
+	soakMissedShared   = 0.15
 )
 
 // TestSoak runs the small scenario at 1 kHz (its sky is cheap enough to simulate
@@ -38,7 +41,9 @@ func TestSoak(t *testing.T) {
 		t.Skip("calibrates and soaks for 5 s or more")
 	}
 	length := 5 * time.Second
+	missedLimit := soakMissedShared
 	if v := os.Getenv("STILLSKY_SOAK"); v != "" {
+		missedLimit = soakMissedFraction
 		d, err := time.ParseDuration(v)
 		if err != nil || d < time.Second {
 			t.Fatalf("STILLSKY_SOAK=%q: want a Go duration of at least 1s", v)
@@ -125,8 +130,8 @@ func TestSoak(t *testing.T) {
 	if growth := float64(h1)/float64(h0) - 1; growth > soakHeapGrowth {
 		t.Errorf("heap in use grew %.0f %% (%d → %d bytes), limit %.0f %%", 100*growth, h0, h1, 100*soakHeapGrowth)
 	}
-	if missed > soakMissedFraction {
-		t.Errorf("missed %.2f %% of frames, limit %.0f %%", 100*missed, 100*soakMissedFraction)
+	if missed > missedLimit {
+		t.Errorf("missed %.2f %% of frames, limit %.0f %%", 100*missed, 100*missedLimit)
 	}
 	if frames < uint64(0.5*length.Seconds()*s1.GetFrameRateHz()) {
 		t.Errorf("%d frames in %v at %g Hz: the bench or loop stalled", frames, length, s1.GetFrameRateHz())
