@@ -2,6 +2,7 @@ package daemon
 
 import (
 	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/promauto"
 
 	"stillsky/internal/buildinfo"
 )
@@ -49,15 +50,12 @@ type metrics struct {
 
 func newMetrics() *metrics {
 	m := &metrics{reg: prometheus.NewRegistry()}
+	f := promauto.With(m.reg)
 	counter := func(name, help string) prometheus.Counter {
-		c := prometheus.NewCounter(prometheus.CounterOpts{Name: name, Help: help})
-		m.reg.MustRegister(c)
-		return c
+		return f.NewCounter(prometheus.CounterOpts{Name: name, Help: help})
 	}
 	gauge := func(name, help string) prometheus.Gauge {
-		g := prometheus.NewGauge(prometheus.GaugeOpts{Name: name, Help: help})
-		m.reg.MustRegister(g)
-		return g
+		return f.NewGauge(prometheus.GaugeOpts{Name: name, Help: help})
 	}
 	histogram := func(name, help string) prometheus.Observer {
 		h := prometheus.NewHistogram(prometheus.HistogramOpts{Name: name, Help: help, Buckets: latencyBuckets})

@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/promauto"
 	"golang.org/x/sys/unix"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
@@ -654,15 +655,12 @@ type benchMetrics struct {
 
 func newBenchMetrics(wavelength, period float64) *benchMetrics {
 	m := &benchMetrics{reg: prometheus.NewRegistry()}
+	f := promauto.With(m.reg)
 	counter := func(name, help string) prometheus.Counter {
-		c := prometheus.NewCounter(prometheus.CounterOpts{Name: name, Help: help})
-		m.reg.MustRegister(c)
-		return c
+		return f.NewCounter(prometheus.CounterOpts{Name: name, Help: help})
 	}
 	gauge := func(name, help string) prometheus.Gauge {
-		g := prometheus.NewGauge(prometheus.GaugeOpts{Name: name, Help: help})
-		m.reg.MustRegister(g)
-		return g
+		return f.NewGauge(prometheus.GaugeOpts{Name: name, Help: help})
 	}
 	m.frames = counter("stillsky_bench_frames_total", "Frames simulated by the bench.")
 	m.framesLost = counter("stillsky_bench_frames_lost_total", "Frames discarded because the camera consumer fell behind.")
