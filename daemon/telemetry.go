@@ -12,10 +12,8 @@ import (
 // telemetry stream and the live view. The real-time goroutine records with
 // TryLock: when a reader holds the ring it skips that frame rather than wait.
 type telemetryRing struct {
-	mu      sync.Mutex
-	seq     uint64 // frames recorded
-	sample  telemetrySample
-	skipped uint64
+	mu     sync.Mutex
+	sample telemetrySample
 }
 
 // telemetrySample is one frame as the real-time goroutine saw it.
@@ -38,7 +36,6 @@ func (t *telemetryRing) init(slopes, actuators int) {
 // record copies one frame into the ring; it never blocks.
 func (t *telemetryRing) record(num uint64, s loopState, slopes, cmd []float32, slopeRMS, wfRMS, strehl float64, saturated int, rtc float64) {
 	if !t.mu.TryLock() {
-		t.skipped++
 		return
 	}
 	x := &t.sample
@@ -47,7 +44,6 @@ func (t *telemetryRing) record(num uint64, s loopState, slopes, cmd []float32, s
 		copy(x.cmd, cmd)
 		x.frame, x.state = num, s
 		x.slopeRMS, x.wfRMS, x.strehl, x.saturated, x.rtc = slopeRMS, wfRMS, strehl, saturated, rtc
-		t.seq++
 	}
 	t.mu.Unlock()
 }

@@ -8,9 +8,10 @@ import (
 	"io"
 	"math"
 	"os"
-	"path/filepath"
 	"strconv"
 	"strings"
+
+	"stillsky/internal/atomicfile"
 )
 
 // blockLen is the FITS logical record length in bytes (FITS Standard 4.0, §3.1).
@@ -223,39 +224,10 @@ func writeData(w *bufio.Writer, data any) error {
 // WriteFile writes the HDUs to path atomically: to a temporary file in the same
 // directory, synced to disk, then renamed over path, so that a reader never sees a
 // half-written file.
-func WriteFile(path string, hdus ...*HDU) (err error) {
-	dir := filepath.Dir(path)
-	f, err := os.CreateTemp(dir, "."+filepath.Base(path)+".tmp*")
+func WriteFile(path string, hdus ...*HDU) error {
+	err := atomicfile.Write(path, func(w io.Writer) error { return Write(w, hdus...) })
 	if err != nil {
 		return fmt.Errorf("fits: %w", err)
-	}
-	tmp := f.Name()
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(tmp)
-		}
-	}()
-	if err = Write(f, hdus...); err != nil {
-		return err
-	}
-	if err = f.Chmod(0o644); err != nil {
-		return fmt.Errorf("fits: %w", err)
-	}
-	if err = f.Sync(); err != nil {
-		return fmt.Errorf("fits: %w", err)
-	}
-	if err = f.Close(); err != nil {
-		return fmt.Errorf("fits: %w", err)
-	}
-	if err = os.Rename(tmp, path); err != nil {
-		return fmt.Errorf("fits: %w", err)
-	}
-	// Syncing the directory makes the rename itself durable; some file systems
-	// refuse to sync a directory, which does not make the file any less complete.
-	if d, derr := os.Open(dir); derr == nil {
-		d.Sync()
-		d.Close()
 	}
 	return nil
 }
