@@ -1,0 +1,63 @@
+package latbench
+
+import (
+	"context"
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"testing"
+	"time"
+)
+
+// A short run of the small scenario over a unix socket, with the bench in this
+// process: every field of the JSON the issue names is filled with a sane value,
+// and the latencies are ordered as their definitions require (compute ≤ rtc).
+func TestRunReportsEveryFigure(t *testing.T) {
+	if testing.Short() {
+		t.Skip("calibrates and runs a closed loop")
+	}
+	rs, err := Run(context.Background(), Config{Scenarios: []string{"small"}, Duration: 500 * time.Millisecond, Transports: []string{"unix"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(rs) != 1 {
+		t.Fatalf("%d results, want 1", len(rs))
+	}
+	r := rs[0]
+	if r.Scenario != "small" || r.Transport != "unix" || r.RateHz != 500 || r.Frames < 100 {
+		t.Errorf("result %+v: want small over unix at 500 Hz with at least 100 frames", r)
+	}
+	for name, q := range map[string]Quantiles{"compute": r.ComputeUs, "rtc": r.RTCUs, "end-to-end": r.EndToEndUs, "floor": r.FloorUs} {
+		if !(q.P50 > 0 && q.P50 <= q.P99 && q.P99 <= q.P999 && q.P999 <= q.Max) {
+			t.Errorf("%s quantiles %+v: want 0 < p50 ≤ p99 ≤ p99.9 ≤ max", name, q)
+		}
+	}
+	if r.ComputeUs.P50 > r.RTCUs.P50 {
+		t.Errorf("compute p50 %.1f µs above rtc p50 %.1f µs", r.ComputeUs.P50, r.RTCUs.P50)
+	}
+	if r.MaxRateHz <= 0 {
+		t.Errorf("max rate %g Hz", r.MaxRateHz)
+	}
+	path := filepath.Join(t.TempDir(), "bench.json")
+	if err := WriteJSON(path, rs); err != nil {
+		t.Fatal(err)
+	}
+	b, _ := os.ReadFile(path)
+	var objs []map[string]any
+	if err := json.Unmarshal(b, &objs); err != nil {
+		t.Fatal(err)
+	}
+	for _, k := range []string{"scenario", "transport", "rate_hz", "frames", "compute_us", "rtc_us", "end_to_end_us", "floor_us", "arrival_jitter_us", "missed_deadlines", "max_rate_hz"} {
+		if _, ok := objs[0][k]; !ok {
+			t.Errorf("JSON lacks %q", k)
+		}
+	}
+}
+
+func TestRunRefusesBadConfig(t *testing.T) {
+	for _, c := range []Config{{Duration: time.Millisecond}, {Rate: -1}, {Transports: []string{"carrier pigeon"}}, {Scenarios: []string{"nonesuch"}}} {
+		if _, err := Run(context.Background(), c); err == nil {
+			t.Errorf("Run(%+v) accepted a bad configuration", c)
+		}
+	}
+}
