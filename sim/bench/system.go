@@ -40,6 +40,17 @@ type System struct {
 	atmOPD   []float64
 	surface  []float64
 	residual []float64
+	// frameTurb is whether the current frame sees the atmosphere; stale, that
+	// its residual has not been formed yet (see ensureResidual).
+	frameTurb, stale bool
+	// Geometric mode is linear in the OPD, so a frame is measured in two parts:
+	// Advance senses the atmosphere alone (with the noise) into atmSlopes, and
+	// Observe adds the mirror's part, the sparse response times the clipped
+	// command. The mirror never delays a frame by a full surface computation.
+	linear    bool
+	atmSlopes []float64
+	acc       []float64
+	response  sparseResponse
 	// Science exposure: the PSFs added by Expose.
 	psf []float64
 	exp exposure
@@ -88,14 +99,69 @@ func NewSystem(s *scenario.Scenario) (*System, error) {
 		return nil, fmt.Errorf("bench: scenario %s: %w", s.Name, err)
 	}
 	n := p.N * p.N
-	return &System{
+	sys := &System{
 		sc: s, pupil: p, atm: atm, mirror: m, sensor: sensor, imager: im,
 		noise:  rand.New(rand.NewPCG(uint64(s.Atmosphere.Seed), noiseStream)),
 		period: 1 / s.Loop.FrameRate,
 		cmd:    make([]float32, m.NumValid()),
 		turb:   true, noiseOn: w.Noise,
 		atmOPD: make([]float64, n), surface: make([]float64, n), residual: make([]float64, n),
-	}, nil
+		linear: w.Mode == wfs.Geometric,
+	}
+	if sys.linear {
+		sys.atmSlopes = make([]float64, sensor.NumSlopes())
+		sys.acc = make([]float64, sensor.NumSlopes())
+		sys.response = newSparseResponse(m, sensor, n)
+	}
+	return sys, nil
+}
+
+// sparseResponse holds, per valid actuator, the slopes that a unit command
+// (1 m of surface) produces: reflection doubles the path and the residual is
+// atmosphere − 2·surface, so each column is the geometric measurement of
+// −2·influence. Columns are stored sparse: an influence function reaches only
+// the subapertures within its truncation radius.
+type sparseResponse struct {
+	start []int32 // column k is index[start[k]:start[k+1]], value[...]
+	index []int32
+	value []float64
+}
+
+func newSparseResponse(m *dm.Mirror, sensor *wfs.ShackHartmann, samples int) sparseResponse {
+	n := m.NumValid()
+	infl := make([]float64, samples)
+	col := make([]float64, sensor.NumSlopes())
+	r := sparseResponse{start: make([]int32, n+1)}
+	for k := range n {
+		m.Influence(k, infl)
+		for i := range infl {
+			infl[i] *= -2
+		}
+		sensor.SenseGeometric(infl, nil, col)
+		for i, v := range col {
+			if v != 0 {
+				r.index = append(r.index, int32(i))
+				r.value = append(r.value, v)
+			}
+		}
+		r.start[k+1] = int32(len(r.index))
+	}
+	return r
+}
+
+// addTo adds the response to the clipped command c to acc.
+func (r *sparseResponse) addTo(m *dm.Mirror, cmd []float32, acc []float64) {
+	for k, c := range cmd {
+		v := m.Clip(c)
+		if v == 0 {
+			continue
+		}
+		lo, hi := r.start[k], r.start[k+1]
+		idx, val := r.index[lo:hi], r.value[lo:hi]
+		for j, i := range idx {
+			acc[i] += v * val[j]
+		}
+	}
 }
 
 // Scenario returns the scenario the system was built from.
@@ -130,43 +196,112 @@ func (s *System) SetNoise(on bool) { s.noiseOn = on }
 
 // Frame advances the turbulence by one frame period, forms the residual
 // OPD = atmosphere − 2·surface and writes its slopes (radians, wfs layout) into
-// slopes. It panics if len(slopes) != NumSlopes and allocates nothing.
+// slopes: Advance, then Observe with the command SetCommand set. It panics if
+// len(slopes) != NumSlopes and allocates nothing.
 func (s *System) Frame(slopes []float32) {
-	if s.dirty {
-		s.mirror.Surface(s.cmd, s.surface)
-		s.dirty = false
-	}
+	s.Advance()
+	s.Observe(s.cmd, slopes)
+}
+
+// Advance starts the next frame: it moves the turbulence on by one frame
+// period (when it is on) and, in geometric mode, measures the atmosphere alone
+// with the frame's sensor noise. None of it depends on the mirror, so a
+// free-running bench does it ahead of the command the frame will see.
+func (s *System) Advance() {
+	s.frameTurb = s.turb
 	if s.turb {
 		s.atm.Advance(s.period)
 		s.atm.OPD(s.atmOPD)
-		for i, a := range s.atmOPD {
-			s.residual[i] = a - 2*s.surface[i]
-		}
-	} else {
-		for i, h := range s.surface {
-			s.residual[i] = -2 * h
-		}
+	}
+	if !s.linear {
+		return
 	}
 	var rng *rand.Rand
 	if s.noiseOn {
 		rng = s.noise
 	}
-	s.sensor.Sense(s.residual, rng, slopes)
+	if !s.frameTurb {
+		clear(s.atmOPD) // a calibration source: flat, but the sensor's noise stays
+	}
+	s.sensor.SenseGeometric(s.atmOPD, rng, s.atmSlopes)
+}
+
+// Observe completes the frame Advance started with the mirror shaped by cmd
+// (metres of surface per valid actuator, clipped to ±stroke), which becomes the
+// command SetCommand would set, and writes its slopes into slopes. In
+// geometric mode this is the sparse mirror response added to the atmosphere's
+// slopes, which equals sensing the residual OPD to float64 rounding; in
+// diffractive mode it forms the residual and images every subaperture. It
+// panics if len(cmd) != NumActuators or len(slopes) != NumSlopes, and
+// allocates nothing.
+func (s *System) Observe(cmd []float32, slopes []float32) {
+	if len(slopes) != s.sensor.NumSlopes() {
+		panic(fmt.Sprintf("bench: Observe: %d slopes, want %d", len(slopes), s.sensor.NumSlopes()))
+	}
+	if &cmd[0] != &s.cmd[0] {
+		s.SetCommand(cmd)
+	}
+	s.stale = true
+	if !s.linear {
+		s.ensureResidual()
+		var rng *rand.Rand
+		if s.noiseOn {
+			rng = s.noise
+		}
+		s.sensor.Sense(s.residual, rng, slopes)
+		return
+	}
+	copy(s.acc, s.atmSlopes)
+	s.response.addTo(s.mirror, s.cmd, s.acc)
+	for i, v := range s.acc {
+		slopes[i] = float32(v)
+	}
+}
+
+// ensureResidual forms the residual OPD of the current frame if it has not
+// been formed since Observe; in geometric mode only the figures of merit need it.
+func (s *System) ensureResidual() {
+	if !s.stale {
+		return
+	}
+	s.stale = false
+	if s.dirty {
+		s.mirror.Surface(s.cmd, s.surface)
+		s.dirty = false
+	}
+	if s.frameTurb {
+		for i, a := range s.atmOPD {
+			s.residual[i] = a - 2*s.surface[i]
+		}
+		return
+	}
+	for i, h := range s.surface {
+		s.residual[i] = -2 * h
+	}
 }
 
 // ResidualRMS returns the rms over the pupil of the residual OPD of the last
 // frame, piston removed, in metres.
-func (s *System) ResidualRMS() float64 { return optics.ResidualRMS(s.pupil, s.residual) }
+func (s *System) ResidualRMS() float64 {
+	s.ensureResidual()
+	return optics.ResidualRMS(s.pupil, s.residual)
+}
 
 // Strehl returns the science Strehl ratio of the last frame's residual at
 // Science.Wavelength: brightest PSF pixel over the diffraction-limited peak. It
 // costs a padded FFT of the pupil: call it on a subset of frames.
-func (s *System) Strehl() float64 { return s.imager.Strehl(s.residual) }
+func (s *System) Strehl() float64 {
+	s.ensureResidual()
+	return s.imager.Strehl(s.residual)
+}
 
 // PSF writes the science point-spread function of the last frame's residual
 // into out (PSFSize()² values, diffraction-limited peak 1, zero frequency at
 // the centre pixel).
-func (s *System) PSF(out []float64) { s.imager.PSF(s.residual, out) }
+func (s *System) PSF(out []float64) {
+	s.ensureResidual()
+	s.imager.PSF(s.residual, out)
+}
 
 // Expose adds the PSF of the last frame's residual to the science exposure,
 // as a camera integrating over the frames it is called on (one padded FFT).
@@ -175,7 +310,7 @@ func (s *System) Expose() {
 		s.psf = make([]float64, s.imager.Size()*s.imager.Size())
 		s.exp.sum = make([]float64, len(s.psf))
 	}
-	s.imager.PSF(s.residual, s.psf)
+	s.PSF(s.psf)
 	s.exp.add(s.psf)
 }
 
@@ -209,7 +344,10 @@ func (s *System) PSFSize() int { return s.imager.Size() }
 
 // Residual returns the residual OPD of the last frame on the pupil grid
 // (metres). The slice is the system's own: copy it to keep it.
-func (s *System) Residual() []float64 { return s.residual }
+func (s *System) Residual() []float64 {
+	s.ensureResidual()
+	return s.residual
+}
 
 // Sensor returns the wavefront sensor.
 func (s *System) Sensor() *wfs.ShackHartmann { return s.sensor }

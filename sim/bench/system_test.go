@@ -2,6 +2,7 @@ package bench
 
 import (
 	"math"
+	"math/rand/v2"
 	"testing"
 
 	"gonum.org/v1/gonum/mat"
@@ -259,6 +260,25 @@ func BenchmarkFrame(b *testing.B) {
 	}
 }
 
+// BenchmarkObserve times the part of a frame that waits for the mirror's
+// command: in geometric mode the sparse mirror response.
+func BenchmarkObserve(b *testing.B) {
+	for _, name := range scenario.Builtin() {
+		b.Run(name, func(b *testing.B) {
+			sys := newSystem(b, load(b, name))
+			slopes := make([]float32, sys.NumSlopes())
+			cmd := make([]float32, sys.NumActuators())
+			for i := range cmd {
+				cmd[i] = 1e-8 * float32(i%7)
+			}
+			sys.Advance()
+			for b.Loop() {
+				sys.Observe(cmd, slopes)
+			}
+		})
+	}
+}
+
 // TestBuiltinsBuild builds every built-in scenario and runs a frame: the
 // slope count follows the sensor's valid subapertures and a turbulent frame
 // has a finite, non-zero residual.
@@ -275,5 +295,41 @@ func TestBuiltinsBuild(t *testing.T) {
 			t.Errorf("%s: open-loop residual rms %g m", name, r)
 		}
 		t.Logf("%s: %d slopes, %d actuators, open-loop residual %.0f nm rms", name, sys.NumSlopes(), sys.NumActuators(), sys.ResidualRMS()*1e9)
+	}
+}
+
+// TestLinearMirrorTerm checks the geometric frame's shortcut against sensing
+// the whole residual: a Shack–Hartmann sensor in the geometric approximation
+// is linear in the OPD (mean gradient over each subaperture, Hardy, Adaptive
+// Optics for Astronomical Telescopes, ch. 5), so the slopes of
+// atmosphere − 2·surface equal the atmosphere's slopes plus the sum of the
+// actuators' responses weighted by the clipped command. Commands beyond the
+// stroke check that the clip comes before the sum.
+func TestLinearMirrorTerm(t *testing.T) {
+	for _, turb := range []bool{true, false} {
+		sys := newSystem(t, load(t, scenario.Default))
+		sys.SetNoise(false)
+		sys.SetTurbulence(turb)
+		rng := rand.New(rand.NewPCG(7, uint64(len(sys.cmd))))
+		cmd := make([]float32, sys.NumActuators())
+		got := make([]float32, sys.NumSlopes())
+		want := make([]float32, sys.NumSlopes())
+		for frame := range 5 {
+			for i := range cmd {
+				cmd[i] = float32(8e-6 * (rng.Float64() - 0.5)) // a quarter beyond ±3 µm
+			}
+			sys.Advance()
+			sys.Observe(cmd, got)
+			sys.Sensor().Sense(sys.Residual(), nil, want)
+			peak := 0.0
+			for _, v := range want {
+				peak = max(peak, math.Abs(float64(v)))
+			}
+			for i := range want {
+				if d := math.Abs(float64(got[i] - want[i])); d > 1e-6*peak {
+					t.Fatalf("turbulence %v, frame %d, slope %d: linear %g, residual sensed %g (peak %g)", turb, frame, i, got[i], want[i], peak)
+				}
+			}
+		}
 	}
 }

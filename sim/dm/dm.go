@@ -203,3 +203,33 @@ func (m *Mirror) Surface(cmd []float32, surface []float64) {
 		}
 	}
 }
+
+// Influence writes the surface in metres of valid actuator k alone at a
+// command of 1 m, unclipped, on the pupil grid: the column of the linear map
+// that Surface applies to the clipped command. It panics if k is out of range
+// or len(surface) is not the pupil size, and allocates nothing.
+func (m *Mirror) Influence(k int, surface []float64) {
+	n, a, w := m.pupil.N, m.cfg.Actuators, m.width
+	if k < 0 || k >= len(m.grid) || len(surface) != n*n {
+		panic(fmt.Sprintf("dm: Influence: actuator %d of %d, len(surface) %d: want %d", k, len(m.grid), len(surface), n*n))
+	}
+	clear(surface)
+	ax, ay := m.grid[k]%a, m.grid[k]/a
+	weight := func(i, axis int) float64 {
+		if j := axis - m.first[i]; j >= 0 && j < w {
+			return m.band[i*w+j]
+		}
+		return 0
+	}
+	for sy := range n {
+		wy := weight(sy, ay)
+		if wy == 0 {
+			continue
+		}
+		for sx := range n {
+			if wx := weight(sx, ax); wx != 0 {
+				surface[sy*n+sx] = wx * wy
+			}
+		}
+	}
+}

@@ -3,6 +3,7 @@ package dm
 import (
 	"fmt"
 	"math"
+	"math/rand/v2"
 	"testing"
 
 	"stillsky/sim/optics"
@@ -209,5 +210,44 @@ func BenchmarkSurface(b *testing.B) {
 				m.Surface(cmd, surface)
 			}
 		})
+	}
+}
+
+// TestInfluenceSuperposes checks that Surface is the superposition of the
+// actuators' influence functions weighted by the clipped command (a mirror of
+// independent actuators is linear in its command, the premise of every
+// interaction matrix; common practice), to float64 rounding.
+func TestInfluenceSuperposes(t *testing.T) {
+	p := pupil(t, 96)
+	m, err := New(p, Config{Actuators: 25, Coupling: 0.15, Stroke: 3e-6, Margin: 0.75})
+	if err != nil {
+		t.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(1, 2))
+	cmd := make([]float32, m.NumValid())
+	for i := range cmd {
+		cmd[i] = float32(4e-6 * (rng.Float64() - 0.5)) // some beyond the ±3 µm stroke
+	}
+	want := make([]float64, p.N*p.N)
+	m.Surface(cmd, want)
+	got := make([]float64, len(want))
+	infl := make([]float64, len(want))
+	peak := 0.0
+	for k, c := range cmd {
+		m.Influence(k, infl)
+		for i, v := range infl {
+			got[i] += m.Clip(c) * v
+		}
+	}
+	for _, v := range want {
+		peak = max(peak, math.Abs(v))
+	}
+	for i := range want {
+		if d := math.Abs(got[i] - want[i]); d > 1e-12*peak {
+			t.Fatalf("sample %d: superposed %g, Surface %g", i, got[i], want[i])
+		}
+	}
+	if a := testing.AllocsPerRun(10, func() { m.Influence(3, infl) }); a != 0 {
+		t.Errorf("Influence allocates %v times per call", a)
 	}
 }

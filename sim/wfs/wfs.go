@@ -241,6 +241,26 @@ func (s *ShackHartmann) Sense(opd []float64, rng *rand.Rand, slopes []float32) {
 		}
 		return
 	}
+	geometric(s, opd, rng, slopes)
+}
+
+// SenseGeometric is Sense in geometric mode with float64 slopes: the linear
+// measurement that the bench adds to, term by term, before rounding to the
+// wire's float32. It panics in diffractive mode or on the lengths Sense panics on.
+func (s *ShackHartmann) SenseGeometric(opd []float64, rng *rand.Rand, slopes []float64) {
+	if len(opd) != len(s.pupil.Mask) || len(slopes) != s.NumSlopes() || s.diff != nil {
+		panic(fmt.Sprintf("wfs: SenseGeometric: len(opd) %d, len(slopes) %d, mode %s: want %d, %d and %s",
+			len(opd), len(slopes), s.cfg.Mode, len(s.pupil.Mask), s.NumSlopes(), Geometric))
+	}
+	if !s.cfg.Noise {
+		rng = nil
+	}
+	geometric(s, opd, rng, slopes)
+}
+
+// geometric writes the mean OPD gradient over each valid subaperture, plus
+// noise drawn from rng when it is not nil.
+func geometric[T float32 | float64](s *ShackHartmann, opd []float64, rng *rand.Rand, slopes []T) {
 	n := s.pupil.N
 	for k := range s.origin {
 		gx, gy := 0.0, 0.0
@@ -256,7 +276,7 @@ func (s *ShackHartmann) Sense(opd []float64, rng *rand.Rand, slopes []float32) {
 			gx += s.sigma[k] * rng.NormFloat64()
 			gy += s.sigma[k] * rng.NormFloat64()
 		}
-		slopes[2*k], slopes[2*k+1] = float32(gx), float32(gy)
+		slopes[2*k], slopes[2*k+1] = T(gx), T(gy)
 	}
 }
 
