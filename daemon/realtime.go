@@ -182,15 +182,21 @@ func newRealtime(d *Daemon, g *geometry) *realtime {
 	return rt
 }
 
-// run is the real-time goroutine: receive a frame, compute, send, on one locked OS
-// thread. Nothing else runs here.
+// run is the real-time goroutine: receive a frame, compute, send. Nothing else
+// runs here. With affinity or SCHED_FIFO asked for, it runs on one locked OS
+// thread that carries them. Without, it stays unlocked: a locked goroutine
+// costs a thread wake-up (a futex and a context switch) each time the transport
+// hands it a frame and each time it hands the transport a command, where an
+// unlocked one runs next on the transport's own thread.
 func (rt *realtime) run(ctx context.Context, frames grpc.ServerStreamingClient[stillskyv1.StreamFramesResponse], cmds grpc.BidiStreamingClient[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
-	runtime.LockOSThread()
 	d, m := rt.d, rt.d.m
-	if !d.threadSettings() {
-		// A thread whose affinity or policy changed stays locked, so the runtime
-		// ends it with this goroutine instead of reusing it.
-		defer runtime.UnlockOSThread()
+	if r := d.cfg.Realtime; r.Pin || r.FIFOPriority > 0 {
+		runtime.LockOSThread()
+		if !d.threadSettings() {
+			// A thread whose affinity or policy changed stays locked, so the
+			// runtime ends it with this goroutine instead of reusing it.
+			defer runtime.UnlockOSThread()
+		}
 	}
 	for {
 		if err := frames.RecvMsg(rt.frame); err != nil {

@@ -34,6 +34,7 @@ func runBench(args []string) error {
 	bf16 := fs.Bool("bf16", false, "store the control matrix as bfloat16")
 	cpu := fs.Int("rt-cpu", -1, "pin the loop's real-time thread to this CPU (-1: no pinning)")
 	fifo := fs.Int("rt-fifo", 0, "run the loop's real-time thread under SCHED_FIFO at this priority (0: normal)")
+	simCPUs := fs.String("sim-cpus", "", "pin the simulator's process to these CPUs, e.g. 0 (\"\": no pinning)")
 	inProcess := fs.Bool("in-process", false, "run the simulated bench inside the loop's process instead of as its own")
 	logLevel := fs.String("log-level", "warn", "log level of bench and loop")
 	if err := parseFlags(fs, args); err != nil {
@@ -52,9 +53,9 @@ func runBench(args []string) error {
 	ctx, stop := signalContext()
 	defer stop()
 	rs, err := latbench.Run(ctx, latbench.Config{
-		SimulatorExecutable: sim,
-		Realtime:            daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo},
-		Scenarios:           scenarios, Transports: transports, Rate: *rate, Duration: *duration,
+		SimulatorExecutable: sim, SimulatorCPUs: *simCPUs,
+		Realtime:  daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo},
+		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
 		Chunks: *chunks, Out: os.Stdout, Logger: log, Kernel: kernelOptions(*bf16),
 	})
 	if err != nil {

@@ -1,6 +1,9 @@
 package main
 
 import (
+	"fmt"
+
+	"stillsky/internal/affinity"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
 )
@@ -18,6 +21,8 @@ func runSim(args []string) error {
 	lockstep := fs.Bool("lockstep", false, "produce frame k only after the command for frame k−delay (reproducible)")
 	delay := fs.Int("delay-frames", 0, "loop delay in frames modelled in lockstep mode (0: the scenario's)")
 	readout := fs.Duration("readout-time", 0, "spread the chunks of a chunked frame over this readout time (0: back to back)")
+	idle := fs.Bool("idle-priority", true, "free-running, simulate and image under SCHED_IDLE so the device streams and a loop on the same machine always come first")
+	cpus := fs.String("cpus", "", "pin the simulator's threads to these CPUs, e.g. 0 or 0-1 (\"\": no pinning)")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
 	if err := parseFlags(fs, args); err != nil {
 		return err
@@ -26,11 +31,20 @@ func runSim(args []string) error {
 	if err != nil {
 		return err
 	}
+	if *cpus != "" {
+		set, err := affinity.Parse(*cpus)
+		if err != nil {
+			return fmt.Errorf("--cpus: %w", err)
+		}
+		if err := affinity.PinProcess(set); err != nil {
+			return fmt.Errorf("--cpus %s: %w", *cpus, err)
+		}
+	}
 	s, err := scenario.Load(*scn)
 	if err != nil {
 		return err
 	}
-	srv, err := bench.NewServer(s, bench.Options{Lockstep: *lockstep, DelayFrames: *delay, ReadoutTime: *readout, Logger: log})
+	srv, err := bench.NewServer(s, bench.Options{Lockstep: *lockstep, DelayFrames: *delay, ReadoutTime: *readout, IdlePriority: *idle, Logger: log})
 	if err != nil {
 		return err
 	}

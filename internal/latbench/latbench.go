@@ -48,6 +48,9 @@ type Config struct {
 	// SimulatorExecutable, if set, runs the bench as its own process from this
 	// stillsky binary; empty runs it inside this process.
 	SimulatorExecutable string
+	// SimulatorCPUs, if set, pins the simulator's process to these CPUs (a
+	// kernel cpu list, as --cpus of stillsky sim takes).
+	SimulatorCPUs string
 	// Realtime is handed to the loop (affinity, SCHED_FIFO, mlockall).
 	Realtime daemon.Realtime
 	// Kernel is handed to the loop's matrix–vector multiply.
@@ -307,8 +310,11 @@ func startSimulator(ctx context.Context, c Config, scn *scenario.Scenario, trans
 			return "", "", err
 		}
 	}
-	cmd := exec.CommandContext(ctx, c.SimulatorExecutable, "sim", "--scenario", path, "--camera", cam, "--mirror", mir,
-		"--metrics", "", "--log-level", "warn")
+	args := []string{"sim", "--scenario", path, "--camera", cam, "--mirror", mir, "--metrics", "", "--log-level", "warn"}
+	if c.SimulatorCPUs != "" {
+		args = append(args, "--cpus", c.SimulatorCPUs)
+	}
+	cmd := exec.CommandContext(ctx, c.SimulatorExecutable, args...)
 	cmd.Stderr = os.Stderr
 	if err := cmd.Start(); err != nil {
 		return "", "", fmt.Errorf("starting the simulator: %w", err)

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"log/slog"
 	"math"
+	"runtime"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -44,6 +45,13 @@ type Options struct {
 	ReadoutTime time.Duration
 	// Logger receives the bench's log lines; nil discards them.
 	Logger *slog.Logger
+	// IdlePriority runs the free-running simulation and the science camera on
+	// threads of their own under SCHED_IDLE, so that on a machine shared with
+	// the loop they take only the CPU time nothing else wants and never delay a
+	// frame's delivery or a command's arrival. It raises GOMAXPROCS by two, so
+	// that those threads, when the kernel holds them back, never hold the Go
+	// processors the device streams need. For a process of the bench's own.
+	IdlePriority bool
 }
 
 // ringSize is the number of frames buffered between the bench's clock and the
@@ -60,8 +68,17 @@ type pendingCommand struct {
 
 type frameSlot struct {
 	number     uint64
+	due        int64 // free-run: the readout tick, when the frame may leave
 	readoutEnd int64
 	slopes     []float32
+}
+
+// historyRing holds the newest free-run commands with their arrival times.
+const historyRing = 16
+
+type timedCommand struct {
+	at     int64 // CLOCK_MONOTONIC ns of arrival
+	values []float32
 }
 
 // Server is the simulated bench behind the Camera and Mirror services: it owns a
@@ -77,6 +94,13 @@ type Server struct {
 	sys *System
 	cmd []float32 // the command the mirror holds
 
+	// Free-running, a frame sees the command in place at the readout before
+	// it: the mirror stream logs each command with its arrival time, and the
+	// simulation picks from the log, however late it runs.
+	histMu   sync.Mutex
+	history  [historyRing]timedCommand
+	received uint64 // commands logged; the next goes to received%historyRing
+
 	// Lockstep hand-off: the newest command's frame number, and a wake-up.
 	lastCmdFrame atomic.Uint64
 	cmdArrived   chan struct{}
@@ -85,7 +109,7 @@ type Server struct {
 	pending [pendingRing]pendingCommand
 
 	slots      [ringSize]frameSlot
-	scratch    []float32   // slopes of a frame nobody will read
+	scratch    frameSlot   // a frame nobody will read
 	ready      chan uint64 // sequence numbers of filled slots
 	cameraBusy atomic.Bool
 	mirrorBusy atomic.Bool
@@ -138,7 +162,7 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 		ready:      make(chan uint64, ringSize-2),
 		metrics:    newBenchMetrics(s.Science.Wavelength, sys.FramePeriod()),
 	}
-	b.scratch = make([]float32, sys.NumSlopes())
+	b.scratch.slopes = make([]float32, sys.NumSlopes())
 	n := sys.PSFSize() * sys.PSFSize()
 	b.psf = make([]float64, n)
 	b.sciPSF = make([]float64, n)
@@ -152,6 +176,9 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	b.gaugeSamples = max(1, int(s.Loop.FrameRate)/opt.StrehlEvery)
 	for i := range b.pending {
 		b.pending[i].values = make([]float32, sys.NumActuators())
+	}
+	for i := range b.history {
+		b.history[i].values = make([]float32, sys.NumActuators())
 	}
 	for i := range b.slots {
 		b.slots[i].slopes = make([]float32, sys.NumSlopes())
@@ -197,29 +224,144 @@ func (b *Server) Scenario() *scenario.Scenario { return b.scn }
 func (b *Server) Run(ctx context.Context) error {
 	sctx, stop := context.WithCancel(ctx)
 	defer stop()
+	if b.opt.IdlePriority {
+		runtime.GOMAXPROCS(runtime.GOMAXPROCS(0) + 2)
+	}
 	go b.science(sctx)
+	if !b.opt.Lockstep {
+		b.freeRun(ctx)
+		return nil
+	}
+	for k := uint64(1); ctx.Err() == nil; k++ {
+		if err := b.awaitCommand(ctx, k); err != nil {
+			return err
+		}
+		b.produce(k)
+	}
+	return nil
+}
+
+// freeRun is the free-running camera. Frame k is read out at tick k of the
+// camera's clock and sees the mirror as it was at tick k−1 — the command that
+// arrived last before that tick — which makes the loop delay exactly what the
+// scenario's rate and the loop's latency make it, whenever this goroutine gets
+// the CPU. The part of a frame that does not depend on the mirror (turbulence,
+// the atmosphere's slopes, noise) is done one frame ahead; after tick k−1 only
+// the mirror's part is added, and the frame waits in the ring for the camera
+// stream, which sends it at tick k. The figures of merit come last.
+func (b *Server) freeRun(ctx context.Context) {
+	if b.opt.IdlePriority {
+		runtime.LockOSThread()
+		if err := idleThread(); err != nil {
+			b.log.Warn("simulation thread stays at normal priority", "err", err)
+		}
+	}
 	period := int64(b.sys.FramePeriod() * 1e9)
-	// Free-running, frame k is read out at tick k of the camera's clock: the bench
-	// simulates it as soon as frame k−1 is out, then holds it until its tick, so
-	// frames leave on the clock however long each took to simulate.
+	cmd := make([]float32, len(b.cmd))
+	b.mu.Lock()
+	b.sys.Advance()
+	b.mu.Unlock()
 	tick := monoclock.Now()
-	for k := uint64(1); ; k++ {
-		if ctx.Err() != nil {
-			return nil
-		}
-		if b.opt.Lockstep {
-			if err := b.awaitCommand(ctx, k); err != nil {
-				return err
-			}
-			b.produce(k, 0)
-			continue
-		}
+	for k := uint64(1); ctx.Err() == nil; k++ {
+		prev := tick
 		tick += period
 		if late := monoclock.Now() - tick; late > 10*period {
 			// Far behind (an overloaded machine): resynchronise instead of bursting.
 			tick = monoclock.Now()
 		}
-		b.produce(k, tick)
+		b.commandAt(prev, cmd)
+		slot, publish := b.nextSlot()
+		b.mu.Lock()
+		b.sys.Observe(cmd, slot.slopes)
+		b.mu.Unlock()
+		if publish {
+			slot.number, slot.due = k, tick
+			b.ready <- b.written
+			b.written++
+		}
+		b.figures(k)
+		b.mu.Lock()
+		b.sys.Advance()
+		b.mu.Unlock()
+		sleepUntil(tick)
+	}
+}
+
+// commandAt copies into cmd the newest logged command that arrived at or
+// before t (the mirror's rest shape, zero, before any).
+func (b *Server) commandAt(t int64, cmd []float32) {
+	b.histMu.Lock()
+	defer b.histMu.Unlock()
+	for j := b.received; j > 0 && j+historyRing > b.received; j-- {
+		if e := &b.history[(j-1)%historyRing]; e.at <= t {
+			copy(cmd, e.values)
+			return
+		}
+	}
+	if b.received == 0 {
+		clear(cmd)
+		return
+	}
+	// Every logged command is newer than t (a client flooding the mirror):
+	// the oldest kept is the nearest.
+	copy(cmd, b.history[b.received%historyRing].values)
+}
+
+// logCommand records a free-run command that arrived at time at.
+func (b *Server) logCommand(at int64, v []float32) {
+	b.histMu.Lock()
+	e := &b.history[b.received%historyRing]
+	e.at = at
+	copy(e.values, v)
+	b.received++
+	b.histMu.Unlock()
+}
+
+// nextSlot returns the slot the next frame goes to and whether it will be
+// handed to the camera stream: not when no consumer is connected, nor when the
+// consumer has fallen a ring behind (the frame is lost and counted).
+func (b *Server) nextSlot() (*frameSlot, bool) {
+	// Slots are filled in sequence, whatever frames were lost. Only the producer
+	// writes them, and len(b.ready) only shrinks concurrently: a free place in the
+	// channel means the consumer holds at most the slot ringSize−1 writes back,
+	// never the next one.
+	if !b.cameraBusy.Load() {
+		return &b.scratch, false
+	}
+	if len(b.ready) == cap(b.ready) {
+		b.metrics.framesLost.Inc()
+		return &b.scratch, false
+	}
+	return &b.slots[b.written%ringSize], true
+}
+
+// figures updates the true figures of merit after frame k. Free-running, the
+// residual is formed on the frames the science camera samples only: on the
+// others the geometric sensor never needs it.
+func (b *Server) figures(k uint64) {
+	b.metrics.frames.Inc()
+	sample := k%uint64(b.opt.StrehlEvery) == 0
+	if !sample && !b.opt.Lockstep {
+		return
+	}
+	b.mu.Lock()
+	rms := b.sys.ResidualRMS()
+	async := sample && !b.opt.Lockstep && b.sciBusy.CompareAndSwap(false, true)
+	if async {
+		// Free-running, the science camera works on its own goroutine, so that
+		// its FFT never delays the wavefront sensor's frames.
+		copy(b.sciIn, b.sys.Residual())
+		b.sciWake <- struct{}{}
+	}
+	if sample && b.opt.Lockstep {
+		// Lockstep runs are reproducible: every sampled frame is exposed.
+		b.sys.PSF(b.psf)
+	}
+	b.mu.Unlock()
+	b.stats.add(rms)
+	b.metrics.residual.Set(rms)
+	if sample && b.opt.Lockstep {
+		b.expose(b.psf)
 	}
 }
 
@@ -252,63 +394,25 @@ func (b *Server) awaitCommand(ctx context.Context, k uint64) error {
 	return nil
 }
 
-// produce simulates frame k and hands it to the camera stream, at readout time
-// tick (CLOCK_MONOTONIC ns) when tick is not 0, else at once.
-func (b *Server) produce(k uint64, tick int64) {
-	// Slots are filled in sequence, whatever frames were lost. Only the producer
-	// writes them, and len(b.ready) only shrinks concurrently: a free place in the
-	// channel means the consumer holds at most the slot ringSize−1 writes back,
-	// never the next one.
-	full := len(b.ready) == cap(b.ready)
-	slot := &b.slots[b.written%ringSize]
-	var scratch []float32
-	if full {
-		scratch = b.scratch
-	} else {
-		scratch = slot.slopes
-	}
+// produce simulates lockstep frame k with the command that answered frame
+// k−DelayFrames and hands it to the camera stream at once.
+func (b *Server) produce(k uint64) {
+	slot, publish := b.nextSlot()
 	b.mu.Lock()
-	if d := uint64(b.opt.DelayFrames); b.opt.Lockstep && k > d {
+	if d := uint64(b.opt.DelayFrames); k > d {
 		if p := &b.pending[(k-d)%pendingRing]; p.frame == k-d {
 			copy(b.cmd, p.values)
 			b.sys.SetCommand(b.cmd)
 		}
 	}
-	b.sys.Frame(scratch)
-	rms := b.sys.ResidualRMS()
-	sample := k%uint64(b.opt.StrehlEvery) == 0
-	async := sample && !b.opt.Lockstep && b.sciBusy.CompareAndSwap(false, true)
-	if async {
-		// Free-running, the science camera works on its own goroutine, so that
-		// its FFT never delays the wavefront sensor's frames.
-		copy(b.sciIn, b.sys.Residual())
-		b.sciWake <- struct{}{}
-	}
-	if sample && b.opt.Lockstep {
-		// Lockstep runs are reproducible: every sampled frame is exposed.
-		b.sys.PSF(b.psf)
-	}
+	b.sys.Frame(slot.slopes)
 	b.mu.Unlock()
-	b.stats.add(rms)
-	if sample && b.opt.Lockstep {
-		b.expose(b.psf)
+	if publish {
+		slot.number, slot.due = k, 0
+		b.ready <- b.written
+		b.written++
 	}
-	b.metrics.frames.Inc()
-	b.metrics.residual.Set(rms)
-	if tick != 0 {
-		waitUntil(tick)
-	}
-	now := monoclock.Now()
-	if !b.cameraBusy.Load() {
-		return
-	}
-	if full {
-		b.metrics.framesLost.Inc()
-		return
-	}
-	slot.number, slot.readoutEnd = k, now
-	b.ready <- b.written
-	b.written++
+	b.figures(k)
 }
 
 // expose adds a science PSF to the window's exposure and the gauge's.
@@ -325,6 +429,12 @@ func (b *Server) expose(psf []float64) {
 // science is the free-running science camera: it images the residuals that
 // produce hands it, one at a time.
 func (b *Server) science(ctx context.Context) {
+	if b.opt.IdlePriority {
+		runtime.LockOSThread()
+		if err := idleThread(); err != nil {
+			b.log.Warn("science camera thread stays at normal priority", "err", err)
+		}
+	}
 	for {
 		select {
 		case <-ctx.Done():
@@ -387,6 +497,10 @@ func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 			return nil
 		case seq := <-b.ready:
 			slot := &b.slots[seq%ringSize]
+			if slot.due != 0 {
+				waitUntil(slot.due)
+			}
+			slot.readoutEnd = monoclock.Now()
 			msg.FrameNumber = slot.number
 			msg.ChunkCount = uint32(len(rows))
 			for c, r := range rows {
@@ -439,6 +553,22 @@ func waitUntil(t int64) {
 	}
 	for monoclock.Now() < t {
 	}
+}
+
+// sleepUntil blocks until CLOCK_MONOTONIC reaches t, without the spin of
+// waitUntil: for a thread whose wake-up may be late but never early.
+func sleepUntil(t int64) {
+	ts := unix.NsecToTimespec(t)
+	for unix.ClockNanosleep(unix.CLOCK_MONOTONIC, unix.TIMER_ABSTIME, &ts, nil) == unix.EINTR {
+	}
+}
+
+// idleThread puts the calling thread under SCHED_IDLE: it runs only when a
+// CPU has nothing else to do, and any other thread that wakes preempts it.
+// Lowering one's own policy needs no privilege.
+func idleThread() error {
+	attr := unix.SchedAttr{Size: unix.SizeofSchedAttr, Policy: unix.SCHED_IDLE}
+	return unix.SchedSetAttr(0, &attr, 0)
 }
 
 // chunkRows splits the slope vector into n groups of whole subaperture rows, as
@@ -524,16 +654,20 @@ func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.Strea
 				clipped++
 			}
 		}
-		b.mu.Lock()
 		if f := req.GetFrameNumber(); b.opt.Lockstep && f != 0 {
+			b.mu.Lock()
 			p := &b.pending[f%pendingRing]
 			p.frame = f
 			copy(p.values, v)
-		} else {
+			b.mu.Unlock()
+		} else if b.opt.Lockstep {
+			b.mu.Lock()
 			copy(b.cmd, v)
 			b.sys.SetCommand(b.cmd)
+			b.mu.Unlock()
+		} else {
+			b.logCommand(received, v)
 		}
-		b.mu.Unlock()
 		if f := req.GetFrameNumber(); f > b.lastCmdFrame.Load() {
 			b.lastCmdFrame.Store(f)
 		}
