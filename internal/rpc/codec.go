@@ -3,6 +3,7 @@ package rpc
 import (
 	"fmt"
 	"math"
+	"sync/atomic"
 
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/encoding"
@@ -18,8 +19,8 @@ import (
 // standard protobuf encoding (content subtype "proto"), so the devices need
 // nothing special, but it decodes slope frames into the caller's message reusing
 // its slope slice — the generated decoder always allocates a fresh one — and
-// encodes commands into pooled buffers. Other messages go through the standard
-// codec.
+// encodes commands into buffers it owns (see sendSlot). Other messages go
+// through the standard codec.
 type FrameCodec struct{}
 
 // FrameCodecOption selects FrameCodec for a call.
@@ -30,22 +31,99 @@ var standard = encoding.GetCodecV2("proto")
 // Name is "proto": the bytes on the wire are standard protobuf.
 func (FrameCodec) Name() string { return "proto" }
 
-// Marshal encodes v; commands go into a pooled buffer without an intermediate copy.
+// Marshal encodes v; a command goes into a free send slot, or into a buffer of
+// the shared pool when every slot is in flight.
 func (FrameCodec) Marshal(v any) (mem.BufferSlice, error) {
 	m, ok := v.(*stillskyv1.StreamCommandsRequest)
 	if !ok {
 		return standard.Marshal(v)
 	}
 	size := proto.Size(m)
+	enc := proto.MarshalOptions{UseCachedSize: true}
+	if s := freeSlot(); s != nil {
+		s.grow(size)
+		out, err := enc.MarshalAppend(s.data[:0], m)
+		if err != nil {
+			s.busy.Store(false)
+			return nil, err
+		}
+		s.data = out
+		s.buf[0] = mem.NewBuffer(&s.data, s)
+		return s.buf[:], nil
+	}
 	pool := mem.DefaultBufferPool()
 	buf := pool.Get(size)
-	out, err := proto.MarshalOptions{}.MarshalAppend((*buf)[:0], m)
+	out, err := enc.MarshalAppend((*buf)[:0], m)
 	if err != nil {
 		pool.Put(buf)
 		return nil, err
 	}
 	*buf = out
 	return mem.BufferSlice{mem.NewBuffer(buf, pool)}, nil
+}
+
+// sendSlot holds one encoded command while gRPC's transport owns it. gRPC
+// counts references to the buffers a codec returns and hands a buffer back to
+// its pool once the last holder (the sender and the connection's writer) lets
+// go; a slot is its own pool, so that hand-back marks it free. Reusing the
+// slot's bytes and its one-element BufferSlice is what makes a steady loop's
+// send allocate nothing in this codec: a fresh BufferSlice per message would
+// be a heap object, and so would the pool's buffer for a message of 1 KiB or
+// less (mem.NewBuffer wraps those in a plain slice and never returns them).
+type sendSlot struct {
+	busy atomic.Bool
+	data []byte
+	buf  [1]mem.Buffer
+}
+
+// sendSlots is how many commands may be in flight before Marshal falls back to
+// the shared pool: a loop has one or two (the one being written and the next);
+// a stalled mirror link piles up more, and those cost an allocation each, as
+// would a slot whose buffer gRPC never handed back (it frees them on every path
+// we know of, closed streams included).
+const sendSlots = 16
+
+var (
+	slots    [sendSlots]sendSlot
+	nextSlot atomic.Uint32
+)
+
+// freeSlot claims a free slot, or returns nil when all are in flight.
+func freeSlot() *sendSlot {
+	start := nextSlot.Add(1)
+	for i := range uint32(sendSlots) {
+		s := &slots[(start+i)%sendSlots]
+		if s.busy.CompareAndSwap(false, true) {
+			return s
+		}
+	}
+	return nil
+}
+
+// grow makes room for n bytes, with a capacity above gRPC's pooling threshold
+// so that mem.NewBuffer counts references and calls Put.
+func (s *sendSlot) grow(n int) {
+	c := cap(s.data)
+	if c >= n && !mem.IsBelowBufferPoolingThreshold(c) {
+		return
+	}
+	c = max(n, 4<<10)
+	for mem.IsBelowBufferPoolingThreshold(c) {
+		c *= 2
+	}
+	s.data = make([]byte, 0, c)
+}
+
+// Get serves from the shared pool; gRPC only ever calls Put on a buffer's pool.
+func (s *sendSlot) Get(n int) *[]byte { return mem.DefaultBufferPool().Get(n) }
+
+// Put frees the slot when handed its own bytes.
+func (s *sendSlot) Put(b *[]byte) {
+	if b != &s.data {
+		mem.DefaultBufferPool().Put(b)
+		return
+	}
+	s.busy.Store(false)
 }
 
 // Unmarshal decodes data into v; slope frames reuse v's slope slice.

@@ -104,27 +104,37 @@ func NewHealthOnlyServer(services []string) *grpc.Server {
 	return s
 }
 
-// realTimeWindow is the fixed HTTP/2 flow-control window of the real-time links.
-// A fixed window turns off gRPC's bandwidth-delay probing, whose ping frames cost
-// allocations and wake-ups every few messages. It is the smallest gRPC allows:
-// a camera link should hold a few frames, not hundreds, so that a loop that
-// falls behind meets back-pressure (the camera drops frames) instead of working
-// through a backlog of stale ones.
+// realTimeWindow is the fixed HTTP/2 flow-control window of each real-time
+// stream. A fixed window turns off gRPC's bandwidth-delay probing, whose ping
+// frames cost allocations and wake-ups every few messages. It is the smallest
+// gRPC allows: a camera link should hold a few frames, not hundreds, so that a
+// loop that falls behind meets back-pressure (the camera drops frames) instead
+// of working through a backlog of stale ones. The price is a WINDOW_UPDATE frame
+// per quarter window read (gRPC's threshold), a heap object or two each: about
+// one every 5 default-scenario frames on the camera link and one every 8
+// commands on the mirror link.
 const realTimeWindow = 64 << 10
+
+// realTimeConnWindow is the connection's window. Each device connection carries
+// one real-time stream, whose own window already bounds what is in flight, so
+// the connection's may be large: its WINDOW_UPDATE frames, sent per quarter
+// window, then come every few thousand frames instead of as often as the
+// stream's.
+const realTimeConnWindow = 16 << 20
 
 // DeviceDialOptions are the client options of the camera and mirror links.
 func DeviceDialOptions() []grpc.DialOption {
 	return []grpc.DialOption{
-		grpc.WithInitialWindowSize(realTimeWindow),
-		grpc.WithInitialConnWindowSize(realTimeWindow),
+		grpc.WithStaticStreamWindowSize(realTimeWindow),
+		grpc.WithStaticConnWindowSize(realTimeConnWindow),
 	}
 }
 
 // DeviceServerOptions are the matching server options of the devices.
 func DeviceServerOptions() []grpc.ServerOption {
 	return []grpc.ServerOption{
-		grpc.InitialWindowSize(realTimeWindow),
-		grpc.InitialConnWindowSize(realTimeWindow),
+		grpc.StaticStreamWindowSize(realTimeWindow),
+		grpc.StaticConnWindowSize(realTimeConnWindow),
 	}
 }
 
