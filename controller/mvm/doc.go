@@ -22,14 +22,20 @@
 //
 // The product is bound by the bytes of A it reads (3300×6400 float32 is 84 MB,
 // beyond every cache; 850×1600 is 5.4 MB, beyond one core's 2 MB L2), so the
-// kernels are built to stream A at full speed: four rows per pass share each
-// load of x, two accumulators per row keep eight FMA chains in flight, and
-// every row starts on a cache line and is padded with zeros to a multiple of
-// 32 elements, so no load splits a line and no loop has a remainder. Ranges
-// of columns that do not start or end on that grid are handled by a padded
-// copy of x that is zero outside the range; that is why New refuses a matrix
-// with non-finite elements (0·Inf would not vanish). Rows not a multiple of
-// 4 end in a zero-padded group whose extra results are dropped.
+// kernels are built to stream A at full speed. The AVX-512 float32 loop takes
+// eight rows per pass (one load of x feeds eight FMAs, sixteen accumulators
+// keep the FMA pipes busy) and prefetches each row 1 KiB ahead; the AVX2 loop
+// takes four. Every stored row starts on a cache line. A float32 row is
+// padded only to a whole line (16 columns) and the kernels mask the loads of
+// the last partial vector, so they take any column range and read x in
+// place, with no copy per product. A bfloat16 row is stored in blocks of 32
+// columns (see packBF16); column ranges off that grid go through a padded
+// copy of x that is zero outside the range, and that is why New refuses a
+// matrix with non-finite elements (0·Inf would not vanish). Rows not a
+// multiple of 4 end in a zero-padded group whose extra results are dropped.
+// On Linux a stored matrix of 2 MiB or more gets its own mapping with
+// transparent huge pages requested, which cuts the TLB misses of streaming
+// it (see store).
 //
 // # Reduced precision
 //
@@ -70,7 +76,8 @@
 // and reports ours/openblas (> 1: ours is faster); it needs cgo and Debian
 // libopenblas-dev. On a shared machine quote medians of -count 5 or more.
 //
-// It depends on nothing but the standard library and golang.org/x/sys/cpu
-// (its tests also use gonum); it does no I/O, reads no clocks, and never
+// It depends on nothing but the standard library, golang.org/x/sys/cpu and,
+// on Linux, golang.org/x/sys/unix (mmap and madvise for the stored matrix;
+// its tests also use gonum); it does no I/O, reads no clocks, and never
 // allocates in MulVec or MulVecCols.
 package mvm

@@ -10,9 +10,14 @@ import (
 )
 
 // oddShapes are rows×cols not multiples of any vector width or of the 4-row
-// group, plus a few that are, so both the padded and the in-place x paths run.
+// group, plus a few that are, so both the padded and the in-place x paths
+// run, every column remainder path of the float32 kernels (a 32-column step,
+// a 16-column step, a masked tail, each with and without the others) and
+// both row passes (8 and 4 rows). 600×1000 float32 is larger than a huge
+// page, so it is stored in its own mapping (see store).
 var oddShapes = [][2]int{
 	{1, 1}, {3, 17}, {7, 31}, {4, 32}, {33, 65}, {5, 96}, {129, 257}, {64, 64}, {250, 1001}, {2, 300},
+	{8, 47}, {12, 48}, {9, 15}, {16, 16}, {17, 8}, {600, 1000},
 }
 
 func randomMatrix(rng *rand.Rand, rows, cols int) *Matrix {

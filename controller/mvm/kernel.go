@@ -9,8 +9,10 @@ import (
 // gemvFunc is the contract of every inner loop. For g in [0, groups) and r in
 // [0, 4) it computes s = Σ_{j<n} A(4g+r, j)·x[j] and stores y[4g+r] = s, or
 // adds s to y[4g+r] when add is set. a is the stored element (0, 0) of the
-// block, 64-byte aligned; stride is the byte distance between stored rows;
-// n is a positive multiple of granule, and x holds n readable elements.
+// block and stride the byte distance between stored rows; x holds n
+// elements, and no kernel reads x outside them. For float32 (kernel.f32) n is
+// any positive count and a any element of a row; for bfloat16 (kernel.b16) a
+// is 64-byte aligned and n is a positive multiple of granule.
 type gemvFunc func(a unsafe.Pointer, stride uintptr, groups int, x *float32, n int, y *float32, add bool)
 
 // kernel is one instruction-set variant, for each storage precision.
@@ -70,8 +72,8 @@ func pickKernel(name string) (kernel, error) {
 	return kernel{}, fmt.Errorf("mvm: options kernel %q: unknown (known: %v)", name, kernelNames)
 }
 
-// gemvF32Go is the pure-Go inner loop on the padded float32 layout; it sums
-// in the same order as Plain.
+// gemvF32Go is the pure-Go inner loop on the float32 layout; it sums in the
+// same order as Plain.
 func gemvF32Go(a unsafe.Pointer, stride uintptr, groups int, x *float32, n int, y *float32, add bool) {
 	xs := unsafe.Slice(x, n)
 	ys := unsafe.Slice(y, 4*groups)

@@ -9,9 +9,9 @@ import (
 )
 
 // The assembly kernels follow the gemvFunc contract. Each processes 4 rows at
-// a time so one load of x feeds four FMAs, with two accumulators per row
-// (8 independent FMA chains, enough to cover the 4-cycle FMA latency at two
-// FMAs per cycle).
+// a time (the AVX-512 float32 one 8 while it can) so one load of x feeds
+// several FMAs, with two accumulators per row (8 or 16 independent FMA
+// chains, enough to cover the 4-cycle FMA latency at two FMAs per cycle).
 
 //go:noescape
 func gemvF32AVX2(a unsafe.Pointer, stride uintptr, groups int, x *float32, n int, y *float32, add bool)

@@ -7,6 +7,7 @@ import (
 	"math"
 	"math/rand/v2"
 	"os"
+	"sort"
 	"syscall"
 	"testing"
 	"time"
@@ -83,9 +84,10 @@ const (
 // BenchmarkVsOpenBLAS alternates blocks of our MVM and of cblas_sgemv with
 // the same thread count, so both see the same machine load, and reports each
 // one's mean time per product and the throughput ratio ours/openblas (> 1:
-// ours is faster), from the means and from each side's fastest block (the
-// better estimate on a loaded machine: load only ever adds time). Quote the
-// median over -count 5 or more.
+// ours is faster): from the means, from each side's fastest block (load only
+// ever adds time), and as the median over rounds of the ratio of the two
+// adjacent blocks (-paired: a burst of load that hits one round moves one
+// sample, not the estimate). Quote the median over -count 5 or more.
 func BenchmarkVsOpenBLAS(b *testing.B) {
 	for _, sh := range shapes {
 		rows, cols := sh[0], sh[1]
@@ -104,6 +106,7 @@ func BenchmarkVsOpenBLAS(b *testing.B) {
 				}
 				var spent [2]time.Duration
 				var best [2]float64
+				var paired []float64 // per round: openblas block time / ours
 				calls := 0
 				t0 := time.Now()
 				arms[0]()
@@ -111,6 +114,7 @@ func BenchmarkVsOpenBLAS(b *testing.B) {
 				b.ResetTimer()
 				for calls < b.N {
 					k := min(block, b.N-calls)
+					var round [2]time.Duration
 					for i, run := range arms {
 						b.StopTimer()
 						time.Sleep(gap)
@@ -122,10 +126,12 @@ func BenchmarkVsOpenBLAS(b *testing.B) {
 						}
 						d := time.Since(start)
 						spent[i] += d
+						round[i] = d
 						if per := float64(d.Nanoseconds()) / float64(k); best[i] == 0 || per < best[i] {
 							best[i] = per
 						}
 					}
+					paired = append(paired, float64(round[1])/float64(round[0]))
 					calls += k
 				}
 				oursNs := float64(spent[0].Nanoseconds()) / float64(calls)
@@ -134,9 +140,24 @@ func BenchmarkVsOpenBLAS(b *testing.B) {
 				b.ReportMetric(blasNs, "openblas-ns/op")
 				b.ReportMetric(blasNs/oursNs, "ours/openblas")
 				b.ReportMetric(best[1]/best[0], "ours/openblas-best")
+				b.ReportMetric(median(paired), "ours/openblas-paired")
 				b.ReportMetric(float64(rows*cols*4)/best[0], "ours-best-GB/s")
 				b.Logf("kernel %s, %d workers", ours.Kernel(), ours.Workers())
 			})
 		}
 	}
+}
+
+// median returns the middle value of v (the mean of the two middle values
+// for an even count); v is reordered.
+func median(v []float64) float64 {
+	if len(v) == 0 {
+		return math.NaN()
+	}
+	sort.Float64s(v)
+	m := len(v) / 2
+	if len(v)%2 == 0 {
+		return (v[m-1] + v[m]) / 2
+	}
+	return v[m]
 }

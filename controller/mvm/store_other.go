@@ -1,0 +1,8 @@
+//go:build !linux
+
+package mvm
+
+import "unsafe"
+
+// store returns n zero bytes for the stored matrix, starting on a cache line.
+func (f *Fast) store(n int) unsafe.Pointer { return alignedBytes(n) }
