@@ -140,10 +140,14 @@ func New(c Config, p *optics.Pupil) (*Atmosphere, error) {
 	}
 	side := float64(s) * p.Scale
 	// The stored screens repeat their first N+1 rows and columns, so the pupil window
-	// with its interpolation margin is always contiguous.
-	ext := p.N + 1
+	// with its interpolation margin is always contiguous; rounded up to whole
+	// vectors of 8, so that every screen column of a window row is blended by
+	// the same kernel whatever the window's offset (the vector and scalar
+	// kernels round differently), and the sampled turbulence does not depend
+	// on where the layer stands.
+	ext := (p.N + 1 + 7) &^ 7
 	stride := s + ext
-	a := &Atmosphere{p: p, r0: r0, gen: gen, size: s, df: 1 / side, stride: stride, rowBuf: make([]float32, p.N+1)}
+	a := &Atmosphere{p: p, r0: r0, gen: gen, size: s, df: 1 / side, stride: stride, rowBuf: make([]float32, ext)}
 	a.wrap = side * math.Pow(3, float64(gen.levels))
 	a.waves = newWaveTable(gen.levels, p.N, p.N, p.Scale, a.df)
 	for i, lc := range c.Layers {
@@ -291,7 +295,8 @@ func (a *Atmosphere) subharmonics() {
 // addLayer adds the periodic part of l, sampled at the pupil positions shifted by
 // −(x, y) with bilinear interpolation. The shift is the same for every sample, so the
 // weights are computed once; each output row interpolates vertically into rowBuf
-// (N+1 values, both screens blended), then horizontally.
+// (N+1 values and the padding to whole vectors, both screens blended), then
+// horizontally: blend4 and lerpAdd, vector kernels where the CPU has them.
 func (a *Atmosphere) addLayer(l *layer, out []float64) {
 	n, s, stride := a.p.N, a.size, a.stride
 	u := -l.x / a.p.Scale
@@ -306,19 +311,11 @@ func (a *Atmosphere) addLayer(l *layer, out []float64) {
 	a0, a1 := float32(cs*(1-fy)), float32(cs*fy)
 	b0, b1 := float32(sn*(1-fy)), float32(sn*fy)
 	wl, wr := (1-fx)*l.weight, fx*l.weight
-	buf := a.rowBuf[:n+1]
+	buf := a.rowBuf
 	for iy := 0; iy < n; iy++ {
 		r0 := (j0+iy)*stride + i0
 		r1 := r0 + stride
-		f0, f1 := l.from[r0:r0+len(buf)], l.from[r1:r1+len(buf)]
-		t0, t1 := l.to[r0:r0+len(buf)], l.to[r1:r1+len(buf)]
-		for k := range buf {
-			buf[k] = a0*f0[k] + a1*f1[k] + b0*t0[k] + b1*t1[k]
-		}
-		row := out[iy*n : iy*n+n]
-		left, right := buf[:len(row)], buf[1:len(row)+1]
-		for ix := range row {
-			row[ix] += wl*float64(left[ix]) + wr*float64(right[ix])
-		}
+		blend4(buf, l.from[r0:r0+len(buf)], l.from[r1:r1+len(buf)], l.to[r0:r0+len(buf)], l.to[r1:r1+len(buf)], a0, a1, b0, b1)
+		lerpAdd(out[iy*n:iy*n+n], buf[:n+1], wl, wr)
 	}
 }

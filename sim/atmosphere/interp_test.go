@@ -1,0 +1,68 @@
+package atmosphere
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+// TestInterpKernels holds the assembly inner loops to the portable ones on
+// fresh random rows of odd lengths, with the outputs beyond the row poisoned
+// so that a kernel writing past its end is caught. Both compute the same
+// products in a different order (the assembly fuses multiply and add), so
+// they agree to a few float rounding steps, not bit for bit.
+func TestInterpKernels(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	row := func(n int) []float32 {
+		v := make([]float32, n)
+		for i := range v {
+			v[i] = float32(rng.NormFloat64() * 10)
+		}
+		return v
+	}
+	for _, n := range []int{1, 3, 7, 8, 9, 31, 97, 161, 257} {
+		f0, f1, t0, t1 := row(n), row(n), row(n), row(n)
+		got := make([]float32, n+3)
+		want := make([]float32, n)
+		for i := range got {
+			got[i] = float32(math.NaN())
+		}
+		a0, a1, b0, b1 := float32(0.3), float32(0.2), float32(0.4), float32(0.1)
+		blend4(got[:n], f0, f1, t0, t1, a0, a1, b0, b1)
+		blend4Go(want, f0, f1, t0, t1, a0, a1, b0, b1)
+		for i := range want {
+			if d := math.Abs(float64(got[i] - want[i])); d > 1e-5*(1+math.Abs(float64(want[i]))) {
+				t.Fatalf("blend4 n=%d [%d]: %g, portable %g", n, i, got[i], want[i])
+			}
+		}
+		for i := n; i < len(got); i++ {
+			if !math.IsNaN(float64(got[i])) {
+				t.Fatalf("blend4 n=%d wrote element %d beyond the row", n, i)
+			}
+		}
+		src := row(n + 1)
+		out := make([]float64, n+3)
+		ref := make([]float64, n)
+		for i := range out {
+			out[i] = float64(i)
+			if i >= n {
+				out[i] = math.NaN()
+			}
+		}
+		for i := range ref {
+			ref[i] = float64(i)
+		}
+		lerpAdd(out[:n], src, 0.7, 0.3)
+		lerpAddGo(ref, src, 0.7, 0.3)
+		for i := range ref {
+			if d := math.Abs(out[i] - ref[i]); d > 1e-12*(1+math.Abs(ref[i])) {
+				t.Fatalf("lerpAdd n=%d [%d]: %g, portable %g", n, i, out[i], ref[i])
+			}
+		}
+		for i := n; i < len(out); i++ {
+			if !math.IsNaN(out[i]) {
+				t.Fatalf("lerpAdd n=%d wrote element %d beyond the row", n, i)
+			}
+		}
+	}
+}
