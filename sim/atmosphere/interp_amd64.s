@@ -59,3 +59,50 @@ lerploop:
 lerpdone:
 	VZEROUPPER
 	RET
+
+// func waves6AVX2(row *float64, n int, add bool, base float64, x *[6]*float64, c *[6]float64)
+// row[i] (= or +=) base + Σ_j x[j][i]·c[j] for i < n, n a multiple of 4.
+TEXT ·waves6AVX2(SB), NOSPLIT, $0-48
+	MOVQ         row+0(FP), DI
+	MOVQ         n+8(FP), CX
+	MOVBLZX      add+16(FP), DX
+	VBROADCASTSD base+24(FP), Y15
+	MOVQ         x+32(FP), SI
+	MOVQ         c+40(FP), BX
+	MOVQ         0(SI), R8
+	MOVQ         8(SI), R9
+	MOVQ         16(SI), R10
+	MOVQ         24(SI), R11
+	MOVQ         32(SI), R12
+	MOVQ         40(SI), R13
+	VBROADCASTSD 0(BX), Y8
+	VBROADCASTSD 8(BX), Y9
+	VBROADCASTSD 16(BX), Y10
+	VBROADCASTSD 24(BX), Y11
+	VBROADCASTSD 32(BX), Y12
+	VBROADCASTSD 40(BX), Y13
+	XORQ         AX, AX
+	SHRQ         $2, CX
+	JZ           wavesdone
+
+wavesloop:
+	VMOVAPD     Y15, Y0
+	VFMADD231PD (R8)(AX*8), Y8, Y0
+	VFMADD231PD (R9)(AX*8), Y9, Y0
+	VFMADD231PD (R10)(AX*8), Y10, Y0
+	VFMADD231PD (R11)(AX*8), Y11, Y0
+	VFMADD231PD (R12)(AX*8), Y12, Y0
+	VFMADD231PD (R13)(AX*8), Y13, Y0
+	TESTQ       DX, DX
+	JZ          wavesstore
+	VADDPD      (DI)(AX*8), Y0, Y0
+
+wavesstore:
+	VMOVUPD Y0, (DI)(AX*8)
+	ADDQ    $4, AX
+	DECQ    CX
+	JNZ     wavesloop
+
+wavesdone:
+	VZEROUPPER
+	RET

@@ -64,5 +64,33 @@ func TestInterpKernels(t *testing.T) {
 				t.Fatalf("lerpAdd n=%d wrote element %d beyond the row", n, i)
 			}
 		}
+		var x [6][]float64
+		var c [6]float64
+		for j := range x {
+			x[j] = make([]float64, n)
+			for i := range x[j] {
+				x[j][i] = rng.NormFloat64()
+			}
+			c[j] = rng.NormFloat64()
+		}
+		for _, add := range []bool{false, true} {
+			copy(out, ref)
+			for i := n; i < len(out); i++ {
+				out[i] = math.NaN()
+			}
+			want := append([]float64(nil), ref...)
+			waves6(out[:n], add, 0.25, x, c)
+			waves6Go(want, add, 0.25, x, c)
+			for i := range want {
+				if d := math.Abs(out[i] - want[i]); d > 1e-12*(1+math.Abs(want[i])) {
+					t.Fatalf("waves6 n=%d add=%v [%d]: %g, portable %g", n, add, i, out[i], want[i])
+				}
+			}
+			for i := n; i < len(out); i++ {
+				if !math.IsNaN(out[i]) {
+					t.Fatalf("waves6 n=%d wrote element %d beyond the row", n, i)
+				}
+			}
+		}
 	}
 }

@@ -181,15 +181,7 @@ func (w *waveTable) eval(c *shCoef, out []float64, add bool) {
 			x1r, x1i := w.xr[p+1][:len(row)], w.xi[p+1][:len(row)]
 			x2r, x2i := w.xr[p+2][:len(row)], w.xi[p+2][:len(row)]
 			a0, b0, a1, b1, a2, b2 := w.alpha[p], w.beta[p], w.alpha[p+1], w.beta[p+1], w.alpha[p+2], w.beta[p+2]
-			first := p == 0 && !add
-			for ix := range row {
-				v := base + x0r[ix]*a0 + x0i[ix]*b0 + x1r[ix]*a1 + x1i[ix]*b1 + x2r[ix]*a2 + x2i[ix]*b2
-				if first {
-					row[ix] = v
-				} else {
-					row[ix] += v
-				}
-			}
+			waves6(row, p > 0 || add, base, [6][]float64{x0r, x0i, x1r, x1i, x2r, x2i}, [6]float64{a0, b0, a1, b1, a2, b2})
 			base = 0
 		}
 	}
