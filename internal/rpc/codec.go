@@ -67,9 +67,10 @@ func (FrameCodec) Marshal(v any) (mem.BufferSlice, error) {
 // its pool once the last holder (the sender and the connection's writer) lets
 // go; a slot is its own pool, so that hand-back marks it free. Reusing the
 // slot's bytes and its one-element BufferSlice is what makes a steady loop's
-// send allocate nothing in this codec: a fresh BufferSlice per message would
-// be a heap object, and so would the pool's buffer for a message of 1 KiB or
-// less (mem.NewBuffer wraps those in a plain slice and never returns them).
+// send allocate nothing in this codec: a fresh BufferSlice per message is a
+// heap object, and mem.NewBuffer wraps a buffer of 1 KiB capacity or less in a
+// plain slice (another) and never returns it, so a slot keeps its capacity
+// above that.
 type sendSlot struct {
 	busy atomic.Bool
 	data []byte
