@@ -2,6 +2,7 @@ package main
 
 import (
 	"os"
+	"runtime"
 	"strings"
 
 	"stillsky/controller/mvm"
@@ -34,6 +35,7 @@ func runBench(args []string) error {
 	bf16 := fs.Bool("bf16", false, "store the control matrix as bfloat16")
 	cpu := fs.Int("rt-cpu", -1, "pin the loop's real-time thread to this CPU (-1: no pinning)")
 	fifo := fs.Int("rt-fifo", 0, "run the loop's real-time thread under SCHED_FIFO at this priority (0: normal)")
+	workers := fs.Int("mvm-workers", -1, "threads of the loop's matrix-vector multiply (0: chosen by size; -1: 1 on a machine of 2 CPUs or fewer, whose other CPU the simulator needs, else by size)")
 	simCPUs := fs.String("sim-cpus", "", "pin the simulator's process to these CPUs, e.g. 0 (\"\": no pinning)")
 	inProcess := fs.Bool("in-process", false, "run the simulated bench inside the loop's process instead of as its own")
 	logLevel := fs.String("log-level", "warn", "log level of bench and loop")
@@ -50,13 +52,21 @@ func runBench(args []string) error {
 			return err
 		}
 	}
+	kernel := kernelOptions(*bf16)
+	kernel.Workers = *workers
+	if *workers < 0 {
+		kernel.Workers = 0
+		if runtime.NumCPU() <= 2 {
+			kernel.Workers = 1
+		}
+	}
 	ctx, stop := signalContext()
 	defer stop()
 	rs, err := latbench.Run(ctx, latbench.Config{
 		SimulatorExecutable: sim, SimulatorCPUs: *simCPUs,
 		Realtime:  daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo},
 		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
-		Chunks: *chunks, Out: os.Stdout, Logger: log, Kernel: kernelOptions(*bf16),
+		Chunks: *chunks, Out: os.Stdout, Logger: log, Kernel: kernel,
 	})
 	if err != nil {
 		return err

@@ -518,6 +518,10 @@ func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 					return err
 				}
 			}
+			// Send only queues the frame for the transport's writer goroutine;
+			// let it run now on this thread rather than after the next wait,
+			// which may be a system call that keeps the thread's processor.
+			runtime.Gosched()
 		}
 	}
 }
