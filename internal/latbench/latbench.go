@@ -2,7 +2,9 @@
 // scenario and transport (TCP loopback, unix socket) it runs the bench
 // free-running and the loop daemon closed, records every frame's timings, and in
 // the same run measures the transport floor with a bare gRPC ping-pong of the same
-// payload sizes.
+// payload sizes against the bench's probe service, once the loop has stopped and
+// while the bench still runs: between the same two processes, over the same kind
+// of connection, with the simulator as busy as in the closed loop.
 package latbench
 
 import (
@@ -20,9 +22,6 @@ import (
 	"slices"
 	"time"
 
-	"google.golang.org/grpc"
-	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/status"
 
 	"stillsky/controller/mvm"
 	"stillsky/daemon"
@@ -150,12 +149,12 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 }
 
 // addrs returns the three addresses of one run on a transport.
-func addrs(transport, dir string) (camera, mirror, control, probe string) {
+func addrs(transport, dir string) (camera, mirror, control string) {
 	if transport == "unix" {
 		return "unix:" + filepath.Join(dir, "camera.sock"), "unix:" + filepath.Join(dir, "mirror.sock"),
-			"unix:" + filepath.Join(dir, "control.sock"), "unix:" + filepath.Join(dir, "probe.sock")
+			"unix:" + filepath.Join(dir, "control.sock")
 	}
-	return "127.0.0.1:0", "127.0.0.1:0", "127.0.0.1:0", "127.0.0.1:0"
+	return "127.0.0.1:0", "127.0.0.1:0", "127.0.0.1:0"
 }
 
 func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport string) (*Result, error) {
@@ -164,7 +163,7 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 		return nil, err
 	}
 	defer os.RemoveAll(dir)
-	camAddr, mirAddr, ctlAddr, probeAddr := addrs(transport, dir)
+	camAddr, mirAddr, ctlAddr := addrs(transport, dir)
 
 	ctx, cancel := context.WithCancel(ctx)
 	defer cancel()
@@ -198,7 +197,9 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 		return nil, err
 	}
 	loopDone := make(chan error, 1)
-	go func() { loopDone <- d.Run(ctx) }()
+	loopCtx, stopLoop := context.WithCancel(ctx)
+	defer stopLoop()
+	go func() { loopDone <- d.Run(loopCtx) }()
 	conn, err := rpc.Dial(addrString(ctlNetwork(transport), d.ControlAddr()))
 	if err != nil {
 		return nil, err
@@ -233,21 +234,25 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 	if after.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED {
 		return nil, fmt.Errorf("the loop left the closed state during the run (now %v, last interlock %q)", after.GetState(), after.GetLastInterlock())
 	}
-	cancel()
-	for _, ch := range []chan error{benchDone, loopDone} {
-		if err := <-ch; err != nil && !errors.Is(err, context.Canceled) {
-			return nil, err
-		}
+	// The loop stops; the bench runs on, its camera clock ticking and its
+	// simulation as busy as before, and the transport floor is measured against
+	// it: between the same two processes, over the same kind of connection.
+	stopLoop()
+	if err := <-loopDone; err != nil && !errors.Is(err, context.Canceled) {
+		return nil, err
 	}
 	s := rec.Samples()
 	if len(s.RTC) < 10 {
 		return nil, fmt.Errorf("only %d frames recorded", len(s.RTC))
 	}
-
-	floor, err := measureFloor(context.Background(), transport, probeAddr, int(after.GetSlopeCount()), int(after.GetActuatorCount()),
+	floor, err := measureFloor(ctx, cameraAddr, int(after.GetSlopeCount()), int(after.GetActuatorCount()),
 		time.Duration(period*float64(time.Second)), min(len(s.RTC), 20000))
 	if err != nil {
 		return nil, fmt.Errorf("transport floor: %w", err)
+	}
+	cancel()
+	if err := <-benchDone; err != nil && !errors.Is(err, context.Canceled) {
+		return nil, err
 	}
 
 	r := &Result{
@@ -366,44 +371,11 @@ func waitFrames(ctx context.Context, c stillskyv1.ControlServiceClient, n uint64
 	return errors.New("the loop received no frames within 30 s")
 }
 
-// probeServer answers pings with pongs of the requested size.
-type probeServer struct {
-	stillskyv1.UnimplementedTransportProbeServiceServer
-}
-
-func (probeServer) Echo(stream grpc.BidiStreamingServer[stillskyv1.EchoRequest, stillskyv1.EchoResponse]) error {
-	req := &stillskyv1.EchoRequest{}
-	resp := &stillskyv1.EchoResponse{}
-	for {
-		if err := stream.RecvMsg(req); err != nil {
-			return nil
-		}
-		n := int(req.GetReplyValues())
-		if n > 1_000_000 {
-			return status.Errorf(codes.InvalidArgument, "probe: reply of %d values: at most 1000000", n)
-		}
-		if cap(resp.Values) < n {
-			resp.Values = make([]float32, n)
-		}
-		resp.Values = resp.Values[:n]
-		if err := stream.Send(resp); err != nil {
-			return err
-		}
-	}
-}
-
-// measureFloor runs count ping-pongs, one per frame period, of a slope frame
-// out and a command back, and returns the round-trip times in nanoseconds.
-func measureFloor(ctx context.Context, transport, addr string, slopes, actuators int, period time.Duration, count int) ([]int64, error) {
-	lis, err := rpc.Listen(addr)
-	if err != nil {
-		return nil, err
-	}
-	g, _ := rpc.NewServer([]string{stillskyv1.TransportProbeService_ServiceDesc.ServiceName})
-	stillskyv1.RegisterTransportProbeServiceServer(g, probeServer{})
-	go g.Serve(lis)
-	defer g.Stop()
-	conn, err := rpc.Dial(addrString(ctlNetwork(transport), lis.Addr().String()))
+// measureFloor runs count ping-pongs against the bench's transport probe at
+// addr, one per frame period, of a slope frame out and a command back, and
+// returns the round-trip times in nanoseconds.
+func measureFloor(ctx context.Context, addr string, slopes, actuators int, period time.Duration, count int) ([]int64, error) {
+	conn, err := rpc.Dial(addr, rpc.DeviceDialOptions()...)
 	if err != nil {
 		return nil, err
 	}

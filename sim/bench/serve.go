@@ -62,17 +62,20 @@ func Listen(a Addrs) (*Listeners, error) {
 func (b *Server) Serve(ctx context.Context, l *Listeners, extra ...func(*http.ServeMux)) error {
 	camSvc := stillskyv1.CameraService_ServiceDesc.ServiceName
 	mirSvc := stillskyv1.MirrorService_ServiceDesc.ServiceName
+	probeSvc := stillskyv1.TransportProbeService_ServiceDesc.ServiceName
 	var servers []*grpc.Server
 	errc := make(chan error, 4)
 	if l.Mirror == nil {
-		g, _ := rpc.NewServer([]string{camSvc, mirSvc}, rpc.DeviceServerOptions()...)
+		g, _ := rpc.NewServer([]string{camSvc, mirSvc, probeSvc}, rpc.DeviceServerOptions()...)
 		b.RegisterCamera(g)
 		b.RegisterMirror(g)
+		RegisterProbe(g)
 		servers = append(servers, g)
 		go func() { errc <- g.Serve(l.Camera) }()
 	} else {
-		gc, _ := rpc.NewServer([]string{camSvc}, rpc.DeviceServerOptions()...)
+		gc, _ := rpc.NewServer([]string{camSvc, probeSvc}, rpc.DeviceServerOptions()...)
 		b.RegisterCamera(gc)
+		RegisterProbe(gc)
 		gm, _ := rpc.NewServer([]string{mirSvc}, rpc.DeviceServerOptions()...)
 		b.RegisterMirror(gm)
 		servers = append(servers, gc, gm)
