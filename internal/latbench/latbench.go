@@ -22,7 +22,6 @@ import (
 	"slices"
 	"time"
 
-
 	"stillsky/controller/mvm"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
