@@ -22,10 +22,10 @@
 //
 // The product is bound by the bytes of A it reads (3300×6400 float32 is 84 MB,
 // beyond every cache; 850×1600 is 5.4 MB, beyond one core's 2 MB L2), so the
-// kernels are built to stream A at full speed. The AVX-512 float32 loop takes
-// eight rows per pass (one load of x feeds eight FMAs, sixteen accumulators
-// keep the FMA pipes busy) and prefetches each row 1 KiB ahead; the AVX2 loop
-// takes four. Every stored row starts on a cache line. A float32 row is
+// kernels are built to stream A at full speed. The AVX-512 float32 loop
+// takes eight rows per pass (one load of x feeds eight FMAs, sixteen
+// accumulators keep the FMA pipes busy) and prefetches each row 256 bytes
+// ahead; the AVX2 loop takes four. Every stored row starts on a cache line. A float32 row is
 // padded only to a whole line (16 columns) and the kernels mask the loads of
 // the last partial vector, so they take any column range and read x in
 // place, with no copy per product. A bfloat16 row is stored in blocks of 32

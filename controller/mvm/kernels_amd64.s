@@ -209,15 +209,16 @@ f2reduce:
 	RET
 
 // prefetchAhead is how far ahead of the loads the AVX-512 kernel prefetches
-// each row, in bytes: 16 cache lines. One PREFETCHT0 per row per 128-byte
-// step covers both lines of the step, as the L2 adjacent-line prefetcher
-// fetches the other half of each aligned 128-byte pair (Intel 64 and IA-32
+// each row, in bytes: two 128-byte steps. One PREFETCHT0 per row per step
+// covers both lines of the step, as the L2 adjacent-line prefetcher fetches
+// the other half of each aligned 128-byte pair (Intel 64 and IA-32
 // Architectures Optimization Reference Manual, "Data prefetching";
-// *from memory*). Measured by alternating prefetch distances on this
-// package's 8-row loop (BenchmarkMVM shapes): 1 KiB was best when the
-// matrix streams from DRAM (3300×6400: about +10 %) and neutral when it
-// comes from L3 (1300×2500); 4 KiB lost 10 % at 1300×2500.
-#define prefetchAhead 1024
+// *from memory*). Measured on this package's 8-row loop with the
+// BenchmarkMVM shapes, distances alternated in random order in one run:
+// against no prefetch, 256 B gained 4–7 % at 3300×6400 (streamed from DRAM)
+// and was even (±2 %) at 850×1600 and 1300×2500 (from L3); 1 KiB gained as
+// much at 3300×6400 but lost 2–3 % at 850×1600, and 2 KiB lost 9 % there.
+#define prefetchAhead 256
 
 // Z0–Z7 and Z8–Z15 are the two accumulators of rows 0–7 of a pass; Z16,
 // Z17 hold x.
