@@ -6,6 +6,7 @@ import (
 	"sync"
 	"testing"
 	"time"
+	"unsafe"
 )
 
 // benchShapes are the rows×cols of BenchmarkMVM: control matrices of roughly
@@ -68,7 +69,7 @@ func BenchmarkMVM(b *testing.B) {
 // and Machine Balance in Current High Performance Computers", IEEE TCCA
 // Newsletter, 1995; *from memory*), reduced to its read half.
 type reader struct {
-	data []float32
+	data []float32 // in store's memory, like a stored matrix
 	w    int
 	sums []float32
 	wg   sync.WaitGroup
@@ -77,7 +78,8 @@ type reader struct {
 
 func newReader(bytes, w int) *reader {
 	n := roundUp(bytes/4, 4*granule*w)
-	r := &reader{data: alignedFloat32(n), w: w, sums: make([]float32, w), sum: kernels()[0].sum}
+	r := &reader{w: w, sums: make([]float32, w), sum: kernels()[0].sum}
+	r.data = unsafe.Slice((*float32)(store(r, 4*n)), n)
 	for i := range r.data {
 		r.data[i] = 1
 	}

@@ -138,12 +138,12 @@ func NewFast(a *Matrix, opts Options) (*Fast, error) {
 	paddedRows := roundUp(a.Rows, 4)
 	if f.prec == BFloat16 {
 		f.stride = roundUp(a.Cols, granule)
-		f.b16 = unsafe.Slice((*uint16)(f.store(2*paddedRows*f.stride)), paddedRows*f.stride)
+		f.b16 = unsafe.Slice((*uint16)(store(f, 2*paddedRows*f.stride)), paddedRows*f.stride)
 		packBF16(f.b16, f.stride, a)
 		f.xs = alignedFloat32(f.stride)
 	} else {
 		f.stride = roundUp(a.Cols, lineFloats)
-		f.f32 = unsafe.Slice((*float32)(f.store(4*paddedRows*f.stride)), paddedRows*f.stride)
+		f.f32 = unsafe.Slice((*float32)(store(f, 4*paddedRows*f.stride)), paddedRows*f.stride)
 		for i := 0; i < a.Rows; i++ {
 			copy(f.f32[i*f.stride:], a.Row(i))
 		}

@@ -18,10 +18,11 @@ const hugePage = 2 << 20
 // instead of 3 000–20 000 pages of 4 KiB, one page walk per 4 KiB of each
 // streamed row. Measured against the same kernel on a heap copy, the two
 // alternated in one run: +3–5 % at 1300×2500, +2–4 % at 3300×6400, even at
-// 850×1600. The mapping is unmapped by a cleanup once f is unreachable.
+// 850×1600. The mapping is unmapped by a cleanup once owner is unreachable,
+// so owner must stay reachable while the memory is in use.
 // If mmap fails the matrix goes on the heap; if the advice is refused it
 // stays in small pages; either way only speed changes.
-func (f *Fast) store(n int) unsafe.Pointer {
+func store[T any](owner *T, n int) unsafe.Pointer {
 	if n < hugePage {
 		return alignedBytes(n)
 	}
@@ -31,6 +32,6 @@ func (f *Fast) store(n int) unsafe.Pointer {
 	}
 	off := (hugePage - int(uintptr(unsafe.Pointer(&m[0]))%hugePage)) % hugePage
 	_ = unix.Madvise(m[off:off+n], unix.MADV_HUGEPAGE) // advice only, see above
-	runtime.AddCleanup(f, func(m []byte) { _ = unix.Munmap(m) }, m)
+	runtime.AddCleanup(owner, func(m []byte) { _ = unix.Munmap(m) }, m)
 	return unsafe.Pointer(&m[off])
 }

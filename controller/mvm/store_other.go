@@ -5,4 +5,4 @@ package mvm
 import "unsafe"
 
 // store returns n zero bytes for the stored matrix, starting on a cache line.
-func (f *Fast) store(n int) unsafe.Pointer { return alignedBytes(n) }
+func store[T any](_ *T, n int) unsafe.Pointer { return alignedBytes(n) }
