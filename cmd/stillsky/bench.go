@@ -31,6 +31,7 @@ func runBench(args []string) error {
 	rate := fs.Float64("rate", 0, "frame rate in Hz (default: each scenario's)")
 	duration := fs.Duration("duration", 0, "closed-loop measurement per scenario and transport (default 10s)")
 	chunks := fs.Int("chunks", 0, "send each frame in this many chunks (pipelined reconstruction)")
+	readout := fs.Duration("readout-time", 0, "spread the chunks of a frame over this readout time; latencies count from its end (0: back to back)")
 	jsonOut := fs.String("json", "", "write the results as a JSON array to this file")
 	bf16 := fs.Bool("bf16", false, "store the control matrix as bfloat16")
 	cpu := fs.Int("rt-cpu", -1, "pin the loop's real-time thread to this CPU (-1: no pinning)")
@@ -66,7 +67,7 @@ func runBench(args []string) error {
 		SimulatorExecutable: sim, SimulatorCPUs: *simCPUs,
 		Realtime:  daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo},
 		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
-		Chunks: *chunks, Out: os.Stdout, Logger: log, Kernel: kernel,
+		Chunks: *chunks, ReadoutTime: *readout, Out: os.Stdout, Logger: log, Kernel: kernel,
 	})
 	if err != nil {
 		return err

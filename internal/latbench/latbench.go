@@ -43,6 +43,10 @@ type Config struct {
 	Duration time.Duration
 	// Chunks sends each frame in this many chunks (pipelined reconstruction).
 	Chunks int
+	// ReadoutTime spreads a chunked frame's chunks over this time, as a
+	// detector read out row by row delivers them; latencies count from the
+	// end of the readout, the last chunk.
+	ReadoutTime time.Duration
 	// SimulatorExecutable, if set, runs the bench as its own process from this
 	// stillsky binary; empty runs it inside this process.
 	SimulatorExecutable string
@@ -71,11 +75,20 @@ type Quantiles struct {
 
 // Result is one scenario on one transport.
 type Result struct {
-	Scenario        string    `json:"scenario"`
-	Transport       string    `json:"transport"`
-	RateHz          float64   `json:"rate_hz"`
-	Frames          int       `json:"frames"`
-	Chunks          int       `json:"chunks"`
+	Scenario  string  `json:"scenario"`
+	Transport string  `json:"transport"`
+	RateHz    float64 `json:"rate_hz"`
+	Frames    int     `json:"frames"`
+	Chunks    int     `json:"chunks"`
+	// The set-up: readout time of a chunked frame, the multiply's threads (0:
+	// chosen by size) and storage, the simulator's CPUs and the loop's
+	// real-time thread (CPU −1: not pinned; FIFO 0: normal scheduling).
+	ReadoutUs       float64   `json:"readout_us"`
+	MVMWorkers      int       `json:"mvm_workers"`
+	BFloat16        bool      `json:"bfloat16"`
+	SimCPUs         string    `json:"sim_cpus"`
+	RTCPU           int       `json:"rt_cpu"`
+	RTFIFO          int       `json:"rt_fifo"`
 	Slopes          int       `json:"slopes"`
 	Actuators       int       `json:"actuators"`
 	TransitUs       Quantiles `json:"transit_us"`
@@ -256,6 +269,8 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 
 	r := &Result{
 		Scenario: scn.Name, Transport: transport, RateHz: scn.Loop.FrameRate, Frames: len(s.RTC), Chunks: c.Chunks,
+		ReadoutUs: float64(c.ReadoutTime.Microseconds()), MVMWorkers: c.Kernel.Workers, BFloat16: c.Kernel.Precision == mvm.BFloat16,
+		SimCPUs: c.SimulatorCPUs, RTCPU: rtCPU(c.Realtime), RTFIFO: c.Realtime.FIFOPriority,
 		Slopes: int(after.GetSlopeCount()), Actuators: int(after.GetActuatorCount()),
 		TransitUs: quantiles(s.Transit), ComputeUs: quantiles(s.Compute), RTCUs: quantiles(s.RTC), EndToEndUs: quantiles(s.EndToEnd),
 		FloorUs: quantiles(floor), FramesDropped: after.GetFramesDropped() - before.GetFramesDropped(),
@@ -278,9 +293,16 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 	return r, nil
 }
 
+func rtCPU(r daemon.Realtime) int {
+	if r.Pin {
+		return r.CPU
+	}
+	return -1
+}
+
 // startInProcess serves the bench from this process, the loop's own.
 func startInProcess(ctx context.Context, c Config, scn *scenario.Scenario, camAddr, mirAddr string, done chan<- error) (string, string, error) {
-	b, err := bench.NewServer(scn, bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50})
+	b, err := bench.NewServer(scn, bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50, ReadoutTime: c.ReadoutTime})
 	if err != nil {
 		return "", "", err
 	}
@@ -314,7 +336,8 @@ func startSimulator(ctx context.Context, c Config, scn *scenario.Scenario, trans
 			return "", "", err
 		}
 	}
-	args := []string{"sim", "--scenario", path, "--camera", cam, "--mirror", mir, "--metrics", "", "--log-level", "warn"}
+	args := []string{"sim", "--scenario", path, "--camera", cam, "--mirror", mir, "--metrics", "", "--log-level", "warn",
+		"--readout-time", c.ReadoutTime.String()}
 	if c.SimulatorCPUs != "" {
 		args = append(args, "--cpus", c.SimulatorCPUs)
 	}
