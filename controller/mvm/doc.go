@@ -20,22 +20,23 @@
 // Options.Kernel forces one and New fails if the CPU or build lacks it.
 // Available lists the usable ones.
 //
-// The product is bound by the bytes of A it reads (3300×6400 float32 is 84 MB,
-// beyond every cache; 850×1600 is 5.4 MB, beyond one core's 2 MB L2), so the
-// kernels are built to stream A at full speed. The AVX-512 float32 loop
-// takes eight rows per pass (one load of x feeds eight FMAs, sixteen
-// accumulators keep the FMA pipes busy) and prefetches each row 256 bytes
-// ahead; the AVX2 loop takes four. Every stored row starts on a cache line. A float32 row is
-// padded only to a whole line (16 columns) and the kernels mask the loads of
-// the last partial vector, so they take any column range and read x in
-// place, with no copy per product. A bfloat16 row is stored in blocks of 32
-// columns (see packBF16); column ranges off that grid go through a padded
-// copy of x that is zero outside the range, and that is why New refuses a
-// matrix with non-finite elements (0·Inf would not vanish). Rows not a
-// multiple of 4 end in a zero-padded group whose extra results are dropped.
-// On Linux a stored matrix of 2 MiB or more gets its own mapping with
-// transparent huge pages requested, which cuts the TLB misses of streaming
-// it (see store).
+// The product is bound by the bytes of A it reads: 850×1600 float32 (5.4 MB)
+// and 1300×2500 (13 MB) stream from L3, beyond one core's 2 MB L2; 3300×6400
+// (84 MB) streams at DRAM speed here, although the guest reports a 105 MB
+// L3 (shared with the other guests of the host). So the kernels are built to
+// stream A at full speed. The AVX-512 float32 loop takes eight rows per pass
+// (one load of x feeds eight FMAs, sixteen accumulators keep the FMA pipes
+// busy) and prefetches each row 256 bytes ahead; the AVX2 loop takes four.
+// Every stored row starts on a cache line. A float32 row is padded only to a
+// whole line (16 columns) and the kernels mask the loads of the last partial
+// vector, so they take any column range and read x in place, with no copy
+// per product. A bfloat16 row is stored in blocks of 32 columns (see
+// packBF16); column ranges off that grid go through a padded copy of x that
+// is zero outside the range, and that is why New refuses a matrix with
+// non-finite elements (0·Inf would not vanish). Rows not a multiple of 4 end
+// in a zero-padded group whose extra results are dropped. On Linux a stored
+// matrix of 2 MiB or more gets its own mapping with transparent huge pages
+// requested, which cuts the TLB misses of streaming it (see store).
 //
 // # Reduced precision
 //
