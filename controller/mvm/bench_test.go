@@ -191,3 +191,34 @@ func BenchmarkMVMvsRead(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkMVMChunked alternates the whole product with the same product
+// taken in column chunks of odd width (MulVecCols, as a frame read out chunk
+// by chunk is multiplied), on the default kernel and threads, and reports
+// the chunked throughput relative to the whole (1: chunking costs nothing).
+func BenchmarkMVMChunked(b *testing.B) {
+	rng := rand.New(rand.NewPCG(3, 3))
+	for _, sh := range benchShapes {
+		rows, cols := sh[0], sh[1]
+		a := randomMatrix(rng, rows, cols)
+		x, y := randomVector(rng, cols), make([]float32, rows)
+		const chunks = 10
+		width := cols/chunks + 1 // not a multiple of any vector width for these shapes
+		b.Run(fmt.Sprintf("%dx%d/%dchunks", rows, cols, chunks), func(b *testing.B) {
+			m, err := New(a, Options{})
+			if err != nil {
+				b.Fatal(err)
+			}
+			defer m.Close()
+			chunked := func() {
+				clear(y)
+				for c := 0; c < cols; c += width {
+					m.MulVecCols(y, x, c, min(c+width, cols))
+				}
+			}
+			mean, best := alternate(b, func() { m.MulVec(y, x) }, chunked)
+			b.ReportMetric(mean[0]/mean[1], "chunked/whole")
+			b.ReportMetric(best[0]/best[1], "chunked/whole-best")
+		})
+	}
+}

@@ -72,7 +72,9 @@
 // plain, each SIMD kernel on 1 and 2 threads, bfloat16 and the automatic
 // choice. BenchmarkReadBandwidth is the STREAM-style read yardstick, and
 // BenchmarkMVMvsRead alternates the product and a read of the same byte count
-// in one run and reports their ratio (mvm/read). The openblasbench package
+// in one run and reports their ratio (mvm/read); BenchmarkMVMChunked does
+// the same for a product taken in ten column chunks against the whole
+// product (chunked/whole). The openblasbench package
 // alternates our product with OpenBLAS cblas_sgemv on the same thread count
 // and reports ours/openblas (> 1: ours is faster); it needs cgo and Debian
 // libopenblas-dev. On a shared machine quote medians of -count 5 or more.
