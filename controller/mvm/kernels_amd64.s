@@ -260,16 +260,22 @@ f2reduce:
 #define F5MASK(addr, acc) \
 	VFMADD231PS addr, Z16, K1, acc
 
-// F5HALF folds Zr + Zr+8 into Yr for r in 0–3 (base 0) or 4–7 (base 4).
-#define F5HALF(r0, r1, r2, r3, s0, s1, s2, s3, h0, h1, h2, h3) \
-	VADDPS s0, r0, r0 \
-	VADDPS s1, r1, r1 \
-	VADDPS s2, r2, r2 \
-	VADDPS s3, r3, r3 \
-	VEXTRACTF64X4 $1, r0, h0 \
-	VEXTRACTF64X4 $1, r1, h1 \
-	VEXTRACTF64X4 $1, r2, h2 \
-	VEXTRACTF64X4 $1, r3, h3
+// The row sums of a pass are reduced by transposing as they are added, all
+// in zmm registers: F5SUM2 leaves, in each 128-bit lane, two partial sums of
+// rows a and b interleaved (a, b, a, b); F5SUM4 combines two such results
+// into one partial sum of each of four rows per lane (r0, r1, r2, r3); what
+// is left is the sum of the four lanes. Fewer shuffles than extracting
+// halves and horizontal adds, and no 256-bit operation on Z16–Z31 (which
+// would need AVX-512VL).
+#define F5SUM2(a, b, t0, t1) \
+	VUNPCKLPS b, a, t0 \
+	VUNPCKHPS b, a, t1 \
+	VADDPS t1, t0, t0
+
+#define F5SUM4(s01, s23, t0, t1) \
+	VSHUFPS $0x44, s23, s01, t0 \
+	VSHUFPS $0xee, s23, s01, t1 \
+	VADDPS t1, t0, t0
 
 // func gemvF32AVX512(a unsafe.Pointer, stride uintptr, groups int, x *float32, n int, y *float32, add bool)
 //
@@ -350,35 +356,36 @@ f5ptail:
 	F5MASK((R9)(BX*2), Z15)
 
 f5preduce:
-	F5HALF(Z0, Z1, Z2, Z3, Z8, Z9, Z10, Z11, Y16, Y17, Y18, Y19)
-	F5HALF(Z4, Z5, Z6, Z7, Z12, Z13, Z14, Z15, Y20, Y21, Y22, Y23)
-	VADDPS Y16, Y0, Y0
-	VADDPS Y17, Y1, Y1
-	VADDPS Y18, Y2, Y2
-	VADDPS Y19, Y3, Y3
-	VADDPS Y20, Y4, Y4
-	VADDPS Y21, Y5, Y5
-	VADDPS Y22, Y6, Y6
-	VADDPS Y23, Y7, Y7
-	FOLD256
-	VEXTRACTF128 $1, Y4, X12
-	VADDPS X12, X4, X4
-	VEXTRACTF128 $1, Y5, X13
-	VADDPS X13, X5, X5
-	VEXTRACTF128 $1, Y6, X14
-	VADDPS X14, X6, X6
-	VEXTRACTF128 $1, Y7, X15
-	VADDPS X15, X7, X7
-	VHADDPS X5, X4, X4
-	VHADDPS X7, X6, X6
-	VHADDPS X6, X4, X4
+	VADDPS Z8, Z0, Z0
+	VADDPS Z9, Z1, Z1
+	VADDPS Z10, Z2, Z2
+	VADDPS Z11, Z3, Z3
+	VADDPS Z12, Z4, Z4
+	VADDPS Z13, Z5, Z5
+	VADDPS Z14, Z6, Z6
+	VADDPS Z15, Z7, Z7
+	F5SUM2(Z0, Z1, Z16, Z17)
+	F5SUM2(Z2, Z3, Z18, Z19)
+	F5SUM2(Z4, Z5, Z20, Z21)
+	F5SUM2(Z6, Z7, Z22, Z23)
+	F5SUM4(Z16, Z18, Z24, Z25)
+	F5SUM4(Z20, Z22, Z26, Z27)
+	VSHUFF32X4 $0x44, Z26, Z24, Z28
+	VSHUFF32X4 $0xee, Z26, Z24, Z29
+	VADDPS Z29, Z28, Z28
+	VSHUFF32X4 $0xb1, Z28, Z28, Z29
+	VADDPS Z29, Z28, Z0
+	VEXTRACTF32X4 $2, Z0, X1
 	TESTQ R13, R13
-	JZ   2(PC)
-	VADDPS 16(R12), X4, X4
-	VMOVUPS X4, 16(R12)
-	REDUCE4
-	ADDQ $16, R12
-	LEAQ (SI)(BX*4), SI
+	JZ   f5pstore
+	VADDPS (R12), X0, X0
+	VADDPS 16(R12), X1, X1
+
+f5pstore:
+	VMOVUPS X0, (R12)
+	VMOVUPS X1, 16(R12)
+	ADDQ $32, R12
+	LEAQ (SI)(BX*8), SI
 	SUBQ $2, CX
 	JMP  f5pair
 
@@ -419,13 +426,21 @@ f5ftail:
 	F5MASK((R8)(R14*1), Z11)
 
 f5freduce:
-	F5HALF(Z0, Z1, Z2, Z3, Z8, Z9, Z10, Z11, Y16, Y17, Y18, Y19)
-	VADDPS Y16, Y0, Y0
-	VADDPS Y17, Y1, Y1
-	VADDPS Y18, Y2, Y2
-	VADDPS Y19, Y3, Y3
-	FOLD256
-	REDUCE4
+	VADDPS Z8, Z0, Z0
+	VADDPS Z9, Z1, Z1
+	VADDPS Z10, Z2, Z2
+	VADDPS Z11, Z3, Z3
+	F5SUM2(Z0, Z1, Z16, Z17)
+	F5SUM2(Z2, Z3, Z18, Z19)
+	F5SUM4(Z16, Z18, Z24, Z25)
+	VSHUFF32X4 $0xee, Z24, Z24, Z25
+	VADDPS Z25, Z24, Z24
+	VSHUFF32X4 $0xb1, Z24, Z24, Z25
+	VADDPS Z25, Z24, Z0
+	TESTQ R13, R13
+	JZ   2(PC)
+	VADDPS (R12), X0, X0
+	VMOVUPS X0, (R12)
 
 f5done:
 	VZEROUPPER
@@ -482,14 +497,14 @@ TEXT ·gemvBF16AVX512(SB), NOSPLIT, $0-49
 
 b5group:
 	ROWPTRS
-	VXORPS Z0, Z0, Z0
-	VXORPS Z1, Z1, Z1
-	VXORPS Z2, Z2, Z2
-	VXORPS Z3, Z3, Z3
-	VXORPS Z4, Z4, Z4
-	VXORPS Z5, Z5, Z5
-	VXORPS Z6, Z6, Z6
-	VXORPS Z7, Z7, Z7
+	VPXORD Z0, Z0, Z0
+	VPXORD Z1, Z1, Z1
+	VPXORD Z2, Z2, Z2
+	VPXORD Z3, Z3, Z3
+	VPXORD Z4, Z4, Z4
+	VPXORD Z5, Z5, Z5
+	VPXORD Z6, Z6, Z6
+	VPXORD Z7, Z7, Z7
 
 b5loop:
 	VMOVUPS (DI)(AX*2), Z8
@@ -556,14 +571,14 @@ s2loop:
 // product's own loads can.
 TEXT ·sumF32AVX512(SB), NOSPLIT, $0-20
 	SUMPTRS
-	VXORPS Z0, Z0, Z0
-	VXORPS Z1, Z1, Z1
-	VXORPS Z2, Z2, Z2
-	VXORPS Z3, Z3, Z3
-	VXORPS Z4, Z4, Z4
-	VXORPS Z5, Z5, Z5
-	VXORPS Z6, Z6, Z6
-	VXORPS Z7, Z7, Z7
+	VPXORD Z0, Z0, Z0
+	VPXORD Z1, Z1, Z1
+	VPXORD Z2, Z2, Z2
+	VPXORD Z3, Z3, Z3
+	VPXORD Z4, Z4, Z4
+	VPXORD Z5, Z5, Z5
+	VPXORD Z6, Z6, Z6
+	VPXORD Z7, Z7, Z7
 
 s5loop:
 	PREFETCHT0 prefetchAhead(R8)(AX*1)
