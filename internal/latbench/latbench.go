@@ -105,6 +105,10 @@ type Result struct {
 	// controller's own per-frame work fills 99% of frame periods. The simulated
 	// camera may be slower than that.
 	MaxRateHz float64 `json:"max_rate_hz"`
+	// StealPercent is the share of the machine's CPU time that the hypervisor
+	// gave to other guests during the measurement (/proc/stat), −1 when it
+	// cannot be read. On a shared virtual machine it sets the tails.
+	StealPercent float64 `json:"cpu_steal_percent"`
 }
 
 var benchGain = 0.2
@@ -232,6 +236,7 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 	if err != nil {
 		return nil, err
 	}
+	cpu0, errCPU0 := readCPUTimes("/proc/stat")
 	rec.Start()
 	select {
 	case <-ctx.Done():
@@ -239,6 +244,7 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 	case <-time.After(c.Duration):
 	}
 	rec.Stop()
+	cpu1, errCPU1 := readCPUTimes("/proc/stat")
 	after, err := client.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
 	if err != nil {
 		return nil, err
@@ -274,6 +280,7 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 		Slopes: int(after.GetSlopeCount()), Actuators: int(after.GetActuatorCount()),
 		TransitUs: quantiles(s.Transit), ComputeUs: quantiles(s.Compute), RTCUs: quantiles(s.RTC), EndToEndUs: quantiles(s.EndToEnd),
 		FloorUs: quantiles(floor), FramesDropped: after.GetFramesDropped() - before.GetFramesDropped(),
+		StealPercent: stealPercent(cpu0, cpu1, errCPU0, errCPU1),
 	}
 	jitter := make([]int64, 0, len(s.Arrival))
 	pns := int64(period * 1e9)
@@ -459,12 +466,12 @@ func WriteJSON(path string, rs []Result) error {
 
 // WriteTable prints the results as a Markdown table (µs).
 func WriteTable(w io.Writer, rs []Result) {
-	fmt.Fprintln(w, "\n| scenario | transport | rate | frames | camera→loop p50/p99 | compute p50/p99/p99.9/max | rtc p50/p99/p99.9/max | end-to-end p50/p99/p99.9/max | floor p50/p99 | arrival jitter p99 | missed | dropped | max rate |")
-	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
+	fmt.Fprintln(w, "\n| scenario | transport | rate | frames | camera→loop p50/p99 | compute p50/p99/p99.9/max | rtc p50/p99/p99.9/max | end-to-end p50/p99/p99.9/max | floor p50/p99 | arrival jitter p99 | missed | dropped | max rate | cpu steal |")
+	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
 	for _, r := range rs {
 		f := func(q Quantiles) string { return fmt.Sprintf("%.1f / %.1f / %.1f / %.1f", q.P50, q.P99, q.P999, q.Max) }
-		fmt.Fprintf(w, "| %s | %s | %.0f Hz | %d | %.1f / %.1f | %s | %s | %s | %.1f / %.1f | %.1f | %d | %d | %.0f Hz |\n",
+		fmt.Fprintf(w, "| %s | %s | %.0f Hz | %d | %.1f / %.1f | %s | %s | %s | %.1f / %.1f | %.1f | %d | %d | %.0f Hz | %.1f %% |\n",
 			r.Scenario, r.Transport, r.RateHz, r.Frames, r.TransitUs.P50, r.TransitUs.P99, f(r.ComputeUs), f(r.RTCUs), f(r.EndToEndUs),
-			r.FloorUs.P50, r.FloorUs.P99, r.ArrivalJitterUs.P99, r.MissedDeadlines, r.FramesDropped, r.MaxRateHz)
+			r.FloorUs.P50, r.FloorUs.P99, r.ArrivalJitterUs.P99, r.MissedDeadlines, r.FramesDropped, r.MaxRateHz, r.StealPercent)
 	}
 }
