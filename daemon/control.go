@@ -367,7 +367,7 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 	if err != nil {
 		return status.Error(codes.InvalidArgument, err.Error())
 	}
-	cal := &calibration{c: c, done: make(chan struct{})}
+	cal := &calibration{c: c, done: make(chan struct{}), block: cc.SettleFrames + cc.FramesPerPattern}
 	if !d.cal.CompareAndSwap(nil, cal) {
 		return status.Error(codes.FailedPrecondition, "a calibration is already running")
 	}

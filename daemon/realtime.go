@@ -41,7 +41,20 @@ type calibration struct {
 	aborted  atomic.Bool
 	progress atomic.Int64 // frames consumed
 	started  bool         // real-time goroutine only: the first pattern has been sent
+	// Real-time goroutine only. block is the frames of one push or pull block;
+	// blockAt the calibrator's frame count at which the current block began,
+	// blockFrame the number of the frame whose command began it, and waited
+	// how many frames have been held back since.
+	block      int
+	blockAt    int
+	blockFrame uint64
+	waited     int
 }
+
+// maxCalibrationWait bounds how many frames a free-running calibration holds
+// back waiting for a block's command to show: a mirror that never
+// acknowledges slows calibration down but does not stop it.
+const maxCalibrationWait = 50
 
 // session connects to both devices, learns the geometry and runs the real-time
 // loop until a device fails or ctx ends.
@@ -156,9 +169,13 @@ type realtime struct {
 	// the previous frame was skipped for it.
 	staleNs int64
 	skipped bool
-	// readout times of recent frames by frame number, for end-to-end latency.
+	// readout times of recent frames by frame number, for end-to-end latency,
+	// and the mirror's receive time of the command answering each (0 until
+	// acknowledged).
 	readout [readoutRing]atomic.Int64
 	tags    [readoutRing]atomic.Uint64
+	acked   [readoutRing]atomic.Int64
+	period  int64 // ns
 }
 
 const readoutRing = 1024
@@ -176,6 +193,7 @@ func newRealtime(d *Daemon, g *geometry) *realtime {
 		state:   loopState(d.state.Load()),
 		guard:   guard{cfg: d.cfg.Interlocks},
 		staleNs: int64(2e9 / g.frameRate),
+		period:  int64(1e9 / g.frameRate),
 	}
 	rt.out.Values = rt.cmd
 	d.telemetry.init(g.slopes, g.actuators)
@@ -226,6 +244,7 @@ func (rt *realtime) run(ctx context.Context, frames grpc.ServerStreamingClient[s
 			continue
 		}
 		slot := num % readoutRing
+		rt.acked[slot].Store(0)
 		rt.readout[slot].Store(f.GetReadoutEndNs())
 		rt.tags[slot].Store(num)
 
@@ -367,10 +386,13 @@ func (rt *realtime) compute() controller.Result {
 			copy(rt.cmd, rt.flat)
 			break
 		}
-		if cal.started {
+		if cal.started && rt.showsBlock(cal, rt.frame) {
 			// The frame was validated by assemble, so Feed cannot refuse it.
 			_ = cal.c.Feed(rt.slopes)
 			cal.progress.Store(int64(progressOf(cal.c)))
+		}
+		if done, _ := cal.c.Progress(); !cal.started || done%cal.block == 0 && done != cal.blockAt {
+			cal.blockAt, cal.blockFrame, cal.waited = done, rt.frame.GetFrameNumber(), 0
 		}
 		cal.started = true
 		if cal.c.Done() {
@@ -499,6 +521,27 @@ func (rt *realtime) publish(res controller.Result) {
 	d.stats.store(res)
 }
 
+// showsBlock reports whether frame f can show the command that began the
+// current calibration block. Lockstep cameras guarantee it by their delay. A
+// free-running camera shows at frame j the command that had reached the mirror
+// by the readout before it, so a command that arrives late (a busy machine, a
+// slow link) shows a frame or more later than the loop delay says: frame f
+// counts only once the mirror has acknowledged the block's command at least a
+// frame period before f's readout. The calibrator's settle frames then follow.
+func (rt *realtime) showsBlock(cal *calibration, f *stillskyv1.StreamFramesResponse) bool {
+	if rt.g.lockstep {
+		return true
+	}
+	slot := cal.blockFrame % readoutRing
+	if rt.tags[slot].Load() == cal.blockFrame {
+		if at := rt.acked[slot].Load(); at != 0 && at <= f.GetReadoutEndNs()-rt.period {
+			return true
+		}
+	}
+	cal.waited++
+	return cal.waited > maxCalibrationWait
+}
+
 // acks reads the mirror's acknowledgements and turns them into end-to-end latency.
 func (rt *realtime) acks(cmds grpc.BidiStreamingClient[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
 	ack := &stillskyv1.StreamCommandsResponse{}
@@ -511,6 +554,7 @@ func (rt *realtime) acks(cmds grpc.BidiStreamingClient[stillskyv1.StreamCommands
 		if rt.tags[slot].Load() != num {
 			continue
 		}
+		rt.acked[slot].Store(ack.GetReceivedNs())
 		e2e := ack.GetReceivedNs() - rt.readout[slot].Load()
 		if e2e < 0 {
 			continue

@@ -67,10 +67,9 @@ type pendingCommand struct {
 }
 
 type frameSlot struct {
-	number     uint64
-	due        int64 // free-run: the readout tick, when the frame may leave
-	readoutEnd int64
-	slopes     []float32
+	number uint64
+	due    int64 // free-run: the readout tick, when the frame may leave
+	slopes []float32
 }
 
 // historyRing holds the newest free-run commands with their arrival times.
@@ -497,22 +496,25 @@ func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 			return nil
 		case seq := <-b.ready:
 			slot := &b.slots[seq%ringSize]
-			if slot.due != 0 {
-				waitUntil(slot.due)
+			// Free-running, the frame is read out at its tick, and that is its
+			// stamp even when this goroutine gets the CPU late: the delay of a
+			// late send is the link's, and the loop sees it. Lockstep frames are
+			// read out when produced.
+			start := slot.due
+			if start != 0 {
+				waitUntil(start)
+			} else {
+				start = monoclock.Now()
 			}
-			slot.readoutEnd = monoclock.Now()
 			msg.FrameNumber = slot.number
 			msg.ChunkCount = uint32(len(rows))
 			for c, r := range rows {
 				msg.ChunkIndex = uint32(c)
 				msg.Offset = uint32(r[0])
 				msg.Slopes = slot.slopes[r[0]:r[1]]
-				msg.ReadoutEndNs = slot.readoutEnd
-				if c > 0 {
-					if b.opt.ReadoutTime > 0 {
-						waitUntil(slot.readoutEnd + int64(b.opt.ReadoutTime)*int64(c)/int64(len(rows)))
-					}
-					msg.ReadoutEndNs = monoclock.Now()
+				msg.ReadoutEndNs = start + int64(b.opt.ReadoutTime)*int64(c)/int64(len(rows))
+				if c > 0 && b.opt.ReadoutTime > 0 {
+					waitUntil(msg.ReadoutEndNs)
 				}
 				if err := stream.Send(msg); err != nil {
 					return err
