@@ -9,8 +9,8 @@ import (
 	"testing"
 	"time"
 
-	"google.golang.org/grpc"
 	"gonum.org/v1/gonum/mat"
+	"google.golang.org/grpc"
 
 	"stillsky/controller"
 	"stillsky/daemon"
