@@ -8,6 +8,7 @@ import (
 	"time"
 
 	"stillsky/daemon"
+	"stillsky/internal/cpustat"
 	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/bench"
@@ -21,7 +22,10 @@ import (
 // warmed-up sample, and the loop may miss (frames dropped by the camera because
 // the loop fell behind) at most 5 % of the frames in a soak of its own
 // (STILLSKY_SOAK), or 15 % in the default 5 s run, which shares the machine with
-// the rest of `go test ./...` running in parallel.
+// the rest of `go test ./...`. On a virtual machine the hypervisor's stolen CPU
+// time adds to the limit twice over (our choice, from runs here): a stolen
+// stretch of time makes the frames of that stretch late, and the loop skips a
+// frame that arrives more than two periods after its readout by design.
 const (
 	soakGoroutineSlack = 5
 	soakHeapGrowth     = 0.20
@@ -105,6 +109,7 @@ func TestSoak(t *testing.T) {
 	time.Sleep(time.Second) // warm-up: pools, rings and buffers reach their size
 	g0, h0 := sample()
 	s0 := r.status(t)
+	cpu0, errCPU0 := cpustat.Read("/proc/stat")
 	maxG, maxH := g0, h0
 	tick := time.NewTicker(time.Second)
 	defer tick.Stop()
@@ -118,6 +123,11 @@ func TestSoak(t *testing.T) {
 	}
 	g1, h1 := sample()
 	s1 := r.status(t)
+	cpu1, errCPU1 := cpustat.Read("/proc/stat")
+	if steal := cpustat.StealPercent(cpu0, cpu1, errCPU0, errCPU1); steal > 0 {
+		t.Logf("the hypervisor stole %.1f %% of the CPU time during the soak", steal)
+		missedLimit += 2 * steal / 100
+	}
 	frames, dropped := s1.GetFrames()-s0.GetFrames(), s1.GetFramesDropped()-s0.GetFramesDropped()
 	missed := float64(dropped) / float64(frames+dropped)
 	t.Logf("soak %v: %d frames (%.0f Hz), %d dropped (%.3f %%), %d rejected; goroutines %d → %d (max %d); heap in use %.1f → %.1f MiB (max %.1f); rtc p50 %.0f µs p99 %.0f µs max %.0f µs",
@@ -131,7 +141,7 @@ func TestSoak(t *testing.T) {
 		t.Errorf("heap in use grew %.0f %% (%d → %d bytes), limit %.0f %%", 100*growth, h0, h1, 100*soakHeapGrowth)
 	}
 	if missed > missedLimit {
-		t.Errorf("missed %.2f %% of frames, limit %.0f %%", 100*missed, 100*missedLimit)
+		t.Errorf("missed %.2f %% of frames, limit %.1f %%", 100*missed, 100*missedLimit)
 	}
 	if frames < uint64(0.5*length.Seconds()*s1.GetFrameRateHz()) {
 		t.Errorf("%d frames in %v at %g Hz: the bench or loop stalled", frames, length, s1.GetFrameRateHz())

@@ -25,6 +25,7 @@ import (
 	"stillsky/controller/mvm"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
+	"stillsky/internal/cpustat"
 	"stillsky/internal/ctl"
 	"stillsky/internal/monoclock"
 	"stillsky/internal/rpc"
@@ -236,7 +237,7 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 	if err != nil {
 		return nil, err
 	}
-	cpu0, errCPU0 := readCPUTimes("/proc/stat")
+	cpu0, errCPU0 := cpustat.Read("/proc/stat")
 	rec.Start()
 	select {
 	case <-ctx.Done():
@@ -244,7 +245,7 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 	case <-time.After(c.Duration):
 	}
 	rec.Stop()
-	cpu1, errCPU1 := readCPUTimes("/proc/stat")
+	cpu1, errCPU1 := cpustat.Read("/proc/stat")
 	after, err := client.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
 	if err != nil {
 		return nil, err
@@ -280,7 +281,7 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 		Slopes: int(after.GetSlopeCount()), Actuators: int(after.GetActuatorCount()),
 		TransitUs: quantiles(s.Transit), ComputeUs: quantiles(s.Compute), RTCUs: quantiles(s.RTC), EndToEndUs: quantiles(s.EndToEnd),
 		FloorUs: quantiles(floor), FramesDropped: after.GetFramesDropped() - before.GetFramesDropped(),
-		StealPercent: stealPercent(cpu0, cpu1, errCPU0, errCPU1),
+		StealPercent: cpustat.StealPercent(cpu0, cpu1, errCPU0, errCPU1),
 	}
 	jitter := make([]int64, 0, len(s.Arrival))
 	pns := int64(period * 1e9)

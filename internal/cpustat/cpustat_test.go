@@ -1,4 +1,4 @@
-package latbench
+package cpustat
 
 import (
 	"os"
@@ -17,19 +17,19 @@ func TestStealPercent(t *testing.T) {
 		}
 		return p
 	}
-	a, errA := readCPUTimes(write("a", "cpu  100 0 50 800 0 0 0 50 30 0"))
-	b, errB := readCPUTimes(write("b", "cpu  200 0 100 1500 0 0 0 200 60 0"))
+	a, errA := Read(write("a", "cpu  100 0 50 800 0 0 0 50 30 0"))
+	b, errB := Read(write("b", "cpu  200 0 100 1500 0 0 0 200 60 0"))
 	// 1000 ticks passed (guest time is inside user time), 150 of them stolen.
-	if got := stealPercent(a, b, errA, errB); got != 15 {
+	if got := StealPercent(a, b, errA, errB); got != 15 {
 		t.Errorf("steal %v %%, want 15 %%", got)
 	}
-	if _, err := readCPUTimes(write("c", "cpu  1 2 3")); err == nil {
+	if _, err := Read(write("c", "cpu  1 2 3")); err == nil {
 		t.Error("a short cpu line was accepted")
 	}
-	if got := stealPercent(a, a, nil, nil); got != -1 {
+	if got := StealPercent(a, a, nil, nil); got != -1 {
 		t.Errorf("no time passed: steal %v, want -1", got)
 	}
-	if _, err := readCPUTimes("/proc/stat"); err != nil {
+	if _, err := Read("/proc/stat"); err != nil {
 		t.Logf("this machine's /proc/stat: %v", err)
 	}
 }
