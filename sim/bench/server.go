@@ -553,9 +553,7 @@ func (b *Server) SetSource(_ context.Context, req *stillskyv1.SetSourceRequest) 
 func waitUntil(t int64) {
 	const spin = 100 * time.Microsecond
 	if monoclock.Now() < t-int64(spin) {
-		ts := unix.NsecToTimespec(t - int64(spin))
-		for unix.ClockNanosleep(unix.CLOCK_MONOTONIC, unix.TIMER_ABSTIME, &ts, nil) == unix.EINTR {
-		}
+		sleepUntil(t - int64(spin))
 	}
 	for monoclock.Now() < t {
 	}

@@ -200,7 +200,7 @@ func (s *System) SetNoise(on bool) { s.noiseOn = on }
 // len(slopes) != NumSlopes and allocates nothing.
 func (s *System) Frame(slopes []float32) {
 	s.Advance()
-	s.Observe(s.cmd, slopes)
+	s.observe(slopes)
 }
 
 // Advance starts the next frame: it moves the turbulence on by one frame
@@ -235,11 +235,14 @@ func (s *System) Advance() {
 // panics if len(cmd) != NumActuators or len(slopes) != NumSlopes, and
 // allocates nothing.
 func (s *System) Observe(cmd []float32, slopes []float32) {
+	s.SetCommand(cmd)
+	s.observe(slopes)
+}
+
+// observe completes the frame with the command SetCommand last set.
+func (s *System) observe(slopes []float32) {
 	if len(slopes) != s.sensor.NumSlopes() {
 		panic(fmt.Sprintf("bench: Observe: %d slopes, want %d", len(slopes), s.sensor.NumSlopes()))
-	}
-	if &cmd[0] != &s.cmd[0] {
-		s.SetCommand(cmd)
 	}
 	s.stale = true
 	if !s.linear {
