@@ -17,7 +17,7 @@
 //
 // All quantities are SI: metres, seconds, radians, hertz; YAML keys carry their unit
 // (diameter_m, r0_m, wind_speed_m_per_s, frame_rate_hz). Telescope and site names in
-// the built-ins are invented.
+// the built-ins are generic descriptive labels, not real telescopes or sites.
 //
 // The package depends only on sim/optics (for the pupil configuration); it must not
 // depend on the bench, the controller, gRPC or clocks.

@@ -36,7 +36,7 @@ type Scenario struct {
 
 // Telescope is the entrance pupil and its sampling (YAML section "telescope").
 type Telescope struct {
-	// Name and Site are invented labels (optional, default "").
+	// Name and Site are descriptive labels (optional, default "").
 	Name, Site string
 	// Diameter of the primary in metres (diameter_m, required, (0, 100]).
 	Diameter float64
