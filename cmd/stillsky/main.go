@@ -9,6 +9,7 @@ import (
 	"errors"
 	"flag"
 	"fmt"
+	"io"
 	"log/slog"
 	"os"
 	"os/signal"
@@ -28,6 +29,26 @@ var subcommands = map[string]subcommand{}
 
 func register(name, summary string, run func(args []string) error) {
 	subcommands[name] = subcommand{summary: summary, run: run}
+}
+
+// aliases maps a command's former name to its current one. A former name still runs
+// the command for one release, after a one-line notice on standard error; usage does
+// not list it.
+var aliases = map[string]string{}
+
+func registerAlias(old, current string) {
+	aliases[old] = current
+}
+
+// lookup resolves a command name, following a former name to the current one and
+// writing the deprecation notice to w. It returns the current name.
+func lookup(name string, w io.Writer) (string, subcommand, bool) {
+	if current, ok := aliases[name]; ok {
+		fmt.Fprintf(w, "stillsky: %q is deprecated and will be removed in the next release; use 'stillsky %s'\n", name, current)
+		name = current
+	}
+	cmd, ok := subcommands[name]
+	return name, cmd, ok
 }
 
 func usage() {
@@ -51,7 +72,7 @@ func main() {
 		}
 		return
 	}
-	cmd, ok := subcommands[os.Args[1]]
+	name, cmd, ok := lookup(os.Args[1], os.Stderr)
 	if !ok {
 		fmt.Fprintf(os.Stderr, "stillsky: unknown command %q (run 'stillsky help')\n", os.Args[1])
 		os.Exit(2)
@@ -60,7 +81,7 @@ func main() {
 		if errors.Is(err, flag.ErrHelp) {
 			return
 		}
-		fmt.Fprintf(os.Stderr, "stillsky %s: %v\n", os.Args[1], err)
+		fmt.Fprintf(os.Stderr, "stillsky %s: %v\n", name, err)
 		os.Exit(1)
 	}
 }

@@ -1,4 +1,4 @@
-// Package latbench is the latency benchmark behind `stillsky bench`: for each
+// Package latbench is the latency benchmark behind `stillsky latency`: for each
 // scenario and transport (TCP loopback, unix socket) it runs the bench
 // free-running and the loop daemon closed, records every frame's timings, and in
 // the same run measures the transport floor with a bare gRPC ping-pong of the same
@@ -123,17 +123,17 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 		c.Duration = 10 * time.Second
 	}
 	if c.Duration < 100*time.Millisecond {
-		return nil, fmt.Errorf("bench: duration %v: must be at least 100ms", c.Duration)
+		return nil, fmt.Errorf("latency: duration %v: must be at least 100ms", c.Duration)
 	}
 	if c.Rate < 0 || math.IsInf(c.Rate, 0) || math.IsNaN(c.Rate) {
-		return nil, fmt.Errorf("bench: rate %g Hz: must be > 0 (or 0 for the scenario's)", c.Rate)
+		return nil, fmt.Errorf("latency: rate %g Hz: must be > 0 (or 0 for the scenario's)", c.Rate)
 	}
 	if len(c.Transports) == 0 {
 		c.Transports = []string{"tcp", "unix"}
 	}
 	for _, t := range c.Transports {
 		if t != "tcp" && t != "unix" {
-			return nil, fmt.Errorf("bench: transport %q: want tcp or unix", t)
+			return nil, fmt.Errorf("latency: transport %q: want tcp or unix", t)
 		}
 	}
 	if c.Out == nil {
@@ -156,7 +156,7 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 			fmt.Fprintf(c.Out, "%s over %s at %.0f Hz: calibrating, then %v closed loop\n", scn.Name, tr, scn.Loop.FrameRate, c.Duration)
 			r, err := runOne(ctx, c, scn, tr)
 			if err != nil {
-				return nil, fmt.Errorf("bench: %s over %s: %w", scn.Name, tr, err)
+				return nil, fmt.Errorf("latency: %s over %s: %w", scn.Name, tr, err)
 			}
 			out = append(out, *r)
 		}
