@@ -274,13 +274,3 @@ func (d *Daemon) geometry() *geometry {
 	defer d.geomMu.Unlock()
 	return d.geom
 }
-
-func validGainLeak(g, l float64) error {
-	if !(g >= 0 && g < controller.MaxGain) {
-		return fmt.Errorf("gain %g: must be in [0, %g)", g, controller.MaxGain)
-	}
-	if !(l >= 0 && l < 1) {
-		return fmt.Errorf("leak %g: must be in [0, 1)", l)
-	}
-	return nil
-}

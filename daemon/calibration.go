@@ -1,0 +1,184 @@
+package daemon
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"sync/atomic"
+	"time"
+
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
+	"stillsky/controller"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+)
+
+// calibration is one calibration run shared between the Control API (which starts
+// it and builds the reconstructor) and the real-time goroutine (which drives it).
+type calibration struct {
+	c        *controller.Calibrator
+	done     chan struct{} // closed by the real-time goroutine when c is Done or aborted
+	aborted  atomic.Bool
+	progress atomic.Int64 // frames consumed
+	started  bool         // real-time goroutine only: the first pattern has been sent
+	// Real-time goroutine only. block is the frames of one push or pull block;
+	// blockAt the calibrator's frame count at which the current block began,
+	// blockFrame the number of the frame whose command began it, and waited
+	// how many frames have been held back since.
+	block      int
+	blockAt    int
+	blockFrame uint64
+	waited     int
+}
+
+// maxCalibrationWait bounds how many frames a free-running calibration holds
+// back waiting for a block's command to show: a mirror that never
+// acknowledges slows calibration down but does not stop it.
+const maxCalibrationWait = 50
+
+// calibrate runs one calibration, streaming progress through send.
+func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest, send func(*stillskyv1.CalibrateResponse) error) error {
+	g := d.geometry()
+	if g == nil || !d.cameraUp.Load() || !d.mirrorUp.Load() {
+		return status.Error(codes.FailedPrecondition, "cannot calibrate: devices not connected")
+	}
+	if s := loopState(d.want.Load()); s != stateOpen && s != stateTripped {
+		return status.Errorf(codes.FailedPrecondition, "cannot calibrate: the loop is %s; open it first", stateNames[s])
+	}
+	cc, rc, err := calibrationSettings(req, g)
+	if err != nil {
+		return status.Error(codes.InvalidArgument, err.Error())
+	}
+	c, err := controller.NewCalibrator(cc)
+	if err != nil {
+		return status.Error(codes.InvalidArgument, err.Error())
+	}
+	cal := &calibration{c: c, done: make(chan struct{}), block: cc.SettleFrames + cc.FramesPerPattern}
+	if !d.cal.CompareAndSwap(nil, cal) {
+		return status.Error(codes.FailedPrecondition, "a calibration is already running")
+	}
+	restore := d.selectSource(ctx, stillskyv1.Source_SOURCE_CALIBRATION)
+	backToSky := func() {
+		if restore {
+			restore = false
+			d.selectSource(context.WithoutCancel(ctx), stillskyv1.Source_SOURCE_SKY)
+		}
+	}
+	// The sky returns as soon as the pokes end, before the inversion: the open
+	// loop that follows must see it (the divergence interlock learns its level).
+	defer backToSky()
+	_, total := c.Progress()
+	d.log.Info("calibration started", "patterns_frames", total, "amplitude_m", cc.Amplitude, "hadamard", cc.Hadamard)
+	d.want.Store(int32(stateCalibrating))
+
+	fail := func(code codes.Code, format string, a ...any) error {
+		d.m.calibrationsFailed.Inc()
+		err := status.Errorf(code, format, a...)
+		d.log.Warn("calibration failed", "err", err)
+		return err
+	}
+	tick := time.NewTicker(100 * time.Millisecond)
+	defer tick.Stop()
+	for done := false; !done; {
+		select {
+		case <-ctx.Done():
+			cal.aborted.Store(true)
+			<-cal.done
+			return fail(codes.Aborted, "calibration cancelled by the client")
+		case <-cal.done:
+			done = true
+		case <-tick.C:
+			if !d.cameraUp.Load() || !d.mirrorUp.Load() {
+				cal.aborted.Store(true)
+				return fail(codes.Aborted, "calibration aborted: a device was lost")
+			}
+			_ = send(&stillskyv1.CalibrateResponse{Phase: "pokes", Done: uint32(cal.progress.Load()), Total: uint32(total)})
+		}
+	}
+	backToSky()
+	if cal.aborted.Load() || !c.Done() {
+		return fail(codes.Aborted, "calibration aborted after %d of %d frames", cal.progress.Load(), total)
+	}
+	_ = send(&stillskyv1.CalibrateResponse{Phase: "inverting", Done: uint32(total), Total: uint32(total)})
+	im, err := c.InteractionMatrix()
+	if err != nil {
+		return fail(codes.Internal, "interaction matrix: %v", err)
+	}
+	rc.Created = time.Now().UTC()
+	r, err := controller.BuildReconstructor(im, rc)
+	if err != nil {
+		return fail(codes.Internal, "reconstructor: %v", err)
+	}
+	if err := d.installReconstructor(r, true); err != nil {
+		d.m.calibrationsFailed.Inc()
+		return err
+	}
+	d.m.calibrationsOK.Inc()
+	d.log.Info("calibration done", "modes_kept", r.ModesKept, "unseen", r.Unseen)
+	return send(&stillskyv1.CalibrateResponse{Phase: "done", Done: uint32(total), Total: uint32(total), Reconstructor: reconstructorInfo(r)})
+}
+
+// selectSource asks the camera for a source and reports whether it switched; a
+// camera without a calibration source leaves the calibration on the sky, where
+// photon noise and turbulence make the interaction matrix noisier.
+func (d *Daemon) selectSource(ctx context.Context, src stillskyv1.Source) bool {
+	cam := d.camera.Load()
+	if cam == nil {
+		return false
+	}
+	_, err := (*cam).SetSource(ctx, &stillskyv1.SetSourceRequest{Source: src})
+	switch {
+	case status.Code(err) == codes.Unimplemented:
+		d.log.Info("camera has no calibration source; calibrating on the sky")
+		return false
+	case err != nil:
+		d.log.Warn("camera refused the source", "source", src.String(), "err", err)
+		return false
+	}
+	return true
+}
+
+// calibrationSettings turns a request into calibrator and reconstructor settings,
+// filling the defaults: pokes of a tenth of the stroke, two frames per pattern,
+// one frame more settling than the loop delay.
+func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (controller.CalibrationConfig, controller.ReconstructorConfig, error) {
+	cc := controller.CalibrationConfig{
+		Actuators:        g.actuators,
+		Slopes:           g.slopes,
+		Amplitude:        req.GetAmplitudeM(),
+		FramesPerPattern: int(req.GetFramesPerPattern()),
+		SettleFrames:     max(g.delayFrames, 1) + 1,
+		Hadamard:         req.GetHadamard(),
+	}
+	if g.lockstep {
+		cc.SettleFrames = g.delayFrames
+	}
+	if cc.Amplitude == 0 {
+		cc.Amplitude = 0.1 * g.stroke
+	}
+	if cc.Amplitude > g.stroke {
+		return cc, controller.ReconstructorConfig{}, fmt.Errorf("poke amplitude %g m exceeds the mirror's stroke %g m", cc.Amplitude, g.stroke)
+	}
+	if cc.FramesPerPattern == 0 {
+		cc.FramesPerPattern = 2
+	}
+	rc := controller.ReconstructorConfig{
+		Method:       controller.MethodTruncatedSVD,
+		ModesKept:    int(req.GetModesKept()),
+		MaxCondition: req.GetMaxCondition(),
+	}
+	if t := req.GetTikhonov(); t != 0 {
+		if !(t > 0) || math.IsInf(t, 0) {
+			return cc, rc, fmt.Errorf("tikhonov weight %g: must be finite and > 0", t)
+		}
+		rc.Method, rc.Regularization = controller.MethodTikhonov, t
+	}
+	if c := rc.MaxCondition; c != 0 && !(c >= 1 && !math.IsInf(c, 0)) {
+		return cc, rc, fmt.Errorf("max condition %g: must be finite and >= 1 (or 0 for the default)", c)
+	}
+	if a := req.GetAmplitudeM(); a != 0 && (!(a > 0) || math.IsInf(a, 0)) {
+		return cc, rc, fmt.Errorf("poke amplitude %g m: must be finite and > 0 (or 0 for the default)", a)
+	}
+	return cc, rc, nil
+}
