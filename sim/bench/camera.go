@@ -1,0 +1,175 @@
+package bench
+
+import (
+	"context"
+	"runtime"
+
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
+	"stillsky/internal/monoclock"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+)
+
+// ringSize is the number of frames buffered between the bench's clock and the
+// camera stream; a consumer that falls further behind loses frames.
+const ringSize = 8
+
+type frameSlot struct {
+	number uint64
+	due    int64 // free-run: the readout tick, when the frame may leave
+	slopes []float32
+}
+
+// RegisterCamera adds the Camera service to g. Camera and mirror may share one
+// server or each have its own listener, as separate devices would.
+func (b *Server) RegisterCamera(g *grpc.Server) { stillskyv1.RegisterCameraServiceServer(g, b) }
+
+// nextSlot returns the slot the next frame goes to and whether it will be
+// handed to the camera stream: not when no consumer is connected, nor when the
+// consumer has fallen a ring behind (the frame is lost and counted).
+func (b *Server) nextSlot() (*frameSlot, bool) {
+	// Slots are filled in sequence, whatever frames were lost. Only the producer
+	// writes them, and len(b.ready) only shrinks concurrently: a free place in the
+	// channel means the consumer holds at most the slot ringSize−1 writes back,
+	// never the next one.
+	if !b.cameraBusy.Load() {
+		return &b.scratch, false
+	}
+	if len(b.ready) == cap(b.ready) {
+		b.metrics.framesLost.Inc()
+		return &b.scratch, false
+	}
+	return &b.slots[b.written%ringSize], true
+}
+
+// Describe returns the sensor geometry.
+func (b *Server) Describe(context.Context, *stillskyv1.CameraServiceDescribeRequest) (*stillskyv1.CameraServiceDescribeResponse, error) {
+	wfs := b.sys.Sensor()
+	valid := wfs.Valid()
+	idx := make([]uint32, 0, wfs.NumValid())
+	for i, v := range valid {
+		if v {
+			idx = append(idx, uint32(i))
+		}
+	}
+	return &stillskyv1.CameraServiceDescribeResponse{
+		Subapertures:      uint32(b.scn.WFS.Subapertures),
+		ValidSubapertures: idx,
+		SlopeCount:        uint32(b.sys.NumSlopes()),
+		FrameRateHz:       b.scn.Loop.FrameRate,
+		SubapertureSizeM:  b.scn.Telescope.Diameter / float64(b.scn.WFS.Subapertures),
+		PupilDiameterM:    b.scn.Telescope.Diameter,
+		WavelengthM:       b.scn.GuideStar.Wavelength,
+		SlopeUnit:         "rad",
+		Lockstep:          b.opt.Lockstep,
+		DelayFrames:       uint32(b.opt.DelayFrames),
+		Description:       b.scn.Name + ": " + b.scn.Description,
+	}, nil
+}
+
+// StreamFrames streams the frames to one consumer at a time.
+func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.ServerStreamingServer[stillskyv1.StreamFramesResponse]) error {
+	rows, err := b.chunkRows(req.GetChunks())
+	if err != nil {
+		return err
+	}
+	if !b.cameraBusy.CompareAndSwap(false, true) {
+		return status.Error(codes.ResourceExhausted, "camera: another client holds the frame stream")
+	}
+	defer b.cameraBusy.Store(false)
+	// Frames queued for a previous consumer are stale.
+	for len(b.ready) > 0 {
+		<-b.ready
+	}
+	msg := &stillskyv1.StreamFramesResponse{}
+	ctx := stream.Context()
+	for {
+		select {
+		case <-ctx.Done():
+			return nil
+		case seq := <-b.ready:
+			slot := &b.slots[seq%ringSize]
+			// Free-running, the frame is read out at its tick, and that is its
+			// stamp even when this goroutine gets the CPU late: the delay of a
+			// late send is the link's, and the loop sees it. Lockstep frames are
+			// read out when produced.
+			start := slot.due
+			if start != 0 {
+				waitUntil(start)
+			} else {
+				start = monoclock.Now()
+			}
+			msg.FrameNumber = slot.number
+			msg.ChunkCount = uint32(len(rows))
+			for c, r := range rows {
+				msg.ChunkIndex = uint32(c)
+				msg.Offset = uint32(r[0])
+				msg.Slopes = slot.slopes[r[0]:r[1]]
+				msg.ReadoutEndNs = start + int64(b.opt.ReadoutTime)*int64(c)/int64(len(rows))
+				if c > 0 && b.opt.ReadoutTime > 0 {
+					waitUntil(msg.ReadoutEndNs)
+				}
+				if err := stream.Send(msg); err != nil {
+					return err
+				}
+			}
+			// Send only queues the frame for the transport's writer goroutine;
+			// let it run now on this thread rather than after the next wait,
+			// which may be a system call that keeps the thread's processor.
+			runtime.Gosched()
+		}
+	}
+}
+
+// SetSource switches between the sky and the calibration source.
+func (b *Server) SetSource(_ context.Context, req *stillskyv1.SetSourceRequest) (*stillskyv1.SetSourceResponse, error) {
+	var sky bool
+	switch req.GetSource() {
+	case stillskyv1.Source_SOURCE_SKY:
+		sky = true
+	case stillskyv1.Source_SOURCE_CALIBRATION:
+	default:
+		return nil, status.Errorf(codes.InvalidArgument, "camera: source %v: want SOURCE_SKY or SOURCE_CALIBRATION", req.GetSource())
+	}
+	b.mu.Lock()
+	b.sys.SetTurbulence(sky)
+	b.sys.SetNoise(sky && b.scn.WFS.Noise)
+	b.mu.Unlock()
+	b.log.Info("source selected", "source", req.GetSource().String())
+	return &stillskyv1.SetSourceResponse{Source: req.GetSource()}, nil
+}
+
+// chunkRows splits the slope vector into n groups of whole subaperture rows, as
+// [start, end) slope index ranges in readout order.
+func (b *Server) chunkRows(n uint32) ([][2]int, error) {
+	nsub := b.scn.WFS.Subapertures
+	if n <= 1 {
+		return [][2]int{{0, b.sys.NumSlopes()}}, nil
+	}
+	if int(n) > nsub {
+		return nil, status.Errorf(codes.InvalidArgument, "camera: %d chunks: must be at most the %d subaperture rows", n, nsub)
+	}
+	// Slopes before each subaperture row.
+	valid := b.sys.Sensor().Valid()
+	rowStart := make([]int, nsub+1)
+	for r := 0; r < nsub; r++ {
+		cnt := 0
+		for c := 0; c < nsub; c++ {
+			if valid[r*nsub+c] {
+				cnt += 2
+			}
+		}
+		rowStart[r+1] = rowStart[r] + cnt
+	}
+	out := make([][2]int, 0, n)
+	for c := 0; c < int(n); c++ {
+		r0, r1 := c*nsub/int(n), (c+1)*nsub/int(n)
+		if rowStart[r1] == rowStart[r0] {
+			return nil, status.Errorf(codes.InvalidArgument, "camera: %d chunks: chunk %d has no valid subaperture", n, c)
+		}
+		out = append(out, [2]int{rowStart[r0], rowStart[r1]})
+	}
+	return out, nil
+}

@@ -1,0 +1,161 @@
+package bench
+
+import (
+	"context"
+	"errors"
+	"math"
+
+	"google.golang.org/grpc"
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
+	"stillsky/internal/monoclock"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+)
+
+// pendingRing holds lockstep commands in flight; it must exceed any delay.
+const pendingRing = 64
+
+type pendingCommand struct {
+	frame  uint64
+	values []float32
+}
+
+// historyRing holds the newest free-run commands with their arrival times.
+const historyRing = 16
+
+type timedCommand struct {
+	at     int64 // CLOCK_MONOTONIC ns of arrival
+	values []float32
+}
+
+// RegisterMirror adds the Mirror service to g.
+func (b *Server) RegisterMirror(g *grpc.Server) {
+	stillskyv1.RegisterMirrorServiceServer(g, mirrorService{b: b})
+}
+
+// mirrorService is the bench's Mirror service; it is a separate type because both
+// services have a Describe method.
+type mirrorService struct {
+	stillskyv1.UnimplementedMirrorServiceServer
+	b *Server
+}
+
+// Describe returns the actuator layout and stroke.
+func (m mirrorService) Describe(context.Context, *stillskyv1.MirrorServiceDescribeRequest) (*stillskyv1.MirrorServiceDescribeResponse, error) {
+	return m.b.describeMirror(), nil
+}
+
+// StreamCommands applies and acknowledges each command.
+func (m mirrorService) StreamCommands(stream grpc.BidiStreamingServer[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
+	return m.b.streamCommands(stream)
+}
+
+// commandAt copies into cmd the newest logged command that arrived at or
+// before t (the mirror's rest shape, zero, before any).
+func (b *Server) commandAt(t int64, cmd []float32) {
+	b.histMu.Lock()
+	defer b.histMu.Unlock()
+	for j := b.received; j > 0 && j+historyRing > b.received; j-- {
+		if e := &b.history[(j-1)%historyRing]; e.at <= t {
+			copy(cmd, e.values)
+			return
+		}
+	}
+	if b.received == 0 {
+		clear(cmd)
+		return
+	}
+	// Every logged command is newer than t (a client flooding the mirror):
+	// the oldest kept is the nearest.
+	copy(cmd, b.history[b.received%historyRing].values)
+}
+
+// logCommand records a free-run command that arrived at time at.
+func (b *Server) logCommand(at int64, v []float32) {
+	b.histMu.Lock()
+	e := &b.history[b.received%historyRing]
+	e.at = at
+	copy(e.values, v)
+	b.received++
+	b.histMu.Unlock()
+}
+
+func (b *Server) describeMirror() *stillskyv1.MirrorServiceDescribeResponse {
+	m := b.sys.Mirror()
+	pos := m.Positions()
+	flat := make([]float64, 0, 2*len(pos))
+	for _, p := range pos {
+		flat = append(flat, p[0], p[1])
+	}
+	return &stillskyv1.MirrorServiceDescribeResponse{
+		ActuatorCount:   uint32(m.NumValid()),
+		ActuatorsAcross: uint32(b.scn.DM.Actuators),
+		PositionsM:      flat,
+		PitchM:          b.scn.Telescope.Diameter / float64(b.scn.DM.Actuators-1),
+		StrokeM:         m.Stroke(),
+		CommandUnit:     "m",
+		Coupling:        b.scn.DM.Coupling,
+	}
+}
+
+func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
+	if !b.mirrorBusy.CompareAndSwap(false, true) {
+		return status.Error(codes.ResourceExhausted, "mirror: another client drives the mirror")
+	}
+	defer b.mirrorBusy.Store(false)
+	n := len(b.cmd)
+	stroke := float32(b.sys.Mirror().Stroke())
+	req := &stillskyv1.StreamCommandsRequest{}
+	ack := &stillskyv1.StreamCommandsResponse{}
+	for {
+		if err := stream.RecvMsg(req); err != nil {
+			if errors.Is(err, context.Canceled) || status.Code(err) == codes.Canceled {
+				return nil
+			}
+			return err
+		}
+		received := monoclock.Now()
+		v := req.GetValues()
+		if len(v) != n {
+			b.metrics.commandsRejected.Inc()
+			return status.Errorf(codes.InvalidArgument, "mirror: command for frame %d has %d values, want %d", req.GetFrameNumber(), len(v), n)
+		}
+		clipped := uint32(0)
+		for i, x := range v {
+			if math.IsNaN(float64(x)) || math.IsInf(float64(x), 0) {
+				b.metrics.commandsRejected.Inc()
+				return status.Errorf(codes.InvalidArgument, "mirror: command for frame %d: value %d is %v", req.GetFrameNumber(), i, x)
+			}
+			if x > stroke || x < -stroke {
+				clipped++
+			}
+		}
+		if f := req.GetFrameNumber(); b.opt.Lockstep && f != 0 {
+			b.mu.Lock()
+			p := &b.pending[f%pendingRing]
+			p.frame = f
+			copy(p.values, v)
+			b.mu.Unlock()
+		} else if b.opt.Lockstep {
+			b.mu.Lock()
+			copy(b.cmd, v)
+			b.sys.SetCommand(b.cmd)
+			b.mu.Unlock()
+		} else {
+			b.logCommand(received, v)
+		}
+		if f := req.GetFrameNumber(); f > b.lastCmdFrame.Load() {
+			b.lastCmdFrame.Store(f)
+		}
+		select {
+		case b.cmdArrived <- struct{}{}:
+		default:
+		}
+		b.metrics.commands.Inc()
+		ack.FrameNumber, ack.ReceivedNs, ack.Clipped = req.GetFrameNumber(), received, clipped
+		if err := stream.Send(ack); err != nil {
+			return err
+		}
+	}
+}

@@ -1,0 +1,103 @@
+package bench
+
+import (
+	"context"
+	"math"
+	"runtime"
+)
+
+// figures updates the true figures of merit after frame k. Free-running, the
+// residual is formed on the frames the science camera samples only: on the
+// others the geometric sensor never needs it.
+func (b *Server) figures(k uint64) {
+	b.metrics.frames.Inc()
+	sample := k%uint64(b.opt.StrehlEvery) == 0
+	if !sample && !b.opt.Lockstep {
+		return
+	}
+	b.mu.Lock()
+	rms := b.sys.ResidualRMS()
+	async := sample && !b.opt.Lockstep && b.sciBusy.CompareAndSwap(false, true)
+	if async {
+		// Free-running, the science camera works on its own goroutine, so that
+		// its FFT never delays the wavefront sensor's frames.
+		copy(b.sciIn, b.sys.Residual())
+		b.sciWake <- struct{}{}
+	}
+	if sample && b.opt.Lockstep {
+		// Lockstep runs are reproducible: every sampled frame is exposed.
+		b.sys.PSF(b.psf)
+	}
+	b.mu.Unlock()
+	b.stats.add(rms)
+	b.metrics.residual.Set(rms)
+	if sample && b.opt.Lockstep {
+		b.expose(b.psf)
+	}
+}
+
+// expose adds a science PSF to the window's exposure and the gauge's.
+func (b *Server) expose(psf []float64) {
+	b.stats.expose(psf)
+	if b.gauge.add(psf) >= b.gaugeSamples {
+		st := b.gauge.strehl()
+		b.metrics.strehl.Set(st)
+		b.lastStrehl.Store(math.Float64bits(st))
+		b.gauge.reset()
+	}
+}
+
+// science is the free-running science camera: it images the residuals that
+// produce hands it, one at a time.
+func (b *Server) science(ctx context.Context) {
+	if b.opt.IdlePriority {
+		runtime.LockOSThread()
+		if err := idleThread(); err != nil {
+			b.log.Warn("science camera thread stays at normal priority", "err", err)
+		}
+	}
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-b.sciWake:
+		}
+		b.sci.PSF(b.sciIn, b.sciPSF)
+		b.expose(b.sciPSF)
+		b.mu.Lock()
+		copy(b.psf, b.sciPSF)
+		b.mu.Unlock()
+		b.sciBusy.Store(false)
+	}
+}
+
+// exposure sums PSFs, as a science camera integrates.
+type exposure struct {
+	sum []float64
+	n   int
+}
+
+func (e *exposure) add(psf []float64) int {
+	for i, v := range psf {
+		e.sum[i] += v
+	}
+	e.n++
+	return e.n
+}
+
+// strehl returns the peak of the mean PSF (the diffraction-limited peak is 1).
+func (e *exposure) strehl() float64 {
+	if e.n == 0 {
+		return 0
+	}
+	peak := 0.0
+	for _, v := range e.sum {
+		peak = max(peak, v)
+	}
+	return peak / float64(e.n)
+}
+
+func (e *exposure) reset() {
+	clear(e.sum)
+	e.n = 0
+}

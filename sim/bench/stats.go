@@ -1,0 +1,72 @@
+package bench
+
+import (
+	"math"
+	"sync"
+)
+
+// Stats are the bench's true figures of merit since the last ResetStats.
+type Stats struct {
+	Frames int
+	// ResidualRMS is the mean over frames of the true residual OPD rms, metres.
+	ResidualRMS float64
+	// Strehl is the long-exposure science Strehl ratio: the peak of the PSF
+	// averaged over the sampled frames, over the diffraction-limited peak. It is
+	// what a science camera integrating over the window would measure; single-frame
+	// peaks of an uncorrected wavefront are speckles and read far higher.
+	Strehl float64
+	// StrehlSamples is the number of PSFs in the exposure.
+	StrehlSamples int
+}
+
+type statsAccumulator struct {
+	mu           sync.Mutex
+	frames       int
+	sumResidual  float64
+	lastResidual float64
+	exp          exposure
+}
+
+func (a *statsAccumulator) add(rms float64) {
+	a.mu.Lock()
+	a.frames++
+	a.sumResidual += rms
+	a.lastResidual = rms
+	a.mu.Unlock()
+}
+
+func (a *statsAccumulator) expose(psf []float64) {
+	a.mu.Lock()
+	a.exp.add(psf)
+	a.mu.Unlock()
+}
+
+// Latest returns the true residual OPD rms (metres) of the newest frame and the
+// Strehl ratio of the last completed one-second exposure.
+func (b *Server) Latest() (residualRMS, strehl float64) {
+	a := &b.stats
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return a.lastResidual, math.Float64frombits(b.lastStrehl.Load())
+}
+
+// Stats returns the figures since the last ResetStats.
+func (b *Server) Stats() Stats {
+	a := &b.stats
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	s := Stats{Frames: a.frames, StrehlSamples: a.exp.n, Strehl: a.exp.strehl()}
+	if a.frames > 0 {
+		s.ResidualRMS = a.sumResidual / float64(a.frames)
+	}
+	return s
+}
+
+// ResetStats starts a new averaging window and science exposure.
+func (b *Server) ResetStats() {
+	a := &b.stats
+	a.mu.Lock()
+	a.frames, a.sumResidual = 0, 0
+	a.exp.reset()
+	a.mu.Unlock()
+}
