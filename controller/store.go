@@ -15,18 +15,35 @@ import (
 // The reconstructor file is FITS (FITS Standard 4.0) with 64-bit float images:
 //
 //	primary   the control matrix R (NAXIS1 = slopes, NAXIS2 = actuators),
-//	          keywords NSLOPES, NACTU, METHOD, NMODES, MODESKPT, NUNSEEN, DATE, BUNIT
+//	          keywords FILEVERS, SLOPECNT, ACTCNT, METHOD, NMODES, MODESKPT, NUNSEEN,
+//	          DATE, BUNIT
 //	SINGVAL   singular values of the inverted matrix (NAXIS1 = count)
 //	MODES     actuators × modes (NAXIS1 = modes), svd and tikhonov only
 //	MODALINV  modes × slopes (NAXIS1 = slopes), svd and tikhonov only
-//	IMAT      the interaction matrix, slopes × actuators (NAXIS1 = actuators), if known
+//	INTERACT  the interaction matrix, slopes × actuators (NAXIS1 = actuators), if known
+//
+// FILEVERS is the format version, 2 today. Version 1 files have no FILEVERS and name
+// the slope and actuator counts NSLOPES and NACTU and the interaction matrix IMAT;
+// the reader accepts both versions, the writer writes the current one.
 const (
-	extSingular    = "SINGVAL"
-	extModes       = "MODES"
-	extInverse     = "MODALINV"
-	extInteraction = "IMAT"
-	fitsDate       = "2006-01-02T15:04:05.000000000" // FITS Standard 4.0 §4.4.2.1, UTC
+	extSingular = "SINGVAL"
+	extModes    = "MODES"
+	extInverse  = "MODALINV"
+	keyVersion  = "FILEVERS"
+	fileVersion = 2
+	fitsDate    = "2006-01-02T15:04:05.000000000" // FITS Standard 4.0 §4.4.2.1, UTC
 )
+
+// versionNames are the names that differ between versions of the file.
+type versionNames struct {
+	slopes, actuators, interaction string
+}
+
+// fileVersions maps each readable format version to its names.
+var fileVersions = map[int64]versionNames{
+	1:           {slopes: "NSLOPES", actuators: "NACTU", interaction: "IMAT"},
+	fileVersion: {slopes: "SLOPECNT", actuators: "ACTCNT", interaction: "INTERACT"},
+}
 
 // ErrReconstructorFile is wrapped by every error that refuses a reconstructor file
 // for its content (as opposed to a failure to read it).
@@ -79,10 +96,12 @@ func reconstructorHDUs(r *Reconstructor) ([]*fits.HDU, error) {
 	if err := r.Validate(); err != nil {
 		return nil, err
 	}
+	names := fileVersions[fileVersion]
 	primary := denseHDU(r.Control)
 	h := &primary.Header
-	h.Set("NSLOPES", r.Slopes, "number of slopes (columns of R)")
-	h.Set("NACTU", r.Actuators, "number of actuators (rows of R)")
+	h.Set(keyVersion, fileVersion, "reconstructor file format version")
+	h.Set(names.slopes, r.Slopes, "number of slopes (columns of R)")
+	h.Set(names.actuators, r.Actuators, "number of actuators (rows of R)")
 	h.Set("METHOD", r.Method.String(), "svd, tikhonov or matrix")
 	h.Set("NMODES", r.NumModes(), "controllable modes (columns of MODES)")
 	h.Set("MODESKPT", r.ModesKept, "singular modes kept in the inversion")
@@ -100,7 +119,7 @@ func reconstructorHDUs(r *Reconstructor) ([]*fits.HDU, error) {
 		hdus = append(hdus, named(denseHDU(r.Modes), extModes), named(denseHDU(r.Inverse), extInverse))
 	}
 	if r.Interaction != nil {
-		hdus = append(hdus, named(denseHDU(r.Interaction), extInteraction))
+		hdus = append(hdus, named(denseHDU(r.Interaction), names.interaction))
 	}
 	return hdus, nil
 }
@@ -157,12 +176,23 @@ func reconstructorFromHDUs(hdus []*fits.HDU) (*Reconstructor, error) {
 		return nil, badFile("no HDU")
 	}
 	p := hdus[0]
+	version := int64(1) // version 1 has no version keyword
+	if _, present := p.Header.Get(keyVersion); present {
+		var ok bool
+		if version, ok = p.Header.Int(keyVersion); !ok {
+			return nil, badFile("keyword %s: not an integer", keyVersion)
+		}
+	}
+	names, ok := fileVersions[version]
+	if !ok {
+		return nil, badFile("keyword %s = %d: this build reads versions 1 to %d", keyVersion, version, fileVersion)
+	}
 	r := &Reconstructor{}
 	var err error
-	if r.Slopes, err = headerInt(&p.Header, "NSLOPES", 1); err != nil {
+	if r.Slopes, err = headerInt(&p.Header, names.slopes, 1); err != nil {
 		return nil, err
 	}
-	if r.Actuators, err = headerInt(&p.Header, "NACTU", 1); err != nil {
+	if r.Actuators, err = headerInt(&p.Header, names.actuators, 1); err != nil {
 		return nil, err
 	}
 	nm, err := headerInt(&p.Header, "NMODES", 0)
@@ -208,7 +238,7 @@ func reconstructorFromHDUs(hdus []*fits.HDU) (*Reconstructor, error) {
 			r.Modes, err = hduMatrix(name, h, r.Actuators, nm)
 		case extInverse:
 			r.Inverse, err = hduMatrix(name, h, nm, r.Slopes)
-		case extInteraction:
+		case names.interaction:
 			r.Interaction, err = hduMatrix(name, h, r.Slopes, r.Actuators)
 		default:
 			return nil, badFile("extension %d: EXTNAME %q: unknown", i+1, name)

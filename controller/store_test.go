@@ -89,12 +89,69 @@ func TestReconstructorFitsverify(t *testing.T) {
 	if err := SaveReconstructor(path, sampleReconstructors(t)["svd"]); err != nil {
 		t.Fatal(err)
 	}
-	out, err := exec.Command(bin, path).CombinedOutput()
-	if err != nil {
-		t.Fatalf("fitsverify: %v\n%s", err, out)
+	for _, p := range []string{path, "testdata/reconstructor-v1.fits"} {
+		out, err := exec.Command(bin, p).CombinedOutput()
+		if err != nil {
+			t.Fatalf("fitsverify %s: %v\n%s", p, err, out)
+		}
+		if !bytes.Contains(out, []byte("found 0 warning(s) and 0 error(s)")) {
+			t.Errorf("fitsverify did not pass cleanly on %s:\n%s", p, out)
+		}
 	}
-	if !bytes.Contains(out, []byte("found 0 warning(s) and 0 error(s)")) {
-		t.Errorf("fitsverify did not pass cleanly:\n%s", out)
+}
+
+// testdata/reconstructor-v1.fits was written by the version 1 writer (no FILEVERS;
+// NSLOPES, NACTU and IMAT) from sampleReconstructors' svd entry. The reader still
+// takes it, with the same content, and saving it again writes version 2.
+func TestReadVersion1File(t *testing.T) {
+	const path = "testdata/reconstructor-v1.fits"
+	old, err := fits.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	h := &old[0].Header
+	if _, present := h.Get("FILEVERS"); present {
+		t.Fatalf("%s has FILEVERS: not a version 1 file", path)
+	}
+	if _, ok := h.Int("NACTU"); !ok {
+		t.Fatalf("%s has no NACTU: not a version 1 file", path)
+	}
+	got, err := LoadReconstructor(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := sampleReconstructors(t)["svd"]
+	if got.Method != want.Method || got.Slopes != want.Slopes || got.Actuators != want.Actuators ||
+		got.ModesKept != want.ModesKept || got.Unseen != want.Unseen || !got.Created.Equal(want.Created) {
+		t.Errorf("metadata %v %d×%d kept %d unseen %d %v, want %v %d×%d kept %d unseen %d %v",
+			got.Method, got.Slopes, got.Actuators, got.ModesKept, got.Unseen, got.Created,
+			want.Method, want.Slopes, want.Actuators, want.ModesKept, want.Unseen, want.Created)
+	}
+	// The file was written on one machine; the SVD here may differ in the last bits.
+	for field, pair := range map[string][2]*mat.Dense{
+		"control": {got.Control, want.Control}, "modes": {got.Modes, want.Modes},
+		"inverse": {got.Inverse, want.Inverse}, "interaction": {got.Interaction, want.Interaction},
+	} {
+		if pair[0] == nil || !mat.EqualApprox(pair[0], pair[1], 1e-9) {
+			t.Errorf("%s differs from the sample it was written from", field)
+		}
+	}
+	var buf bytes.Buffer
+	if err := WriteReconstructor(&buf, got); err != nil {
+		t.Fatal(err)
+	}
+	hdus, err := fits.Read(&buf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if v, _ := hdus[0].Header.Int("FILEVERS"); v != 2 {
+		t.Errorf("rewritten file: FILEVERS %d, want 2", v)
+	}
+	if n, _ := hdus[0].Header.Int("ACTCNT"); n != int64(want.Actuators) {
+		t.Errorf("rewritten file: ACTCNT %d, want %d", n, want.Actuators)
+	}
+	if name, _ := hdus[len(hdus)-1].Header.String("EXTNAME"); name != "INTERACT" {
+		t.Errorf("rewritten file: last extension %q, want INTERACT", name)
 	}
 }
 
@@ -116,9 +173,18 @@ func TestReadReconstructorRejects(t *testing.T) {
 		name string
 		edit func([]*fits.HDU) []*fits.HDU
 	}{
-		{"no NSLOPES", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("NSLOPES", "24", ""); return h }},
-		{"NSLOPES wrong", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("NSLOPES", 25, ""); return h }},
-		{"NACTU zero", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("NACTU", 0, ""); return h }},
+		{"no SLOPECNT", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("SLOPECNT", "24", ""); return h }},
+		{"SLOPECNT wrong", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("SLOPECNT", 25, ""); return h }},
+		{"ACTCNT zero", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("ACTCNT", 0, ""); return h }},
+		{"FILEVERS unknown", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("FILEVERS", 3, ""); return h }},
+		{"FILEVERS not an integer", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("FILEVERS", "2", ""); return h }},
+		{"version 2 with the version 1 counts", func(h []*fits.HDU) []*fits.HDU {
+			h[0].Header.Set("NSLOPES", 24, "")
+			h[0].Header.Set("SLOPECNT", "gone", "")
+			return h
+		}},
+		{"version 2 with the version 1 interaction name", func(h []*fits.HDU) []*fits.HDU { h[4].Header.Set("EXTNAME", "IMAT", ""); return h }},
+		{"version 1 with the version 2 names", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("FILEVERS", 1, ""); return h }},
 		{"method unknown", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("METHOD", "guess", ""); return h }},
 		{"bad DATE", func(h []*fits.HDU) []*fits.HDU { h[0].Header.Set("DATE", "yesterday", ""); return h }},
 		{"NaN in control", func(h []*fits.HDU) []*fits.HDU { h[0].Data.([]float64)[5] = math.NaN(); return h }},
