@@ -208,7 +208,7 @@ func (l *Loop) Reset() {
 }
 
 // SetCommand sets the integrator state, i.e. the command held and integrated from,
-// to c clipped into the running limits (for hold and bleed states kept by the
+// to c clipped into the running limits (for hold and decaying states kept by the
 // caller). It refuses a command of the wrong length or with non-finite entries.
 func (l *Loop) SetCommand(c []float32) error {
 	if len(c) != l.na {

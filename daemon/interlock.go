@@ -26,9 +26,10 @@ type Interlocks struct {
 	// StalePeriods holds the mirror when no frame has arrived for this many frame
 	// periods while the loop is closed (default 20).
 	StalePeriods int
-	// Bleed, in (0, 1), makes the safe shape after a trip a decay of the last
-	// command by this factor per frame; 0 sends the mirror flat at once.
-	Bleed float64
+	// TripDecay, in (0, 1), makes the safe shape after a trip a decay of the last
+	// command sent: each frame the command is multiplied by 1 − TripDecay; 0 sends
+	// the mirror flat at once.
+	TripDecay float64
 }
 
 func (c *Interlocks) setDefaults() error {
@@ -53,8 +54,8 @@ func (c *Interlocks) setDefaults() error {
 		return fmt.Errorf("daemon: saturation frames %d: must be >= 1", c.SaturationFrames)
 	case c.StalePeriods < 2:
 		return fmt.Errorf("daemon: stale periods %d: must be >= 2", c.StalePeriods)
-	case !(c.Bleed >= 0 && c.Bleed < 1):
-		return fmt.Errorf("daemon: bleed %g: must be in [0, 1)", c.Bleed)
+	case !(c.TripDecay >= 0 && c.TripDecay < 1):
+		return fmt.Errorf("daemon: trip decay %g: must be in [0, 1)", c.TripDecay)
 	}
 	return nil
 }

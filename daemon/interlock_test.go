@@ -121,9 +121,9 @@ func TestUnstableGainTrips(t *testing.T) {
 // sends slopes 100 times larger until the divergence (or saturation) interlock
 // trips. It returns the mirror's command history and the index in it of the
 // command answering the tripping frame.
-func tripByBigSlopes(t *testing.T, bleed float64) (r *hostileRig, history [][]float32, first int) {
+func tripByBigSlopes(t *testing.T, tripDecay float64) (r *hostileRig, history [][]float32, first int) {
 	t.Helper()
-	r = startHostile(t, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 1 << 20, Bleed: bleed}})
+	r = startHostile(t, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 1 << 20, TripDecay: tripDecay}})
 	r.loadMatrix(t)
 	for range 100 {
 		r.sync(t) // the open-loop slope level
@@ -160,11 +160,11 @@ func decay(c, prev []float32) (k, norm2 float64) {
 	return num / norm2, norm2
 }
 
-// TestTripBleeds configures a bleed: after the trip the command decays by the
-// factor (1 − bleed) each frame instead of jumping flat.
-func TestTripBleeds(t *testing.T) {
-	const bleed = 0.1
-	r, _, first := tripByBigSlopes(t, bleed)
+// TestTripDecays configures a trip decay: after the trip the command decays by the
+// factor (1 − tripDecay) each frame instead of jumping flat.
+func TestTripDecays(t *testing.T) {
+	const tripDecay = 0.1
+	r, _, first := tripByBigSlopes(t, tripDecay)
 	for range 20 {
 		r.sync(t)
 	}
@@ -172,12 +172,12 @@ func TestTripBleeds(t *testing.T) {
 	cmds := r.h.history[first:]
 	r.h.mu.Unlock()
 	if _, n2 := decay(cmds[0], cmds[0]); n2 == 0 {
-		t.Fatal("the first tripped command is flat: nothing bled")
+		t.Fatal("the first tripped command is flat: nothing decayed")
 	}
 	for i := 1; i < len(cmds); i++ {
 		// c_k = (1 − b)·c_{k−1}, up to float32 rounding of each product.
-		if k, _ := decay(cmds[i], cmds[i-1]); math.Abs(k-(1-bleed)) > 1e-5 {
-			t.Fatalf("tripped command %d: command / previous = %.6f, want %.6f", i, k, 1-bleed)
+		if k, _ := decay(cmds[i], cmds[i-1]); math.Abs(k-(1-tripDecay)) > 1e-5 {
+			t.Fatalf("tripped command %d: command / previous = %.6f, want %.6f", i, k, 1-tripDecay)
 		}
 	}
 	if s := r.status(t); s.GetState() != stillskyv1.LoopState_LOOP_STATE_TRIPPED || s.GetInterlockTrips() != 1 {
@@ -203,14 +203,14 @@ func TestTripFlat(t *testing.T) {
 	}
 }
 
-// TestTripBleedStartsFromLastSent checks the first frame of the bleed: it must
+// TestTripDecayStartsFromLastSent checks the first frame of the decay: it must
 // decay from the last command the mirror received, not from the diverging
 // command computed on the frame that tripped (which was never sent).
-func TestTripBleedStartsFromLastSent(t *testing.T) {
-	const bleed = 0.1
-	_, h, first := tripByBigSlopes(t, bleed)
-	if k, _ := decay(h[first], h[first-1]); math.Abs(k-(1-bleed)) > 1e-5 {
-		t.Errorf("first tripped command / last command sent = %.6f, want %.6f", k, 1-bleed)
+func TestTripDecayStartsFromLastSent(t *testing.T) {
+	const tripDecay = 0.1
+	_, h, first := tripByBigSlopes(t, tripDecay)
+	if k, _ := decay(h[first], h[first-1]); math.Abs(k-(1-tripDecay)) > 1e-5 {
+		t.Errorf("first tripped command / last command sent = %.6f, want %.6f", k, 1-tripDecay)
 	}
 }
 

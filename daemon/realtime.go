@@ -249,10 +249,10 @@ func (rt *realtime) enter(s loopState) {
 	d.setState(s)
 }
 
-// safeShape writes the command of an open or tripped loop: flat, or with a bleed
-// configured a tripped loop decays from the last command sent.
+// safeShape writes the command of an open or tripped loop: flat, or with a trip
+// decay configured a tripped loop decays from the last command sent.
 func (rt *realtime) safeShape() {
-	b := float32(rt.d.cfg.Interlocks.Bleed)
+	b := float32(rt.d.cfg.Interlocks.TripDecay)
 	if rt.state != stateTripped || b == 0 {
 		copy(rt.cmd, rt.flat)
 		return
