@@ -1,0 +1,1 @@
+"""Protocol code generated from proto/stillsky/v1/*.proto by generate.sh; do not edit."""

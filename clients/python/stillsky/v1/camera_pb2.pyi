@@ -1,0 +1,77 @@
+from google.protobuf.internal import containers as _containers
+from google.protobuf.internal import enum_type_wrapper as _enum_type_wrapper
+from google.protobuf import descriptor as _descriptor
+from google.protobuf import message as _message
+from typing import ClassVar as _ClassVar, Iterable as _Iterable, Optional as _Optional, Union as _Union
+
+DESCRIPTOR: _descriptor.FileDescriptor
+SOURCE_CALIBRATION: Source
+SOURCE_SKY: Source
+SOURCE_UNSPECIFIED: Source
+
+class CameraServiceDescribeRequest(_message.Message):
+    __slots__ = []
+    def __init__(self) -> None: ...
+
+class CameraServiceDescribeResponse(_message.Message):
+    __slots__ = ["delay_frames", "description", "frame_rate_hz", "lockstep", "pupil_diameter_m", "slope_count", "slope_unit", "subaperture_size_m", "subapertures", "valid_subapertures", "wavelength_m"]
+    DELAY_FRAMES_FIELD_NUMBER: _ClassVar[int]
+    DESCRIPTION_FIELD_NUMBER: _ClassVar[int]
+    FRAME_RATE_HZ_FIELD_NUMBER: _ClassVar[int]
+    LOCKSTEP_FIELD_NUMBER: _ClassVar[int]
+    PUPIL_DIAMETER_M_FIELD_NUMBER: _ClassVar[int]
+    SLOPE_COUNT_FIELD_NUMBER: _ClassVar[int]
+    SLOPE_UNIT_FIELD_NUMBER: _ClassVar[int]
+    SUBAPERTURES_FIELD_NUMBER: _ClassVar[int]
+    SUBAPERTURE_SIZE_M_FIELD_NUMBER: _ClassVar[int]
+    VALID_SUBAPERTURES_FIELD_NUMBER: _ClassVar[int]
+    WAVELENGTH_M_FIELD_NUMBER: _ClassVar[int]
+    delay_frames: int
+    description: str
+    frame_rate_hz: float
+    lockstep: bool
+    pupil_diameter_m: float
+    slope_count: int
+    slope_unit: str
+    subaperture_size_m: float
+    subapertures: int
+    valid_subapertures: _containers.RepeatedScalarFieldContainer[int]
+    wavelength_m: float
+    def __init__(self, subapertures: _Optional[int] = ..., valid_subapertures: _Optional[_Iterable[int]] = ..., slope_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., subaperture_size_m: _Optional[float] = ..., pupil_diameter_m: _Optional[float] = ..., wavelength_m: _Optional[float] = ..., slope_unit: _Optional[str] = ..., lockstep: bool = ..., delay_frames: _Optional[int] = ..., description: _Optional[str] = ...) -> None: ...
+
+class SetSourceRequest(_message.Message):
+    __slots__ = ["source"]
+    SOURCE_FIELD_NUMBER: _ClassVar[int]
+    source: Source
+    def __init__(self, source: _Optional[_Union[Source, str]] = ...) -> None: ...
+
+class SetSourceResponse(_message.Message):
+    __slots__ = ["source"]
+    SOURCE_FIELD_NUMBER: _ClassVar[int]
+    source: Source
+    def __init__(self, source: _Optional[_Union[Source, str]] = ...) -> None: ...
+
+class StreamFramesRequest(_message.Message):
+    __slots__ = ["chunks"]
+    CHUNKS_FIELD_NUMBER: _ClassVar[int]
+    chunks: int
+    def __init__(self, chunks: _Optional[int] = ...) -> None: ...
+
+class StreamFramesResponse(_message.Message):
+    __slots__ = ["chunk_count", "chunk_index", "frame_number", "offset", "readout_end_ns", "slopes"]
+    CHUNK_COUNT_FIELD_NUMBER: _ClassVar[int]
+    CHUNK_INDEX_FIELD_NUMBER: _ClassVar[int]
+    FRAME_NUMBER_FIELD_NUMBER: _ClassVar[int]
+    OFFSET_FIELD_NUMBER: _ClassVar[int]
+    READOUT_END_NS_FIELD_NUMBER: _ClassVar[int]
+    SLOPES_FIELD_NUMBER: _ClassVar[int]
+    chunk_count: int
+    chunk_index: int
+    frame_number: int
+    offset: int
+    readout_end_ns: int
+    slopes: _containers.RepeatedScalarFieldContainer[float]
+    def __init__(self, frame_number: _Optional[int] = ..., readout_end_ns: _Optional[int] = ..., offset: _Optional[int] = ..., chunk_index: _Optional[int] = ..., chunk_count: _Optional[int] = ..., slopes: _Optional[_Iterable[float]] = ...) -> None: ...
+
+class Source(int, metaclass=_enum_type_wrapper.EnumTypeWrapper):
+    __slots__ = []
