@@ -38,7 +38,7 @@ func (l *delayLine) frame(slopes []float32, next func() []float32) {
 }
 
 // errorTransfer is |E(e^{jω})| of the leaky integrator with delay d
-// (REFERENCES.md "Control law", ℓ = 0).
+// (docs/control-law.md, "Model", ℓ = 0).
 func errorTransfer(w, g float64, d int) float64 {
 	zi := cmplx.Exp(complex(0, -w))
 	return cmplx.Abs((1 - zi) / (1 - zi + complex(g, 0)*cmplx.Pow(zi, complex(float64(d), 0))))
@@ -115,8 +115,8 @@ func TestClosedLoopOnBench(t *testing.T) {
 	}
 	t.Logf("calibration: %d slopes × %d actuators, %d frames in %v", ns, na, func() int { _, n := cal.Progress(); return n }(), time.Since(start))
 
-	// Moore–Penrose conditions on the measured matrix (Penrose 1955; REFERENCES.md
-	// "Control law"); agreement with gonum's SVD is checked on random matrices in
+	// Moore–Penrose conditions on the measured matrix (Penrose 1955; docs/control-law.md,
+	// "Pseudo-inverse"); agreement with gonum's SVD is checked on random matrices in
 	// package controller.
 	full, err := controller.BuildReconstructor(m, controller.ReconstructorConfig{MaxCondition: 1e12, UnseenCondition: 1e12, KeepPiston: true})
 	if err != nil {

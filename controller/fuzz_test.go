@@ -57,8 +57,8 @@ func frameSeed(v ...float32) []byte {
 // into frames of Slopes() values, the remainder making one frame of the wrong
 // length, and split at a fuzzed point into two chunks for StepChunk/Finish. No
 // input may panic, and every command, accepted or rejected, must be finite and
-// within the stroke (DESIGN.md, the hot path contract: nothing non-finite ever
-// reaches the mirror). A rejected frame must leave the last good command.
+// within the stroke (docs/hot-path.md: nothing non-finite ever reaches the
+// mirror). A rejected frame must leave the last good command.
 func FuzzStep(f *testing.F) {
 	ns := 24
 	ones := make([]float32, ns)

@@ -32,7 +32,7 @@ func identityParams(t testing.TB, n int, gain, leak, stroke float64) *Params {
 	return p
 }
 
-// delayPlant is the model of REFERENCES.md "Control law": the sensor sees
+// delayPlant is the model of docs/control-law.md: the sensor sees
 // e_k = φ_k − c_{k−d}.
 type delayPlant struct{ queue []float32 }
 
@@ -75,7 +75,7 @@ func constant(v float64, n int) []float64 {
 }
 
 // Steady-state residual of a constant disturbance: ℓ/(ℓ + g)
-// (REFERENCES.md "Control law", final-value theorem on E(z) at z = 1).
+// (docs/control-law.md, final-value theorem on E(z) at z = 1).
 func TestSteadyStateResidual(t *testing.T) {
 	for _, c := range []struct {
 		d          int
@@ -94,7 +94,7 @@ func TestSteadyStateResidual(t *testing.T) {
 }
 
 // Stability limit of the pure integrator, g_max = 2 sin(π/(2(2d − 1)))
-// (REFERENCES.md "Control law": Jury criterion on z^d (z − 1) + g = 0).
+// (docs/control-law.md: a root of z^(d−1) (z − 1) + g = 0 on the unit circle).
 func TestStabilityLimit(t *testing.T) {
 	for d := 1; d <= 3; d++ {
 		gmax := 2 * math.Sin(math.Pi/(2*(2*float64(d)-1)))
@@ -134,10 +134,9 @@ func TestStabilityLimit(t *testing.T) {
 }
 
 // Rejection of a sinusoidal disturbance: the measured error amplitude against
-// |E(e^{jωT})|. For ℓ = 0 E(z) = (1 − z⁻¹)/(1 − z⁻¹ + g z⁻ᵈ) (REFERENCES.md
-// "Control law"). With a leak the same derivation from c_k = (1 − ℓ)c_{k−1} + g e_k,
-// e_k = φ_k − c_{k−d} gives the numerator 1 − (1 − ℓ)z⁻¹ (it reduces to the table's
-// at ℓ = 0 and gives its ℓ/(ℓ + g) at z = 1).
+// |E(e^{jωT})|, E(z) = (1 − (1 − ℓ)z⁻¹)/(1 − (1 − ℓ)z⁻¹ + g z⁻ᵈ), derived in
+// docs/control-law.md from c_k = (1 − ℓ)c_{k−1} + g e_k, e_k = φ_k − c_{k−d} (for
+// ℓ = 0 the pure integrator's (1 − z⁻¹)/(1 − z⁻¹ + g z⁻ᵈ); ℓ/(ℓ + g) at z = 1).
 func TestSinusoidRejection(t *testing.T) {
 	for _, c := range []struct {
 		d          int
@@ -193,7 +192,7 @@ func recoveryFrames(e []float64, k0 int, tol float64) int {
 // Anti-windup: with d = 1, g = 0.5, ℓ = 0.01 and the command clipped at ±1, a
 // disturbance of 5 saturates the mirror. When it ends the integrator holds the
 // clipped 1, so e_{k0+n} = −(1 − ℓ − g)ⁿ = −0.49ⁿ exactly (derived from the law in
-// REFERENCES.md "Control law"): |e| < 0.01 after ⌈ln 0.01 / ln 0.49⌉ = 7 frames.
+// docs/control-law.md): |e| < 0.01 after ⌈ln 0.01 / ln 0.49⌉ = 7 frames.
 // Without anti-windup the unclipped state winds up towards g(5 − 1)/ℓ and takes
 // over a hundred frames to unwind.
 func TestAntiWindup(t *testing.T) {
@@ -434,7 +433,7 @@ func TestChunkErrors(t *testing.T) {
 	}
 }
 
-// The hot path contract (DESIGN.md): zero allocations per frame, including
+// The per-frame contract (docs/hot-path.md): zero allocations per frame, including
 // rejected frames and chunked frames.
 func TestStepAllocatesNothing(t *testing.T) {
 	rng := rand.New(rand.NewPCG(35, 36))

@@ -71,7 +71,7 @@ func pinvOf(t *testing.T, m *mat.Dense) *mat.Dense {
 }
 
 // checkMoorePenrose checks the four Penrose conditions (Penrose, Proc. Cambridge
-// Phil. Soc. 51 (1955) 406; REFERENCES.md "Control law": M R M = M, R M R = R,
+// Phil. Soc. 51 (1955) 406; docs/control-law.md: M R M = M, R M R = R,
 // (M R)ᵀ = M R, (R M)ᵀ = R M) to relative tolerance tol.
 func checkMoorePenrose(t *testing.T, m, r mat.Matrix, tol float64) {
 	t.Helper()

@@ -407,8 +407,8 @@ func scrape(t *testing.T, addr string) map[string]float64 {
 // a real (if hostile) camera. Each must be refused and counted under its reason in
 // stillsky_frames_rejected_total (gaps under stillsky_frames_dropped_total), the
 // mirror must never receive a wrong-length or non-finite command, and the loop
-// must stay closed with the same gain and reconstructor (DESIGN.md, the hot path
-// contract).
+// must stay closed with the same gain and reconstructor (docs/hot-path.md, bad
+// frames).
 func TestHostileCameraFrames(t *testing.T) {
 	// The scripted camera is silent between messages: no stale-camera hold here.
 	r := startHostile(t, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 1 << 20}})

@@ -13,7 +13,7 @@ import (
 
 // The daemon's own per-frame code — validation and assembly, the state machine,
 // Step, interlocks, metrics and telemetry — allocates nothing in any loop state
-// (DESIGN.md, hot-path contract). gRPC's transport is measured separately in
+// (docs/hot-path.md). gRPC's transport is measured separately in
 // TestHotPathAllocations.
 func TestFrameCodeAllocatesNothing(t *testing.T) {
 	d, err := New(Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:2", ListenAddr: "127.0.0.1:0", MetricsAddr: "-"})

@@ -12,8 +12,8 @@ import (
 )
 
 // unstableGain exceeds the stability limit of the pure integrator with two frames
-// of loop delay, g_max = 2 sin(π / (2(2d − 1))) = 1 for d = 2 (REFERENCES.md,
-// Jury criterion on z^d (z − 1) + g = 0): the poles of z² − z + 1.9 lie at
+// of loop delay, g_max = 2 sin(π / (2(2d − 1))) = 1 for d = 2 (docs/control-law.md,
+// a root of z^(d−1) (z − 1) + g = 0 on the unit circle): the poles of z² − z + 1.9 lie at
 // |z| = √1.9 ≈ 1.38, so an unguarded loop grows by about 38 % a frame.
 const unstableGain = 1.9
 

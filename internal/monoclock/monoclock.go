@@ -1,6 +1,6 @@
 // Package monoclock reads the host's CLOCK_MONOTONIC in nanoseconds, the one clock
 // that frame and command timestamps use so that processes on one machine can be
-// compared (DESIGN.md, "One frame, end to end").
+// compared (docs/hot-path.md, "Timestamps").
 package monoclock
 
 import (
