@@ -112,8 +112,9 @@ func turbulentSlopes(rng *rand.Rand, m *mat.Dense, pos [][2]float64) []float32 {
 
 // TestBFloat16CommandError measures the command error of bfloat16 storage,
 // ‖y_bf16 − y_f32‖/‖y_f32‖, and checks it against the rounding model. Each
-// element is stored as a(1+δ) with |δ| ≤ u = 2^-8 (8 significand bits: Intel,
-// "BFLOAT16 – Hardware Numerics Definition", 2018; *from memory*); with the
+// element is stored as a(1+δ) with |δ| ≤ u = 2^-8 (8 significand bits: Kalamkar et al.,
+// "A Study of BFLOAT16 for Deep Learning Training", arXiv:1905.12322, 2019;
+// *from memory*); with the
 // rounding error uniform over an ulp, E[δ²] ≤ u²/3, and the errors of one
 // row being independent, E‖e‖² ≤ (u²/3)·Σ_ij (a_ij x_j)² (the standard
 // statistical rounding model, Higham 2002, §2.8; *from memory*). The dot

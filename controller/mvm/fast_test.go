@@ -253,8 +253,9 @@ func TestForcedKernelIsUsed(t *testing.T) {
 
 func TestBFloat16Rounding(t *testing.T) {
 	// bfloat16 is the top half of an IEEE binary32 (8 exponent bits, 8
-	// significand bits); rounding is to nearest, ties to even (Intel,
-	// "BFLOAT16 – Hardware Numerics Definition", 2018; *from memory*).
+	// significand bits); rounding is to nearest, ties to even (Kalamkar et al.,
+	// "A Study of BFLOAT16 for Deep Learning Training", arXiv:1905.12322,
+	// 2019; *from memory*).
 	tests := []struct {
 		in   float32
 		want uint16

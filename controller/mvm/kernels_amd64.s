@@ -211,9 +211,9 @@ f2reduce:
 // prefetchAhead is how far ahead of the loads the AVX-512 kernel prefetches
 // each row, in bytes: two 128-byte steps. One PREFETCHT0 per row per step
 // covers both lines of the step, as the L2 adjacent-line prefetcher fetches
-// the other half of each aligned 128-byte pair (Intel 64 and IA-32
-// Architectures Optimization Reference Manual, "Data prefetching";
-// *from memory*). Measured on this package's 8-row loop with the
+// the other half of each aligned 128-byte pair (the adjacent-line
+// prefetcher of current x86-64 cores, as the processor vendors' optimisation
+// manuals describe it; *from memory*). Measured on this package's 8-row loop with the
 // BenchmarkMVM shapes, distances alternated in random order in one run:
 // against no prefetch, 256 B gained 4–7 % at 3300×6400 (streamed from DRAM)
 // and was even (±2 %) at 850×1600 and 1300×2500 (from L3); 1 KiB gained as
