@@ -43,7 +43,7 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 	if g == nil || !d.cameraUp.Load() || !d.mirrorUp.Load() {
 		return status.Error(codes.FailedPrecondition, "cannot calibrate: devices not connected")
 	}
-	if s := loopState(d.want.Load()); s != stateOpen && s != stateTripped {
+	if s := d.u.wanted(); s != stateOpen && s != stateTripped {
 		return status.Errorf(codes.FailedPrecondition, "cannot calibrate: the loop is %s; open it first", stateNames[s])
 	}
 	cc, rc, err := calibrationSettings(req, g)
@@ -55,7 +55,7 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 		return status.Error(codes.InvalidArgument, err.Error())
 	}
 	cal := &calibration{c: c, done: make(chan struct{}), block: cc.SettleFrames + cc.FramesPerPattern}
-	if !d.cal.CompareAndSwap(nil, cal) {
+	if !d.u.startCalibration(cal) {
 		return status.Error(codes.FailedPrecondition, "a calibration is already running")
 	}
 	restore := d.selectSource(ctx, stillskyv1.Source_SOURCE_CALIBRATION)
@@ -70,7 +70,7 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 	defer backToSky()
 	_, total := c.Progress()
 	d.log.Info("calibration started", "patterns_frames", total, "amplitude_m", cc.Amplitude, "hadamard", cc.Hadamard)
-	d.want.Store(int32(stateCalibrating))
+	d.u.request(stateCalibrating)
 
 	fail := func(code codes.Code, format string, a ...any) error {
 		d.m.calibrationsFailed.Inc()
@@ -181,4 +181,75 @@ func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (control
 		return cc, rc, fmt.Errorf("poke amplitude %g m: must be finite and > 0 (or 0 for the default)", a)
 	}
 	return cc, rc, nil
+}
+
+// calibrate drives the calibration for frame f, on the real-time goroutine:
+// the frame's slopes go to the calibrator once they can show the block's
+// pattern, and the next pattern goes into rt.cmd; flat once it is done or
+// aborted, and the loop open.
+func (rt *realtime) calibrate(f *stillskyv1.StreamFramesResponse) controller.Result {
+	var res controller.Result
+	cal := rt.u.cal.Load()
+	if cal == nil || cal.aborted.Load() {
+		rt.finishCalibration(cal)
+		copy(rt.cmd, rt.flat)
+		return res
+	}
+	if cal.started && rt.showsBlock(cal, f) {
+		// The frame was validated by the assembler, so Feed cannot refuse it.
+		_ = cal.c.Feed(rt.slopes)
+		cal.progress.Store(int64(progressOf(cal.c)))
+	}
+	if done, _ := cal.c.Progress(); !cal.started || done%cal.block == 0 && done != cal.blockAt {
+		cal.blockAt, cal.blockFrame, cal.waited = done, f.GetFrameNumber(), 0
+	}
+	cal.started = true
+	if cal.c.Done() {
+		rt.finishCalibration(cal)
+		copy(rt.cmd, rt.flat)
+		return res
+	}
+	cal.c.Command(rt.cmd)
+	res.SlopeRMS = rms32(rt.slopes)
+	return res
+}
+
+// finishCalibration hands a finished or aborted calibration back to the
+// control plane and opens the loop.
+func (rt *realtime) finishCalibration(cal *calibration) {
+	u := rt.u
+	if cal != nil {
+		close(cal.done)
+		u.cal.Store(nil)
+	}
+	u.want.CompareAndSwap(int32(stateCalibrating), int32(stateOpen))
+	rt.state = stateOpen
+	rt.guard.opening()
+	u.setState(stateOpen)
+}
+
+func progressOf(c *controller.Calibrator) int {
+	done, _ := c.Progress()
+	return done
+}
+
+// showsBlock reports whether frame f can show the command that began the
+// current calibration block. Lockstep cameras guarantee it by their delay. A
+// free-running camera shows at frame j the command that had reached the mirror
+// by the readout before it, so a command that arrives late (a busy machine, a
+// slow link) shows a frame or more later than the loop delay says: frame f
+// counts only once the mirror has acknowledged the block's command at least a
+// frame period before f's readout. The calibrator's settle frames then follow.
+func (rt *realtime) showsBlock(cal *calibration, f *stillskyv1.StreamFramesResponse) bool {
+	if rt.g.lockstep {
+		return true
+	}
+	slot := cal.blockFrame % readoutRing
+	if rt.tags[slot].Load() == cal.blockFrame {
+		if at := rt.acked[slot].Load(); at != 0 && at <= f.GetReadoutEndNs()-rt.period {
+			return true
+		}
+	}
+	cal.waited++
+	return cal.waited > maxCalibrationWait
 }

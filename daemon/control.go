@@ -5,6 +5,7 @@ import (
 	"context"
 	"io"
 	"path"
+	"time"
 
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
@@ -31,22 +32,22 @@ func (s *controlServer) GetStatus(context.Context, *stillskyv1.GetStatusRequest)
 	return s.d.status(), nil
 }
 
-func (s *controlServer) OpenLoop(context.Context, *stillskyv1.OpenLoopRequest) (*stillskyv1.OpenLoopResponse, error) {
-	if err := s.d.requestState(stateOpen); err != nil {
+func (s *controlServer) OpenLoop(ctx context.Context, _ *stillskyv1.OpenLoopRequest) (*stillskyv1.OpenLoopResponse, error) {
+	if err := s.d.requestState(ctx, stateOpen); err != nil {
 		return nil, err
 	}
 	return &stillskyv1.OpenLoopResponse{Status: s.d.status()}, nil
 }
 
-func (s *controlServer) CloseLoop(context.Context, *stillskyv1.CloseLoopRequest) (*stillskyv1.CloseLoopResponse, error) {
-	if err := s.d.requestState(stateClosed); err != nil {
+func (s *controlServer) CloseLoop(ctx context.Context, _ *stillskyv1.CloseLoopRequest) (*stillskyv1.CloseLoopResponse, error) {
+	if err := s.d.requestState(ctx, stateClosed); err != nil {
 		return nil, err
 	}
 	return &stillskyv1.CloseLoopResponse{Status: s.d.status()}, nil
 }
 
-func (s *controlServer) HoldLoop(context.Context, *stillskyv1.HoldLoopRequest) (*stillskyv1.HoldLoopResponse, error) {
-	if err := s.d.requestState(stateHold); err != nil {
+func (s *controlServer) HoldLoop(ctx context.Context, _ *stillskyv1.HoldLoopRequest) (*stillskyv1.HoldLoopResponse, error) {
+	if err := s.d.requestState(ctx, stateHold); err != nil {
 		return nil, err
 	}
 	return &stillskyv1.HoldLoopResponse{Status: s.d.status()}, nil
@@ -78,7 +79,7 @@ func (s *controlServer) Calibrate(req *stillskyv1.CalibrateRequest, stream grpc.
 }
 
 func (s *controlServer) SaveReconstructor(_ *stillskyv1.SaveReconstructorRequest, stream grpc.ServerStreamingServer[stillskyv1.SaveReconstructorResponse]) error {
-	r := s.d.reconstructor()
+	r := s.d.u.reconstructor()
 	if r == nil {
 		return status.Error(codes.FailedPrecondition, errNoReconstructor.Error())
 	}
@@ -126,7 +127,7 @@ func (s *controlServer) StreamTelemetry(req *stillskyv1.StreamTelemetryRequest, 
 	if n == 0 {
 		return status.Error(codes.InvalidArgument, "telemetry decimation 0: must be >= 1")
 	}
-	return s.d.telemetry.stream(stream.Context(), uint64(n), stream.Send)
+	return s.d.u.telemetry.stream(stream.Context(), uint64(n), stream.Send)
 }
 
 // countRefused counts Control API calls that end in an error, by method and code:
@@ -152,4 +153,32 @@ func (d *Daemon) streamCounter(srv any, ss grpc.ServerStream, info *grpc.StreamS
 	err := h(srv, ss)
 	d.countRefused(info.FullMethod, err)
 	return err
+}
+
+// requestState asks the real-time goroutine for a state change, after checking
+// that it is allowed.
+func (d *Daemon) requestState(ctx context.Context, s loopState) error {
+	cur := d.u.wanted()
+	switch s {
+	case stateClosed:
+		if cur == stateCalibrating {
+			return status.Error(codes.FailedPrecondition, "cannot close the loop while calibrating")
+		}
+		if d.u.params() == nil {
+			return status.Error(codes.FailedPrecondition, errNoReconstructor.Error())
+		}
+		if !d.cameraUp.Load() || !d.mirrorUp.Load() {
+			return status.Error(codes.FailedPrecondition, "cannot close the loop: devices not connected")
+		}
+	case stateHold:
+		if cur != stateClosed {
+			return status.Errorf(codes.FailedPrecondition, "cannot hold: the loop is %s, not closed", stateNames[cur])
+		}
+	}
+	d.u.request(s)
+	d.log.Info("loop state requested", "state", stateNames[s])
+	// The real-time goroutine applies the change at its next frame; wait for it
+	// so that the status returned shows it, unless frames have stopped.
+	d.u.awaitState(ctx, s, 500*time.Millisecond)
+	return nil
 }

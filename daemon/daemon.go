@@ -15,7 +15,6 @@ import (
 	"github.com/prometheus/client_golang/prometheus/promhttp"
 	"google.golang.org/grpc"
 
-	"stillsky/controller"
 	"stillsky/controller/mvm"
 	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
@@ -118,23 +117,13 @@ type Daemon struct {
 	geomMu sync.Mutex
 	geom   *geometry
 
-	// loop is created with the first parameter set; guarded by paramsMu for
-	// writers, read by the real-time goroutine through loopPtr.
-	paramsMu sync.Mutex
-	loopPtr  atomic.Pointer[controller.Loop]
-	// estimator runs the same reconstructor with gain 0 in open loop, so the
-	// residual estimates are reported before the loop is closed.
-	estimator atomic.Pointer[controller.Loop]
-	gain      float64
-	leak      float64
+	// u is the real-time unit; the fields below are the control plane's.
+	u *unit
 
-	want  atomic.Int32 // state requested by the Control API
-	state atomic.Int32 // state the real-time goroutine is in
-	cal   atomic.Pointer[calibration]
+	// paramsMu guards gain and leak and serialises parameter installs.
+	paramsMu   sync.Mutex
+	gain, leak float64
 
-	stats runStats
-
-	telemetry telemetryRing
 	// describes holds the devices' Describe answers, for the live view.
 	describes atomic.Pointer[describes]
 	// camera is the connected camera's client, for source selection.
@@ -160,9 +149,7 @@ func New(cfg Config) (*Daemon, error) {
 	if err := validGainLeak(d.gain, d.leak); err != nil {
 		return nil, err
 	}
-	d.want.Store(int32(stateOpen))
-	d.state.Store(int32(stateOpen))
-	d.m.setState(stateOpen)
+	d.u = newUnit(d.m, d.log, cfg.Interlocks, cfg.Recorder)
 	d.m.gain.Set(d.gain)
 	d.m.leak.Set(d.leak)
 	d.m.wavelength.Set(cfg.ScienceWavelength)

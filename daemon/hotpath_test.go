@@ -8,6 +8,7 @@ import (
 	"gonum.org/v1/gonum/mat"
 
 	"stillsky/controller"
+	"stillsky/internal/monoclock"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
 
@@ -38,25 +39,23 @@ func TestFrameCodeAllocatesNothing(t *testing.T) {
 	if err := d.installReconstructor(r, false); err != nil {
 		t.Fatal(err)
 	}
-	rt := newRealtime(d, g)
+	rt := newRealtime(d.u, g)
 	frame := &stillskyv1.StreamFramesResponse{Slopes: make([]float32, ns)}
 	for i := range frame.Slopes {
 		frame.Slopes[i] = float32(1e-7 * rng.NormFloat64())
 	}
 	step := func() {
 		frame.FrameNumber++
-		if complete, ok := rt.assemble(frame); !complete || !ok {
+		now := monoclock.Now()
+		if !rt.receive(frame, now) {
 			t.Fatal("frame refused")
 		}
-		res := rt.compute()
-		rt.publish(res)
-		d.telemetry.record(frame.FrameNumber, rt.state, rt.slopes, rt.cmd, res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated, 1e-5)
-		rt.lastNum = frame.FrameNumber
+		rt.delivered(frame, now, now+1000, now+10000)
 	}
 	for _, s := range []loopState{stateOpen, stateClosed, stateHold, stateOpen} {
-		d.want.Store(int32(s))
+		d.u.request(s)
 		step() // the state change itself may log
-		if got := loopState(d.state.Load()); got != s {
+		if got := d.u.current(); got != s {
 			t.Fatalf("state %v, want %v", stateNames[got], stateNames[s])
 		}
 		if a := testing.AllocsPerRun(200, step); a != 0 {

@@ -116,29 +116,29 @@ func (g *guard) check(res controller.Result, actuators int) string {
 }
 
 // trip records an interlock: counted, logged, visible in the status.
-func (d *Daemon) trip(reason string) {
+func (u *unit) trip(reason string) {
 	var c prometheus.Counter
 	switch reason {
 	case tripDivergence:
-		c = d.m.tripDiv
+		c = u.m.tripDiv
 	case tripSaturation:
-		c = d.m.tripSat
+		c = u.m.tripSat
 	case tripStaleCamera:
-		c = d.m.tripStale
+		c = u.m.tripStale
 	default:
-		c = d.m.tripMirror
+		c = u.m.tripMirror
 	}
 	c.Inc()
-	d.stats.trips.Add(1)
+	u.stats.trips.Add(1)
 	r := reason
-	d.stats.lastTripReason.Store(&r)
+	u.stats.lastTripReason.Store(&r)
 	// Logging allocates; a trip ends closed-loop operation, so it is off the
 	// steady-state hot path.
-	d.log.Warn("safety interlock tripped", "reason", reason)
+	u.log.Warn("safety interlock tripped", "reason", reason)
 }
 
 // watchdog holds the loop when the camera goes quiet while the loop is closed.
-func (d *Daemon) watchdog(done <-chan struct{}, period, stale time.Duration) {
+func (u *unit) watchdog(done <-chan struct{}, period, stale time.Duration) {
 	t := time.NewTicker(period)
 	defer t.Stop()
 	for {
@@ -147,17 +147,12 @@ func (d *Daemon) watchdog(done <-chan struct{}, period, stale time.Duration) {
 			return
 		case <-t.C:
 		}
-		last := d.stats.lastArrival.Load()
-		if last == 0 || loopState(d.want.Load()) != stateClosed {
+		last := u.stats.lastArrival.Load()
+		if last == 0 || u.wanted() != stateClosed {
 			continue
 		}
-		if quiet := time.Duration(monoclock.Now() - last); quiet > stale {
-			if d.want.CompareAndSwap(int32(stateClosed), int32(stateHold)) {
-				// The real-time goroutine, blocked waiting for a frame, takes the
-				// state at its next frame; the status shows it now.
-				d.setState(stateHold)
-				d.trip(tripStaleCamera)
-			}
+		if quiet := time.Duration(monoclock.Now() - last); quiet > stale && u.holdIfClosed() {
+			u.trip(tripStaleCamera)
 		}
 	}
 }

@@ -145,7 +145,7 @@ type liveFrame struct {
 }
 
 func (lv *liveView) sample() liveSample {
-	s := lv.d.telemetry.snapshot()
+	s := lv.d.u.telemetry.snapshot()
 	state := "unknown"
 	if i := int(s.GetState()) - 1; i >= 0 && i < len(stateNames) {
 		state = stateNames[i]

@@ -3,7 +3,6 @@ package daemon
 import (
 	"errors"
 	"fmt"
-	"time"
 
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
@@ -12,6 +11,10 @@ import (
 )
 
 var errNoReconstructor = errors.New("no reconstructor loaded: calibrate or load one first")
+
+// Parameters: the control plane keeps the gain and leak (guarded by paramsMu,
+// which also serialises installs), builds each parameter set off the hot path
+// and hands it to the unit.
 
 // setGainLeak changes the gain and/or the leak, validating first.
 func (d *Daemon) setGainLeak(gain, leak *float64) error {
@@ -27,8 +30,7 @@ func (d *Daemon) setGainLeak(gain, leak *float64) error {
 	if err := validGainLeak(g, l); err != nil {
 		return status.Error(codes.InvalidArgument, err.Error())
 	}
-	if loop := d.loopPtr.Load(); loop != nil {
-		old := loop.Params()
+	if old := d.u.params(); old != nil {
 		p, err := old.WithGain(g)
 		if err == nil {
 			var q *controller.Params
@@ -39,11 +41,9 @@ func (d *Daemon) setGainLeak(gain, leak *float64) error {
 		if err != nil {
 			return status.Error(codes.InvalidArgument, err.Error())
 		}
-		if err := loop.SetParams(p); err != nil {
-			p.Close()
-			return status.Error(codes.Internal, err.Error())
+		if err := d.u.retune(p); err != nil {
+			return err
 		}
-		d.retire(old)
 	}
 	d.gain, d.leak = g, l
 	d.m.gain.Set(g)
@@ -56,11 +56,10 @@ func (d *Daemon) setGainLeak(gain, leak *float64) error {
 func (d *Daemon) setModalGains(gains []float64) error {
 	d.paramsMu.Lock()
 	defer d.paramsMu.Unlock()
-	loop := d.loopPtr.Load()
-	if loop == nil {
+	old := d.u.params()
+	if old == nil {
 		return status.Error(codes.FailedPrecondition, errNoReconstructor.Error())
 	}
-	old := loop.Params()
 	if n := old.Reconstructor().NumModes(); len(gains) != n {
 		return status.Errorf(codes.InvalidArgument, "modal gains: %d values, want %d (one per controlled mode)", len(gains), n)
 	}
@@ -68,58 +67,7 @@ func (d *Daemon) setModalGains(gains []float64) error {
 	if err != nil {
 		return status.Error(codes.InvalidArgument, err.Error())
 	}
-	return d.swap(p, old)
-}
-
-// swap installs p on the loop and the matching gain-0 set on the estimator.
-// paramsMu must be held.
-func (d *Daemon) swap(p *controller.Params, old *controller.Params) error {
-	est, err := p.WithGain(0)
-	if err != nil {
-		p.Close()
-		return status.Error(codes.Internal, err.Error())
-	}
-	loop, eloop := d.loopPtr.Load(), d.estimator.Load()
-	if loop == nil {
-		if loop, err = controller.NewLoop(p); err != nil {
-			return status.Error(codes.Internal, err.Error())
-		}
-		if eloop, err = controller.NewLoop(est); err != nil {
-			return status.Error(codes.Internal, err.Error())
-		}
-		d.loopPtr.Store(loop)
-		d.estimator.Store(eloop)
-		return nil
-	}
-	oldEst := eloop.Params()
-	if err := loop.SetParams(p); err != nil {
-		p.Close()
-		est.Close()
-		return status.Errorf(codes.InvalidArgument, "%v", err)
-	}
-	if err := eloop.SetParams(est); err != nil {
-		est.Close()
-		return status.Error(codes.Internal, err.Error())
-	}
-	d.retire(old, oldEst)
-	return nil
-}
-
-// retire closes parameter sets once the real-time goroutine can no longer be
-// stepping with them: a frame in progress keeps the set it started with.
-func (d *Daemon) retire(ps ...*controller.Params) {
-	start := d.stats.frames.Load()
-	go func() {
-		deadline := time.Now().Add(time.Second)
-		for d.stats.frames.Load() < start+2 && time.Now().Before(deadline) {
-			time.Sleep(time.Millisecond)
-		}
-		for _, p := range ps {
-			if p != nil {
-				p.Close()
-			}
-		}
-	}()
+	return d.u.install(p)
 }
 
 // installReconstructor builds a parameter set on r and swaps it in.
@@ -132,7 +80,7 @@ func (d *Daemon) installReconstructor(r *controller.Reconstructor, persist bool)
 		return status.Errorf(codes.InvalidArgument, "reconstructor is %d slopes × %d actuators; the devices have %d × %d",
 			r.Slopes, r.Actuators, g.slopes, g.actuators)
 	}
-	if loopState(d.want.Load()) == stateCalibrating {
+	if d.u.wanted() == stateCalibrating {
 		return status.Error(codes.FailedPrecondition, "cannot install a reconstructor while calibrating")
 	}
 	d.paramsMu.Lock()
@@ -148,23 +96,12 @@ func (d *Daemon) installReconstructor(r *controller.Reconstructor, persist bool)
 	if err != nil {
 		return status.Error(codes.InvalidArgument, err.Error())
 	}
-	var old *controller.Params
-	if loop := d.loopPtr.Load(); loop != nil {
-		old = loop.Params()
-	}
-	if err := d.swap(p, old); err != nil {
+	if err := d.u.install(p); err != nil {
 		return err
 	}
 	d.log.Info("reconstructor installed", "method", r.Method.String(), "modes_kept", r.ModesKept, "slopes", r.Slopes, "actuators", r.Actuators)
 	if persist {
 		d.persistReconstructor(r)
-	}
-	return nil
-}
-
-func (d *Daemon) reconstructor() *controller.Reconstructor {
-	if loop := d.loopPtr.Load(); loop != nil {
-		return loop.Params().Reconstructor()
 	}
 	return nil
 }

@@ -6,33 +6,39 @@ import (
 	"runtime"
 	"sync/atomic"
 
-	"google.golang.org/grpc"
-
 	"stillsky/controller"
 	"stillsky/internal/monoclock"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
 
-// realtime holds everything the real-time goroutine touches, allocated once per
-// session so that a frame allocates nothing in the daemon's own code.
+// receiver and sender are the two halves of a device stream as the real-time
+// loop uses them: receive the next message into m, send m. A gRPC stream is
+// both; a test may drive the loop with anything that is.
+type (
+	receiver interface{ RecvMsg(m any) error }
+	sender   interface{ SendMsg(m any) error }
+)
+
+// realtime is the real-time loop of one device session: it drives the unit frame
+// by frame, and holds everything the real-time goroutine touches, allocated once
+// per session so that a frame allocates nothing in the daemon's own code.
 type realtime struct {
-	d       *Daemon
+	u       *unit
 	g       *geometry
 	frame   *stillskyv1.StreamFramesResponse
 	out     *stillskyv1.StreamCommandsRequest
-	slopes  []float32 // assembled frame
+	asm     assembler
+	slopes  []float32 // the assembled frame (asm.slopes)
 	cmd     []float32 // command being sent
 	flat    []float32
 	discard []float32 // the open-loop estimator's command, never sent
 	sent    []float32 // the last command sent
-	next    int       // next slope index expected in a chunked frame
-	lastNum uint64
+	res     controller.Result
 	state   loopState
 	guard   guard
-	// The frame being assembled from chunks, and the loop multiplying its chunks
-	// as they arrive (nil when not pipelining this frame).
-	assembling uint64
-	pipe       *controller.Loop
+	// pipe is the loop multiplying the chunks of the frame being assembled as
+	// they arrive (nil when not pipelining this frame).
+	pipe *controller.Loop
 	// staleNs is the age at which a frame counts as late; skipped says whether
 	// the previous frame was skipped for it.
 	staleNs int64
@@ -48,37 +54,37 @@ type realtime struct {
 
 const readoutRing = 1024
 
-func newRealtime(d *Daemon, g *geometry) *realtime {
+func newRealtime(u *unit, g *geometry) *realtime {
 	rt := &realtime{
-		d: d, g: g,
+		u: u, g: g,
 		frame:   &stillskyv1.StreamFramesResponse{Slopes: make([]float32, 0, g.slopes)},
 		out:     &stillskyv1.StreamCommandsRequest{},
-		slopes:  make([]float32, g.slopes),
+		asm:     newAssembler(g.slopes),
 		cmd:     make([]float32, g.actuators),
 		flat:    make([]float32, g.actuators),
 		discard: make([]float32, g.actuators),
 		sent:    make([]float32, g.actuators),
-		state:   loopState(d.state.Load()),
-		guard:   guard{cfg: d.cfg.Interlocks},
+		state:   u.current(),
+		guard:   guard{cfg: u.interlocks},
 		staleNs: int64(2e9 / g.frameRate),
 		period:  int64(1e9 / g.frameRate),
 	}
+	rt.slopes = rt.asm.slopes
 	rt.out.Values = rt.cmd
-	d.telemetry.init(g.slopes, g.actuators)
+	u.telemetry.init(g.slopes, g.actuators)
 	return rt
 }
 
 // run is the real-time goroutine: receive a frame, compute, send. Nothing else
-// runs here. With affinity or SCHED_FIFO asked for, it runs on one locked OS
-// thread that carries them. Without, it stays unlocked: a locked goroutine
-// costs a thread wake-up (a futex and a context switch) each time the transport
-// hands it a frame and each time it hands the transport a command, where an
-// unlocked one runs next on the transport's own thread.
-func (rt *realtime) run(ctx context.Context, frames grpc.ServerStreamingClient[stillskyv1.StreamFramesResponse], cmds grpc.BidiStreamingClient[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
-	d, m := rt.d, rt.d.m
-	if r := d.cfg.Realtime; r.Pin || r.FIFOPriority > 0 {
+// runs here. With affinity or SCHED_FIFO asked for in threads, it runs on one
+// locked OS thread that carries them. Without, it stays unlocked: a locked
+// goroutine costs a thread wake-up (a futex and a context switch) each time the
+// transport hands it a frame and each time it hands the transport a command,
+// where an unlocked one runs next on the transport's own thread.
+func (rt *realtime) run(ctx context.Context, threads Realtime, frames receiver, cmds sender) error {
+	if threads.Pin || threads.FIFOPriority > 0 {
 		runtime.LockOSThread()
-		if !d.threadSettings() {
+		if !threads.applyToThread(rt.u.log) {
 			// A thread whose affinity or policy changed stays locked, so the
 			// runtime ends it with this goroutine instead of reusing it.
 			defer runtime.UnlockOSThread()
@@ -89,54 +95,107 @@ func (rt *realtime) run(ctx context.Context, frames grpc.ServerStreamingClient[s
 			return fmt.Errorf("camera stream: %w", err)
 		}
 		received := monoclock.Now()
-		f := rt.frame
-		complete, ok := rt.assemble(f)
-		if !ok || !complete {
+		if !rt.receive(rt.frame, received) {
 			continue
 		}
-		// Only a frame that passed validation is a sign of life for the
-		// stale-camera watchdog.
-		d.stats.lastArrival.Store(received)
-		num := f.GetFrameNumber()
-		m.frames.Inc()
-		d.stats.frames.Add(1)
-		d.stats.lastFrame.Store(num)
-		if gap := num - rt.lastNum; rt.lastNum != 0 && gap > 1 {
-			m.dropped.Add(float64(gap - 1))
-			d.stats.dropped.Add(gap - 1)
-		}
-		rt.lastNum = num
-		if rt.behind(f, received) {
-			m.dropped.Inc()
-			d.stats.dropped.Add(1)
-			continue
-		}
-		slot := num % readoutRing
-		rt.acked[slot].Store(0)
-		rt.readout[slot].Store(f.GetReadoutEndNs())
-		rt.tags[slot].Store(num)
-
-		res := rt.compute()
 		computed := monoclock.Now()
-		rt.out.FrameNumber = num
 		if err := cmds.SendMsg(rt.out); err != nil {
 			if s := rt.state; (s == stateClosed || s == stateHold) && ctx.Err() == nil {
-				d.trip(tripMirrorUnreachable)
+				rt.u.trip(tripMirrorUnreachable)
 			}
 			return fmt.Errorf("mirror stream: %w", err)
 		}
-		sent := monoclock.Now()
-		copy(rt.sent, rt.cmd)
-		m.commands.Inc()
-		m.compute.Observe(float64(computed-received) * 1e-9)
-		m.rtc.Observe(float64(sent-received) * 1e-9)
-		d.stats.rtc.add(sent - received)
-		if rec := d.cfg.Recorder; rec != nil {
-			rec.frame(received, received-f.GetReadoutEndNs(), computed-received, sent-received)
-		}
-		rt.publish(res)
-		d.telemetry.record(num, rt.state, rt.slopes, rt.cmd, res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated, float64(sent-received)*1e-9)
+		rt.delivered(rt.frame, received, computed, monoclock.Now())
 	}
+}
+
+// receive takes one message of the camera stream, received at time received
+// (CLOCK_MONOTONIC ns): it assembles and validates the frame, counts it, applies
+// the requested state and computes the command into rt.out. It reports whether
+// that command is to be sent: not for a chunk of a frame still incomplete, a
+// refused frame, or a frame skipped as late. The caller sends rt.out and then
+// calls delivered.
+func (rt *realtime) receive(f *stillskyv1.StreamFramesResponse, received int64) bool {
+	u, m := rt.u, rt.u.m
+	a := rt.asm.add(f)
+	if a.abandoned {
+		rt.reject(refusedLength)
+	}
+	switch {
+	case a.verdict == chunkIgnored:
+		return false
+	case a.verdict.refused():
+		rt.reject(a.verdict)
+		return false
+	}
+	if a.from == 0 {
+		rt.pipe = nil
+		if loop := u.loop.Load(); f.GetChunkCount() > 1 && loop != nil && rt.state == stateClosed && u.wanted() == stateClosed {
+			rt.pipe = loop
+		}
+	}
+	if rt.pipe != nil {
+		rt.pipe.StepChunk(rt.slopes, a.from, a.to)
+	}
+	if a.verdict != frameComplete {
+		return false
+	}
+	// Only a frame that passed validation is a sign of life for the
+	// stale-camera watchdog.
+	u.stats.lastArrival.Store(received)
+	num := f.GetFrameNumber()
+	m.frames.Inc()
+	u.stats.frames.Add(1)
+	u.stats.lastFrame.Store(num)
+	if a.dropped > 0 {
+		m.dropped.Add(float64(a.dropped))
+		u.stats.dropped.Add(a.dropped)
+	}
+	if rt.behind(f, received) {
+		m.dropped.Inc()
+		u.stats.dropped.Add(1)
+		return false
+	}
+	slot := num % readoutRing
+	rt.acked[slot].Store(0)
+	rt.readout[slot].Store(f.GetReadoutEndNs())
+	rt.tags[slot].Store(num)
+	rt.res = rt.compute(f)
+	rt.out.FrameNumber = num
+	return true
+}
+
+// delivered records that the command computed for frame f (received at
+// received, computed at computed) was sent at sent: latency, the frame's
+// estimates, telemetry.
+func (rt *realtime) delivered(f *stillskyv1.StreamFramesResponse, received, computed, sent int64) {
+	u, m, res := rt.u, rt.u.m, rt.res
+	copy(rt.sent, rt.cmd)
+	m.commands.Inc()
+	m.compute.Observe(float64(computed-received) * 1e-9)
+	m.rtc.Observe(float64(sent-received) * 1e-9)
+	u.stats.rtc.add(sent - received)
+	if rec := u.recorder; rec != nil {
+		rec.frame(received, received-f.GetReadoutEndNs(), computed-received, sent-received)
+	}
+	rt.publish(res)
+	u.telemetry.record(f.GetFrameNumber(), rt.state, rt.slopes, rt.cmd, res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated, float64(sent-received)*1e-9)
+}
+
+// reject counts a refused frame.
+func (rt *realtime) reject(v verdict) {
+	m := rt.u.m
+	switch v {
+	case refusedNonFinite:
+		m.rejNonFinite.Inc()
+	case refusedDuplicate:
+		m.rejDup.Inc()
+	case refusedOrder:
+		m.rejOrder.Inc()
+	default:
+		m.rejLength.Inc()
+	}
+	rt.u.stats.rejected.Add(1)
 }
 
 // behind reports whether to skip a frame that arrived more than two periods after
@@ -155,38 +214,16 @@ func (rt *realtime) behind(f *stillskyv1.StreamFramesResponse, received int64) b
 
 // compute applies the loop state to the assembled frame and leaves the command to
 // send in rt.cmd.
-func (rt *realtime) compute() controller.Result {
-	d := rt.d
-	want := loopState(d.want.Load())
-	if want != rt.state {
+func (rt *realtime) compute(f *stillskyv1.StreamFramesResponse) controller.Result {
+	u := rt.u
+	if want := u.wanted(); want != rt.state {
 		rt.enter(want)
 	}
-	loop := d.loopPtr.Load()
+	loop := u.loop.Load()
 	var res controller.Result
 	switch rt.state {
 	case stateCalibrating:
-		cal := d.cal.Load()
-		if cal == nil || cal.aborted.Load() {
-			rt.finishCalibration(cal)
-			copy(rt.cmd, rt.flat)
-			break
-		}
-		if cal.started && rt.showsBlock(cal, rt.frame) {
-			// The frame was validated by assemble, so Feed cannot refuse it.
-			_ = cal.c.Feed(rt.slopes)
-			cal.progress.Store(int64(progressOf(cal.c)))
-		}
-		if done, _ := cal.c.Progress(); !cal.started || done%cal.block == 0 && done != cal.blockAt {
-			cal.blockAt, cal.blockFrame, cal.waited = done, rt.frame.GetFrameNumber(), 0
-		}
-		cal.started = true
-		if cal.c.Done() {
-			rt.finishCalibration(cal)
-			copy(rt.cmd, rt.flat)
-			break
-		}
-		cal.c.Command(rt.cmd)
-		res.SlopeRMS = rms32(rt.slopes)
+		res = rt.calibrate(f)
 	case stateClosed:
 		if loop == nil {
 			copy(rt.cmd, rt.flat)
@@ -201,8 +238,8 @@ func (rt *realtime) compute() controller.Result {
 			break
 		}
 		if reason := rt.guard.check(res, rt.g.actuators); reason != "" {
-			d.want.CompareAndSwap(int32(stateClosed), int32(stateTripped))
-			d.trip(reason)
+			u.want.CompareAndSwap(int32(stateClosed), int32(stateTripped))
+			u.trip(reason)
 			rt.enter(stateTripped)
 			// The diverging command of this frame is never sent: the safe shape
 			// starts from the last command the mirror received.
@@ -221,7 +258,7 @@ func (rt *realtime) compute() controller.Result {
 		if rt.state == stateOpen {
 			rt.guard.observeOpen(res.SlopeRMS)
 		}
-		if est := d.estimator.Load(); est != nil {
+		if est := u.estimator.Load(); est != nil {
 			r := est.Step(rt.slopes, rt.discard)
 			res.ResidualRMS, res.Strehl = r.ResidualRMS, r.Strehl
 		}
@@ -231,8 +268,17 @@ func (rt *realtime) compute() controller.Result {
 
 // enter performs the side effects of a state change requested by the Control API.
 func (rt *realtime) enter(s loopState) {
-	d := rt.d
-	loop := d.loopPtr.Load()
+	u := rt.u
+	loop := u.loop.Load()
+	if rt.state == stateCalibrating {
+		// A calibration left on request (opening the loop aborts it) is handed
+		// back like a finished one, so that its driver returns and another can
+		// start.
+		if cal := u.cal.Load(); cal != nil {
+			close(cal.done)
+			u.cal.Store(nil)
+		}
+	}
 	switch s {
 	case stateClosed:
 		if loop != nil && rt.state != stateHold {
@@ -246,13 +292,13 @@ func (rt *realtime) enter(s loopState) {
 		rt.guard.opening()
 	}
 	rt.state = s
-	d.setState(s)
+	u.setState(s)
 }
 
 // safeShape writes the command of an open or tripped loop: flat, or with a trip
 // decay configured a tripped loop decays from the last command sent.
 func (rt *realtime) safeShape() {
-	b := float32(rt.d.cfg.Interlocks.TripDecay)
+	b := float32(rt.guard.cfg.TripDecay)
 	if rt.state != stateTripped || b == 0 {
 		copy(rt.cmd, rt.flat)
 		return
@@ -264,26 +310,9 @@ func (rt *realtime) safeShape() {
 	}
 }
 
-func (rt *realtime) finishCalibration(cal *calibration) {
-	d := rt.d
-	if cal != nil {
-		close(cal.done)
-		d.cal.Store(nil)
-	}
-	d.want.CompareAndSwap(int32(stateCalibrating), int32(stateOpen))
-	rt.state = stateOpen
-	rt.guard.opening()
-	d.setState(stateOpen)
-}
-
-func progressOf(c *controller.Calibrator) int {
-	done, _ := c.Progress()
-	return done
-}
-
 // publish records the frame's estimates for the metrics and the status.
 func (rt *realtime) publish(res controller.Result) {
-	d, m := rt.d, rt.d.m
+	u, m := rt.u, rt.u.m
 	if !res.OK() {
 		switch res.Status {
 		case controller.StatusNonFinite:
@@ -291,7 +320,7 @@ func (rt *realtime) publish(res controller.Result) {
 		default:
 			m.rejLength.Inc()
 		}
-		d.stats.rejected.Add(1)
+		u.stats.rejected.Add(1)
 		return
 	}
 	m.slopeRMS.Set(res.SlopeRMS)
@@ -303,32 +332,11 @@ func (rt *realtime) publish(res controller.Result) {
 		peak = max(peak, v, -v)
 	}
 	m.strokeUsed.Set(float64(peak) / rt.g.stroke)
-	d.stats.store(res)
-}
-
-// showsBlock reports whether frame f can show the command that began the
-// current calibration block. Lockstep cameras guarantee it by their delay. A
-// free-running camera shows at frame j the command that had reached the mirror
-// by the readout before it, so a command that arrives late (a busy machine, a
-// slow link) shows a frame or more later than the loop delay says: frame f
-// counts only once the mirror has acknowledged the block's command at least a
-// frame period before f's readout. The calibrator's settle frames then follow.
-func (rt *realtime) showsBlock(cal *calibration, f *stillskyv1.StreamFramesResponse) bool {
-	if rt.g.lockstep {
-		return true
-	}
-	slot := cal.blockFrame % readoutRing
-	if rt.tags[slot].Load() == cal.blockFrame {
-		if at := rt.acked[slot].Load(); at != 0 && at <= f.GetReadoutEndNs()-rt.period {
-			return true
-		}
-	}
-	cal.waited++
-	return cal.waited > maxCalibrationWait
+	u.stats.store(res)
 }
 
 // acks reads the mirror's acknowledgements and turns them into end-to-end latency.
-func (rt *realtime) acks(cmds grpc.BidiStreamingClient[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
+func (rt *realtime) acks(cmds receiver) error {
 	ack := &stillskyv1.StreamCommandsResponse{}
 	for {
 		if err := cmds.RecvMsg(ack); err != nil {
@@ -344,9 +352,9 @@ func (rt *realtime) acks(cmds grpc.BidiStreamingClient[stillskyv1.StreamCommands
 		if e2e < 0 {
 			continue
 		}
-		rt.d.m.endToEnd.Observe(float64(e2e) * 1e-9)
-		rt.d.stats.e2e.add(e2e)
-		if rec := rt.d.cfg.Recorder; rec != nil {
+		rt.u.m.endToEnd.Observe(float64(e2e) * 1e-9)
+		rt.u.stats.e2e.add(e2e)
+		if rec := rt.u.recorder; rec != nil {
 			rec.endToEnd(e2e)
 		}
 	}

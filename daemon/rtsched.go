@@ -2,6 +2,7 @@ package daemon
 
 import (
 	"fmt"
+	"log/slog"
 	"runtime/debug"
 	"strings"
 
@@ -63,12 +64,11 @@ func (d *Daemon) processSettings() {
 	}
 }
 
-// threadSettings pins and prioritises the calling OS thread (the real-time
-// goroutine, already locked to it) and reports what it could not do, in one line.
+// applyToThread pins and prioritises the calling OS thread (the real-time
+// goroutine, already locked to it) and logs what it could not do, in one line.
 // It reports whether it changed the thread, which must then never return to the
 // runtime's pool.
-func (d *Daemon) threadSettings() (changed bool) {
-	rt := d.cfg.Realtime
+func (rt Realtime) applyToThread(log *slog.Logger) (changed bool) {
 	var done, refused []string
 	if rt.Pin {
 		var set unix.CPUSet
@@ -89,9 +89,9 @@ func (d *Daemon) threadSettings() (changed bool) {
 	}
 	changed = len(done) > 0
 	if len(refused) > 0 {
-		d.log.Warn("real-time thread settings not permitted; running without them", "refused", strings.Join(refused, "; "), "applied", strings.Join(done, ", "))
+		log.Warn("real-time thread settings not permitted; running without them", "refused", strings.Join(refused, "; "), "applied", strings.Join(done, ", "))
 	} else if len(done) > 0 {
-		d.log.Info("real-time thread", "settings", strings.Join(done, ", "))
+		log.Info("real-time thread", "settings", strings.Join(done, ", "))
 	}
 	return changed
 }

@@ -76,7 +76,7 @@ func (d *Daemon) session(ctx context.Context) error {
 	defer d.cameraUp.Store(false)
 	defer d.mirrorUp.Store(false)
 
-	rt := newRealtime(d, g)
+	rt := newRealtime(d.u, g)
 	watchDone := make(chan struct{})
 	defer close(watchDone)
 	period := time.Duration(float64(time.Second) / g.frameRate)
@@ -86,16 +86,12 @@ func (d *Daemon) session(ctx context.Context) error {
 		// silence means it is stuck.
 		stale = max(stale, time.Second)
 	}
-	go d.watchdog(watchDone, period, stale)
+	go d.u.watchdog(watchDone, period, stale)
 	ackErr := make(chan error, 1)
 	go func() { ackErr <- rt.acks(cmds) }()
-	err = rt.run(ctx, frames, cmds)
+	err = rt.run(ctx, d.cfg.Realtime, frames, cmds)
 	cancel()
 	<-ackErr
-	// Losing a device opens the loop: a mirror left integrating blind is unsafe.
-	if s := loopState(d.state.Load()); s == stateClosed || s == stateHold {
-		d.want.Store(int32(stateOpen))
-	}
-	d.setState(stateOpen)
+	d.u.devicesLost()
 	return err
 }

@@ -25,28 +25,28 @@ func reconstructorInfo(r *controller.Reconstructor) *stillskyv1.ReconstructorInf
 
 // status is the GetStatus snapshot.
 func (d *Daemon) status() *stillskyv1.GetStatusResponse {
-	st := &d.stats
+	u := d.u.snapshot()
 	d.paramsMu.Lock()
 	gain, leak := d.gain, d.leak
 	d.paramsMu.Unlock()
 	s := &stillskyv1.GetStatusResponse{
-		State:                 loopState(d.state.Load()).proto(),
+		State:                 u.state.proto(),
 		Gain:                  gain,
 		Leak:                  leak,
-		Frames:                st.frames.Load(),
-		FramesDropped:         st.dropped.Load(),
-		FramesRejected:        st.rejected.Load(),
-		LastFrame:             st.lastFrame.Load(),
-		Reconstructor:         reconstructorInfo(d.reconstructor()),
-		ResidualSlopeRmsRad:   st.slopeRMS.Load(),
-		ResidualWavefrontRmsM: st.wavefrontRMS.Load(),
-		StrehlEstimate:        st.strehl.Load(),
+		Frames:                u.frames,
+		FramesDropped:         u.dropped,
+		FramesRejected:        u.rejected,
+		LastFrame:             u.lastFrame,
+		Reconstructor:         reconstructorInfo(u.reconstructor),
+		ResidualSlopeRmsRad:   u.slopeRMS,
+		ResidualWavefrontRmsM: u.wavefrontRMS,
+		StrehlEstimate:        u.strehl,
 		ScienceWavelengthM:    d.cfg.ScienceWavelength,
-		SaturatedActuators:    uint32(st.saturated.Load()),
-		RtcLatency:            st.rtc.summary(),
-		EndToEndLatency:       st.e2e.summary(),
-		InterlockTrips:        st.trips.Load(),
-		LastInterlock:         st.lastTrip(),
+		SaturatedActuators:    uint32(u.saturated),
+		RtcLatency:            u.rtc,
+		EndToEndLatency:       u.endToEnd,
+		InterlockTrips:        u.trips,
+		LastInterlock:         u.lastTrip,
 		CameraConnected:       d.cameraUp.Load(),
 		MirrorConnected:       d.mirrorUp.Load(),
 	}
