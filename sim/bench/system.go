@@ -36,6 +36,7 @@ type System struct {
 	cmd      []float32
 	dirty    bool // cmd changed since surface was computed
 	turb     bool
+	frozen   bool
 	noiseOn  bool
 	atmOPD   []float64
 	surface  []float64
@@ -191,6 +192,11 @@ func (s *System) SetCommand(cmd []float32) {
 // mirror, as with a calibration source; the layers do not move.
 func (s *System) SetTurbulence(on bool) { s.turb = on }
 
+// SetFrozen stops (true) or restarts (false) the layers' motion while the
+// turbulence stays in front of the sensor: frames then see the same wavefront,
+// which takes the servo lag out of a closed loop.
+func (s *System) SetFrozen(on bool) { s.frozen = on }
+
 // SetNoise switches sensor noise on or off (it starts as the scenario says).
 func (s *System) SetNoise(on bool) { s.noiseOn = on }
 
@@ -210,7 +216,9 @@ func (s *System) Frame(slopes []float32) {
 func (s *System) Advance() {
 	s.frameTurb = s.turb
 	if s.turb {
-		s.atm.Advance(s.period)
+		if !s.frozen {
+			s.atm.Advance(s.period)
+		}
 		s.atm.OPD(s.atmOPD)
 	}
 	if !s.linear {
@@ -351,6 +359,11 @@ func (s *System) Residual() []float64 {
 	s.ensureResidual()
 	return s.residual
 }
+
+// Atmosphere returns the turbulence OPD of the current frame on the pupil grid
+// (metres) while the turbulence is on. The slice is the system's own:
+// copy it to keep it.
+func (s *System) Atmosphere() []float64 { return s.atmOPD }
 
 // Sensor returns the wavefront sensor.
 func (s *System) Sensor() *wfs.ShackHartmann { return s.sensor }

@@ -1,0 +1,42 @@
+package analysis
+
+import (
+	"math"
+	"testing"
+)
+
+func kolmogorov(r0 float64, layers ...Layer) Turbulence {
+	return Turbulence{R0: r0, L0: math.Inf(1), Layers: layers}
+}
+
+func TestFittingCoefficient(t *testing.T) {
+	// σ² = a_F (p/r0)^(5/3): an ideal square-band corrector gives the low end of the
+	// 0.23–0.35 range of continuous face-sheet mirrors (Hudgin, JOSA 67 (1977) 393,
+	// from memory); a circular band of radius 1/(2p) gives
+	// 0.023·2π·(3/5)·2^(5/3) = 0.275 ≈ Hudgin's 0.28 (from memory), which bounds it above.
+	o := Optics{Diameter: 8, Subaperture: 0.2, Pitch: 0.2, ScienceWavelength: Wavelength500}
+	aF := FittingVariance(o, kolmogorov(0.1, Layer{Fraction: 1})) / math.Pow(0.2/0.1, 5.0/3)
+	t.Logf("a_F of the square band: %.4f", aF)
+	if !(aF > 0.20 && aF < 0.275) {
+		t.Errorf("a_F = %.4f: want in (0.20, 0.275)", aF)
+	}
+}
+
+func TestServoGreenwood(t *testing.T) {
+	// For a first-order rejection |E|² = f²/(f² + f3²) and a single Kolmogorov layer,
+	// σ² = (f_G/f_3dB)^(5/3) with f_G = 0.427 v/r0 (Greenwood, JOSA 67 (1977) 390).
+	// A pure integrator sampled 100 times faster than its bandwidth, one frame of
+	// delay, is that filter with f_3dB = g·F/(2π). Greenwood's phase is that of a
+	// point, piston included: the pupil is made so wide that removing its piston
+	// takes nothing, and the corrected band reaches far beyond f_3dB/v.
+	const r0, v, rate, g = 0.5, 10.0, 1e5, 0.05
+	l := Loop{Gain: g, Delay: 1, FrameRate: rate}
+	o := Optics{Diameter: 1e5, Subaperture: 0.0005, Pitch: 0.0005, ScienceWavelength: Wavelength500}
+	servo, _ := bandVariances(o, kolmogorov(r0, Layer{Fraction: 1, WindSpeed: v}), l)
+	f3 := g * rate / (2 * math.Pi)
+	want := math.Pow(0.427*v/r0/f3, 5.0/3)
+	t.Logf("servo %.6f rad², Greenwood %.6f rad² (f_3dB %.1f Hz, loop's %.1f Hz)", servo, want, f3, l.Bandwidth())
+	if math.Abs(servo/want-1) > 0.03 {
+		t.Errorf("servo %.6f rad²: want Greenwood's %.6f within 3%%", servo, want)
+	}
+}
