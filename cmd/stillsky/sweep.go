@@ -6,6 +6,7 @@ import (
 	"os"
 	"strconv"
 
+	"stillsky/internal/rpc"
 	"stillsky/internal/sweep"
 )
 
@@ -54,6 +55,8 @@ func runSweep(args []string) error {
 	if err != nil {
 		return err
 	}
+	// Every point runs the bench and the loop in this process, as the demo does.
+	rpc.ShareProcessWithSimulator()
 	if *fromEnv {
 		if *point >= 0 {
 			return errors.New("give --point or --point-from-env, not both")

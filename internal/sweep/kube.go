@@ -5,7 +5,6 @@ import (
 	"io"
 	"os"
 	"path/filepath"
-	"strconv"
 
 	"go.yaml.in/yaml/v3"
 	batchv1 "k8s.io/api/batch/v1"
@@ -102,8 +101,6 @@ func Manifests(s *Spec, o KubeOptions) (*corev1.ConfigMap, *batchv1.Job, error) 
 	}
 	n := int32(len(s.Points))
 	indexed := batchv1.IndexedCompletion
-	// Go's scheduler should use as many threads as the CPUs the pod owns.
-	procs := max(1, int(cpu.Value()))
 	resources := corev1.ResourceList{corev1.ResourceCPU: cpu, corev1.ResourceMemory: mem}
 	yes, no := true, false
 	uid := int64(65532)
@@ -145,9 +142,10 @@ func Manifests(s *Spec, o KubeOptions) (*corev1.ConfigMap, *batchv1.Job, error) 
 						Name:            "point",
 						Image:           o.Image,
 						ImagePullPolicy: corev1.PullIfNotPresent,
-						// The Job controller sets JOB_COMPLETION_INDEX in every pod.
+						// The Job controller sets JOB_COMPLETION_INDEX in every pod. No
+						// GOMAXPROCS: the bench and the loop share the process, which
+						// then takes more processors than cores (see `stillsky sweep`).
 						Args: []string{"sweep", "--point-from-env", "--out", ResultsMount + "/" + s.Name, SpecMount + "/" + specFile},
-						Env:  []corev1.EnvVar{{Name: "GOMAXPROCS", Value: strconv.Itoa(procs)}},
 						Resources: corev1.ResourceRequirements{
 							Requests: resources,
 							Limits:   resources.DeepCopy(),
