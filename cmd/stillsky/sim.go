@@ -2,6 +2,7 @@ package main
 
 import (
 	"fmt"
+	"runtime"
 
 	"stillsky/internal/affinity"
 	"stillsky/sim/bench"
@@ -39,6 +40,9 @@ func runSim(args []string) error {
 		if err := affinity.PinProcess(set); err != nil {
 			return fmt.Errorf("--cpus %s: %w", *cpus, err)
 		}
+	}
+	if *idle {
+		runtime.GOMAXPROCS(runtime.GOMAXPROCS(0) + bench.IdleExtraProcs)
 	}
 	s, err := scenario.Load(*scn)
 	if err != nil {

@@ -3,6 +3,7 @@ package bench
 import (
 	"context"
 	"runtime"
+	"sync/atomic"
 
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
@@ -15,6 +16,17 @@ import (
 // ringSize is the number of frames buffered between the bench's clock and the
 // camera stream; a consumer that falls further behind loses frames.
 const ringSize = 8
+
+// frameRing hands frames from the bench's clock to the camera stream. Only the
+// producer writes slots; the stream reads the slot whose sequence number it
+// takes from ready.
+type frameRing struct {
+	slots   [ringSize]frameSlot
+	scratch frameSlot   // a frame nobody will read
+	ready   chan uint64 // sequence numbers of filled slots
+	busy    atomic.Bool // a consumer holds the stream
+	written uint64      // slots filled so far; the next goes to written%ringSize
+}
 
 type frameSlot struct {
 	number uint64
@@ -31,17 +43,17 @@ func (b *Server) RegisterCamera(g *grpc.Server) { stillskyv1.RegisterCameraServi
 // consumer has fallen a ring behind (the frame is lost and counted).
 func (b *Server) nextSlot() (*frameSlot, bool) {
 	// Slots are filled in sequence, whatever frames were lost. Only the producer
-	// writes them, and len(b.ready) only shrinks concurrently: a free place in the
+	// writes them, and len(b.cam.ready) only shrinks concurrently: a free place in the
 	// channel means the consumer holds at most the slot ringSize−1 writes back,
 	// never the next one.
-	if !b.cameraBusy.Load() {
-		return &b.scratch, false
+	if !b.cam.busy.Load() {
+		return &b.cam.scratch, false
 	}
-	if len(b.ready) == cap(b.ready) {
+	if len(b.cam.ready) == cap(b.cam.ready) {
 		b.metrics.framesLost.Inc()
-		return &b.scratch, false
+		return &b.cam.scratch, false
 	}
-	return &b.slots[b.written%ringSize], true
+	return &b.cam.slots[b.cam.written%ringSize], true
 }
 
 // Describe returns the sensor geometry.
@@ -75,13 +87,13 @@ func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 	if err != nil {
 		return err
 	}
-	if !b.cameraBusy.CompareAndSwap(false, true) {
+	if !b.cam.busy.CompareAndSwap(false, true) {
 		return status.Error(codes.ResourceExhausted, "camera: another client holds the frame stream")
 	}
-	defer b.cameraBusy.Store(false)
+	defer b.cam.busy.Store(false)
 	// Frames queued for a previous consumer are stale.
-	for len(b.ready) > 0 {
-		<-b.ready
+	for len(b.cam.ready) > 0 {
+		<-b.cam.ready
 	}
 	msg := &stillskyv1.StreamFramesResponse{}
 	ctx := stream.Context()
@@ -89,8 +101,8 @@ func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 		select {
 		case <-ctx.Done():
 			return nil
-		case seq := <-b.ready:
-			slot := &b.slots[seq%ringSize]
+		case seq := <-b.cam.ready:
+			slot := &b.cam.slots[seq%ringSize]
 			// Free-running, the frame is read out at its tick, and that is its
 			// stamp even when this goroutine gets the CPU late: the delay of a
 			// late send is the link's, and the loop sees it. Lockstep frames are

@@ -15,9 +15,6 @@ import (
 func (b *Server) Run(ctx context.Context) error {
 	sctx, stop := context.WithCancel(ctx)
 	defer stop()
-	if b.opt.IdlePriority {
-		runtime.GOMAXPROCS(runtime.GOMAXPROCS(0) + 2)
-	}
 	go b.science(sctx)
 	if !b.opt.Lockstep {
 		b.freeRun(ctx)
@@ -67,8 +64,8 @@ func (b *Server) freeRun(ctx context.Context) {
 		b.mu.Unlock()
 		if publish {
 			slot.number, slot.due = k, tick
-			b.ready <- b.written
-			b.written++
+			b.cam.ready <- b.cam.written
+			b.cam.written++
 		}
 		b.figures(k)
 		b.mu.Lock()
@@ -82,7 +79,7 @@ func (b *Server) freeRun(ctx context.Context) {
 // arrived (or the timeout passes, or no camera consumer is connected).
 func (b *Server) awaitCommand(ctx context.Context, k uint64) error {
 	d := uint64(b.opt.DelayFrames)
-	for !b.cameraBusy.Load() {
+	for !b.cam.busy.Load() {
 		select {
 		case <-ctx.Done():
 			return ctx.Err()
@@ -94,11 +91,11 @@ func (b *Server) awaitCommand(ctx context.Context, k uint64) error {
 	}
 	deadline := time.NewTimer(b.opt.LockstepTimeout)
 	defer deadline.Stop()
-	for b.lastCmdFrame.Load() < k-d {
+	for b.mir.lastFrame.Load() < k-d {
 		select {
 		case <-ctx.Done():
 			return ctx.Err()
-		case <-b.cmdArrived:
+		case <-b.mir.arrived:
 		case <-deadline.C:
 			b.metrics.lockstepTimeouts.Inc()
 			return nil
@@ -122,8 +119,8 @@ func (b *Server) produce(k uint64) {
 	b.mu.Unlock()
 	if publish {
 		slot.number, slot.due = k, 0
-		b.ready <- b.written
-		b.written++
+		b.cam.ready <- b.cam.written
+		b.cam.written++
 	}
 	b.figures(k)
 }

@@ -4,6 +4,8 @@ import (
 	"context"
 	"errors"
 	"math"
+	"sync"
+	"sync/atomic"
 
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/codes"
@@ -23,6 +25,21 @@ type pendingCommand struct {
 
 // historyRing holds the newest free-run commands with their arrival times.
 const historyRing = 16
+
+// commandLog is what the mirror stream hands the simulation. Free-running, a
+// frame sees the command in place at the readout before it: the stream logs each
+// command with its arrival time, and the simulation picks from the log, however
+// late it runs. Lockstep, the simulation waits for the newest command's frame
+// number, woken through arrived.
+type commandLog struct {
+	mu       sync.Mutex
+	history  [historyRing]timedCommand
+	received uint64 // commands logged; the next goes to received%historyRing
+
+	lastFrame atomic.Uint64 // frame number of the newest command
+	arrived   chan struct{}
+	busy      atomic.Bool // a client drives the mirror
+}
 
 type timedCommand struct {
 	at     int64 // CLOCK_MONOTONIC ns of arrival
@@ -54,31 +71,31 @@ func (m mirrorService) StreamCommands(stream grpc.BidiStreamingServer[stillskyv1
 // commandAt copies into cmd the newest logged command that arrived at or
 // before t (the mirror's rest shape, zero, before any).
 func (b *Server) commandAt(t int64, cmd []float32) {
-	b.histMu.Lock()
-	defer b.histMu.Unlock()
-	for j := b.received; j > 0 && j+historyRing > b.received; j-- {
-		if e := &b.history[(j-1)%historyRing]; e.at <= t {
+	b.mir.mu.Lock()
+	defer b.mir.mu.Unlock()
+	for j := b.mir.received; j > 0 && j+historyRing > b.mir.received; j-- {
+		if e := &b.mir.history[(j-1)%historyRing]; e.at <= t {
 			copy(cmd, e.values)
 			return
 		}
 	}
-	if b.received == 0 {
+	if b.mir.received == 0 {
 		clear(cmd)
 		return
 	}
 	// Every logged command is newer than t (a client flooding the mirror):
 	// the oldest kept is the nearest.
-	copy(cmd, b.history[b.received%historyRing].values)
+	copy(cmd, b.mir.history[b.mir.received%historyRing].values)
 }
 
 // logCommand records a free-run command that arrived at time at.
 func (b *Server) logCommand(at int64, v []float32) {
-	b.histMu.Lock()
-	e := &b.history[b.received%historyRing]
+	b.mir.mu.Lock()
+	e := &b.mir.history[b.mir.received%historyRing]
 	e.at = at
 	copy(e.values, v)
-	b.received++
-	b.histMu.Unlock()
+	b.mir.received++
+	b.mir.mu.Unlock()
 }
 
 func (b *Server) describeMirror() *stillskyv1.MirrorServiceDescribeResponse {
@@ -100,10 +117,10 @@ func (b *Server) describeMirror() *stillskyv1.MirrorServiceDescribeResponse {
 }
 
 func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
-	if !b.mirrorBusy.CompareAndSwap(false, true) {
+	if !b.mir.busy.CompareAndSwap(false, true) {
 		return status.Error(codes.ResourceExhausted, "mirror: another client drives the mirror")
 	}
-	defer b.mirrorBusy.Store(false)
+	defer b.mir.busy.Store(false)
 	n := len(b.cmd)
 	stroke := float32(b.sys.Mirror().Stroke())
 	req := &stillskyv1.StreamCommandsRequest{}
@@ -145,11 +162,11 @@ func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.Strea
 		} else {
 			b.logCommand(received, v)
 		}
-		if f := req.GetFrameNumber(); f > b.lastCmdFrame.Load() {
-			b.lastCmdFrame.Store(f)
+		if f := req.GetFrameNumber(); f > b.mir.lastFrame.Load() {
+			b.mir.lastFrame.Store(f)
 		}
 		select {
-		case b.cmdArrived <- struct{}{}:
+		case b.mir.arrived <- struct{}{}:
 		default:
 		}
 		b.metrics.commands.Inc()

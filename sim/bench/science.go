@@ -4,6 +4,9 @@ import (
 	"context"
 	"math"
 	"runtime"
+	"sync/atomic"
+
+	"stillsky/sim/optics"
 )
 
 // figures updates the true figures of merit after frame k. Free-running, the
@@ -17,12 +20,12 @@ func (b *Server) figures(k uint64) {
 	}
 	b.mu.Lock()
 	rms := b.sys.ResidualRMS()
-	async := sample && !b.opt.Lockstep && b.sciBusy.CompareAndSwap(false, true)
+	async := sample && !b.opt.Lockstep && b.sci.busy.CompareAndSwap(false, true)
 	if async {
 		// Free-running, the science camera works on its own goroutine, so that
 		// its FFT never delays the wavefront sensor's frames.
-		copy(b.sciIn, b.sys.Residual())
-		b.sciWake <- struct{}{}
+		copy(b.sci.in, b.sys.Residual())
+		b.sci.wake <- struct{}{}
 	}
 	if sample && b.opt.Lockstep {
 		// Lockstep runs are reproducible: every sampled frame is exposed.
@@ -39,11 +42,11 @@ func (b *Server) figures(k uint64) {
 // expose adds a science PSF to the window's exposure and the gauge's.
 func (b *Server) expose(psf []float64) {
 	b.stats.expose(psf)
-	if b.gauge.add(psf) >= b.gaugeSamples {
-		st := b.gauge.strehl()
+	if b.sci.gauge.add(psf) >= b.sci.gaugeSamples {
+		st := b.sci.gauge.strehl()
 		b.metrics.strehl.Set(st)
-		b.lastStrehl.Store(math.Float64bits(st))
-		b.gauge.reset()
+		b.sci.lastStrehl.Store(math.Float64bits(st))
+		b.sci.gauge.reset()
 	}
 }
 
@@ -60,15 +63,30 @@ func (b *Server) science(ctx context.Context) {
 		select {
 		case <-ctx.Done():
 			return
-		case <-b.sciWake:
+		case <-b.sci.wake:
 		}
-		b.sci.PSF(b.sciIn, b.sciPSF)
-		b.expose(b.sciPSF)
+		b.sci.imager.PSF(b.sci.in, b.sci.psf)
+		b.expose(b.sci.psf)
 		b.mu.Lock()
-		copy(b.psf, b.sciPSF)
+		copy(b.psf, b.sci.psf)
 		b.mu.Unlock()
-		b.sciBusy.Store(false)
+		b.sci.busy.Store(false)
 	}
+}
+
+// scienceCamera images residual wavefronts at the science wavelength; free-running
+// it works on a goroutine of its own, one residual at a time.
+type scienceCamera struct {
+	imager *optics.Imager
+	in     []float64 // residual handed to the camera (free-run)
+	psf    []float64
+	busy   atomic.Bool
+	wake   chan struct{}
+	// gauge is the last second's exposure, for the Strehl gauge, of
+	// gaugeSamples PSFs; lastStrehl the float64 bits of its last value.
+	gauge        exposure
+	gaugeSamples int
+	lastStrehl   atomic.Uint64
 }
 
 // exposure sums PSFs, as a science camera integrates.

@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"log/slog"
 	"sync"
-	"sync/atomic"
 	"time"
 
 	stillskyv1 "stillsky/proto/stillsky/v1"
@@ -35,11 +34,17 @@ type Options struct {
 	// IdlePriority runs the free-running simulation and the science camera on
 	// threads of their own under SCHED_IDLE, so that on a machine shared with
 	// the loop they take only the CPU time nothing else wants and never delay a
-	// frame's delivery or a command's arrival. It raises GOMAXPROCS by two, so
-	// that those threads, when the kernel holds them back, never hold the Go
-	// processors the device streams need. For a process of the bench's own.
+	// frame's delivery or a command's arrival. For a process of the bench's
+	// own, whose GOMAXPROCS should then be IdleExtraProcs above its default.
 	IdlePriority bool
 }
+
+// IdleExtraProcs is how many Go processors a bench process with IdlePriority
+// needs beyond one per CPU: the two SCHED_IDLE threads, when the kernel holds
+// them back, must never hold the processors the device streams need. The
+// process sets it (stillsky sim does), not the bench: GOMAXPROCS is the
+// process's.
+const IdleExtraProcs = 2
 
 // Server is the simulated bench behind the Camera and Mirror services: it owns a
 // System, advances it frame by frame, streams the slopes and applies the commands.
@@ -50,42 +55,19 @@ type Server struct {
 	opt Options
 	log *slog.Logger
 
-	mu  sync.Mutex // guards sys and cmd
+	mu  sync.Mutex // guards sys, cmd, pending and psf
 	sys *System
 	cmd []float32 // the command the mirror holds
-
-	// Free-running, a frame sees the command in place at the readout before
-	// it: the mirror stream logs each command with its arrival time, and the
-	// simulation picks from the log, however late it runs.
-	histMu   sync.Mutex
-	history  [historyRing]timedCommand
-	received uint64 // commands logged; the next goes to received%historyRing
-
-	// Lockstep hand-off: the newest command's frame number, and a wake-up.
-	lastCmdFrame atomic.Uint64
-	cmdArrived   chan struct{}
 	// Lockstep commands wait here until the frame that must see them: the command
-	// answering frame j shapes frame j+DelayFrames, exactly. Guarded by mu.
+	// answering frame j shapes frame j+DelayFrames, exactly.
 	pending [pendingRing]pendingCommand
+	psf     []float64 // the newest sampled science PSF
 
-	slots      [ringSize]frameSlot
-	scratch    frameSlot   // a frame nobody will read
-	ready      chan uint64 // sequence numbers of filled slots
-	cameraBusy atomic.Bool
-	mirrorBusy atomic.Bool
-	written    uint64 // slots filled so far; the next goes to written%ringSize
-
-	psf          []float64 // the newest sampled science PSF; guarded by mu
-	sci          *optics.Imager
-	sciIn        []float64 // residual handed to the science camera (free-run)
-	sciPSF       []float64
-	sciBusy      atomic.Bool
-	sciWake      chan struct{}
-	stats        statsAccumulator
-	gauge        exposure // the last second's exposure, for the Strehl gauge
-	gaugeSamples int
-	lastStrehl   atomic.Uint64 // float64 bits of the last gauge value
-	metrics      *benchMetrics
+	cam     frameRing     // frames between the bench's clock and the camera stream
+	mir     commandLog    // commands as the mirror stream received them
+	sci     scienceCamera // the free-running science camera
+	stats   statsAccumulator
+	metrics *benchMetrics
 }
 
 // NewServer builds the bench for scenario s.
@@ -113,35 +95,35 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 		return nil, err
 	}
 	b := &Server{
-		scn:        s,
-		opt:        opt,
-		log:        opt.Logger,
-		sys:        sys,
-		cmd:        make([]float32, sys.NumActuators()),
-		cmdArrived: make(chan struct{}, 1),
-		ready:      make(chan uint64, ringSize-2),
-		metrics:    newBenchMetrics(s.Science.Wavelength, sys.FramePeriod()),
+		scn:     s,
+		opt:     opt,
+		log:     opt.Logger,
+		sys:     sys,
+		cmd:     make([]float32, sys.NumActuators()),
+		metrics: newBenchMetrics(s.Science.Wavelength, sys.FramePeriod()),
 	}
-	b.scratch.slopes = make([]float32, sys.NumSlopes())
+	b.mir.arrived = make(chan struct{}, 1)
+	b.cam.ready = make(chan uint64, ringSize-2)
+	b.cam.scratch.slopes = make([]float32, sys.NumSlopes())
 	n := sys.PSFSize() * sys.PSFSize()
 	b.psf = make([]float64, n)
-	b.sciPSF = make([]float64, n)
-	b.sciIn = make([]float64, len(sys.Residual()))
-	b.sciWake = make(chan struct{}, 1)
-	if b.sci, err = optics.NewImager(sys.Pupil(), s.Science.Wavelength, sys.PSFSize()/sys.Pupil().N); err != nil {
+	b.sci.psf = make([]float64, n)
+	b.sci.in = make([]float64, len(sys.Residual()))
+	b.sci.wake = make(chan struct{}, 1)
+	if b.sci.imager, err = optics.NewImager(sys.Pupil(), s.Science.Wavelength, sys.PSFSize()/sys.Pupil().N); err != nil {
 		return nil, err
 	}
 	b.stats.exp.sum = make([]float64, n)
-	b.gauge.sum = make([]float64, n)
-	b.gaugeSamples = max(1, int(s.Loop.FrameRate)/opt.StrehlEvery)
+	b.sci.gauge.sum = make([]float64, n)
+	b.sci.gaugeSamples = max(1, int(s.Loop.FrameRate)/opt.StrehlEvery)
 	for i := range b.pending {
 		b.pending[i].values = make([]float32, sys.NumActuators())
 	}
-	for i := range b.history {
-		b.history[i].values = make([]float32, sys.NumActuators())
+	for i := range b.mir.history {
+		b.mir.history[i].values = make([]float32, sys.NumActuators())
 	}
-	for i := range b.slots {
-		b.slots[i].slopes = make([]float32, sys.NumSlopes())
+	for i := range b.cam.slots {
+		b.cam.slots[i].slopes = make([]float32, sys.NumSlopes())
 	}
 	return b, nil
 }

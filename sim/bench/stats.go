@@ -47,7 +47,7 @@ func (b *Server) Latest() (residualRMS, strehl float64) {
 	a := &b.stats
 	a.mu.Lock()
 	defer a.mu.Unlock()
-	return a.lastResidual, math.Float64frombits(b.lastStrehl.Load())
+	return a.lastResidual, math.Float64frombits(b.sci.lastStrehl.Load())
 }
 
 // Stats returns the figures since the last ResetStats.
