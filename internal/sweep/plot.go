@@ -85,7 +85,7 @@ func (c *Collection) panels() []*panel {
 			byTitle[title] = p
 			order = append(order, title)
 		}
-		label := "all points"
+		label := "Strehl ratio"
 		if v, ok := r.value(R0); ok {
 			label = fmt.Sprintf("r0 = %v m", v)
 		}
@@ -117,7 +117,8 @@ func (p *panel) write(path, sweep string) error {
 	}
 	plt.X.Label.Text = "integrator gain"
 	plt.Y.Label.Text = "Strehl ratio, closed loop"
-	plt.Y.Min, plt.Y.Max = 0, 1
+	// Room above a Strehl ratio of 1 for the legend.
+	plt.Y.Min, plt.Y.Max = 0, 1+0.07*float64(len(p.curves)+1)
 	plt.Legend.Top = true
 	var args []any
 	for _, c := range p.curves {
