@@ -11,6 +11,7 @@ import os
 import shutil
 import signal
 import subprocess
+import sys
 import tempfile
 import time
 import unittest
@@ -253,6 +254,27 @@ class ClosedLoop(unittest.TestCase):
         with self.assertRaises(stillsky.Error) as cm:
             self.client.set_modal_gains(np.ones(self.info.modes_kept + 1))
         self.assertEqual(cm.exception.code, grpc.StatusCode.INVALID_ARGUMENT)
+
+
+class Example(unittest.TestCase):
+    """The example script of the README runs to its end against a lockstep bench."""
+
+    def test_example(self):
+        rig = Rig(sim_args=["--lockstep"])
+        try:
+            with stillsky.Client(rig.address) as c:
+                rig.wait_connected(c)
+            here = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+            env = dict(os.environ, PYTHONPATH=here)
+            out = subprocess.run([sys.executable, os.path.join(here, "example.py"), rig.address], env=env,
+                                 capture_output=True, text=True, timeout=120)
+            self.assertEqual(out.returncode, 0, out.stderr)
+            self.assertIn("reconstructor: svd", out.stdout)
+            self.assertIn("refused: invalid_argument: ", out.stdout)
+            with stillsky.Client(rig.address) as c:
+                self.assertEqual(c.status().state, stillsky.OPEN)
+        finally:
+            rig.stop()
 
 
 def _openssl(*args, cwd):
