@@ -233,6 +233,16 @@ class ClosedLoop(unittest.TestCase):
         np.testing.assert_allclose(c[pairs], want, rtol=0, atol=1e-5 * scale)
         self.assertGreater(np.mean(tel.strehl_estimate[closed]), 0.3)
 
+    def test_samples_decimated(self):
+        frames = []
+        for s in self.client.samples(decimation=5):
+            frames.append(s.frame_number)
+            if len(frames) == 6:
+                break
+        # The daemon sends at most one sample per block of 5 frame numbers.
+        blocks = np.diff(np.asarray(frames, dtype=np.int64) // 5)
+        self.assertTrue(np.all(blocks >= 1), f"one sample per 5 frames: {frames}")
+
     def test_hold_and_modal_gains(self):
         self.client.close_loop()
         held = self.client.hold_loop()
