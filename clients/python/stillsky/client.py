@@ -237,8 +237,9 @@ class Client:
         return self._unary(self._stub.LoadReconstructor, chunks).reconstructor
 
     def samples(self, decimation: int = 1) -> Iterator[pb.StreamTelemetryResponse]:
-        """Yields every decimation-th frame's telemetry message as it comes, until
-        the caller stops iterating (which ends the stream)."""
+        """Yields telemetry messages as they come, the newest frame of each block of
+        decimation frame numbers, until the caller stops iterating (which ends the
+        stream). A client slower than the loop gets fewer samples, never stale ones."""
         call = self._stub.StreamTelemetry(pb.StreamTelemetryRequest(decimation=decimation))
         try:
             for s in call:
@@ -249,7 +250,8 @@ class Client:
             call.cancel()
 
     def telemetry(self, count: int, decimation: int = 1, timeout: Optional[float] = None) -> Telemetry:
-        """Collects count samples of every decimation-th frame as numpy arrays.
+        """Collects count samples as numpy arrays, one per block of decimation
+        frame numbers (check frame_number for gaps when the loop outruns the client).
 
         Raises Error(DEADLINE_EXCEEDED) when timeout seconds pass first."""
         if count < 1:
