@@ -44,7 +44,7 @@ func TestHotPathAllocations(t *testing.T) {
 	}
 	defer conn.Close()
 	c := stillskyv1.NewControlServiceClient(conn)
-	r := &rig{client: c}
+	r := &loopRig{client: c}
 	r.waitFrames(t, 10)
 	r.calibrate(t)
 	if _, err := c.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {

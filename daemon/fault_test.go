@@ -778,7 +778,7 @@ func TestBenchRestart(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer conn.Close()
-	r := &rig{d: d, client: stillskyv1.NewControlServiceClient(conn), conn: conn}
+	r := &loopRig{d: d, client: stillskyv1.NewControlServiceClient(conn), conn: conn}
 	r.waitFrames(t, 10)
 	r.calibrate(t)
 	if _, err := r.client.CloseLoop(context.Background(), &stillskyv1.CloseLoopRequest{}); err != nil {
@@ -875,7 +875,7 @@ func TestKillDuringCalibration(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer conn.Close()
-	r := &rig{client: stillskyv1.NewControlServiceClient(conn), conn: conn}
+	r := &loopRig{client: stillskyv1.NewControlServiceClient(conn), conn: conn}
 	waitUp := func() {
 		t.Helper()
 		deadline := time.Now().Add(30 * time.Second)

@@ -19,79 +19,43 @@ import (
 
 	"stillsky/daemon"
 	"stillsky/internal/ctl"
-	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/rig"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
 )
 
-// rig is a bench and a loop daemon on loopback, as separate gRPC endpoints.
-type rig struct {
+// loopRig is a loop daemon under test and its Control API client; startRig
+// runs it with a bench, as separate gRPC endpoints on loopback.
+type loopRig struct {
 	bench  *bench.Server
 	d      *daemon.Daemon
 	client stillskyv1.ControlServiceClient
 	conn   *grpc.ClientConn
-	bl     *bench.Listeners
+	rig    *rig.Rig
 }
 
-func startRig(t *testing.T, name string, opt bench.Options, cfg daemon.Config) *rig {
+func startRig(t *testing.T, name string, opt bench.Options, cfg daemon.Config) *loopRig {
 	t.Helper()
 	scn, err := scenario.Load(name)
 	if err != nil {
 		t.Fatal(err)
 	}
-	b, err := bench.NewServer(scn, opt)
+	rg, err := rig.Start(context.Background(), rig.Config{Scenario: scn, Bench: opt, Loop: cfg, BenchHTTP: true})
 	if err != nil {
 		t.Fatal(err)
 	}
-	bl, err := bench.Listen(bench.Addrs{Camera: "127.0.0.1:0", Mirror: "127.0.0.1:0", Metrics: "127.0.0.1:0"})
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	benchDone := make(chan error, 1)
-	go func() { benchDone <- b.Serve(ctx, bl) }()
-	cfg.CameraAddr, cfg.MirrorAddr = bl.Camera.Addr().String(), bl.Mirror.Addr().String()
-	if cfg.ListenAddr == "" {
-		cfg.ListenAddr = "127.0.0.1:0"
-	}
-	if cfg.MetricsAddr == "" {
-		cfg.MetricsAddr = "127.0.0.1:0"
-	}
-	if cfg.ScienceWavelength == 0 {
-		cfg.ScienceWavelength = scn.Science.Wavelength
-	}
-	d, err := daemon.New(cfg)
-	if err != nil {
-		cancel()
-		t.Fatal(err)
-	}
-	loopDone := make(chan error, 1)
-	go func() { loopDone <- d.Run(ctx) }()
-	conn, err := rpc.Dial(d.ControlAddr())
-	if err != nil {
-		t.Fatal(err)
-	}
-	r := &rig{bench: b, d: d, client: stillskyv1.NewControlServiceClient(conn), conn: conn, bl: bl}
 	t.Cleanup(func() {
-		conn.Close()
-		cancel()
-		for _, ch := range []chan error{benchDone, loopDone} {
-			select {
-			case err := <-ch:
-				if err != nil {
-					t.Errorf("shutdown: %v", err)
-				}
-			case <-time.After(10 * time.Second):
-				t.Errorf("shutdown did not finish within 10 s")
-			}
+		if err := rg.Close(); err != nil {
+			t.Errorf("shutdown: %v", err)
 		}
 	})
+	r := &loopRig{bench: rg.Bench, d: rg.Loop, client: rg.Client, conn: rg.Conn, rig: rg}
 	r.waitFrames(t, 1)
 	return r
 }
 
-func (r *rig) status(t *testing.T) *stillskyv1.GetStatusResponse {
+func (r *loopRig) status(t *testing.T) *stillskyv1.GetStatusResponse {
 	t.Helper()
 	s, err := r.client.GetStatus(context.Background(), &stillskyv1.GetStatusRequest{})
 	if err != nil {
@@ -101,26 +65,21 @@ func (r *rig) status(t *testing.T) *stillskyv1.GetStatusResponse {
 }
 
 // waitFrames waits until n more frames have been received.
-func (r *rig) waitFrames(t *testing.T, n uint64) *stillskyv1.GetStatusResponse {
+func (r *loopRig) waitFrames(t *testing.T, n uint64) *stillskyv1.GetStatusResponse {
 	t.Helper()
-	start := r.status(t).GetFrames()
-	deadline := time.Now().Add(60 * time.Second)
-	for time.Now().Before(deadline) {
-		s := r.status(t)
-		if s.GetFrames() >= start+n && s.GetCameraConnected() && s.GetMirrorConnected() {
-			return s
-		}
-		time.Sleep(5 * time.Millisecond)
+	ctx, cancel := context.WithTimeout(context.Background(), 60*time.Second)
+	defer cancel()
+	s, err := rig.WaitFrames(ctx, r.client, n)
+	if err != nil {
+		t.Fatal(err)
 	}
-	t.Fatalf("fewer than %d frames within 60 s", n)
-	return nil
+	return s
 }
 
-func (r *rig) calibrate(t *testing.T) {
+func (r *loopRig) calibrate(t *testing.T) {
 	t.Helper()
-	var out bytes.Buffer
-	if err := ctl.Calibrate(context.Background(), r.client, &stillskyv1.CalibrateRequest{}, &out); err != nil {
-		t.Fatalf("calibrate: %v\n%s", err, out.String())
+	if _, err := rig.Calibrate(context.Background(), r.client, &stillskyv1.CalibrateRequest{}, nil); err != nil {
+		t.Fatalf("calibrate: %v", err)
 	}
 }
 

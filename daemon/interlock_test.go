@@ -19,7 +19,7 @@ const unstableGain = 1.9
 
 // tripRig calibrates the small scenario in lockstep with two frames of delay,
 // closes the loop at the default gain, then raises the gain past the limit.
-func tripRig(t *testing.T, cfg daemon.Config) *rig {
+func tripRig(t *testing.T, cfg daemon.Config) *loopRig {
 	t.Helper()
 	r := startRig(t, "small", bench.Options{Lockstep: true, DelayFrames: 2}, cfg)
 	r.calibrate(t)
@@ -36,7 +36,7 @@ func tripRig(t *testing.T, cfg daemon.Config) *rig {
 }
 
 // waitState waits until the loop reports want, or fails after timeout.
-func (r *rig) waitState(t *testing.T, want stillskyv1.LoopState, timeout time.Duration) *stillskyv1.GetStatusResponse {
+func (r *loopRig) waitState(t *testing.T, want stillskyv1.LoopState, timeout time.Duration) *stillskyv1.GetStatusResponse {
 	t.Helper()
 	deadline := time.Now().Add(timeout)
 	for {

@@ -168,7 +168,7 @@ func TestFreeRunCalibrationLateCommands(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer conn.Close()
-	r := &rig{client: stillskyv1.NewControlServiceClient(conn)}
+	r := &loopRig{client: stillskyv1.NewControlServiceClient(conn)}
 	r.waitFrames(t, 10)
 	amplitude := float32(0.1 * scn.DM.Stroke) // the daemon's default poke: a tenth of the stroke
 	r.calibrate(t)

@@ -25,21 +25,11 @@ import (
 )
 
 // startLiveRig starts a bench and a loop on the small scenario with the loop's
-// BenchURL pointing at the bench's PSF image, calibrates and closes the loop.
-func startLiveRig(t *testing.T, opt bench.Options) *rig {
+// BenchURL pointing at the bench's live view (the rig links them), calibrates and
+// closes the loop.
+func startLiveRig(t *testing.T, opt bench.Options) *loopRig {
 	t.Helper()
-	// The bench's live view is served on a listener opened before the daemon
-	// starts, so that the daemon can be told its URL.
-	l, err := net.Listen("tcp", "127.0.0.1:0")
-	if err != nil {
-		t.Fatal(err)
-	}
-	r := startRig(t, "small", opt, daemon.Config{BenchURL: "http://" + l.Addr().String()})
-	mux := http.NewServeMux()
-	r.bench.RegisterLiveView(mux)
-	srv := &http.Server{Handler: mux, ReadHeaderTimeout: 5 * time.Second}
-	go srv.Serve(l)
-	t.Cleanup(func() { srv.Close() })
+	r := startRig(t, "small", opt, daemon.Config{})
 	r.calibrate(t)
 	if _, err := r.client.CloseLoop(context.Background(), &stillskyv1.CloseLoopRequest{}); err != nil {
 		t.Fatal(err)
@@ -79,11 +69,11 @@ func colours(img image.Image) map[[4]uint32]int {
 func TestSnapshots(t *testing.T) {
 	r := startLiveRig(t, bench.Options{Lockstep: true})
 	ctx := context.Background()
-	mir, err := stillskyv1.NewMirrorServiceClient(dialDevice(t, r.bl.Mirror.Addr().String())).Describe(ctx, &stillskyv1.MirrorServiceDescribeRequest{})
+	mir, err := stillskyv1.NewMirrorServiceClient(dialDevice(t, r.rig.Devices.Mirror)).Describe(ctx, &stillskyv1.MirrorServiceDescribeRequest{})
 	if err != nil {
 		t.Fatal(err)
 	}
-	cam, err := stillskyv1.NewCameraServiceClient(dialDevice(t, r.bl.Camera.Addr().String())).Describe(ctx, &stillskyv1.CameraServiceDescribeRequest{})
+	cam, err := stillskyv1.NewCameraServiceClient(dialDevice(t, r.rig.Devices.Camera)).Describe(ctx, &stillskyv1.CameraServiceDescribeRequest{})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -37,7 +37,7 @@ func TestMetricsPassPromtool(t *testing.T) {
 	r.waitFrames(t, 200)
 	for _, c := range []struct{ name, addr string }{
 		{"loop daemon", r.d.MetricsAddr()},
-		{"bench", r.bl.Metrics.Addr().String()},
+		{"bench", r.rig.BenchHTTPAddr},
 	} {
 		body := fetch(t, "http://"+c.addr+"/metrics")
 		cmd := exec.Command(promtool, "check", "metrics")
@@ -82,7 +82,7 @@ func TestPrometheusSeesTheRig(t *testing.T) {
 	// frames late and may trip before the closed state has been scraped.
 	r := startRig(t, "small", bench.Options{Lockstep: true}, daemon.Config{})
 	prom := promtest.Start(t, map[string]string{
-		"stillsky-sim":  r.bl.Metrics.Addr().String(),
+		"stillsky-sim":  r.rig.BenchHTTPAddr,
 		"stillsky-loop": r.d.MetricsAddr(),
 	}, []string{"../dashboards/rules/stillsky-rules.yaml"})
 	r.calibrate(t)

@@ -82,7 +82,7 @@ func TestSoak(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer conn.Close()
-	r := &rig{d: d, client: stillskyv1.NewControlServiceClient(conn), conn: conn}
+	r := &loopRig{d: d, client: stillskyv1.NewControlServiceClient(conn), conn: conn}
 	r.waitFrames(t, 10)
 	r.calibrate(t)
 	if _, err := r.client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {

@@ -43,10 +43,13 @@ func Listen(addr string) (net.Listener, error) {
 	return net.Listen("tcp", addr)
 }
 
+// IsUnix reports whether addr names a unix socket ("unix:/path").
+func IsUnix(addr string) bool { return strings.HasPrefix(addr, unixPrefix) }
+
 // IsLoopback reports whether addr is a unix socket or a TCP address on a loopback
 // interface.
 func IsLoopback(addr string) bool {
-	if strings.HasPrefix(addr, unixPrefix) {
+	if IsUnix(addr) {
 		return true
 	}
 	host, _, err := net.SplitHostPort(addr)
