@@ -5,8 +5,6 @@ import (
 	"context"
 	"io"
 	"net/http"
-	"path/filepath"
-	"strings"
 	"testing"
 	"time"
 
@@ -14,11 +12,8 @@ import (
 	"github.com/prometheus/common/expfmt"
 	"github.com/prometheus/common/model"
 	"google.golang.org/grpc"
-	"google.golang.org/grpc/codes"
-	"google.golang.org/grpc/status"
 
 	"stillsky/daemon"
-	"stillsky/internal/ctl"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/rig"
 	"stillsky/sim/bench"
@@ -237,114 +232,3 @@ func checkMetrics(t *testing.T, addr string) {
 		}
 	}
 }
-
-// TestControlRequests drives the ctl verbs against a running daemon and checks that
-// invalid requests get InvalidArgument (or FailedPrecondition) with a message and
-// leave the state unchanged.
-func TestControlRequests(t *testing.T) {
-	r := startRig(t, "small", bench.Options{Lockstep: true}, daemon.Config{})
-	ctx := context.Background()
-	run := func(args ...string) (string, error) {
-		var out bytes.Buffer
-		err := ctl.Run(ctx, r.conn, args, &out)
-		return out.String(), err
-	}
-	// Closing before any calibration is refused: there is no reconstructor.
-	if _, err := r.client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); status.Code(err) != codes.FailedPrecondition {
-		t.Fatalf("close before calibration: %v, want FailedPrecondition", err)
-	}
-	if _, err := run("close"); err == nil || !strings.Contains(err.Error(), "failed_precondition") {
-		t.Fatalf("ctl close before calibration: %v", err)
-	}
-	if out, err := run("calibrate"); err != nil || !strings.Contains(out, "reconstructor:") {
-		t.Fatalf("ctl calibrate: %v\n%s", err, out)
-	}
-	if out, err := run("close"); err != nil || !strings.Contains(out, "state           closed") {
-		t.Fatalf("ctl close: %v\n%s", err, out)
-	}
-	r.waitFrames(t, 20)
-	if out, err := run("gain", "0.3"); err != nil || !strings.Contains(out, "0.3 / ") {
-		t.Fatalf("ctl gain 0.3: %v\n%s", err, out)
-	}
-	if out, err := run("leak", "0.02"); err != nil || !strings.Contains(out, "/ 0.02") {
-		t.Fatalf("ctl leak 0.02: %v\n%s", err, out)
-	}
-	before := r.status(t)
-	for _, c := range []struct {
-		name string
-		call func() error
-		code codes.Code
-	}{
-		{"gain 2", func() error { _, err := r.client.SetGain(ctx, &stillskyv1.SetGainRequest{Gain: 2}); return err }, codes.InvalidArgument},
-		{"gain -0.1", func() error { _, err := r.client.SetGain(ctx, &stillskyv1.SetGainRequest{Gain: -0.1}); return err }, codes.InvalidArgument},
-		{"gain NaN", func() error { _, err := r.client.SetGain(ctx, &stillskyv1.SetGainRequest{Gain: nan()}); return err }, codes.InvalidArgument},
-		{"leak 1", func() error { _, err := r.client.SetLeak(ctx, &stillskyv1.SetLeakRequest{Leak: 1}); return err }, codes.InvalidArgument},
-		{"leak -1", func() error { _, err := r.client.SetLeak(ctx, &stillskyv1.SetLeakRequest{Leak: -1}); return err }, codes.InvalidArgument},
-		{"modal gains wrong length", func() error {
-			_, err := r.client.SetModalGains(ctx, &stillskyv1.SetModalGainsRequest{Gains: []float64{1, 1}})
-			return err
-		}, codes.InvalidArgument},
-		{"telemetry decimation 0", func() error {
-			s, err := r.client.StreamTelemetry(ctx, &stillskyv1.StreamTelemetryRequest{})
-			if err != nil {
-				return err
-			}
-			_, err = s.Recv()
-			return err
-		}, codes.InvalidArgument},
-		{"calibrate while closed", func() error {
-			s, err := r.client.Calibrate(ctx, &stillskyv1.CalibrateRequest{})
-			if err != nil {
-				return err
-			}
-			_, err = s.Recv()
-			return err
-		}, codes.FailedPrecondition},
-		{"corrupt reconstructor", func() error {
-			s, err := r.client.LoadReconstructor(ctx)
-			if err != nil {
-				return err
-			}
-			s.Send(&stillskyv1.LoadReconstructorRequest{Chunk: []byte("SIMPLE  =                    T / not really")})
-			_, err = s.CloseAndRecv()
-			return err
-		}, codes.InvalidArgument},
-	} {
-		err := c.call()
-		if status.Code(err) != c.code || status.Convert(err).Message() == "" {
-			t.Errorf("%s: %v, want %v with a message", c.name, err, c.code)
-		}
-	}
-	after := r.status(t)
-	if after.GetGain() != before.GetGain() || after.GetLeak() != before.GetLeak() || after.GetState() != before.GetState() ||
-		after.GetReconstructor().GetCreatedUnix() != before.GetReconstructor().GetCreatedUnix() {
-		t.Errorf("invalid requests changed the state: before %v/%v/%v, after %v/%v/%v",
-			before.GetGain(), before.GetLeak(), before.GetState(), after.GetGain(), after.GetLeak(), after.GetState())
-	}
-	if _, err := run("gain", "abc"); err == nil {
-		t.Error("ctl gain abc accepted")
-	}
-	if _, err := run("frobnicate"); err == nil {
-		t.Error("ctl accepted an unknown verb")
-	}
-
-	// Save, then load the saved file back.
-	file := filepath.Join(t.TempDir(), "rec.fits")
-	if out, err := run("save", file); err != nil {
-		t.Fatalf("ctl save: %v\n%s", err, out)
-	}
-	if out, err := run("load", file); err != nil || !strings.Contains(out, "reconstructor loaded") {
-		t.Fatalf("ctl load: %v\n%s", err, out)
-	}
-	if out, err := run("hold"); err != nil || !strings.Contains(out, "state           hold") {
-		t.Fatalf("ctl hold: %v\n%s", err, out)
-	}
-	if out, err := run("open"); err != nil || !strings.Contains(out, "state           open") {
-		t.Fatalf("ctl open: %v\n%s", err, out)
-	}
-	if out, err := run("status"); err != nil || !strings.Contains(out, "frames") {
-		t.Fatalf("ctl status: %v\n%s", err, out)
-	}
-}
-
-func nan() float64 { var z float64; return z / z }

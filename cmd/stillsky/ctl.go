@@ -5,7 +5,7 @@ import (
 	"os"
 	"time"
 
-	"stillsky/internal/ctl"
+	"stillsky/cmd/stillsky/internal/ctl"
 	"stillsky/internal/rpc"
 )
 

@@ -3,7 +3,7 @@ package main
 import (
 	"os"
 
-	"stillsky/internal/demo"
+	"stillsky/cmd/stillsky/internal/demo"
 )
 
 func init() {

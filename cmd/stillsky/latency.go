@@ -5,9 +5,9 @@ import (
 	"runtime"
 	"strings"
 
+	"stillsky/cmd/stillsky/internal/latency"
 	"stillsky/controller/mvm"
 	"stillsky/daemon"
-	"stillsky/internal/latbench"
 )
 
 func init() {
@@ -65,7 +65,7 @@ func runLatency(args []string) error {
 	}
 	ctx, stop := signalContext()
 	defer stop()
-	rs, err := latbench.Run(ctx, latbench.Config{
+	rs, err := latency.Run(ctx, latency.Config{
 		SimulatorExecutable: sim, SimulatorCPUs: *simCPUs,
 		Realtime:  daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo},
 		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
@@ -75,7 +75,7 @@ func runLatency(args []string) error {
 		return err
 	}
 	if *jsonOut != "" {
-		return latbench.WriteJSON(*jsonOut, rs)
+		return latency.WriteJSON(*jsonOut, rs)
 	}
 	return nil
 }

@@ -6,8 +6,8 @@ import (
 	"os"
 	"strconv"
 
+	"stillsky/cmd/stillsky/internal/sweep"
 	"stillsky/internal/rpc"
-	"stillsky/internal/sweep"
 )
 
 func init() {

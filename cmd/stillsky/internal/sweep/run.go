@@ -10,8 +10,8 @@ import (
 	"sync"
 	"time"
 
+	"stillsky/cmd/stillsky/internal/demo"
 	"stillsky/internal/atomicfile"
-	"stillsky/internal/demo"
 )
 
 // Result is one point's outcome, as written to its JSON file.

@@ -1,11 +1,11 @@
-// Package latbench is the latency benchmark behind `stillsky latency`: for each
+// Package latency is the latency benchmark behind `stillsky latency`: for each
 // scenario and transport (TCP loopback, unix socket) it runs the bench
 // free-running and the loop daemon closed, records every frame's timings, and in
 // the same run measures the transport floor with a bare gRPC ping-pong of the same
 // payload sizes against the bench's probe service, once the loop has stopped and
 // while the bench still runs: between the same two processes, over the same kind
 // of connection, with the simulator as busy as in the closed loop.
-package latbench
+package latency
 
 import (
 	"context"
@@ -22,11 +22,11 @@ import (
 	"slices"
 	"time"
 
+	"stillsky/cmd/stillsky/internal/ctl"
 	"stillsky/controller/mvm"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
 	"stillsky/internal/cpustat"
-	"stillsky/internal/ctl"
 	"stillsky/internal/monoclock"
 	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"

@@ -26,5 +26,5 @@
 // alone (common random numbers); put atmosphere.seed on an axis for repeats.
 //
 // The package does no printing of its own beyond what its callers pass a writer
-// for, and runs each point through the demo's code (internal/demo).
+// for, and runs each point through the demo's code (cmd/stillsky/internal/demo).
 package sweep

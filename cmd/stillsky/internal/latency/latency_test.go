@@ -1,4 +1,4 @@
-package latbench
+package latency
 
 import (
 	"context"

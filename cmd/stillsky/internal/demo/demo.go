@@ -12,12 +12,11 @@ import (
 	"io"
 	"log/slog"
 	"math"
-
 	"time"
 
+	"stillsky/cmd/stillsky/internal/ctl"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
-	"stillsky/internal/ctl"
 	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/bench"
