@@ -4,31 +4,41 @@ package atmosphere
 // the assembly versions in interp_amd64.s take over the bulk of each row and
 // these finish the tail; tests hold both to the same results.
 
-// blend4 sets dst[k] = a0·f0[k] + a1·f1[k] + b0·t0[k] + b1·t1[k]: the vertical
-// interpolation of two screen rows, blended between the layer's two screens.
-func blend4(dst, f0, f1, t0, t1 []float32, a0, a1, b0, b1 float32) {
-	k := blend4Fast(dst, f0, f1, t0, t1, a0, a1, b0, b1)
-	blend4Go(dst[k:], f0[k:], f1[k:], t0[k:], t1[k:], a0, a1, b0, b1)
+// combine6 sets (or, with add, adds to) dst[k] the value Σ_m c[m]·src[m][k]: six
+// rows of a layer's nodes combined with the vertical interpolation weights.
+func combine6(dst []float32, add bool, src [6][]float32, c [6]float32) {
+	k := combine6Fast(dst, add, &src, &c)
+	for m := range src {
+		src[m] = src[m][k:]
+	}
+	combine6Go(dst[k:], add, src, c)
 }
 
-func blend4Go(dst, f0, f1, t0, t1 []float32, a0, a1, b0, b1 float32) {
-	f0, f1, t0, t1 = f0[:len(dst)], f1[:len(dst)], t0[:len(dst)], t1[:len(dst)]
+func combine6Go(dst []float32, add bool, src [6][]float32, c [6]float32) {
+	s0, s1, s2, s3, s4, s5 := src[0][:len(dst)], src[1][:len(dst)], src[2][:len(dst)], src[3][:len(dst)], src[4][:len(dst)], src[5][:len(dst)]
 	for k := range dst {
-		dst[k] = a0*f0[k] + a1*f1[k] + b0*t0[k] + b1*t1[k]
+		v := c[0]*s0[k] + c[1]*s1[k] + c[2]*s2[k] + c[3]*s3[k] + c[4]*s4[k] + c[5]*s5[k]
+		if add {
+			dst[k] += v
+		} else {
+			dst[k] = v
+		}
 	}
 }
 
-// lerpAdd adds wl·src[i] + wr·src[i+1] to out[i]: the horizontal
-// interpolation of a blended row; src holds len(out)+1 values.
-func lerpAdd(out []float64, src []float32, wl, wr float64) {
-	i := lerpAddFast(out, src, wl, wr)
-	lerpAddGo(out[i:], src[i:], wl, wr)
+// taps6Add adds Σ_j a[j]·even[i+j] + b[j]·odd[i+j], j = 0, 1, 2, to out[i]: the
+// horizontal interpolation of a combined row, whose even and odd nodes are in
+// two rows; each holds len(out)+2 values.
+func taps6Add(out []float64, even, odd []float32, a, b [3]float64) {
+	i := taps6AddFast(out, even, odd, &a, &b)
+	taps6AddGo(out[i:], even[i:], odd[i:], a, b)
 }
 
-func lerpAddGo(out []float64, src []float32, wl, wr float64) {
-	left, right := src[:len(out)], src[1:len(out)+1]
+func taps6AddGo(out []float64, even, odd []float32, a, b [3]float64) {
+	e, o := even[:len(out)+2], odd[:len(out)+2]
 	for i := range out {
-		out[i] += wl*float64(left[i]) + wr*float64(right[i])
+		out[i] += a[0]*float64(e[i]) + a[1]*float64(e[i+1]) + a[2]*float64(e[i+2]) +
+			b[0]*float64(o[i]) + b[1]*float64(o[i+1]) + b[2]*float64(o[i+2])
 	}
 }
 

@@ -21,26 +21,34 @@ func TestInterpKernels(t *testing.T) {
 		return v
 	}
 	for _, n := range []int{1, 3, 7, 8, 9, 31, 97, 161, 257} {
-		f0, f1, t0, t1 := row(n), row(n), row(n), row(n)
-		got := make([]float32, n+3)
-		want := make([]float32, n)
-		for i := range got {
-			got[i] = float32(math.NaN())
+		var src [6][]float32
+		var cw [6]float32
+		for m := range src {
+			src[m] = row(n)
+			cw[m] = float32(rng.NormFloat64())
 		}
-		a0, a1, b0, b1 := float32(0.3), float32(0.2), float32(0.4), float32(0.1)
-		blend4(got[:n], f0, f1, t0, t1, a0, a1, b0, b1)
-		blend4Go(want, f0, f1, t0, t1, a0, a1, b0, b1)
-		for i := range want {
-			if d := math.Abs(float64(got[i] - want[i])); d > 1e-5*(1+math.Abs(float64(want[i]))) {
-				t.Fatalf("blend4 n=%d [%d]: %g, portable %g", n, i, got[i], want[i])
+		for _, add := range []bool{false, true} {
+			base := row(n)
+			got := make([]float32, n+3)
+			copy(got, base)
+			for i := n; i < len(got); i++ {
+				got[i] = float32(math.NaN())
+			}
+			want := append([]float32(nil), base...)
+			combine6(got[:n], add, src, cw)
+			combine6Go(want, add, src, cw)
+			for i := range want {
+				if d := math.Abs(float64(got[i] - want[i])); d > 1e-5*(1+math.Abs(float64(want[i]))) {
+					t.Fatalf("combine6 n=%d add=%v [%d]: %g, portable %g", n, add, i, got[i], want[i])
+				}
+			}
+			for i := n; i < len(got); i++ {
+				if !math.IsNaN(float64(got[i])) {
+					t.Fatalf("combine6 n=%d wrote element %d beyond the row", n, i)
+				}
 			}
 		}
-		for i := n; i < len(got); i++ {
-			if !math.IsNaN(float64(got[i])) {
-				t.Fatalf("blend4 n=%d wrote element %d beyond the row", n, i)
-			}
-		}
-		src := row(n + 1)
+		even, odd := row(n+2), row(n+2)
 		out := make([]float64, n+3)
 		ref := make([]float64, n)
 		for i := range out {
@@ -52,16 +60,17 @@ func TestInterpKernels(t *testing.T) {
 		for i := range ref {
 			ref[i] = float64(i)
 		}
-		lerpAdd(out[:n], src, 0.7, 0.3)
-		lerpAddGo(ref, src, 0.7, 0.3)
+		ta, tb := [3]float64{0.1, -0.7, 0.25}, [3]float64{0.6, 0.05, -0.3}
+		taps6Add(out[:n], even, odd, ta, tb)
+		taps6AddGo(ref, even, odd, ta, tb)
 		for i := range ref {
 			if d := math.Abs(out[i] - ref[i]); d > 1e-12*(1+math.Abs(ref[i])) {
-				t.Fatalf("lerpAdd n=%d [%d]: %g, portable %g", n, i, out[i], ref[i])
+				t.Fatalf("taps6Add n=%d [%d]: %g, portable %g", n, i, out[i], ref[i])
 			}
 		}
 		for i := n; i < len(out); i++ {
 			if !math.IsNaN(out[i]) {
-				t.Fatalf("lerpAdd n=%d wrote element %d beyond the row", n, i)
+				t.Fatalf("taps6Add n=%d wrote element %d beyond the row", n, i)
 			}
 		}
 		var x [6][]float64

@@ -199,6 +199,7 @@ type ScreenGenerator struct {
 	fft    *optics.FFT2
 	work   []complex128
 	grid   *waveTable
+	half   []complex128 // exp(−iπk/N) per frequency index k, k signed: a half-sample shift
 }
 
 // NewScreenGenerator checks c and precomputes the spectrum.
@@ -211,13 +212,18 @@ func NewScreenGenerator(c ScreenConfig) (*ScreenGenerator, error) {
 	if err != nil {
 		return nil, err
 	}
-	g := &ScreenGenerator{c: c, amp: make([]float64, n*n), fft: fft, work: make([]complex128, n*n)}
+	g := &ScreenGenerator{c: c, amp: make([]float64, n*n), fft: fft, work: make([]complex128, n*n), half: make([]complex128, n)}
 	df := 1 / (float64(n) * c.PixelScale)
-	freq := func(k int) float64 {
+	signed := func(k int) int {
 		if k > n/2 {
 			k -= n
 		}
-		return float64(k) * df
+		return k
+	}
+	freq := func(k int) float64 { return float64(signed(k)) * df }
+	for k := range g.half {
+		sn, cs := math.Sincos(-math.Pi * float64(signed(k)) / float64(n))
+		g.half[k] = complex(cs, sn)
 	}
 	for ky := 0; ky < n; ky++ {
 		for kx := 0; kx < n; kx++ {
@@ -266,18 +272,28 @@ func (g *ScreenGenerator) Generate(rng *rand.Rand, out []float64) {
 	g.grid.eval(&j.sh, out, true)
 }
 
+// phases is the number of planes a layer screen is stored in: the band-limited
+// field sampled at the grid points shifted by (p/2, q/2) samples, p, q ∈ {0, 1},
+// plane 2q + p. Together they are the field on a grid of half the spacing.
+const phases = 4
+
 // job is one screen (or two) being generated in slices, each one unit of work: noise
-// rows, row FFTs, blocks of columnsPerUnit column FFTs, then rows copied out.
+// rows, then for each plane row FFTs, blocks of columnsPerUnit column FFTs and rows
+// copied out.
 type job struct {
 	work []complex128
+	// spec, for re and im, keeps the noise-weighted spectrum from which each plane
+	// is transformed; out transforms it in work directly.
+	spec []complex128
 	rng  *rand.Rand
 	// out, when not nil, receives the real part as a plain Size×Size screen.
 	out []float64
 	// re and im, otherwise, receive the real and imaginary parts, two independent
 	// screens with the same statistics (the noise is circular Gaussian and the
-	// spectrum even in f), as float32 with row stride Size+ext. The first ext rows
-	// and columns are repeated after the last ones (the periodic extension), so that
-	// a window of up to ext+1 samples is read without wrapping indices.
+	// spectrum even in f), as float32 in phases planes of row stride Size+ext. The
+	// first ext rows and columns of each plane are repeated after the last ones (the
+	// periodic extension), so that a window of up to ext+1 samples is read without
+	// wrapping indices.
 	re, im []float32
 	ext    int
 	sh     shCoef // subharmonic coefficients drawn for out or re
@@ -289,22 +305,46 @@ type job struct {
 // that gathers the columns is shared.
 const columnsPerUnit = 8
 
-func (g *ScreenGenerator) units() int {
+// planes returns the number of planes j makes.
+func (j *job) planes() int {
+	if j.out != nil {
+		return 1
+	}
+	return phases
+}
+
+// perPlane is the work of one plane: row FFTs, column FFT blocks, rows copied out.
+func (g *ScreenGenerator) perPlane() int {
 	n := g.c.Size
-	return 3*n + (n+columnsPerUnit-1)/columnsPerUnit
+	return 2*n + (n+columnsPerUnit-1)/columnsPerUnit
+}
+
+func (g *ScreenGenerator) units(j *job) int {
+	return g.c.Size + j.planes()*g.perPlane()
 }
 
 // step does up to max units of j and reports whether the screen is complete. The
 // random numbers are drawn in the same order however the work is sliced, so a screen
 // depends only on the state of the generator's rng.
+//
+// Plane 2q + p is the field φ(x + p/2, y + q/2), x and y in samples: with the
+// transform's sign, φ(x) = Σ_k c_k exp(−2πi k·x/N), so the shift multiplies c_k by
+// exp(−iπ(p·kx + q·ky)/N), k signed in [−N/2, N/2] (the DFT shift theorem). This is
+// the band-limited interpolation of the screen, exact at every point between the
+// samples; the planes interleaved are the field on a grid of half the spacing.
 func (g *ScreenGenerator) step(j *job, max int) bool {
 	n := g.c.Size
 	nb := (n + columnsPerUnit - 1) / columnsPerUnit
-	total := 3*n + nb
+	per := g.perPlane()
+	total := g.units(j)
+	spec := j.spec
+	if j.out != nil {
+		spec = j.work
+	}
 	for ; max > 0 && j.done < total; max-- {
-		switch k := j.done; {
-		case k < n:
-			row := j.work[k*n : (k+1)*n]
+		k := j.done
+		if k < n {
+			row := spec[k*n : (k+1)*n]
 			amp := g.amp[k*n : (k+1)*n]
 			for i := range row {
 				row[i] = complex(j.rng.NormFloat64()*amp[i], j.rng.NormFloat64()*amp[i])
@@ -312,21 +352,48 @@ func (g *ScreenGenerator) step(j *job, max int) bool {
 			if k == n-1 {
 				g.drawSubharmonics(j)
 			}
-		case k < 2*n:
-			g.fft.Rows(j.work, k-n, k-n+1)
-		case k < 2*n+nb:
-			x := (k - 2*n) * columnsPerUnit
+			j.done++
+			continue
+		}
+		plane, r := (k-n)/per, (k-n)%per
+		switch {
+		case r < n:
+			if j.out == nil {
+				g.shiftRow(j, plane, r)
+			}
+			g.fft.Rows(j.work, r, r+1)
+		case r < n+nb:
+			x := (r - n) * columnsPerUnit
 			g.fft.Columns(j.work, x, min(x+columnsPerUnit, n))
 		default:
-			g.copyOut(j, k-2*n-nb)
+			g.copyOut(j, plane, r-n-nb)
 		}
 		j.done++
 	}
 	return j.done == total
 }
 
+// shiftRow writes row ky of the spectrum into work, shifted for plane.
+func (g *ScreenGenerator) shiftRow(j *job, plane, ky int) {
+	n := g.c.Size
+	src, dst := j.spec[ky*n:(ky+1)*n], j.work[ky*n:(ky+1)*n]
+	f := complex(1, 0)
+	if plane/2 == 1 {
+		f = g.half[ky]
+	}
+	if plane%2 == 0 {
+		for kx, v := range src {
+			dst[kx] = v * f
+		}
+		return
+	}
+	for kx, v := range src {
+		dst[kx] = v * f * g.half[kx]
+	}
+}
+
 // copyOut writes row y of the transformed noise to the job's screens.
-func (g *ScreenGenerator) copyOut(j *job, y int) {
+func (g *ScreenGenerator) copyOut(j *job, plane, y int) {
 	n := g.c.Size
 	row := j.work[y*n : (y+1)*n]
 	if j.out != nil {
@@ -337,8 +404,9 @@ func (g *ScreenGenerator) copyOut(j *job, y int) {
 		return
 	}
 	stride := n + j.ext
+	base := plane * stride * stride
 	for t := y; t < n+j.ext; t += n {
-		re, im := j.re[t*stride:(t+1)*stride], j.im[t*stride:(t+1)*stride]
+		re, im := j.re[base+t*stride:base+(t+1)*stride], j.im[base+t*stride:base+(t+1)*stride]
 		for x, v := range row {
 			re[x], im[x] = float32(real(v)), float32(imag(v))
 		}

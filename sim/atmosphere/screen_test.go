@@ -2,8 +2,11 @@ package atmosphere
 
 import (
 	"math"
+	"math/cmplx"
 	"math/rand/v2"
 	"testing"
+
+	"gonum.org/v1/gonum/dsp/fourier"
 
 	"stillsky/sim/optics"
 )
@@ -198,6 +201,85 @@ func TestNewScreenGeneratorRejects(t *testing.T) {
 		f(&c)
 		if _, err := NewScreenGenerator(c); err == nil {
 			t.Errorf("%s: accepted %+v", name, c)
+		}
+	}
+}
+
+// fourierShift returns the band-limited periodic field of the n×n samples z at the
+// grid points shifted by (sx, sy) samples: z(x) = Σ_k C_k exp(−2πi k·x/n), so the
+// shifted field has the coefficients C_k·exp(−2πi k·s/n), k signed in [−n/2, n/2]
+// (the DFT shift theorem), computed with gonum's FFT.
+func fourierShift(z []complex128, n int, sx, sy float64) []complex128 {
+	f := fourier.NewCmplxFFT(n)
+	c := append([]complex128(nil), z...)
+	col := make([]complex128, n)
+	both := func(apply func([]complex128)) {
+		for y := 0; y < n; y++ {
+			apply(c[y*n : (y+1)*n])
+		}
+		for x := 0; x < n; x++ {
+			for y := 0; y < n; y++ {
+				col[y] = c[y*n+x]
+			}
+			apply(col)
+			for y := 0; y < n; y++ {
+				c[y*n+x] = col[y]
+			}
+		}
+	}
+	both(func(v []complex128) { f.Sequence(v, v) })
+	signed := func(k int) float64 {
+		if k > n/2 {
+			k -= n
+		}
+		return float64(k)
+	}
+	for ky := 0; ky < n; ky++ {
+		for kx := 0; kx < n; kx++ {
+			s, cs := math.Sincos(-2 * math.Pi * (signed(kx)*sx + signed(ky)*sy) / float64(n))
+			c[ky*n+kx] *= complex(cs, s) / complex(float64(n*n), 0)
+		}
+	}
+	both(func(v []complex128) { f.Coefficients(v, v) })
+	return c
+}
+
+// The planes of a layer's screens are its band-limited field at the half-sample
+// offsets, with the periodic extension: each plane, real and imaginary parts,
+// against the Fourier shift of the first plane computed with gonum's FFT.
+func TestPlanesAreTheShiftedField(t *testing.T) {
+	const n, ext = 48, 8
+	g, err := NewScreenGenerator(ScreenConfig{Size: n, PixelScale: 0.05, R0: 0.1, L0: 20})
+	if err != nil {
+		t.Fatal(err)
+	}
+	stride := n + ext
+	re, im := make([]float32, phases*stride*stride), make([]float32, phases*stride*stride)
+	j := job{work: make([]complex128, n*n), spec: make([]complex128, n*n), rng: rand.New(rand.NewPCG(3, 4)), re: re, im: im, ext: ext}
+	for !g.step(&j, 7) { // in small slices, as a layer does
+	}
+	z := make([]complex128, n*n)
+	var rms float64
+	for y := 0; y < n; y++ {
+		for x := 0; x < n; x++ {
+			z[y*n+x] = complex(float64(re[y*stride+x]), float64(im[y*stride+x]))
+			rms += real(z[y*n+x]*cmplx.Conj(z[y*n+x])) / float64(n*n)
+		}
+	}
+	rms = math.Sqrt(rms)
+	for plane := 1; plane < phases; plane++ {
+		want := fourierShift(z, n, float64(plane%2)/2, float64(plane/2)/2)
+		base := plane * stride * stride
+		worst := 0.0
+		for y := 0; y < stride; y++ {
+			for x := 0; x < stride; x++ {
+				got := complex(float64(re[base+y*stride+x]), float64(im[base+y*stride+x]))
+				worst = math.Max(worst, cmplx.Abs(got-want[(y%n)*n+x%n]))
+			}
+		}
+		t.Logf("plane %d: largest difference %.2g of the screen's rms", plane, worst/rms)
+		if worst > 1e-5*rms {
+			t.Errorf("plane %d differs from the Fourier shift by %.3g (screen rms %.3g)", plane, worst, rms)
 		}
 	}
 }
