@@ -100,6 +100,19 @@ func Calibrate(scn *scenario.Scenario) (*Rig, error) {
 	return &Rig{Scenario: scn, Interaction: m, Reconstructor: r, sys: sys}, nil
 }
 
+// SensorGeometry returns the sensor's layout as its Describe reports it.
+func (r *Rig) SensorGeometry() analysis.SensorGeometry {
+	sensor := r.sys.Sensor()
+	g := analysis.SensorGeometry{Subapertures: sensor.Subapertures(), SubapertureSize: sensor.SubapertureSize(),
+		PupilDiameter: r.Scenario.Telescope.Diameter, Wavelength: r.Scenario.GuideStar.Wavelength}
+	for i, v := range sensor.Valid() {
+		if v {
+			g.Valid = append(g.Valid, i)
+		}
+	}
+	return g
+}
+
 // Input returns the budget input of scenario scn with reconstructor r at the
 // given gain (leak 0, the scenario's delay and frame rate). sys supplies the
 // geometry of the sensor and mirror as they describe themselves (positions,
@@ -172,6 +185,9 @@ type RunConfig struct {
 	ModalGains []float64
 	// Seed of the turbulence and noise (0: the scenario's).
 	Seed int64
+	// R0 replaces the scenario's r0 (metres at 500 nm, zenith) when > 0; the
+	// calibration does not depend on it.
+	R0 float64
 	// NoNoise turns the sensor noise off; Frozen stops the layers.
 	NoNoise, Frozen bool
 	// NoDelay runs the ideal loop with no delay at gain 1: each frame's command
@@ -184,6 +200,9 @@ type RunConfig struct {
 	Warmup, Frames int
 	// StrehlEvery frames a science PSF joins the long exposure (0: no Strehl).
 	StrehlEvery int
+	// Frame, if set, is called for every measured frame with its slopes and the
+	// command the mirror held during its exposure (both the rig's own buffers).
+	Frame func(slopes, applied []float32)
 	// Fitting also measures the fitting error: the residual of the best
 	// least-squares mirror fit to the turbulence, every StrehlEvery-th frame (or
 	// every 10th without Strehl).
@@ -209,6 +228,9 @@ func (r *Rig) Run(c RunConfig) (Measured, error) {
 	scn := *r.Scenario
 	if c.Seed != 0 {
 		scn.Atmosphere.Seed = c.Seed
+	}
+	if c.R0 > 0 {
+		scn.Atmosphere.R0 = c.R0
 	}
 	sys, err := bench.NewSystem(&scn)
 	if err != nil {
@@ -237,7 +259,7 @@ func (r *Rig) Run(c RunConfig) (Measured, error) {
 	lambda := scn.Science.Wavelength
 	toPhase := func(opd float64) float64 { return math.Pow(2*math.Pi*opd/lambda, 2) }
 	ns, na := sys.NumSlopes(), sys.NumActuators()
-	slopes, cmd, scratch := make([]float32, ns), make([]float32, na), make([]float32, ns)
+	slopes, cmd, scratch, applied := make([]float32, ns), make([]float32, na), make([]float32, ns), make([]float32, na)
 	line := NewDelayLine(sys, scn.Loop.DelayFrames)
 	var m Measured
 	fitEvery := c.StrehlEvery
@@ -249,14 +271,19 @@ func (r *Rig) Run(c RunConfig) (Measured, error) {
 		var res controller.Result
 		if c.NoDelay {
 			sys.Advance()
+			copy(applied, cmd)
 			sys.Observe(cmd, slopes)
 			res = loop.Step(slopes, cmd)
 			sys.Observe(cmd, scratch)
 		} else {
+			copy(applied, line.q[0])
 			line.Frame(slopes, func() []float32 {
 				res = loop.Step(slopes, cmd)
 				return cmd
 			})
+		}
+		if c.Frame != nil && k >= c.Warmup {
+			c.Frame(slopes, applied)
 		}
 		if k < c.Warmup {
 			continue
