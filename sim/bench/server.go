@@ -114,6 +114,8 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 		return nil, err
 	}
 	b.stats.exp.sum = make([]float64, n)
+	b.stats.block.sum = make([]float64, n)
+	b.stats.blockFrames = max(1, int(s.Loop.FrameRate))
 	b.sci.gauge.sum = make([]float64, n)
 	b.sci.gaugeSamples = max(1, int(s.Loop.FrameRate)/opt.StrehlEvery)
 	for i := range b.pending {

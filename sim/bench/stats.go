@@ -17,6 +17,10 @@ type Stats struct {
 	Strehl float64
 	// StrehlSamples is the number of PSFs in the exposure.
 	StrehlSamples int
+	// BlockStrehl is the long-exposure Strehl ratio of each complete second of
+	// frames in the window (frame rate frames, however long they took), in order:
+	// how much the figure of a run varies over its length.
+	BlockStrehl []float64
 }
 
 type statsAccumulator struct {
@@ -25,6 +29,11 @@ type statsAccumulator struct {
 	sumResidual  float64
 	lastResidual float64
 	exp          exposure
+	// block is the exposure of the current second of frames (blockFrames),
+	// blocks the Strehl ratios of the complete ones.
+	block       exposure
+	blockFrames int
+	blocks      []float64
 }
 
 func (a *statsAccumulator) add(rms float64) {
@@ -32,12 +41,17 @@ func (a *statsAccumulator) add(rms float64) {
 	a.frames++
 	a.sumResidual += rms
 	a.lastResidual = rms
+	if a.frames%a.blockFrames == 0 && a.block.n > 0 {
+		a.blocks = append(a.blocks, a.block.strehl())
+		a.block.reset()
+	}
 	a.mu.Unlock()
 }
 
 func (a *statsAccumulator) expose(psf []float64) {
 	a.mu.Lock()
 	a.exp.add(psf)
+	a.block.add(psf)
 	a.mu.Unlock()
 }
 
@@ -55,7 +69,7 @@ func (b *Server) Stats() Stats {
 	a := &b.stats
 	a.mu.Lock()
 	defer a.mu.Unlock()
-	s := Stats{Frames: a.frames, StrehlSamples: a.exp.n, Strehl: a.exp.strehl()}
+	s := Stats{Frames: a.frames, StrehlSamples: a.exp.n, Strehl: a.exp.strehl(), BlockStrehl: append([]float64(nil), a.blocks...)}
 	if a.frames > 0 {
 		s.ResidualRMS = a.sumResidual / float64(a.frames)
 	}
@@ -63,10 +77,13 @@ func (b *Server) Stats() Stats {
 }
 
 // ResetStats starts a new averaging window and science exposure.
-func (b *Server) ResetStats() {
-	a := &b.stats
+func (b *Server) ResetStats() { b.stats.reset() }
+
+func (a *statsAccumulator) reset() {
 	a.mu.Lock()
 	a.frames, a.sumResidual = 0, 0
 	a.exp.reset()
+	a.block.reset()
+	a.blocks = a.blocks[:0]
 	a.mu.Unlock()
 }

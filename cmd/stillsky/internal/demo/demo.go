@@ -14,6 +14,8 @@ import (
 	"math"
 	"time"
 
+	"gonum.org/v1/gonum/stat"
+
 	"stillsky/cmd/stillsky/internal/ctl"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
@@ -48,13 +50,49 @@ type Latency struct {
 	Max  float64 `json:"max"`
 }
 
+// Spread is how a figure varies over the blocks of a run.
+type Spread struct {
+	// Mean and Std are the mean and the sample standard deviation (n − 1) of
+	// Blocks; Std is 0 with fewer than two blocks.
+	Mean   float64   `json:"mean"`
+	Std    float64   `json:"std"`
+	Blocks []float64 `json:"blocks"`
+}
+
+// String gives the mean and standard deviation to three places and the number of
+// blocks, e.g. "0.851 ± 0.012 in 5".
+func (s Spread) String() string {
+	return fmt.Sprintf("%.3f ± %.3f in %d", s.Mean, s.Std, len(s.Blocks))
+}
+
+// spread returns the Spread of the values x.
+func spread(x []float64) Spread {
+	s := Spread{Blocks: x}
+	if s.Blocks == nil {
+		s.Blocks = []float64{}
+	}
+	switch len(x) {
+	case 0:
+	case 1:
+		s.Mean = x[0]
+	default:
+		s.Mean, s.Std = stat.MeanStdDev(x, nil)
+	}
+	return s
+}
+
 // Summary is the result of a demo run, as written by --summary.
 type Summary struct {
-	Scenario             string  `json:"scenario"`
-	FramesOpen           int     `json:"frames_open"`
-	FramesClosed         int     `json:"frames_closed"`
-	StrehlOpen           float64 `json:"strehl_open"`
-	StrehlClosed         float64 `json:"strehl_closed"`
+	Scenario     string  `json:"scenario"`
+	FramesOpen   int     `json:"frames_open"`
+	FramesClosed int     `json:"frames_closed"`
+	StrehlOpen   float64 `json:"strehl_open"`
+	StrehlClosed float64 `json:"strehl_closed"`
+	// StrehlOpenBlocks and StrehlClosedBlocks are the long-exposure Strehl ratios
+	// of each complete second of frames (frame rate frames) of the phase: one run
+	// of a few seconds varies by about their standard deviation.
+	StrehlOpenBlocks     Spread  `json:"strehl_open_blocks"`
+	StrehlClosedBlocks   Spread  `json:"strehl_closed_blocks"`
 	StrehlEstimateClosed float64 `json:"strehl_estimate_closed"`
 	ScienceWavelengthM   float64 `json:"science_wavelength_m"`
 	ResidualRMSNmOpen    float64 `json:"residual_rms_nm_open"`
@@ -151,6 +189,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	}
 	open := b.Stats()
 	sum.StrehlOpen, sum.ResidualRMSNmOpen = open.Strehl, open.ResidualRMS*1e9
+	sum.StrehlOpenBlocks = spread(open.BlockStrehl)
 
 	if _, err := client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
 		return nil, fmt.Errorf("demo: close loop: %w", err)
@@ -176,6 +215,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	}
 	closed := b.Stats()
 	sum.StrehlClosed, sum.ResidualRMSNmClosed = closed.Strehl, closed.ResidualRMS*1e9
+	sum.StrehlClosedBlocks = spread(closed.BlockStrehl)
 	if estN > 0 {
 		sum.StrehlEstimateClosed = estSum / float64(estN)
 	}
@@ -289,6 +329,7 @@ func writeTable(out io.Writer, s *Summary) {
 	fmt.Fprintf(out, "  %-28s %12s %12s\n", "", "open loop", "closed loop")
 	fmt.Fprintf(out, "  %-28s %12d %12d\n", "frames", s.FramesOpen, s.FramesClosed)
 	fmt.Fprintf(out, "  %-28s %12.3f %12.3f\n", "true Strehl (PSF)", s.StrehlOpen, s.StrehlClosed)
+	fmt.Fprintf(out, "  %-28s open %s  closed %s\n", "  over 1 s blocks", s.StrehlOpenBlocks, s.StrehlClosedBlocks)
 	fmt.Fprintf(out, "  %-28s %12s %12.3f\n", "estimated Strehl (Maréchal)", "", s.StrehlEstimateClosed)
 	fmt.Fprintf(out, "  %-28s %12.1f %12.1f\n", "true residual rms (nm)", s.ResidualRMSNmOpen, s.ResidualRMSNmClosed)
 	fmt.Fprintf(out, "  rtc latency (µs)             p50 %.1f  p99 %.1f  p99.9 %.1f  max %.1f\n", s.RTCLatencyUs.P50, s.RTCLatencyUs.P99, s.RTCLatencyUs.P999, s.RTCLatencyUs.Max)

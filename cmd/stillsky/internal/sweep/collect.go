@@ -110,7 +110,7 @@ func (r *Result) value(field string) (any, bool) {
 
 // summaryColumns are the CSV columns taken from each summary.
 var summaryColumns = []string{
-	"scenario", "strehl_open", "strehl_closed", "strehl_estimate_closed", "science_wavelength_m",
+	"scenario", "strehl_open", "strehl_closed", "strehl_closed_block_std", "strehl_estimate_closed", "science_wavelength_m",
 	"residual_rms_nm_open", "residual_rms_nm_closed", "rtc_latency_p99_us", "frames_dropped",
 	"frames_rejected", "interlock_trips", "final_loop_state", "loop_gain",
 }
@@ -136,7 +136,7 @@ func (c *Collection) WriteCSV(w io.Writer) error {
 			row = append(row, cell)
 		}
 		if s := r.Summary; s != nil {
-			row = append(row, s.Scenario, f(s.StrehlOpen), f(s.StrehlClosed), f(s.StrehlEstimateClosed), f(s.ScienceWavelengthM),
+			row = append(row, s.Scenario, f(s.StrehlOpen), f(s.StrehlClosed), f(s.StrehlClosedBlocks.Std), f(s.StrehlEstimateClosed), f(s.ScienceWavelengthM),
 				f(s.ResidualRMSNmOpen), f(s.ResidualRMSNmClosed), f(s.RTCLatencyUs.P99), u(s.FramesDropped),
 				u(s.FramesRejected), u(s.InterlockTrips), s.FinalLoopState, f(s.Gain))
 		} else {
