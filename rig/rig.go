@@ -16,10 +16,12 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"net"
 	"net/http"
 	"os"
 	"path/filepath"
+	"slices"
 	"time"
 
 	"google.golang.org/grpc"
@@ -279,9 +281,9 @@ func WaitFrames(ctx context.Context, c stillskyv1.ControlServiceClient, n uint64
 		case <-t.C:
 		}
 		next, err := c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
-		if ctx.Err() != nil {
+		if cerr := ended(ctx); cerr != nil {
 			return nil, fmt.Errorf("rig: %d of %d frames (camera connected %v, mirror connected %v): %w",
-				s.GetFrames()-start, n, s.GetCameraConnected(), s.GetMirrorConnected(), ctx.Err())
+				s.GetFrames()-start, n, s.GetCameraConnected(), s.GetMirrorConnected(), cerr)
 		}
 		if err != nil {
 			return nil, err
@@ -289,6 +291,19 @@ func WaitFrames(ctx context.Context, c stillskyv1.ControlServiceClient, n uint64
 		s = next
 	}
 	return s, nil
+}
+
+// ended returns ctx's error, or context.DeadlineExceeded once its deadline has
+// passed: gRPC fails a call at the deadline, before the context's own timer
+// may have fired.
+func ended(ctx context.Context) error {
+	if err := ctx.Err(); err != nil {
+		return err
+	}
+	if d, ok := ctx.Deadline(); ok && !time.Now().Before(d) {
+		return context.DeadlineExceeded
+	}
+	return nil
 }
 
 // Calibrate runs a calibration through the Control API behind c, handing each
@@ -319,3 +334,32 @@ func Calibrate(ctx context.Context, c stillskyv1.ControlServiceClient, req *stil
 		}
 	}
 }
+
+// Quantiles are latency quantiles in microseconds, rounded to 0.1 µs: the form in
+// which the demo's summary and the latency benchmark report them.
+type Quantiles struct {
+	P50  float64 `json:"p50"`
+	P99  float64 `json:"p99"`
+	P999 float64 `json:"p999"`
+	Max  float64 `json:"max"`
+}
+
+// QuantilesOf returns the quantiles of latencies in nanoseconds, each the sample
+// of rank round(p·(n−1)) in sorted order, as the daemon's status computes them.
+func QuantilesOf(ns []int64) Quantiles {
+	if len(ns) == 0 {
+		return Quantiles{}
+	}
+	v := slices.Clone(ns)
+	slices.Sort(v)
+	q := func(p float64) float64 { return micro(float64(v[int(p*float64(len(v)-1)+0.5)]) * 1e-9) }
+	return Quantiles{P50: q(0.5), P99: q(0.99), P999: q(0.999), Max: micro(float64(v[len(v)-1]) * 1e-9)}
+}
+
+// QuantilesFrom converts the daemon's latency summary (seconds).
+func QuantilesFrom(l *stillskyv1.LatencySummary) Quantiles {
+	return Quantiles{P50: micro(l.GetP50()), P99: micro(l.GetP99()), P999: micro(l.GetP999()), Max: micro(l.GetMax())}
+}
+
+// micro converts seconds to microseconds rounded to 0.1 µs.
+func micro(s float64) float64 { return math.Round(s*1e7) / 10 }

@@ -32,11 +32,10 @@ func runDemo(args []string) error {
 	ctx, stop := signalContext()
 	defer stop()
 	s, err := demo.Run(ctx, cfg)
-	if err != nil {
-		return err
+	if s != nil && *summary != "" {
+		if werr := s.WriteJSON(*summary); werr != nil {
+			return werr
+		}
 	}
-	if *summary != "" {
-		return s.WriteJSON(*summary)
-	}
-	return nil
+	return err
 }

@@ -63,6 +63,7 @@ func runLatency(args []string) error {
 			kernel.Workers = 1
 		}
 	}
+	shareProcessWithSimulator()
 	ctx, stop := signalContext()
 	defer stop()
 	rs, err := latency.Run(ctx, latency.Config{
@@ -71,13 +72,12 @@ func runLatency(args []string) error {
 		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
 		Chunks: *chunks, ReadoutTime: *readout, Out: os.Stdout, Logger: log, Kernel: kernel,
 	})
-	if err != nil {
-		return err
+	if rs != nil && *jsonOut != "" {
+		if werr := latency.WriteJSON(*jsonOut, rs); werr != nil {
+			return werr
+		}
 	}
-	if *jsonOut != "" {
-		return latency.WriteJSON(*jsonOut, rs)
-	}
-	return nil
+	return err
 }
 
 // kernelOptions is the matrix–vector kernel a --bf16 flag asks for.

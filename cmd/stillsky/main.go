@@ -13,6 +13,7 @@ import (
 	"log/slog"
 	"os"
 	"os/signal"
+	"runtime"
 	"sort"
 	"syscall"
 )
@@ -113,7 +114,26 @@ func newLogger(level string) (*slog.Logger, error) {
 	return slog.New(slog.NewTextHandler(os.Stderr, &slog.HandlerOptions{Level: l})), nil
 }
 
-// signalContext ends on SIGINT or SIGTERM, for a clean shutdown.
+// signalContext ends on SIGINT or SIGTERM, for a clean shutdown. A second
+// signal, while the command winds down, ends the process at once.
 func signalContext() (context.Context, context.CancelFunc) {
-	return signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	go func() {
+		<-ctx.Done()
+		stop()
+	}()
+	return ctx, stop
+}
+
+// shareProcessWithSimulator raises GOMAXPROCS for a process that runs the
+// simulated bench beside the loop (the latency benchmark, the design studies). The bench's
+// physics keeps a processor busy for most of a frame, and a goroutine woken by
+// the network waits for a free processor; with only one per core it may wait a
+// whole scheduler quantum (10 ms). With more processors than cores the woken
+// goroutine's thread runs at once and the kernel shares the cores instead, at
+// the granularity of its own scheduler. A GOMAXPROCS environment variable wins.
+func shareProcessWithSimulator() {
+	if os.Getenv("GOMAXPROCS") == "" {
+		runtime.GOMAXPROCS(max(4, 2*runtime.NumCPU()))
+	}
 }

@@ -7,7 +7,6 @@ import (
 	"strconv"
 
 	"stillsky/cmd/stillsky/internal/sweep"
-	"stillsky/internal/rpc"
 )
 
 func init() {
@@ -56,7 +55,7 @@ func runSweep(args []string) error {
 		return err
 	}
 	// Every point runs the bench and the loop in this process, as the demo does.
-	rpc.ShareProcessWithSimulator()
+	shareProcessWithSimulator()
 	if *fromEnv {
 		if *point >= 0 {
 			return errors.New("give --point or --point-from-env, not both")

@@ -18,6 +18,32 @@ func Version() string {
 	return "devel"
 }
 
+// Commit is the VCS revision the binary was built from, with "-modified" when
+// the work tree had uncommitted changes, or "unknown" when the build recorded
+// none (go run, or -buildvcs=false).
+func Commit() string {
+	bi, ok := debug.ReadBuildInfo()
+	if !ok {
+		return "unknown"
+	}
+	var rev, modified string
+	for _, s := range bi.Settings {
+		switch s.Key {
+		case "vcs.revision":
+			rev = s.Value
+		case "vcs.modified":
+			modified = s.Value
+		}
+	}
+	if rev == "" {
+		return "unknown"
+	}
+	if modified == "true" {
+		rev += "-modified"
+	}
+	return rev
+}
+
 // Register adds stillsky_build_info (constant 1, labelled with the version and the
 // Go version) to reg.
 func Register(reg prometheus.Registerer) error {

@@ -11,7 +11,6 @@ import (
 	"fmt"
 	"net"
 	"os"
-	"runtime"
 	"strings"
 
 	"google.golang.org/grpc"
@@ -197,16 +196,3 @@ func (b bearer) GetRequestMetadata(context.Context, ...string) (map[string]strin
 }
 
 func (bearer) RequireTransportSecurity() bool { return true }
-
-// ShareProcessWithSimulator raises GOMAXPROCS for a process that runs the
-// simulated bench beside the loop (the demo, the latency benchmark). The bench's
-// physics keeps a processor busy for most of a frame, and a goroutine woken by
-// the network waits for a free processor; with only one per core it may wait a
-// whole scheduler quantum (10 ms). With more processors than cores the woken
-// goroutine's thread runs at once and the kernel shares the cores instead, at
-// the granularity of its own scheduler. A GOMAXPROCS environment variable wins.
-func ShareProcessWithSimulator() {
-	if os.Getenv("GOMAXPROCS") == "" {
-		runtime.GOMAXPROCS(max(4, 2*runtime.NumCPU()))
-	}
-}

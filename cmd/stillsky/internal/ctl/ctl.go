@@ -11,12 +11,15 @@ import (
 	"os"
 	"strconv"
 	"strings"
+	"time"
 
+	"golang.org/x/sys/unix"
 	"google.golang.org/grpc"
 	"google.golang.org/grpc/status"
 
 	"stillsky/internal/atomicfile"
 	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/rig"
 )
 
 // Usage lists the verbs.
@@ -145,31 +148,74 @@ func oneLine(err error) error {
 	return fmt.Errorf("%s: %s", strings.ToLower(b.String()), s.Message())
 }
 
-// Calibrate runs a calibration and draws a progress bar on out.
+// Calibrate runs a calibration and shows its progress on out (see Progress).
 func Calibrate(ctx context.Context, c stillskyv1.ControlServiceClient, req *stillskyv1.CalibrateRequest, out io.Writer) error {
-	stream, err := c.Calibrate(ctx, req)
+	p := NewProgress(out)
+	info, err := rig.Calibrate(ctx, c, req, p.Update)
+	p.End()
 	if err != nil {
 		return oneLine(err)
 	}
-	for {
-		r, err := stream.Recv()
-		if err == io.EOF {
-			return nil
-		}
-		if err != nil {
-			fmt.Fprintln(out)
-			return oneLine(err)
-		}
-		if r.GetTotal() > 0 {
-			const width = 40
-			n := int(width * uint64(r.GetDone()) / uint64(r.GetTotal()))
-			fmt.Fprintf(out, "\rcalibrating [%s%s] %3d%% %-9s", strings.Repeat("#", n), strings.Repeat(".", width-n),
-				100*uint64(r.GetDone())/uint64(r.GetTotal()), r.GetPhase())
-		}
-		if r.GetPhase() == "done" {
-			fmt.Fprintf(out, "\nreconstructor: %s\n", describeReconstructor(r.GetReconstructor()))
-		}
+	fmt.Fprintf(out, "reconstructor: %s\n", describeReconstructor(info))
+	return nil
+}
+
+// progressEvery is how often Progress prints a line when out is not a terminal.
+const progressEvery = 3 * time.Second
+
+// Progress shows a calibration's progress: on a terminal a bar redrawn in place,
+// elsewhere (a log file, a pipe) one line when the phase changes and at most
+// one every progressEvery in between, so that a log gets a few lines rather
+// than hundreds of carriage returns.
+type Progress struct {
+	out      io.Writer
+	terminal bool
+	phase    string
+	last     time.Time
+	drawn    bool // a bar is on the terminal's current line
+}
+
+// NewProgress returns a Progress writing to out.
+func NewProgress(out io.Writer) *Progress {
+	return &Progress{out: out, terminal: isTerminal(out)}
+}
+
+// Update shows one progress message of the calibration stream.
+func (p *Progress) Update(m *stillskyv1.CalibrateResponse) {
+	if m.GetTotal() == 0 {
+		return
 	}
+	done, total := uint64(m.GetDone()), uint64(m.GetTotal())
+	pct := 100 * done / total
+	if p.terminal {
+		const width = 40
+		n := int(width * done / total)
+		fmt.Fprintf(p.out, "\rcalibrating [%s%s] %3d%% %-9s", strings.Repeat("#", n), strings.Repeat(".", width-n), pct, m.GetPhase())
+		p.drawn = true
+		return
+	}
+	if now := time.Now(); m.GetPhase() != p.phase || now.Sub(p.last) >= progressEvery {
+		fmt.Fprintf(p.out, "calibrating: %3d%% (%d of %d frames) %s\n", pct, done, total, m.GetPhase())
+		p.phase, p.last = m.GetPhase(), now
+	}
+}
+
+// End finishes the bar's line, if one was drawn.
+func (p *Progress) End() {
+	if p.drawn {
+		fmt.Fprintln(p.out)
+		p.drawn = false
+	}
+}
+
+// isTerminal reports whether w is a terminal.
+func isTerminal(w io.Writer) bool {
+	f, ok := w.(*os.File)
+	if !ok {
+		return false
+	}
+	_, err := unix.IoctlGetTermios(int(f.Fd()), unix.TCGETS)
+	return err == nil
 }
 
 func describeReconstructor(r *stillskyv1.ReconstructorInfo) string {

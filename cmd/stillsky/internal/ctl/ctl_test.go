@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"math"
+	"os"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -149,5 +150,32 @@ func TestControlRequests(t *testing.T) {
 	}
 	if out, err := run("status"); err != nil || !strings.Contains(out, "frames") {
 		t.Fatalf("ctl status: %v\n%s", err, out)
+	}
+}
+
+// Off a terminal (here a file, as a log would be), progress is a line at each
+// change of phase and at most one every few seconds in between: no carriage
+// returns, and a thousand updates of one phase make one line.
+func TestProgressOffTerminal(t *testing.T) {
+	f, err := os.Create(filepath.Join(t.TempDir(), "log"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	p := ctl.NewProgress(f)
+	for i := range 1000 {
+		p.Update(&stillskyv1.CalibrateResponse{Phase: "pokes", Done: uint32(i), Total: 1000})
+	}
+	p.Update(&stillskyv1.CalibrateResponse{Phase: "inverting", Done: 1000, Total: 1000})
+	p.Update(&stillskyv1.CalibrateResponse{Phase: "done", Done: 1000, Total: 1000})
+	p.End()
+	b, err := os.ReadFile(f.Name())
+	if err != nil {
+		t.Fatal(err)
+	}
+	lines := strings.Split(strings.TrimSuffix(string(b), "\n"), "\n")
+	if strings.Contains(string(b), "\r") || len(lines) != 3 ||
+		!strings.Contains(lines[0], "0%") || !strings.HasSuffix(lines[1], "inverting") || !strings.HasSuffix(lines[2], "done") {
+		t.Errorf("progress off a terminal:\n%q\nwant three lines (pokes from 0%%, inverting, done) and no carriage return", b)
 	}
 }

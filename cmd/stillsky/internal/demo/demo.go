@@ -11,7 +11,6 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
-	"math"
 	"time"
 
 	"gonum.org/v1/gonum/stat"
@@ -19,8 +18,8 @@ import (
 	"stillsky/cmd/stillsky/internal/ctl"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
-	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/rig"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
 )
@@ -40,14 +39,6 @@ type Config struct {
 	Out io.Writer
 	// Logger receives the log of the bench and the daemon; nil discards it.
 	Logger *slog.Logger
-}
-
-// Latency gives quantiles of a latency in microseconds.
-type Latency struct {
-	P50  float64 `json:"p50"`
-	P99  float64 `json:"p99"`
-	P999 float64 `json:"p999"`
-	Max  float64 `json:"max"`
 }
 
 // Spread is how a figure varies over the blocks of a run.
@@ -91,23 +82,32 @@ type Summary struct {
 	// StrehlOpenBlocks and StrehlClosedBlocks are the long-exposure Strehl ratios
 	// of each complete second of frames (frame rate frames) of the phase: one run
 	// of a few seconds varies by about their standard deviation.
-	StrehlOpenBlocks     Spread  `json:"strehl_open_blocks"`
-	StrehlClosedBlocks   Spread  `json:"strehl_closed_blocks"`
-	StrehlEstimateClosed float64 `json:"strehl_estimate_closed"`
-	ScienceWavelengthM   float64 `json:"science_wavelength_m"`
-	ResidualRMSNmOpen    float64 `json:"residual_rms_nm_open"`
-	ResidualRMSNmClosed  float64 `json:"residual_rms_nm_closed"`
-	RTCLatencyUs         Latency `json:"rtc_latency_us"`
-	EndToEndLatencyUs    Latency `json:"end_to_end_latency_us"`
-	FramesDropped        uint64  `json:"frames_dropped"`
-	FramesRejected       uint64  `json:"frames_rejected"`
-	InterlockTrips       uint64  `json:"interlock_trips"`
-	FinalLoopState       string  `json:"final_loop_state"`
-	Gain                 float64 `json:"gain"`
-	Lockstep             bool    `json:"lockstep"`
+	StrehlOpenBlocks     Spread        `json:"strehl_open_blocks"`
+	StrehlClosedBlocks   Spread        `json:"strehl_closed_blocks"`
+	StrehlEstimateClosed float64       `json:"strehl_estimate_closed"`
+	ScienceWavelengthM   float64       `json:"science_wavelength_m"`
+	ResidualRMSNmOpen    float64       `json:"residual_rms_nm_open"`
+	ResidualRMSNmClosed  float64       `json:"residual_rms_nm_closed"`
+	RTCLatencyUs         rig.Quantiles `json:"rtc_latency_us"`
+	EndToEndLatencyUs    rig.Quantiles `json:"end_to_end_latency_us"`
+	FramesDropped        uint64        `json:"frames_dropped"`
+	FramesRejected       uint64        `json:"frames_rejected"`
+	InterlockTrips       uint64        `json:"interlock_trips"`
+	FinalLoopState       string        `json:"final_loop_state"`
+	Gain                 float64       `json:"gain"`
+	Lockstep             bool          `json:"lockstep"`
+	// Interrupted says the run was stopped early (Ctrl-C): the frames are those
+	// run, and the figures are of those frames.
+	Interrupted bool `json:"interrupted,omitempty"`
 }
 
-// Run executes the demo and returns its summary.
+// ErrInterrupted is returned, with the summary of what ran, when the run's
+// context ends before the run does.
+var ErrInterrupted = errors.New("interrupted")
+
+// Run executes the demo and returns its summary. When ctx ends first (Ctrl-C),
+// it stops the bench and the loop, prints the summary of what ran and returns
+// it with ErrInterrupted.
 func Run(ctx context.Context, c Config) (*Summary, error) {
 	if c.Scenario == "" {
 		c.Scenario = scenario.Default
@@ -131,110 +131,101 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	if err != nil {
 		return nil, err
 	}
-	ctx, cancel := context.WithCancel(ctx)
-	defer cancel()
-
-	// One science image every 20 frames is plenty for a long exposure of
-	// thousands of frames, and keeps the camera's FFTs off the loop's CPU time.
-	b, err := bench.NewServer(scn, bench.Options{Lockstep: c.Lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")})
-	if err != nil {
-		return nil, err
-	}
-	bl, err := bench.Listen(bench.Addrs{Camera: "127.0.0.1:0", Mirror: "127.0.0.1:0", Metrics: "127.0.0.1:0"})
-	if err != nil {
-		return nil, err
-	}
-	benchDone := make(chan error, 1)
-	go func() { benchDone <- b.Serve(ctx, bl, b.RegisterLiveView) }()
-
-	d, err := daemon.New(daemon.Config{
-		CameraAddr:        bl.Camera.Addr().String(),
-		MirrorAddr:        bl.Mirror.Addr().String(),
-		ListenAddr:        "127.0.0.1:0",
-		MetricsAddr:       "127.0.0.1:0",
-		BenchURL:          "http://" + bl.Metrics.Addr().String(),
-		Gain:              c.Gain,
-		ScienceWavelength: scn.Science.Wavelength,
-		Logger:            c.Logger.With("process", "loop"),
+	// The rig runs until the end of the summary whatever ctx does: an
+	// interrupted run still reports the loop's figures.
+	r, err := rig.Start(context.Background(), rig.Config{
+		Scenario: scn,
+		// One science image every 20 frames is plenty for a long exposure of
+		// thousands of frames, and keeps the camera's FFTs off the loop's CPU time.
+		Bench:     bench.Options{Lockstep: c.Lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
+		Loop:      daemon.Config{Gain: c.Gain, Logger: c.Logger.With("process", "loop")},
+		BenchHTTP: true,
 	})
 	if err != nil {
 		return nil, err
 	}
-	loopDone := make(chan error, 1)
-	go func() { loopDone <- d.Run(ctx) }()
-
-	conn, err := rpc.Dial(d.ControlAddr())
-	if err != nil {
-		return nil, err
-	}
-	defer conn.Close()
-	client := stillskyv1.NewControlServiceClient(conn)
+	defer r.Close()
 	fmt.Fprintf(c.Out, "stillsky demo: scenario %q — %s\n", scn.Name, scn.Description)
 	fmt.Fprintf(c.Out, "bench camera %s, mirror %s; loop control %s, metrics http://%s/metrics, live view http://%s/\n",
-		bl.Camera.Addr(), bl.Mirror.Addr(), d.ControlAddr(), d.MetricsAddr(), d.MetricsAddr())
+		r.Devices.Camera, r.Devices.Mirror, r.ControlAddr, r.Loop.MetricsAddr(), r.Loop.MetricsAddr())
 
-	if err := waitConnected(ctx, client); err != nil {
+	sum := &Summary{Scenario: scn.Name, ScienceWavelengthM: scn.Science.Wavelength, Lockstep: c.Lockstep}
+	st, err := run(ctx, c, r, sum)
+	if err != nil && ctx.Err() != nil {
+		// Stopped from outside: the summary of what ran, from the loop as it is.
+		sum.Interrupted = true
+		st, _ = r.Status(context.Background())
+		err = ErrInterrupted
+	}
+	if st != nil {
+		sum.RTCLatencyUs = rig.QuantilesFrom(st.GetRtcLatency())
+		sum.EndToEndLatencyUs = rig.QuantilesFrom(st.GetEndToEndLatency())
+		sum.FramesDropped = st.GetFramesDropped()
+		sum.FramesRejected = st.GetFramesRejected()
+		sum.InterlockTrips = st.GetInterlockTrips()
+		sum.FinalLoopState = stateName(st.GetState())
+		sum.Gain = st.GetGain()
+	}
+	if cerr := r.Close(); err == nil {
+		err = cerr
+	}
+	if err != nil && !sum.Interrupted {
 		return nil, err
 	}
-	if err := ctl.Calibrate(ctx, client, &stillskyv1.CalibrateRequest{}, c.Out); err != nil {
+	writeTable(c.Out, sum)
+	return sum, err
+}
+
+// run connects, calibrates and runs the open and the closed phase, filling sum
+// as it goes; it returns the loop's status at the end of the closed phase.
+func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.GetStatusResponse, error) {
+	wait, cancel := context.WithTimeout(ctx, 30*time.Second)
+	_, err := r.WaitFrames(wait, 1)
+	cancel()
+	if err != nil {
+		return nil, fmt.Errorf("demo: the loop did not connect to the bench: %w", err)
+	}
+	if err := ctl.Calibrate(ctx, r.Client, &stillskyv1.CalibrateRequest{}, c.Out); err != nil {
 		return nil, fmt.Errorf("demo: calibration: %w", err)
 	}
 
-	sum := &Summary{Scenario: scn.Name, FramesOpen: c.FramesOpen, FramesClosed: c.FramesClosed,
-		ScienceWavelengthM: scn.Science.Wavelength, Lockstep: c.Lockstep}
+	b := r.Bench
 	fmt.Fprintf(c.Out, "open loop: %d frames\n", c.FramesOpen)
 	b.ResetStats()
-	if _, err := runPhase(ctx, client, b, c.FramesOpen, c.Out); err != nil {
+	n, _, err := runPhase(ctx, r.Client, b, c.FramesOpen, c.Out)
+	open := b.Stats()
+	sum.FramesOpen, sum.StrehlOpen, sum.ResidualRMSNmOpen = n, open.Strehl, open.ResidualRMS*1e9
+	sum.StrehlOpenBlocks = spread(open.BlockStrehl)
+	if err != nil {
 		return nil, err
 	}
-	open := b.Stats()
-	sum.StrehlOpen, sum.ResidualRMSNmOpen = open.Strehl, open.ResidualRMS*1e9
-	sum.StrehlOpenBlocks = spread(open.BlockStrehl)
 
-	if _, err := client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
+	if _, err := r.Client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
 		return nil, fmt.Errorf("demo: close loop: %w", err)
 	}
 	// Let the integrator converge before averaging: 50 frames is many time
 	// constants 1/g of the integrator at the usual gains.
 	settle := 50
 	fmt.Fprintf(c.Out, "closed loop: %d frames (after %d to converge)\n", c.FramesClosed, settle)
-	if _, err := runPhase(ctx, client, b, settle, io.Discard); err != nil {
+	if _, _, err := runPhase(ctx, r.Client, b, settle, io.Discard); err != nil {
 		return nil, err
 	}
 	b.ResetStats()
 	var estSum float64
 	var estN int
-	st, err := runPhase(ctx, client, b, c.FramesClosed, c.Out, func(s *stillskyv1.GetStatusResponse) {
+	n, st, err := runPhase(ctx, r.Client, b, c.FramesClosed, c.Out, func(s *stillskyv1.GetStatusResponse) {
 		if s.GetState() == stillskyv1.LoopState_LOOP_STATE_CLOSED {
 			estSum += s.GetStrehlEstimate()
 			estN++
 		}
 	})
-	if err != nil {
-		return nil, err
-	}
 	closed := b.Stats()
-	sum.StrehlClosed, sum.ResidualRMSNmClosed = closed.Strehl, closed.ResidualRMS*1e9
+	sum.FramesClosed, sum.StrehlClosed, sum.ResidualRMSNmClosed = n, closed.Strehl, closed.ResidualRMS*1e9
 	sum.StrehlClosedBlocks = spread(closed.BlockStrehl)
 	if estN > 0 {
 		sum.StrehlEstimateClosed = estSum / float64(estN)
 	}
-	sum.RTCLatencyUs = micro(st.GetRtcLatency())
-	sum.EndToEndLatencyUs = micro(st.GetEndToEndLatency())
-	sum.FramesDropped = st.GetFramesDropped()
-	sum.FramesRejected = st.GetFramesRejected()
-	sum.InterlockTrips = st.GetInterlockTrips()
-	sum.FinalLoopState = stateName(st.GetState())
-	sum.Gain = st.GetGain()
-
-	cancel()
-	for _, ch := range []chan error{benchDone, loopDone} {
-		if err := <-ch; err != nil && !errors.Is(err, context.Canceled) {
-			return sum, err
-		}
-	}
-	writeTable(c.Out, sum)
-	return sum, nil
+	return st, err
 }
 
 // WriteJSON writes the summary to path atomically.
@@ -249,40 +240,31 @@ func (s *Summary) WriteJSON(path string) error {
 	})
 }
 
-func waitConnected(ctx context.Context, c stillskyv1.ControlServiceClient) error {
-	deadline := time.Now().Add(30 * time.Second)
-	for time.Now().Before(deadline) {
-		s, err := c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
-		if err == nil && s.GetCameraConnected() && s.GetMirrorConnected() && s.GetFrames() > 0 {
-			return nil
-		}
-		select {
-		case <-ctx.Done():
-			return ctx.Err()
-		case <-time.After(20 * time.Millisecond):
-		}
-	}
-	return errors.New("demo: the loop did not connect to the bench within 30 s")
-}
-
 // runPhase waits for n more frames, printing a status line a second; each status
-// polled is also handed to observe.
-func runPhase(ctx context.Context, c stillskyv1.ControlServiceClient, b *bench.Server, n int, out io.Writer, observe ...func(*stillskyv1.GetStatusResponse)) (*stillskyv1.GetStatusResponse, error) {
+// polled is also handed to observe. It returns the frames run (all n unless ctx
+// ends first) and the last status.
+func runPhase(ctx context.Context, c stillskyv1.ControlServiceClient, b *bench.Server, n int, out io.Writer, observe ...func(*stillskyv1.GetStatusResponse)) (int, *stillskyv1.GetStatusResponse, error) {
 	s, err := c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
 	if err != nil {
-		return nil, err
+		return 0, nil, err
 	}
-	target := s.GetFrames() + uint64(n)
+	start := s.GetFrames()
+	target := start + uint64(n)
 	lastLine, lastFrames, lastT := time.Now(), s.GetFrames(), time.Now()
 	for s.GetFrames() < target {
 		select {
 		case <-ctx.Done():
-			return nil, ctx.Err()
+			return int(s.GetFrames() - start), s, ctx.Err()
 		case <-time.After(50 * time.Millisecond):
 		}
-		if s, err = c.GetStatus(ctx, &stillskyv1.GetStatusRequest{}); err != nil {
-			return nil, err
+		next, err := c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+		if err != nil {
+			if ctx.Err() != nil {
+				err = ctx.Err()
+			}
+			return int(s.GetFrames() - start), s, err
 		}
+		s = next
 		for _, f := range observe {
 			f(s)
 		}
@@ -300,12 +282,7 @@ func runPhase(ctx context.Context, c stillskyv1.ControlServiceClient, b *bench.S
 			lastLine, lastFrames, lastT = now, s.GetFrames(), now
 		}
 	}
-	return s, nil
-}
-
-func micro(l *stillskyv1.LatencySummary) Latency {
-	r := func(v float64) float64 { return math.Round(v*1e7) / 10 }
-	return Latency{P50: r(l.GetP50()), P99: r(l.GetP99()), P999: r(l.GetP999()), Max: r(l.GetMax())}
+	return n, s, nil
 }
 
 func stateName(s stillskyv1.LoopState) string {
@@ -325,7 +302,11 @@ func stateName(s stillskyv1.LoopState) string {
 }
 
 func writeTable(out io.Writer, s *Summary) {
-	fmt.Fprintf(out, "\nsummary (%s, science at %.3g µm)\n", s.Scenario, s.ScienceWavelengthM*1e6)
+	title := "summary"
+	if s.Interrupted {
+		title = "summary of the interrupted run"
+	}
+	fmt.Fprintf(out, "\n%s (%s, science at %.3g µm)\n", title, s.Scenario, s.ScienceWavelengthM*1e6)
 	fmt.Fprintf(out, "  %-28s %12s %12s\n", "", "open loop", "closed loop")
 	fmt.Fprintf(out, "  %-28s %12d %12d\n", "frames", s.FramesOpen, s.FramesClosed)
 	fmt.Fprintf(out, "  %-28s %12.3f %12.3f\n", "true Strehl (PSF)", s.StrehlOpen, s.StrehlClosed)

@@ -19,10 +19,8 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
-	"slices"
 	"time"
 
-	"stillsky/cmd/stillsky/internal/ctl"
 	"stillsky/controller/mvm"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
@@ -30,6 +28,7 @@ import (
 	"stillsky/internal/monoclock"
 	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/rig"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
 )
@@ -66,14 +65,6 @@ type Config struct {
 	Logger *slog.Logger
 }
 
-// Quantiles of a latency, microseconds.
-type Quantiles struct {
-	P50  float64 `json:"p50"`
-	P99  float64 `json:"p99"`
-	P999 float64 `json:"p999"`
-	Max  float64 `json:"max"`
-}
-
 // Result is one scenario on one transport.
 type Result struct {
 	Scenario  string  `json:"scenario"`
@@ -84,20 +75,20 @@ type Result struct {
 	// The set-up: readout time of a chunked frame, the multiply's threads (0:
 	// chosen by size) and storage, the simulator's CPUs and the loop's
 	// real-time thread (CPU −1: not pinned; FIFO 0: normal scheduling).
-	ReadoutUs       float64   `json:"readout_us"`
-	MVMWorkers      int       `json:"mvm_workers"`
-	BFloat16        bool      `json:"bfloat16"`
-	SimCPUs         string    `json:"sim_cpus"`
-	RTCPU           int       `json:"rt_cpu"`
-	RTFIFO          int       `json:"rt_fifo"`
-	Slopes          int       `json:"slopes"`
-	Actuators       int       `json:"actuators"`
-	TransitUs       Quantiles `json:"transit_us"`
-	ComputeUs       Quantiles `json:"compute_us"`
-	RTCUs           Quantiles `json:"rtc_us"`
-	EndToEndUs      Quantiles `json:"end_to_end_us"`
-	FloorUs         Quantiles `json:"floor_us"`
-	ArrivalJitterUs Quantiles `json:"arrival_jitter_us"`
+	ReadoutUs       float64       `json:"readout_us"`
+	MVMWorkers      int           `json:"mvm_workers"`
+	BFloat16        bool          `json:"bfloat16"`
+	SimCPUs         string        `json:"sim_cpus"`
+	RTCPU           int           `json:"rt_cpu"`
+	RTFIFO          int           `json:"rt_fifo"`
+	Slopes          int           `json:"slopes"`
+	Actuators       int           `json:"actuators"`
+	TransitUs       rig.Quantiles `json:"transit_us"`
+	ComputeUs       rig.Quantiles `json:"compute_us"`
+	RTCUs           rig.Quantiles `json:"rtc_us"`
+	EndToEndUs      rig.Quantiles `json:"end_to_end_us"`
+	FloorUs         rig.Quantiles `json:"floor_us"`
+	ArrivalJitterUs rig.Quantiles `json:"arrival_jitter_us"`
 	// MissedDeadlines counts commands whose end-to-end latency exceeded one frame period.
 	MissedDeadlines int `json:"missed_deadlines"`
 	// FramesDropped counts frames the loop never received (gaps in frame numbers).
@@ -110,11 +101,20 @@ type Result struct {
 	// gave to other guests during the measurement (/proc/stat), −1 when it
 	// cannot be read. On a shared virtual machine it sets the tails.
 	StealPercent float64 `json:"cpu_steal_percent"`
+	// Interrupted says the measurement was stopped early (Ctrl-C): the figures
+	// are of the frames recorded until then, and the floor was not measured.
+	Interrupted bool `json:"interrupted,omitempty"`
 }
+
+// ErrInterrupted is returned, with the results of what ran, when the run's
+// context ends before the run does.
+var ErrInterrupted = errors.New("interrupted")
 
 var benchGain = 0.2
 
-// Run measures every scenario on every transport.
+// Run measures every scenario on every transport. When ctx ends first (Ctrl-C),
+// it keeps what the interrupted measurement recorded, prints the table of what
+// ran and returns it with ErrInterrupted.
 func Run(ctx context.Context, c Config) ([]Result, error) {
 	if len(c.Scenarios) == 0 {
 		c.Scenarios = []string{scenario.Default}
@@ -142,7 +142,6 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 	if c.Logger == nil {
 		c.Logger = slog.New(slog.DiscardHandler)
 	}
-	rpc.ShareProcessWithSimulator()
 	var out []Result
 	for _, name := range c.Scenarios {
 		scn, err := scenario.Load(name)
@@ -155,133 +154,138 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 		for _, tr := range c.Transports {
 			fmt.Fprintf(c.Out, "%s over %s at %.0f Hz: calibrating, then %v closed loop\n", scn.Name, tr, scn.Loop.FrameRate, c.Duration)
 			r, err := runOne(ctx, c, scn, tr)
+			if r != nil {
+				out = append(out, *r)
+			}
+			if err != nil && ctx.Err() != nil {
+				WriteTable(c.Out, out)
+				return out, ErrInterrupted
+			}
 			if err != nil {
 				return nil, fmt.Errorf("latency: %s over %s: %w", scn.Name, tr, err)
 			}
-			out = append(out, *r)
 		}
 	}
 	WriteTable(c.Out, out)
 	return out, nil
 }
 
-// addrs returns the three addresses of one run on a transport.
-func addrs(transport, dir string) (camera, mirror, control string) {
-	if transport == "unix" {
-		return "unix:" + filepath.Join(dir, "camera.sock"), "unix:" + filepath.Join(dir, "mirror.sock"),
-			"unix:" + filepath.Join(dir, "control.sock")
-	}
-	return "127.0.0.1:0", "127.0.0.1:0", "127.0.0.1:0"
-}
-
+// runOne measures one scenario on one transport. It returns a result marked
+// Interrupted, with ctx's error, when ctx ends during the measurement.
 func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport string) (*Result, error) {
-	dir, err := os.MkdirTemp("", "stillsky-bench-")
-	if err != nil {
-		return nil, err
-	}
-	defer os.RemoveAll(dir)
-	camAddr, mirAddr, ctlAddr := addrs(transport, dir)
-
-	ctx, cancel := context.WithCancel(ctx)
-	defer cancel()
-	benchDone := make(chan error, 1)
-	var cameraAddr, mirrorAddr string
-	if c.SimulatorExecutable != "" {
-		cameraAddr, mirrorAddr, err = startSimulator(ctx, c, scn, transport, dir, benchDone)
-	} else {
-		cameraAddr, mirrorAddr, err = startInProcess(ctx, c, scn, camAddr, mirAddr, benchDone)
-	}
-	if err != nil {
-		return nil, err
-	}
-
+	// The parts run on a context of their own: an interrupted run still reads
+	// the loop's figures before stopping them.
+	simCtx, stopSim := context.WithCancel(context.Background())
+	defer stopSim()
 	period := 1 / scn.Loop.FrameRate
 	capacity := int(c.Duration.Seconds()*scn.Loop.FrameRate*1.5) + 1000
 	rec := daemon.NewRecorder(capacity)
-	d, err := daemon.New(daemon.Config{
-		CameraAddr: cameraAddr, MirrorAddr: mirrorAddr,
-		ListenAddr: ctlAddr, MetricsAddr: "-", Chunks: c.Chunks,
-		ScienceWavelength: scn.Science.Wavelength, Recorder: rec, Kernel: c.Kernel, Realtime: c.Realtime,
-		Logger: c.Logger.With("process", "loop"),
-		// The benchmark measures the timing of the closed loop, so the loop must
-		// stay closed through whatever the shared machine does to it: a low gain
-		// keeps it stable under late frames, and the interlocks only watch for
-		// gross failure.
-		Gain:       &benchGain,
-		Interlocks: daemon.Interlocks{DivergenceFactor: 1e6, SaturationFraction: 1, SaturationFrames: 1 << 30, StalePeriods: 1 << 20},
-	})
+	rc := rig.Config{
+		Scenario: scn,
+		Unix:     transport == "unix",
+		Bench:    bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50, ReadoutTime: c.ReadoutTime},
+		Loop: daemon.Config{
+			MetricsAddr: "-", Chunks: c.Chunks, Recorder: rec, Kernel: c.Kernel, Realtime: c.Realtime,
+			Logger: c.Logger.With("process", "loop"),
+			// The benchmark measures the timing of the closed loop, so the loop must
+			// stay closed through whatever the shared machine does to it: a low gain
+			// keeps it stable under late frames, and the interlocks only watch for
+			// gross failure.
+			Gain:       &benchGain,
+			Interlocks: daemon.Interlocks{DivergenceFactor: 1e6, SaturationFraction: 1, SaturationFrames: 1 << 30, StalePeriods: 1 << 20},
+		},
+	}
+	var simDone chan error
+	if c.SimulatorExecutable != "" {
+		dir, err := os.MkdirTemp("", "stillsky-latency-")
+		if err != nil {
+			return nil, err
+		}
+		defer os.RemoveAll(dir)
+		simDone = make(chan error, 1)
+		cam, mir, err := startSimulator(simCtx, c, scn, transport, dir, simDone)
+		if err != nil {
+			return nil, err
+		}
+		rc.Devices = &rig.Devices{Camera: cam, Mirror: mir}
+	}
+	r, err := rig.Start(simCtx, rc)
 	if err != nil {
 		return nil, err
 	}
-	loopDone := make(chan error, 1)
-	loopCtx, stopLoop := context.WithCancel(ctx)
-	defer stopLoop()
-	go func() { loopDone <- d.Run(loopCtx) }()
-	conn, err := rpc.Dial(addrString(ctlNetwork(transport), d.ControlAddr()))
+	defer r.Close()
+	wait, cancel := context.WithTimeout(ctx, 30*time.Second)
+	_, err = r.WaitFrames(wait, 10)
+	cancel()
 	if err != nil {
 		return nil, err
 	}
-	defer conn.Close()
-	client := stillskyv1.NewControlServiceClient(conn)
-	if err := waitFrames(ctx, client, 10); err != nil {
-		return nil, err
-	}
-	if err := ctl.Calibrate(ctx, client, &stillskyv1.CalibrateRequest{FramesPerPattern: 1}, io.Discard); err != nil {
+	if _, err := r.Calibrate(ctx, &stillskyv1.CalibrateRequest{FramesPerPattern: 1}, nil); err != nil {
 		return nil, fmt.Errorf("calibration: %w", err)
 	}
-	if _, err := client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
+	if _, err := r.Client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
 		return nil, err
 	}
-	time.Sleep(500 * time.Millisecond) // converge, warm caches
-	before, err := client.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+	if err := sleep(ctx, 500*time.Millisecond); err != nil { // converge, warm caches
+		return nil, err
+	}
+	before, err := r.Status(ctx)
 	if err != nil {
 		return nil, err
 	}
 	cpu0, errCPU0 := cpustat.Read("/proc/stat")
 	rec.Start()
-	select {
-	case <-ctx.Done():
-		return nil, ctx.Err()
-	case <-time.After(c.Duration):
-	}
+	interrupted := sleep(ctx, c.Duration) != nil
 	rec.Stop()
 	cpu1, errCPU1 := cpustat.Read("/proc/stat")
-	after, err := client.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+	after, err := r.Status(context.Background())
 	if err != nil {
 		return nil, err
 	}
-	if after.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED {
+	if !interrupted && after.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED {
 		return nil, fmt.Errorf("the loop left the closed state during the run (now %v, last interlock %q)", after.GetState(), after.GetLastInterlock())
 	}
 	// The loop stops; the bench runs on, its camera clock ticking and its
 	// simulation as busy as before, and the transport floor is measured against
 	// it: between the same two processes, over the same kind of connection.
-	stopLoop()
-	if err := <-loopDone; err != nil && !errors.Is(err, context.Canceled) {
+	if err := r.StopLoop(); err != nil {
 		return nil, err
 	}
 	s := rec.Samples()
 	if len(s.RTC) < 10 {
+		if interrupted {
+			return nil, ctx.Err()
+		}
 		return nil, fmt.Errorf("only %d frames recorded", len(s.RTC))
 	}
-	floor, err := measureFloor(ctx, cameraAddr, int(after.GetSlopeCount()), int(after.GetActuatorCount()),
-		time.Duration(period*float64(time.Second)), min(len(s.RTC), 20000))
-	if err != nil {
-		return nil, fmt.Errorf("transport floor: %w", err)
+	var floor []int64
+	if !interrupted {
+		floor, err = measureFloor(ctx, r.Devices.Camera, int(after.GetSlopeCount()), int(after.GetActuatorCount()),
+			time.Duration(period*float64(time.Second)), min(len(s.RTC), 20000))
+		if err != nil && ctx.Err() == nil {
+			return nil, fmt.Errorf("transport floor: %w", err)
+		}
+		interrupted = ctx.Err() != nil
 	}
-	cancel()
-	if err := <-benchDone; err != nil && !errors.Is(err, context.Canceled) {
+	if err := r.Close(); err != nil && !interrupted {
 		return nil, err
 	}
+	if simDone != nil {
+		stopSim()
+		if err := <-simDone; err != nil && !interrupted {
+			return nil, err
+		}
+	}
 
-	r := &Result{
+	res := &Result{
 		Scenario: scn.Name, Transport: transport, RateHz: scn.Loop.FrameRate, Frames: len(s.RTC), Chunks: c.Chunks,
 		ReadoutUs: float64(c.ReadoutTime.Microseconds()), MVMWorkers: c.Kernel.Workers, BFloat16: c.Kernel.Precision == mvm.BFloat16,
 		SimCPUs: c.SimulatorCPUs, RTCPU: rtCPU(c.Realtime), RTFIFO: c.Realtime.FIFOPriority,
 		Slopes: int(after.GetSlopeCount()), Actuators: int(after.GetActuatorCount()),
-		TransitUs: quantiles(s.Transit), ComputeUs: quantiles(s.Compute), RTCUs: quantiles(s.RTC), EndToEndUs: quantiles(s.EndToEnd),
-		FloorUs: quantiles(floor), FramesDropped: after.GetFramesDropped() - before.GetFramesDropped(),
+		TransitUs: rig.QuantilesOf(s.Transit), ComputeUs: rig.QuantilesOf(s.Compute), RTCUs: rig.QuantilesOf(s.RTC), EndToEndUs: rig.QuantilesOf(s.EndToEnd),
+		FloorUs: rig.QuantilesOf(floor), FramesDropped: after.GetFramesDropped() - before.GetFramesDropped(),
 		StealPercent: cpustat.StealPercent(cpu0, cpu1, errCPU0, errCPU1),
+		Interrupted:  interrupted,
 	}
 	jitter := make([]int64, 0, len(s.Arrival))
 	pns := int64(period * 1e9)
@@ -289,16 +293,31 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 		dt := s.Arrival[i] - s.Arrival[i-1]
 		jitter = append(jitter, max(dt-pns, pns-dt))
 	}
-	r.ArrivalJitterUs = quantiles(jitter)
+	res.ArrivalJitterUs = rig.QuantilesOf(jitter)
 	for _, e := range s.EndToEnd {
 		if e > pns {
-			r.MissedDeadlines++
+			res.MissedDeadlines++
 		}
 	}
-	if r.RTCUs.P99 > 0 {
-		r.MaxRateHz = math.Round(1e6 / r.RTCUs.P99)
+	if res.RTCUs.P99 > 0 {
+		res.MaxRateHz = math.Round(1e6 / res.RTCUs.P99)
 	}
-	return r, nil
+	if interrupted {
+		return res, ctx.Err()
+	}
+	return res, nil
+}
+
+// sleep waits for d, or returns ctx's error when it ends first.
+func sleep(ctx context.Context, d time.Duration) error {
+	t := time.NewTimer(d)
+	defer t.Stop()
+	select {
+	case <-ctx.Done():
+		return ctx.Err()
+	case <-t.C:
+		return nil
+	}
 }
 
 func rtCPU(r daemon.Realtime) int {
@@ -306,21 +325,6 @@ func rtCPU(r daemon.Realtime) int {
 		return r.CPU
 	}
 	return -1
-}
-
-// startInProcess serves the bench from this process, the loop's own.
-func startInProcess(ctx context.Context, c Config, scn *scenario.Scenario, camAddr, mirAddr string, done chan<- error) (string, string, error) {
-	b, err := bench.NewServer(scn, bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50, ReadoutTime: c.ReadoutTime})
-	if err != nil {
-		return "", "", err
-	}
-	bl, err := bench.Listen(bench.Addrs{Camera: camAddr, Mirror: mirAddr})
-	if err != nil {
-		return "", "", err
-	}
-	go func() { done <- b.Serve(ctx, bl) }()
-	return addrString(bl.Camera.Addr().Network(), bl.Camera.Addr().String()),
-		addrString(bl.Mirror.Addr().Network(), bl.Mirror.Addr().String()), nil
 }
 
 // startSimulator runs the bench as its own process (`stillsky sim`), as the
@@ -374,33 +378,6 @@ func freePort() (string, error) {
 	return l.Addr().String(), nil
 }
 
-// addrString turns a listener address back into one rpc.Dial accepts.
-func addrString(network, addr string) string {
-	if network == "unix" {
-		return "unix:" + addr
-	}
-	return addr
-}
-
-func ctlNetwork(transport string) string {
-	if transport == "unix" {
-		return "unix"
-	}
-	return "tcp"
-}
-
-func waitFrames(ctx context.Context, c stillskyv1.ControlServiceClient, n uint64) error {
-	deadline := time.Now().Add(30 * time.Second)
-	for time.Now().Before(deadline) {
-		s, err := c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
-		if err == nil && s.GetFrames() >= n && s.GetCameraConnected() && s.GetMirrorConnected() {
-			return nil
-		}
-		time.Sleep(20 * time.Millisecond)
-	}
-	return errors.New("the loop received no frames within 30 s")
-}
-
 // measureFloor runs count ping-pongs against the bench's transport probe at
 // addr, one per frame period, of a slope frame out and a command back, and
 // returns the round-trip times in nanoseconds.
@@ -441,18 +418,6 @@ func measureFloor(ctx context.Context, addr string, slopes, actuators int, perio
 	return rtt, nil
 }
 
-func quantiles(ns []int64) Quantiles {
-	if len(ns) == 0 {
-		return Quantiles{}
-	}
-	v := slices.Clone(ns)
-	slices.Sort(v)
-	q := func(p float64) float64 {
-		return math.Round(float64(v[int(p*float64(len(v)-1)+0.5)])/100) / 10
-	}
-	return Quantiles{P50: q(0.5), P99: q(0.99), P999: q(0.999), Max: math.Round(float64(v[len(v)-1])/100) / 10}
-}
-
 // WriteJSON writes the results as a JSON array, atomically.
 func WriteJSON(path string, rs []Result) error {
 	b, err := json.MarshalIndent(rs, "", "  ")
@@ -470,9 +435,15 @@ func WriteTable(w io.Writer, rs []Result) {
 	fmt.Fprintln(w, "\n| scenario | transport | rate | frames | camera→loop p50/p99 | compute p50/p99/p99.9/max | rtc p50/p99/p99.9/max | end-to-end p50/p99/p99.9/max | floor p50/p99 | arrival jitter p99 | missed | dropped | max rate | cpu steal |")
 	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
 	for _, r := range rs {
-		f := func(q Quantiles) string { return fmt.Sprintf("%.1f / %.1f / %.1f / %.1f", q.P50, q.P99, q.P999, q.Max) }
-		fmt.Fprintf(w, "| %s | %s | %.0f Hz | %d | %.1f / %.1f | %s | %s | %s | %.1f / %.1f | %.1f | %d | %d | %.0f Hz | %.1f %% |\n",
-			r.Scenario, r.Transport, r.RateHz, r.Frames, r.TransitUs.P50, r.TransitUs.P99, f(r.ComputeUs), f(r.RTCUs), f(r.EndToEndUs),
-			r.FloorUs.P50, r.FloorUs.P99, r.ArrivalJitterUs.P99, r.MissedDeadlines, r.FramesDropped, r.MaxRateHz, r.StealPercent)
+		f := func(q rig.Quantiles) string {
+			return fmt.Sprintf("%.1f / %.1f / %.1f / %.1f", q.P50, q.P99, q.P999, q.Max)
+		}
+		name, floor := r.Scenario, fmt.Sprintf("%.1f / %.1f", r.FloorUs.P50, r.FloorUs.P99)
+		if r.Interrupted {
+			name, floor = name+" (interrupted)", "not measured"
+		}
+		fmt.Fprintf(w, "| %s | %s | %.0f Hz | %d | %.1f / %.1f | %s | %s | %s | %s | %.1f | %d | %d | %.0f Hz | %.1f %% |\n",
+			name, r.Transport, r.RateHz, r.Frames, r.TransitUs.P50, r.TransitUs.P99, f(r.ComputeUs), f(r.RTCUs), f(r.EndToEndUs),
+			floor, r.ArrivalJitterUs.P99, r.MissedDeadlines, r.FramesDropped, r.MaxRateHz, r.StealPercent)
 	}
 }

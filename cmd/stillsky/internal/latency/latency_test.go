@@ -7,6 +7,8 @@ import (
 	"path/filepath"
 	"testing"
 	"time"
+
+	"stillsky/rig"
 )
 
 // A short run of the small scenario over a unix socket, with the bench in this
@@ -27,7 +29,7 @@ func TestRunReportsEveryFigure(t *testing.T) {
 	if r.Scenario != "small" || r.Transport != "unix" || r.RateHz != 500 || r.Frames < 100 {
 		t.Errorf("result %+v: want small over unix at 500 Hz with at least 100 frames", r)
 	}
-	for name, q := range map[string]Quantiles{"compute": r.ComputeUs, "rtc": r.RTCUs, "end-to-end": r.EndToEndUs, "floor": r.FloorUs} {
+	for name, q := range map[string]rig.Quantiles{"compute": r.ComputeUs, "rtc": r.RTCUs, "end-to-end": r.EndToEndUs, "floor": r.FloorUs} {
 		if !(q.P50 > 0 && q.P50 <= q.P99 && q.P99 <= q.P999 && q.P999 <= q.Max) {
 			t.Errorf("%s quantiles %+v: want 0 < p50 ≤ p99 ≤ p99.9 ≤ max", name, q)
 		}
