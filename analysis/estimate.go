@@ -324,3 +324,18 @@ func goldenMin(f func(float64) float64, a, b float64, steps int) float64 {
 	}
 	return (a + b) / 2
 }
+
+// SlopeNoise returns the rms (radians, per slope) of the white slope noise that
+// explains the noise variance of an estimate: Noise = σ²·mean diag(P Pᵀ) over the
+// modes used, with P the projection.
+func (e *Estimator) SlopeNoise(est TurbulenceEstimate) float64 {
+	modes := modesUpTo(e.use) - 1
+	s := 0.0
+	for i := range modes {
+		r := e.projection.RawRowView(i)
+		for _, v := range r {
+			s += v * v
+		}
+	}
+	return math.Sqrt(est.Noise / (s / float64(modes)))
+}

@@ -80,12 +80,7 @@ func OptimiseGains(spectra []Spectrum, l Loop, candidates []float64) (ModalGains
 		if len(s.Power) != nf || len(s.Freq) != nf {
 			return ModalGains{}, fmt.Errorf("analysis: spectrum %d has %d frequencies, want %d", i, len(s.Power), nf)
 		}
-		top := int(math.Ceil(float64(nf) * (1 - noisePlateau)))
-		n := 0.0
-		for _, p := range s.Power[top:] {
-			n += p
-		}
-		n /= float64(nf - top)
+		n := noiseLevel(s)
 		best, bestCost := 0, math.Inf(1)
 		for c := range candidates {
 			cost := n * l.FrameRate / 2 * ng[c]
@@ -101,4 +96,36 @@ func OptimiseGains(spectra []Spectrum, l Loop, candidates []float64) (ModalGains
 		out.Gains[i], out.Residual[i], out.Noise[i] = candidates[best], bestCost, n
 	}
 	return out, nil
+}
+
+// noiseLevel is the mean of the top quarter of a spectrum (noisePlateau).
+func noiseLevel(s Spectrum) float64 {
+	top := int(math.Ceil(float64(len(s.Power)) * (1 - noisePlateau)))
+	n := 0.0
+	for _, p := range s.Power[top:] {
+		n += p
+	}
+	return n / float64(len(s.Power)-top)
+}
+
+// ModalResidual returns the residual OptimiseGains predicts for one mode of
+// pseudo-open-loop spectrum s at l's gain (0 opens the mode).
+func ModalResidual(s Spectrum, l Loop) float64 {
+	n := noiseLevel(s)
+	df := s.Freq[1] - s.Freq[0]
+	cost := 0.0
+	if l.Gain > 0 {
+		cost = n * l.FrameRate / 2 * l.NoiseGain()
+	}
+	for k, p := range s.Power {
+		if p <= n {
+			continue
+		}
+		r := 1.0
+		if l.Gain > 0 {
+			r = l.RejectionPower(s.Freq[k])
+		}
+		cost += r * (p - n) * df
+	}
+	return cost
 }

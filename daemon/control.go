@@ -67,6 +67,11 @@ func (s *controlServer) SetLeak(_ context.Context, req *stillskyv1.SetLeakReques
 	return &stillskyv1.SetLeakResponse{Status: s.d.status()}, nil
 }
 
+// OptimiseModalGains implements the Control API.
+func (s *controlServer) OptimiseModalGains(ctx context.Context, req *stillskyv1.OptimiseModalGainsRequest) (*stillskyv1.OptimiseModalGainsResponse, error) {
+	return s.d.optimiseModalGains(ctx, req)
+}
+
 func (s *controlServer) SetModalGains(_ context.Context, req *stillskyv1.SetModalGainsRequest) (*stillskyv1.SetModalGainsResponse, error) {
 	if err := s.d.setModalGains(req.GetGains()); err != nil {
 		return nil, err

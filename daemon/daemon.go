@@ -60,6 +60,9 @@ type Config struct {
 	Security Security
 	// Logger receives the daemon's log; nil discards it.
 	Logger *slog.Logger
+	// AnalysisPeriod is the time between the loop's analyses of itself
+	// (turbulence estimate and error budget); 0 means 10 s, negative turns them off.
+	AnalysisPeriod time.Duration
 	// BenchURL is the HTTP base URL of the simulated bench, whose PSF the live view
 	// shows; "" for none.
 	BenchURL string
@@ -123,6 +126,9 @@ type Daemon struct {
 	// paramsMu guards gain and leak and serialises parameter installs.
 	paramsMu   sync.Mutex
 	gain, leak float64
+
+	// an is the loop's analysis of itself (analysis.go).
+	an analyser
 
 	// describes holds the devices' Describe answers, for the live view.
 	describes atomic.Pointer[describes]
@@ -217,6 +223,9 @@ func (d *Daemon) Run(ctx context.Context) error {
 	d.processSettings()
 	d.log.Info("loop daemon listening", "control", d.ControlAddr(), "metrics", d.MetricsAddr())
 	go d.devices(ctx)
+	if d.cfg.AnalysisPeriod >= 0 {
+		go d.analyse(ctx)
+	}
 
 	var err error
 	select {

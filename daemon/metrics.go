@@ -1,6 +1,8 @@
 package daemon
 
 import (
+	"math"
+
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/promauto"
 
@@ -46,6 +48,10 @@ type metrics struct {
 	tripDiv, tripSat, tripStale, tripMirror   prometheus.Counter
 	calibrationsOK, calibrationsFailed        prometheus.Counter
 	refused                                   *prometheus.CounterVec
+	// The loop's analysis of itself (analysis.go).
+	budget                             [len(budgetTerms)]prometheus.Gauge
+	budgetStrehl, r0, tau0, outerScale prometheus.Gauge
+	wind, slopeNoise                   prometheus.Gauge
 }
 
 func newMetrics() *metrics {
@@ -87,6 +93,23 @@ func newMetrics() *metrics {
 	m.saturated = gauge("stillsky_saturated_actuators", "Actuators at their stroke limit in the last command.")
 	m.actuators = gauge("stillsky_actuators", "Valid actuators driven.")
 	m.strokeUsed = gauge("stillsky_stroke_used_ratio", "Largest |command| over the stroke limit in the last command.")
+	budget := prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "stillsky_budget_residual_square_radians",
+		Help: "Predicted residual phase variance at the science wavelength by error-budget term, from the loop's own turbulence estimate and gain.",
+	}, []string{"term"})
+	m.reg.MustRegister(budget)
+	for i, t := range budgetTerms {
+		m.budget[i] = budget.WithLabelValues(t)
+	}
+	m.budgetStrehl = gauge("stillsky_budget_strehl_ratio", "Maréchal Strehl ratio of the predicted total residual at the science wavelength.")
+	m.r0 = gauge("stillsky_estimated_r0_meters", "Fried parameter at 500 nm towards the zenith, estimated from pseudo-open-loop slopes.")
+	m.tau0 = gauge("stillsky_estimated_tau0_seconds", "Coherence time at 500 nm, 0.314 r0 / wind, estimated from pseudo-open-loop slopes.")
+	m.outerScale = gauge("stillsky_estimated_outer_scale_meters", "Outer scale L0 best fitting the pseudo-open-loop modal variances.")
+	m.wind = gauge("stillsky_estimated_wind_speed_meters_per_second", "Speed of the frozen-flow layer best fitting the pseudo-open-loop temporal correlations.")
+	m.slopeNoise = gauge("stillsky_estimated_slope_noise_radians", "Rms white noise per slope estimated from the pseudo-open-loop temporal correlations.")
+	for _, g := range append(m.budget[:], m.budgetStrehl, m.r0, m.tau0, m.outerScale, m.wind, m.slopeNoise) {
+		g.Set(math.NaN()) // unknown until the first analysis
+	}
 	m.gain = gauge("stillsky_loop_gain", "Integrator gain.")
 	m.leak = gauge("stillsky_loop_leak", "Integrator leak.")
 

@@ -180,6 +180,7 @@ func (rt *realtime) delivered(f *stillskyv1.StreamFramesResponse, received, comp
 	}
 	rt.publish(res)
 	u.telemetry.record(f.GetFrameNumber(), rt.state, rt.slopes, rt.cmd, res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated, float64(sent-received)*1e-9)
+	rt.offer(f)
 }
 
 // reject counts a refused frame.

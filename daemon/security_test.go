@@ -258,6 +258,10 @@ func TestControlAuthentication(t *testing.T) {
 			_, err := c.SetModalGains(ctx, &stillskyv1.SetModalGainsRequest{Gains: []float64{1}})
 			return err
 		},
+		"OptimiseModalGains": func(c stillskyv1.ControlServiceClient) error {
+			_, err := c.OptimiseModalGains(ctx, &stillskyv1.OptimiseModalGainsRequest{})
+			return err
+		},
 		"Calibrate": func(c stillskyv1.ControlServiceClient) error {
 			s, err := c.Calibrate(ctx, &stillskyv1.CalibrateRequest{})
 			if err != nil {

@@ -292,7 +292,22 @@ func wavefront() *dashboard.DashboardBuilder {
 			WithTarget(target(rate("stillsky_bench_commands_total"), "commands {{instance}}"))).
 		WithPanel(series(id, "Frame period: loop and bench", "Frame period the loop learned from the camera and the one the bench runs at.", units.Seconds, 12, 8).
 			WithTarget(target(q("stillsky_frame_period_seconds"), "loop {{instance}}")).
-			WithTarget(target(q("stillsky_bench_frame_period_seconds"), "bench {{instance}}")))
+			WithTarget(target(q("stillsky_bench_frame_period_seconds"), "bench {{instance}}"))).
+		WithPanel(series(id, "Error budget by term", "Residual phase variance at the science wavelength that the loop predicts for each term (fitting, aliasing, servo lag, noise) and in total, from its own turbulence estimate and gain, in rad².", units.Short, 12, 8).
+			WithTarget(target(q("stillsky_budget_residual_square_radians"), "{{term}} {{instance}}"))).
+		WithPanel(series(id, "Strehl ratio: budget, estimate and bench truth", "Maréchal Strehl of the predicted total beside the loop's slope-based estimate and the bench's true Strehl (where the bench is scraped).", units.PercentUnit, 12, 8).
+			Min(0).Max(1).
+			WithTarget(target(q("stillsky_budget_strehl_ratio"), "budget {{instance}}")).
+			WithTarget(target(q("stillsky_strehl_estimate_ratio"), "estimate {{instance}}")).
+			WithTarget(target(q("stillsky_bench_strehl_ratio"), "bench true {{instance}}"))).
+		WithPanel(series(id, "Estimated r0 and outer scale", "Fried parameter (500 nm, zenith) and outer scale fitted to the pseudo-open-loop modal variances, in metres.", "m", 8, 8).
+			WithTarget(target(q("stillsky_estimated_r0_meters"), "r0 {{instance}}")).
+			WithTarget(target(q("stillsky_estimated_outer_scale_meters"), "L0 {{instance}}"))).
+		WithPanel(series(id, "Estimated coherence time", "τ0 at 500 nm, 0.314 r0 over the wind speed fitted to the pseudo-open-loop temporal correlations.", units.Seconds, 8, 8).
+			WithTarget(target(q("stillsky_estimated_tau0_seconds"), "τ0 {{instance}}"))).
+		WithPanel(series(id, "Estimated wind speed and slope noise", "Speed of the single frozen-flow layer that fits best (m/s) and the rms white noise per slope (rad) found in the same data.", units.Short, 8, 8).
+			WithTarget(target(q("stillsky_estimated_wind_speed_meters_per_second"), "wind m/s {{instance}}")).
+			WithTarget(target(q("stillsky_estimated_slope_noise_radians"), "slope noise rad {{instance}}")))
 }
 
 func mirror() *dashboard.DashboardBuilder {

@@ -40,6 +40,13 @@ var KnownMetrics = []Metric{
 	{Name: "stillsky_interlock_trips_total", Type: "counter", Labels: []string{"reason"}, Exporter: "loop"},
 	{Name: "stillsky_control_requests_refused_total", Type: "counter", Labels: []string{"method", "code"}, Exporter: "loop"},
 	{Name: "stillsky_calibrations_total", Type: "counter", Labels: []string{"result"}, Exporter: "loop"},
+	{Name: "stillsky_budget_residual_square_radians", Type: "gauge", Labels: []string{"term"}, Exporter: "loop"},
+	{Name: "stillsky_budget_strehl_ratio", Type: "gauge", Exporter: "loop"},
+	{Name: "stillsky_estimated_r0_meters", Type: "gauge", Exporter: "loop"},
+	{Name: "stillsky_estimated_tau0_seconds", Type: "gauge", Exporter: "loop"},
+	{Name: "stillsky_estimated_outer_scale_meters", Type: "gauge", Exporter: "loop"},
+	{Name: "stillsky_estimated_wind_speed_meters_per_second", Type: "gauge", Exporter: "loop"},
+	{Name: "stillsky_estimated_slope_noise_radians", Type: "gauge", Exporter: "loop"},
 
 	{Name: "stillsky_build_info", Type: "gauge", Labels: []string{"version", "goversion"}, Exporter: "bench"},
 	{Name: "stillsky_bench_frames_total", Type: "counter", Exporter: "bench"},

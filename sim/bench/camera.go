@@ -78,6 +78,8 @@ func (b *Server) Describe(context.Context, *stillskyv1.CameraServiceDescribeRequ
 		Lockstep:          b.opt.Lockstep,
 		DelayFrames:       uint32(b.opt.DelayFrames),
 		Description:       b.scn.Name + ": " + b.scn.Description,
+		ZenithDeg:         b.scn.Atmosphere.ZenithDeg,
+		Obstruction:       b.scn.Telescope.Obstruction,
 	}, nil
 }
 

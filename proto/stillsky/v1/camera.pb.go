@@ -226,7 +226,12 @@ type CameraServiceDescribeResponse struct {
 	// Loop delay in frames that the device models (lockstep mode).
 	DelayFrames uint32 `protobuf:"varint,10,opt,name=delay_frames,json=delayFrames,proto3" json:"delay_frames,omitempty"`
 	// A free-form description of the device or scenario.
-	Description   string `protobuf:"bytes,11,opt,name=description,proto3" json:"description,omitempty"`
+	Description string `protobuf:"bytes,11,opt,name=description,proto3" json:"description,omitempty"`
+	// Zenith angle of the line of sight, degrees, as the telescope reports it (0 when
+	// unknown): the loop's r0 estimate is scaled to the zenith with it.
+	ZenithDeg float64 `protobuf:"fixed64,12,opt,name=zenith_deg,json=zenithDeg,proto3" json:"zenith_deg,omitempty"`
+	// Central obstruction of the pupil as a fraction of its diameter (0 for none).
+	Obstruction   float64 `protobuf:"fixed64,13,opt,name=obstruction,proto3" json:"obstruction,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -336,6 +341,20 @@ func (x *CameraServiceDescribeResponse) GetDescription() string {
 		return x.Description
 	}
 	return ""
+}
+
+func (x *CameraServiceDescribeResponse) GetZenithDeg() float64 {
+	if x != nil {
+		return x.ZenithDeg
+	}
+	return 0
+}
+
+func (x *CameraServiceDescribeResponse) GetObstruction() float64 {
+	if x != nil {
+		return x.Obstruction
+	}
+	return 0
 }
 
 // StreamFramesRequest asks for the frame stream.
@@ -485,7 +504,7 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"@\n" +
 	"\x11SetSourceResponse\x12+\n" +
 	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"\x1e\n" +
-	"\x1cCameraServiceDescribeRequest\"\xb2\x03\n" +
+	"\x1cCameraServiceDescribeRequest\"\xf3\x03\n" +
 	"\x1dCameraServiceDescribeResponse\x12\"\n" +
 	"\fsubapertures\x18\x01 \x01(\rR\fsubapertures\x12-\n" +
 	"\x12valid_subapertures\x18\x02 \x03(\rR\x11validSubapertures\x12\x1f\n" +
@@ -500,7 +519,10 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\blockstep\x18\t \x01(\bR\blockstep\x12!\n" +
 	"\fdelay_frames\x18\n" +
 	" \x01(\rR\vdelayFrames\x12 \n" +
-	"\vdescription\x18\v \x01(\tR\vdescription\"-\n" +
+	"\vdescription\x18\v \x01(\tR\vdescription\x12\x1d\n" +
+	"\n" +
+	"zenith_deg\x18\f \x01(\x01R\tzenithDeg\x12 \n" +
+	"\vobstruction\x18\r \x01(\x01R\vobstruction\"-\n" +
 	"\x13StreamFramesRequest\x12\x16\n" +
 	"\x06chunks\x18\x01 \x01(\rR\x06chunks\"\xd1\x01\n" +
 	"\x14StreamFramesResponse\x12!\n" +

@@ -1523,6 +1523,134 @@ func (x *StreamTelemetryResponse) GetRtcLatencyS() float64 {
 	return 0
 }
 
+// OptimiseModalGainsRequest chooses how many frames to study.
+type OptimiseModalGainsRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Consecutive frames to record (0: 4096).
+	Frames uint32 `protobuf:"varint,1,opt,name=frames,proto3" json:"frames,omitempty"`
+	// Compute and return the gains without applying them.
+	DryRun        bool `protobuf:"varint,2,opt,name=dry_run,json=dryRun,proto3" json:"dry_run,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *OptimiseModalGainsRequest) Reset() {
+	*x = OptimiseModalGainsRequest{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[24]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *OptimiseModalGainsRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*OptimiseModalGainsRequest) ProtoMessage() {}
+
+func (x *OptimiseModalGainsRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[24]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use OptimiseModalGainsRequest.ProtoReflect.Descriptor instead.
+func (*OptimiseModalGainsRequest) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{24}
+}
+
+func (x *OptimiseModalGainsRequest) GetFrames() uint32 {
+	if x != nil {
+		return x.Frames
+	}
+	return 0
+}
+
+func (x *OptimiseModalGainsRequest) GetDryRun() bool {
+	if x != nil {
+		return x.DryRun
+	}
+	return false
+}
+
+// OptimiseModalGainsResponse returns the gains found.
+type OptimiseModalGainsResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Gain multipliers per mode, relative to the loop gain (as SetModalGains takes them).
+	Gains []float64 `protobuf:"fixed64,1,rep,packed,name=gains,proto3" json:"gains,omitempty"`
+	// Predicted residual summed over the modes, in squared modal coefficients (m² of
+	// mirror command), with the gains in use and with the optimised gains.
+	PredictedResidualBefore float64 `protobuf:"fixed64,2,opt,name=predicted_residual_before,json=predictedResidualBefore,proto3" json:"predicted_residual_before,omitempty"`
+	PredictedResidualAfter  float64 `protobuf:"fixed64,3,opt,name=predicted_residual_after,json=predictedResidualAfter,proto3" json:"predicted_residual_after,omitempty"`
+	// The status after the change.
+	Status        *GetStatusResponse `protobuf:"bytes,4,opt,name=status,proto3" json:"status,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *OptimiseModalGainsResponse) Reset() {
+	*x = OptimiseModalGainsResponse{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[25]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *OptimiseModalGainsResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*OptimiseModalGainsResponse) ProtoMessage() {}
+
+func (x *OptimiseModalGainsResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[25]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use OptimiseModalGainsResponse.ProtoReflect.Descriptor instead.
+func (*OptimiseModalGainsResponse) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{25}
+}
+
+func (x *OptimiseModalGainsResponse) GetGains() []float64 {
+	if x != nil {
+		return x.Gains
+	}
+	return nil
+}
+
+func (x *OptimiseModalGainsResponse) GetPredictedResidualBefore() float64 {
+	if x != nil {
+		return x.PredictedResidualBefore
+	}
+	return 0
+}
+
+func (x *OptimiseModalGainsResponse) GetPredictedResidualAfter() float64 {
+	if x != nil {
+		return x.PredictedResidualAfter
+	}
+	return 0
+}
+
+func (x *OptimiseModalGainsResponse) GetStatus() *GetStatusResponse {
+	if x != nil {
+		return x.Status
+	}
+	return nil
+}
+
 var File_stillsky_v1_control_proto protoreflect.FileDescriptor
 
 const file_stillsky_v1_control_proto_rawDesc = "" +
@@ -1627,14 +1755,22 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x18residual_wavefront_rms_m\x18\x06 \x01(\x01R\x15residualWavefrontRmsM\x12'\n" +
 	"\x0fstrehl_estimate\x18\a \x01(\x01R\x0estrehlEstimate\x12/\n" +
 	"\x13saturated_actuators\x18\b \x01(\rR\x12saturatedActuators\x12\"\n" +
-	"\rrtc_latency_s\x18\t \x01(\x01R\vrtcLatencyS*\x9c\x01\n" +
+	"\rrtc_latency_s\x18\t \x01(\x01R\vrtcLatencyS\"L\n" +
+	"\x19OptimiseModalGainsRequest\x12\x16\n" +
+	"\x06frames\x18\x01 \x01(\rR\x06frames\x12\x17\n" +
+	"\adry_run\x18\x02 \x01(\bR\x06dryRun\"\xe0\x01\n" +
+	"\x1aOptimiseModalGainsResponse\x12\x14\n" +
+	"\x05gains\x18\x01 \x03(\x01R\x05gains\x12:\n" +
+	"\x19predicted_residual_before\x18\x02 \x01(\x01R\x17predictedResidualBefore\x128\n" +
+	"\x18predicted_residual_after\x18\x03 \x01(\x01R\x16predictedResidualAfter\x126\n" +
+	"\x06status\x18\x04 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status*\x9c\x01\n" +
 	"\tLoopState\x12\x1a\n" +
 	"\x16LOOP_STATE_UNSPECIFIED\x10\x00\x12\x13\n" +
 	"\x0fLOOP_STATE_OPEN\x10\x01\x12\x15\n" +
 	"\x11LOOP_STATE_CLOSED\x10\x02\x12\x13\n" +
 	"\x0fLOOP_STATE_HOLD\x10\x03\x12\x1a\n" +
 	"\x16LOOP_STATE_CALIBRATING\x10\x04\x12\x16\n" +
-	"\x12LOOP_STATE_TRIPPED\x10\x052\x98\a\n" +
+	"\x12LOOP_STATE_TRIPPED\x10\x052\xff\a\n" +
 	"\x0eControlService\x12J\n" +
 	"\tGetStatus\x12\x1d.stillsky.v1.GetStatusRequest\x1a\x1e.stillsky.v1.GetStatusResponse\x12G\n" +
 	"\bOpenLoop\x12\x1c.stillsky.v1.OpenLoopRequest\x1a\x1d.stillsky.v1.OpenLoopResponse\x12J\n" +
@@ -1646,7 +1782,8 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\tCalibrate\x12\x1d.stillsky.v1.CalibrateRequest\x1a\x1e.stillsky.v1.CalibrateResponse0\x01\x12d\n" +
 	"\x11SaveReconstructor\x12%.stillsky.v1.SaveReconstructorRequest\x1a&.stillsky.v1.SaveReconstructorResponse0\x01\x12d\n" +
 	"\x11LoadReconstructor\x12%.stillsky.v1.LoadReconstructorRequest\x1a&.stillsky.v1.LoadReconstructorResponse(\x01\x12^\n" +
-	"\x0fStreamTelemetry\x12#.stillsky.v1.StreamTelemetryRequest\x1a$.stillsky.v1.StreamTelemetryResponse0\x01B'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
+	"\x0fStreamTelemetry\x12#.stillsky.v1.StreamTelemetryRequest\x1a$.stillsky.v1.StreamTelemetryResponse0\x01\x12e\n" +
+	"\x12OptimiseModalGains\x12&.stillsky.v1.OptimiseModalGainsRequest\x1a'.stillsky.v1.OptimiseModalGainsResponseB'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
 
 var (
 	file_stillsky_v1_control_proto_rawDescOnce sync.Once
@@ -1661,33 +1798,35 @@ func file_stillsky_v1_control_proto_rawDescGZIP() []byte {
 }
 
 var file_stillsky_v1_control_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
-var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 24)
+var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 26)
 var file_stillsky_v1_control_proto_goTypes = []any{
-	(LoopState)(0),                    // 0: stillsky.v1.LoopState
-	(*GetStatusRequest)(nil),          // 1: stillsky.v1.GetStatusRequest
-	(*GetStatusResponse)(nil),         // 2: stillsky.v1.GetStatusResponse
-	(*LatencySummary)(nil),            // 3: stillsky.v1.LatencySummary
-	(*ReconstructorInfo)(nil),         // 4: stillsky.v1.ReconstructorInfo
-	(*OpenLoopRequest)(nil),           // 5: stillsky.v1.OpenLoopRequest
-	(*OpenLoopResponse)(nil),          // 6: stillsky.v1.OpenLoopResponse
-	(*CloseLoopRequest)(nil),          // 7: stillsky.v1.CloseLoopRequest
-	(*CloseLoopResponse)(nil),         // 8: stillsky.v1.CloseLoopResponse
-	(*HoldLoopRequest)(nil),           // 9: stillsky.v1.HoldLoopRequest
-	(*HoldLoopResponse)(nil),          // 10: stillsky.v1.HoldLoopResponse
-	(*SetGainRequest)(nil),            // 11: stillsky.v1.SetGainRequest
-	(*SetGainResponse)(nil),           // 12: stillsky.v1.SetGainResponse
-	(*SetLeakRequest)(nil),            // 13: stillsky.v1.SetLeakRequest
-	(*SetLeakResponse)(nil),           // 14: stillsky.v1.SetLeakResponse
-	(*SetModalGainsRequest)(nil),      // 15: stillsky.v1.SetModalGainsRequest
-	(*SetModalGainsResponse)(nil),     // 16: stillsky.v1.SetModalGainsResponse
-	(*CalibrateRequest)(nil),          // 17: stillsky.v1.CalibrateRequest
-	(*CalibrateResponse)(nil),         // 18: stillsky.v1.CalibrateResponse
-	(*SaveReconstructorRequest)(nil),  // 19: stillsky.v1.SaveReconstructorRequest
-	(*SaveReconstructorResponse)(nil), // 20: stillsky.v1.SaveReconstructorResponse
-	(*LoadReconstructorRequest)(nil),  // 21: stillsky.v1.LoadReconstructorRequest
-	(*LoadReconstructorResponse)(nil), // 22: stillsky.v1.LoadReconstructorResponse
-	(*StreamTelemetryRequest)(nil),    // 23: stillsky.v1.StreamTelemetryRequest
-	(*StreamTelemetryResponse)(nil),   // 24: stillsky.v1.StreamTelemetryResponse
+	(LoopState)(0),                     // 0: stillsky.v1.LoopState
+	(*GetStatusRequest)(nil),           // 1: stillsky.v1.GetStatusRequest
+	(*GetStatusResponse)(nil),          // 2: stillsky.v1.GetStatusResponse
+	(*LatencySummary)(nil),             // 3: stillsky.v1.LatencySummary
+	(*ReconstructorInfo)(nil),          // 4: stillsky.v1.ReconstructorInfo
+	(*OpenLoopRequest)(nil),            // 5: stillsky.v1.OpenLoopRequest
+	(*OpenLoopResponse)(nil),           // 6: stillsky.v1.OpenLoopResponse
+	(*CloseLoopRequest)(nil),           // 7: stillsky.v1.CloseLoopRequest
+	(*CloseLoopResponse)(nil),          // 8: stillsky.v1.CloseLoopResponse
+	(*HoldLoopRequest)(nil),            // 9: stillsky.v1.HoldLoopRequest
+	(*HoldLoopResponse)(nil),           // 10: stillsky.v1.HoldLoopResponse
+	(*SetGainRequest)(nil),             // 11: stillsky.v1.SetGainRequest
+	(*SetGainResponse)(nil),            // 12: stillsky.v1.SetGainResponse
+	(*SetLeakRequest)(nil),             // 13: stillsky.v1.SetLeakRequest
+	(*SetLeakResponse)(nil),            // 14: stillsky.v1.SetLeakResponse
+	(*SetModalGainsRequest)(nil),       // 15: stillsky.v1.SetModalGainsRequest
+	(*SetModalGainsResponse)(nil),      // 16: stillsky.v1.SetModalGainsResponse
+	(*CalibrateRequest)(nil),           // 17: stillsky.v1.CalibrateRequest
+	(*CalibrateResponse)(nil),          // 18: stillsky.v1.CalibrateResponse
+	(*SaveReconstructorRequest)(nil),   // 19: stillsky.v1.SaveReconstructorRequest
+	(*SaveReconstructorResponse)(nil),  // 20: stillsky.v1.SaveReconstructorResponse
+	(*LoadReconstructorRequest)(nil),   // 21: stillsky.v1.LoadReconstructorRequest
+	(*LoadReconstructorResponse)(nil),  // 22: stillsky.v1.LoadReconstructorResponse
+	(*StreamTelemetryRequest)(nil),     // 23: stillsky.v1.StreamTelemetryRequest
+	(*StreamTelemetryResponse)(nil),    // 24: stillsky.v1.StreamTelemetryResponse
+	(*OptimiseModalGainsRequest)(nil),  // 25: stillsky.v1.OptimiseModalGainsRequest
+	(*OptimiseModalGainsResponse)(nil), // 26: stillsky.v1.OptimiseModalGainsResponse
 }
 var file_stillsky_v1_control_proto_depIdxs = []int32{
 	0,  // 0: stillsky.v1.GetStatusResponse.state:type_name -> stillsky.v1.LoopState
@@ -1703,33 +1842,36 @@ var file_stillsky_v1_control_proto_depIdxs = []int32{
 	4,  // 10: stillsky.v1.CalibrateResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
 	4,  // 11: stillsky.v1.LoadReconstructorResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
 	0,  // 12: stillsky.v1.StreamTelemetryResponse.state:type_name -> stillsky.v1.LoopState
-	1,  // 13: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
-	5,  // 14: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
-	7,  // 15: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
-	9,  // 16: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
-	11, // 17: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
-	13, // 18: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
-	15, // 19: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
-	17, // 20: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
-	19, // 21: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
-	21, // 22: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
-	23, // 23: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
-	2,  // 24: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
-	6,  // 25: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
-	8,  // 26: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
-	10, // 27: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
-	12, // 28: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
-	14, // 29: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
-	16, // 30: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
-	18, // 31: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
-	20, // 32: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
-	22, // 33: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
-	24, // 34: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
-	24, // [24:35] is the sub-list for method output_type
-	13, // [13:24] is the sub-list for method input_type
-	13, // [13:13] is the sub-list for extension type_name
-	13, // [13:13] is the sub-list for extension extendee
-	0,  // [0:13] is the sub-list for field type_name
+	2,  // 13: stillsky.v1.OptimiseModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	1,  // 14: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
+	5,  // 15: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
+	7,  // 16: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
+	9,  // 17: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
+	11, // 18: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
+	13, // 19: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
+	15, // 20: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
+	17, // 21: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
+	19, // 22: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
+	21, // 23: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
+	23, // 24: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
+	25, // 25: stillsky.v1.ControlService.OptimiseModalGains:input_type -> stillsky.v1.OptimiseModalGainsRequest
+	2,  // 26: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
+	6,  // 27: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
+	8,  // 28: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
+	10, // 29: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
+	12, // 30: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
+	14, // 31: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
+	16, // 32: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
+	18, // 33: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
+	20, // 34: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
+	22, // 35: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
+	24, // 36: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
+	26, // 37: stillsky.v1.ControlService.OptimiseModalGains:output_type -> stillsky.v1.OptimiseModalGainsResponse
+	26, // [26:38] is the sub-list for method output_type
+	14, // [14:26] is the sub-list for method input_type
+	14, // [14:14] is the sub-list for extension type_name
+	14, // [14:14] is the sub-list for extension extendee
+	0,  // [0:14] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_control_proto_init() }
@@ -1743,7 +1885,7 @@ func file_stillsky_v1_control_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_control_proto_rawDesc), len(file_stillsky_v1_control_proto_rawDesc)),
 			NumEnums:      1,
-			NumMessages:   24,
+			NumMessages:   26,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -19,17 +19,18 @@ import (
 const _ = grpc.SupportPackageIsVersion9
 
 const (
-	ControlService_GetStatus_FullMethodName         = "/stillsky.v1.ControlService/GetStatus"
-	ControlService_OpenLoop_FullMethodName          = "/stillsky.v1.ControlService/OpenLoop"
-	ControlService_CloseLoop_FullMethodName         = "/stillsky.v1.ControlService/CloseLoop"
-	ControlService_HoldLoop_FullMethodName          = "/stillsky.v1.ControlService/HoldLoop"
-	ControlService_SetGain_FullMethodName           = "/stillsky.v1.ControlService/SetGain"
-	ControlService_SetLeak_FullMethodName           = "/stillsky.v1.ControlService/SetLeak"
-	ControlService_SetModalGains_FullMethodName     = "/stillsky.v1.ControlService/SetModalGains"
-	ControlService_Calibrate_FullMethodName         = "/stillsky.v1.ControlService/Calibrate"
-	ControlService_SaveReconstructor_FullMethodName = "/stillsky.v1.ControlService/SaveReconstructor"
-	ControlService_LoadReconstructor_FullMethodName = "/stillsky.v1.ControlService/LoadReconstructor"
-	ControlService_StreamTelemetry_FullMethodName   = "/stillsky.v1.ControlService/StreamTelemetry"
+	ControlService_GetStatus_FullMethodName          = "/stillsky.v1.ControlService/GetStatus"
+	ControlService_OpenLoop_FullMethodName           = "/stillsky.v1.ControlService/OpenLoop"
+	ControlService_CloseLoop_FullMethodName          = "/stillsky.v1.ControlService/CloseLoop"
+	ControlService_HoldLoop_FullMethodName           = "/stillsky.v1.ControlService/HoldLoop"
+	ControlService_SetGain_FullMethodName            = "/stillsky.v1.ControlService/SetGain"
+	ControlService_SetLeak_FullMethodName            = "/stillsky.v1.ControlService/SetLeak"
+	ControlService_SetModalGains_FullMethodName      = "/stillsky.v1.ControlService/SetModalGains"
+	ControlService_Calibrate_FullMethodName          = "/stillsky.v1.ControlService/Calibrate"
+	ControlService_SaveReconstructor_FullMethodName  = "/stillsky.v1.ControlService/SaveReconstructor"
+	ControlService_LoadReconstructor_FullMethodName  = "/stillsky.v1.ControlService/LoadReconstructor"
+	ControlService_StreamTelemetry_FullMethodName    = "/stillsky.v1.ControlService/StreamTelemetry"
+	ControlService_OptimiseModalGains_FullMethodName = "/stillsky.v1.ControlService/OptimiseModalGains"
 )
 
 // ControlServiceClient is the client API for ControlService service.
@@ -82,6 +83,14 @@ type ControlServiceClient interface {
 	// StreamTelemetry streams every n-th frame's slopes, command and estimates.
 	// Errors: INVALID_ARGUMENT for a decimation of 0.
 	StreamTelemetry(ctx context.Context, in *StreamTelemetryRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[StreamTelemetryResponse], error)
+	// OptimiseModalGains records the next frames, projects their pseudo-open-loop
+	// slopes on the reconstructor's modes, chooses each mode's gain to minimise its
+	// predicted residual from its temporal spectrum (Gendron & Léna 1994) and, unless
+	// dry_run, applies the gains as SetModalGains would, relative to the current gain.
+	// Errors: FAILED_PRECONDITION when no reconstructor with modes and an interaction
+	// matrix is loaded, or the loop is neither open nor closed; INVALID_ARGUMENT for a
+	// frame count outside [512, 65536]; DEADLINE_EXCEEDED when the frames do not come.
+	OptimiseModalGains(ctx context.Context, in *OptimiseModalGainsRequest, opts ...grpc.CallOption) (*OptimiseModalGainsResponse, error)
 }
 
 type controlServiceClient struct {
@@ -232,6 +241,16 @@ func (c *controlServiceClient) StreamTelemetry(ctx context.Context, in *StreamTe
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type ControlService_StreamTelemetryClient = grpc.ServerStreamingClient[StreamTelemetryResponse]
 
+func (c *controlServiceClient) OptimiseModalGains(ctx context.Context, in *OptimiseModalGainsRequest, opts ...grpc.CallOption) (*OptimiseModalGainsResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(OptimiseModalGainsResponse)
+	err := c.cc.Invoke(ctx, ControlService_OptimiseModalGains_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // ControlServiceServer is the server API for ControlService service.
 // All implementations must embed UnimplementedControlServiceServer
 // for forward compatibility.
@@ -282,6 +301,14 @@ type ControlServiceServer interface {
 	// StreamTelemetry streams every n-th frame's slopes, command and estimates.
 	// Errors: INVALID_ARGUMENT for a decimation of 0.
 	StreamTelemetry(*StreamTelemetryRequest, grpc.ServerStreamingServer[StreamTelemetryResponse]) error
+	// OptimiseModalGains records the next frames, projects their pseudo-open-loop
+	// slopes on the reconstructor's modes, chooses each mode's gain to minimise its
+	// predicted residual from its temporal spectrum (Gendron & Léna 1994) and, unless
+	// dry_run, applies the gains as SetModalGains would, relative to the current gain.
+	// Errors: FAILED_PRECONDITION when no reconstructor with modes and an interaction
+	// matrix is loaded, or the loop is neither open nor closed; INVALID_ARGUMENT for a
+	// frame count outside [512, 65536]; DEADLINE_EXCEEDED when the frames do not come.
+	OptimiseModalGains(context.Context, *OptimiseModalGainsRequest) (*OptimiseModalGainsResponse, error)
 	mustEmbedUnimplementedControlServiceServer()
 }
 
@@ -324,6 +351,9 @@ func (UnimplementedControlServiceServer) LoadReconstructor(grpc.ClientStreamingS
 }
 func (UnimplementedControlServiceServer) StreamTelemetry(*StreamTelemetryRequest, grpc.ServerStreamingServer[StreamTelemetryResponse]) error {
 	return status.Error(codes.Unimplemented, "method StreamTelemetry not implemented")
+}
+func (UnimplementedControlServiceServer) OptimiseModalGains(context.Context, *OptimiseModalGainsRequest) (*OptimiseModalGainsResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method OptimiseModalGains not implemented")
 }
 func (UnimplementedControlServiceServer) mustEmbedUnimplementedControlServiceServer() {}
 func (UnimplementedControlServiceServer) testEmbeddedByValue()                        {}
@@ -512,6 +542,24 @@ func _ControlService_StreamTelemetry_Handler(srv interface{}, stream grpc.Server
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type ControlService_StreamTelemetryServer = grpc.ServerStreamingServer[StreamTelemetryResponse]
 
+func _ControlService_OptimiseModalGains_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(OptimiseModalGainsRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(ControlServiceServer).OptimiseModalGains(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: ControlService_OptimiseModalGains_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(ControlServiceServer).OptimiseModalGains(ctx, req.(*OptimiseModalGainsRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // ControlService_ServiceDesc is the grpc.ServiceDesc for ControlService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -546,6 +594,10 @@ var ControlService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "SetModalGains",
 			Handler:    _ControlService_SetModalGains_Handler,
+		},
+		{
+			MethodName: "OptimiseModalGains",
+			Handler:    _ControlService_OptimiseModalGains_Handler,
 		},
 	},
 	Streams: []grpc.StreamDesc{

@@ -9,6 +9,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"slices"
 	"strconv"
 	"strings"
 	"time"
@@ -23,7 +24,7 @@ import (
 )
 
 // Usage lists the verbs.
-const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | calibrate [--hadamard] | save FILE | load FILE"
+const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard] | save FILE | load FILE"
 
 // Run performs one verb against the Control API on conn and writes the result to out.
 func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out io.Writer) error {
@@ -95,6 +96,37 @@ func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out 
 		var r *stillskyv1.SetModalGainsResponse
 		r, err = c.SetModalGains(ctx, &stillskyv1.SetModalGainsRequest{Gains: gains})
 		st = r.GetStatus()
+	case "optimise-gains":
+		req := &stillskyv1.OptimiseModalGainsRequest{}
+		for i := 0; i < len(rest); i++ {
+			switch rest[i] {
+			case "--dry-run":
+				req.DryRun = true
+			case "--frames":
+				if i+1 == len(rest) {
+					return errors.New("optimise-gains: --frames needs a number")
+				}
+				i++
+				n, perr := strconv.ParseUint(rest[i], 10, 32)
+				if perr != nil {
+					return fmt.Errorf("optimise-gains: --frames %q: not a frame count", rest[i])
+				}
+				req.Frames = uint32(n)
+			default:
+				return fmt.Errorf("optimise-gains: unknown option %q (--frames N, --dry-run)", rest[i])
+			}
+		}
+		var r *stillskyv1.OptimiseModalGainsResponse
+		r, err = c.OptimiseModalGains(ctx, req)
+		if err == nil {
+			verb := "applied"
+			if req.DryRun {
+				verb = "found (not applied)"
+			}
+			fmt.Fprintf(out, "modal gains %s for %d modes (relative to the loop gain): min %.3g, max %.3g; predicted modal residual %.3g → %.3g m² of mirror command\n",
+				verb, len(r.GetGains()), slices.Min(r.GetGains()), slices.Max(r.GetGains()), r.GetPredictedResidualBefore(), r.GetPredictedResidualAfter())
+			st = r.GetStatus()
+		}
 	case "calibrate":
 		req := &stillskyv1.CalibrateRequest{}
 		for _, a := range rest {
