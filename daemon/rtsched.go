@@ -68,23 +68,23 @@ func (d *Daemon) processSettings() {
 // goroutine, already locked to it) and logs what it could not do, in one line.
 // It reports whether it changed the thread, which must then never return to the
 // runtime's pool.
-func (rt Realtime) applyToThread(log *slog.Logger) (changed bool) {
+func (r Realtime) applyToThread(log *slog.Logger) (changed bool) {
 	var done, refused []string
-	if rt.Pin {
+	if r.Pin {
 		var set unix.CPUSet
-		set.Set(rt.CPU)
+		set.Set(r.CPU)
 		if err := unix.SchedSetaffinity(0, &set); err != nil {
-			refused = append(refused, fmt.Sprintf("cpu %d affinity: %v", rt.CPU, err))
+			refused = append(refused, fmt.Sprintf("cpu %d affinity: %v", r.CPU, err))
 		} else {
-			done = append(done, fmt.Sprintf("pinned to cpu %d", rt.CPU))
+			done = append(done, fmt.Sprintf("pinned to cpu %d", r.CPU))
 		}
 	}
-	if rt.FIFOPriority > 0 {
-		attr := unix.SchedAttr{Size: unix.SizeofSchedAttr, Policy: unix.SCHED_FIFO, Priority: uint32(rt.FIFOPriority)}
+	if r.FIFOPriority > 0 {
+		attr := unix.SchedAttr{Size: unix.SizeofSchedAttr, Policy: unix.SCHED_FIFO, Priority: uint32(r.FIFOPriority)}
 		if err := unix.SchedSetAttr(0, &attr, 0); err != nil {
-			refused = append(refused, fmt.Sprintf("SCHED_FIFO %d: %v (needs CAP_SYS_NICE or RLIMIT_RTPRIO)", rt.FIFOPriority, err))
+			refused = append(refused, fmt.Sprintf("SCHED_FIFO %d: %v (needs CAP_SYS_NICE or RLIMIT_RTPRIO)", r.FIFOPriority, err))
 		} else {
-			done = append(done, fmt.Sprintf("SCHED_FIFO priority %d", rt.FIFOPriority))
+			done = append(done, fmt.Sprintf("SCHED_FIFO priority %d", r.FIFOPriority))
 		}
 	}
 	changed = len(done) > 0
