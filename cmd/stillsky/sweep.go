@@ -20,7 +20,7 @@ usage:
   stillsky sweep --kubernetes DIR [flags] SPEC.yaml      write an Indexed Job and its ConfigMap
   stillsky sweep collect DIR                             merge results into DIR/sweep.csv and plots
 
-The spec is validated whole before anything runs (see 'go doc stillsky/internal/sweep').
+The spec is validated whole before anything runs (see 'go doc stillsky/cmd/stillsky/internal/sweep').
 `
 
 func runSweep(args []string) error {
