@@ -168,14 +168,24 @@ func New(c Config, p *optics.Pupil) (*Atmosphere, error) {
 		l.shFrom, l.shTo = first.sh, first.sh2
 		// A layer without wind never leaves its first screen and needs no others.
 		if lc.WindSpeed > 0 {
-			l.spare = make([]float32, phases*stride*stride)
-			l.ready = make([]float32, phases*stride*stride)
+			l.spare = touched(phases * stride * stride)
+			l.ready = touched(phases * stride * stride)
 			l.next = a.newJob(l, &first)
 			l.running = true
 		}
 		a.layers = append(a.layers, l)
 	}
 	return a, nil
+}
+
+// touched returns a zeroed slice of n float32 whose pages the process has already
+// written: a fresh allocation is mapped by the operating system page by page on
+// first write, which for the spare screens (hundreds of megabytes on a large
+// pupil) would otherwise land on the frames that generate the first screens.
+func touched(n int) []float32 {
+	s := make([]float32, n)
+	clear(s)
+	return s
 }
 
 // newJob starts the generation of l's next two screens into spare and ready, in
