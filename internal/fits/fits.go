@@ -24,7 +24,8 @@ const maxAxes = 3
 // cannot overflow the size computation.
 const maxDataBytes = 1 << 40
 
-// HDU is one header-data unit: a primary array or an IMAGE extension.
+// HDU is one header-data unit: a primary array, an IMAGE extension or, with Table
+// set, a BINTABLE extension.
 type HDU struct {
 	// Header holds the user keywords (EXTNAME among them for a named extension).
 	Header Header
@@ -36,6 +37,9 @@ type HDU struct {
 	// Data is []float32 (−32), []float64 (−64), []int16 (16) or []int32 (32) with
 	// the product of Axes elements, or nil when there are no axes.
 	Data any
+	// Table, when not nil, makes the HDU a BINTABLE extension; Bitpix, Axes and
+	// Data are then unused (zero).
+	Table *Table
 }
 
 func bytesPer(bitpix int) (int, error) {
@@ -66,6 +70,9 @@ func dataLen(data any) (int, bool) {
 
 // check validates an HDU before anything is written for it.
 func (h *HDU) check() error {
+	if h.Table != nil {
+		return h.checkTable(true)
+	}
 	for _, c := range h.Header.Cards {
 		if structural(c.Key) {
 			return fmt.Errorf("fits: keyword %s: structural keywords are written by the package", c.Key)
@@ -105,17 +112,37 @@ func (h *HDU) check() error {
 }
 
 // Write writes the HDUs as one FITS file: the first as the primary HDU, the others
-// as IMAGE extensions. Nothing is written when an HDU is invalid.
+// as IMAGE or BINTABLE extensions. Nothing is written when an HDU is invalid.
 func Write(w io.Writer, hdus ...*HDU) error {
 	if len(hdus) == 0 {
 		return errors.New("fits: no HDU to write")
 	}
+	if hdus[0].Table != nil {
+		return errors.New("fits: HDU 0: the primary HDU cannot be a table")
+	}
+	return write(w, true, hdus)
+}
+
+// AppendExtensions writes the HDUs as extensions, to follow a primary HDU (and
+// any extensions) already written to w by Write or a TableWriter. Nothing is
+// written when an HDU is invalid.
+func AppendExtensions(w io.Writer, hdus ...*HDU) error {
+	return write(w, false, hdus)
+}
+
+func write(w io.Writer, withPrimary bool, hdus []*HDU) error {
 	headers := make([][]byte, len(hdus))
 	for i, h := range hdus {
 		if err := h.check(); err != nil {
 			return fmt.Errorf("HDU %d: %w", i, err)
 		}
-		b, err := h.header(i == 0, len(hdus) > 1)
+		var b []byte
+		var err error
+		if h.Table != nil {
+			b, err = h.tableHeader()
+		} else {
+			b, err = h.header(withPrimary && i == 0, len(hdus) > 1)
+		}
 		if err != nil {
 			return fmt.Errorf("HDU %d: %w", i, err)
 		}
@@ -126,7 +153,11 @@ func Write(w io.Writer, hdus ...*HDU) error {
 		if _, err := bw.Write(headers[i]); err != nil {
 			return fmt.Errorf("fits: write: %w", err)
 		}
-		if err := writeData(bw, h.Data); err != nil {
+		data := h.Data
+		if h.Table != nil {
+			data = h.Table.Data
+		}
+		if err := writeData(bw, data); err != nil {
 			return fmt.Errorf("fits: write: %w", err)
 		}
 	}
@@ -186,6 +217,8 @@ func writeData(w *bufio.Writer, data any) error {
 	}
 	var err error
 	switch d := data.(type) {
+	case []byte:
+		err = put(d)
 	case []float32:
 		for _, v := range d {
 			binary.BigEndian.PutUint32(buf[:4], math.Float32bits(v))
@@ -247,7 +280,8 @@ func ReadFile(path string) ([]*HDU, error) {
 }
 
 // Read reads every HDU up to the end of r. It refuses truncated or corrupt input,
-// and HDUs other than a primary array and IMAGE extensions, with an error.
+// and HDUs other than a primary array and IMAGE and BINTABLE extensions, with an
+// error. A table's heap (variable-length arrays) is skipped.
 func Read(r io.Reader) ([]*HDU, error) {
 	var hdus []*HDU
 	for {
@@ -296,9 +330,15 @@ func readHDU(r io.Reader, first []byte, primary bool) (*HDU, error) {
 			return nil, fmt.Errorf("header without END: %w", io.ErrUnexpectedEOF)
 		}
 	}
-	h, err := structure(cards, primary)
+	h, pcount, err := structure(cards, primary)
 	if err != nil {
 		return nil, err
+	}
+	if h.Table != nil {
+		if err := readTable(r, h.Table, pcount); err != nil {
+			return nil, err
+		}
+		return h, nil
 	}
 	n := 1
 	for _, a := range h.Axes {
@@ -314,21 +354,45 @@ func readHDU(r io.Reader, first []byte, primary bool) (*HDU, error) {
 }
 
 // structure checks the mandatory keywords and moves the user keywords into the
-// HDU's header.
-func structure(cards []Card, primary bool) (*HDU, error) {
+// HDU's header. For a table it also returns PCOUNT, the size of its heap.
+func structure(cards []Card, primary bool) (*HDU, int64, error) {
+	h, ints, err := mandatory(cards, primary)
+	if err != nil {
+		return nil, 0, err
+	}
+	if !primary && cards[0].Value == "BINTABLE" {
+		p := ints["PCOUNT"]
+		if p < 0 || p > maxDataBytes {
+			return nil, 0, fmt.Errorf("PCOUNT %d: out of range", p)
+		}
+		return h, p, tableStructure(h, ints)
+	}
+	if !primary {
+		if p := ints["PCOUNT"]; p != 0 {
+			return nil, 0, fmt.Errorf("PCOUNT %d: must be 0 for an IMAGE extension", p)
+		}
+		if g, ok := ints["GCOUNT"]; ok && g != 1 {
+			return nil, 0, fmt.Errorf("GCOUNT %d: must be 1 for an IMAGE extension", g)
+		}
+	}
+	return h, 0, nil
+}
+
+// mandatory parses the keywords common to every HDU.
+func mandatory(cards []Card, primary bool) (*HDU, map[string]int64, error) {
 	if len(cards) == 0 {
-		return nil, errors.New("empty header")
+		return nil, nil, errors.New("empty header")
 	}
 	if primary {
 		if cards[0].Key != "SIMPLE" || cards[0].Value != true {
-			return nil, errors.New("first keyword is not SIMPLE = T")
+			return nil, nil, errors.New("first keyword is not SIMPLE = T")
 		}
 	} else {
 		if cards[0].Key != "XTENSION" {
-			return nil, errors.New("extension does not start with XTENSION")
+			return nil, nil, errors.New("extension does not start with XTENSION")
 		}
-		if cards[0].Value != "IMAGE" {
-			return nil, fmt.Errorf("XTENSION %v: only IMAGE extensions are supported", cards[0].Value)
+		if cards[0].Value != "IMAGE" && cards[0].Value != "BINTABLE" {
+			return nil, nil, fmt.Errorf("XTENSION %v: only IMAGE and BINTABLE extensions are supported", cards[0].Value)
 		}
 	}
 	ints := map[string]int64{}
@@ -340,66 +404,61 @@ func structure(cards []Card, primary bool) (*HDU, error) {
 		}
 		switch c.Key {
 		case "SIMPLE", "XTENSION", "END":
-			return nil, fmt.Errorf("keyword %s out of place", c.Key)
+			return nil, nil, fmt.Errorf("keyword %s out of place", c.Key)
 		case "EXTEND":
 			continue
 		}
 		v, ok := c.Value.(int64)
 		if !ok {
-			return nil, fmt.Errorf("keyword %s = %v: must be an integer", c.Key, c.Value)
+			return nil, nil, fmt.Errorf("keyword %s = %v: must be an integer", c.Key, c.Value)
 		}
 		if _, dup := ints[c.Key]; dup {
-			return nil, fmt.Errorf("keyword %s repeated", c.Key)
+			return nil, nil, fmt.Errorf("keyword %s repeated", c.Key)
 		}
 		ints[c.Key] = v
 	}
 	bitpix, ok := ints["BITPIX"]
 	if !ok {
-		return nil, errors.New("missing BITPIX")
+		return nil, nil, errors.New("missing BITPIX")
 	}
-	if _, err := bytesPer(int(bitpix)); err != nil {
-		return nil, err
+	if _, err := bytesPer(int(bitpix)); err != nil && bitpix != 8 {
+		return nil, nil, err
 	}
 	h.Bitpix = int(bitpix)
 	naxis, ok := ints["NAXIS"]
 	if !ok {
-		return nil, errors.New("missing NAXIS")
+		return nil, nil, errors.New("missing NAXIS")
 	}
 	if naxis < 0 || naxis > maxAxes {
-		return nil, fmt.Errorf("NAXIS %d: between 0 and %d axes are supported", naxis, maxAxes)
+		return nil, nil, fmt.Errorf("NAXIS %d: between 0 and %d axes are supported", naxis, maxAxes)
 	}
 	size := int64(1)
 	for i := 1; i <= int(naxis); i++ {
 		k := "NAXIS" + strconv.Itoa(i)
 		a, ok := ints[k]
 		if !ok {
-			return nil, fmt.Errorf("missing %s", k)
+			return nil, nil, fmt.Errorf("missing %s", k)
 		}
 		if a < 0 || a > math.MaxInt32 {
-			return nil, fmt.Errorf("%s %d: out of range", k, a)
+			return nil, nil, fmt.Errorf("%s %d: out of range", k, a)
 		}
 		size *= a
 		if size > maxDataBytes {
-			return nil, fmt.Errorf("axes claim more than %d bytes of data", int64(maxDataBytes))
+			return nil, nil, fmt.Errorf("axes claim more than %d bytes of data", int64(maxDataBytes))
 		}
 		h.Axes = append(h.Axes, int(a))
 	}
 	for k := range ints {
 		if rest, ok := strings.CutPrefix(k, "NAXIS"); ok && rest != "" {
 			if i, _ := strconv.Atoi(rest); i > int(naxis) {
-				return nil, fmt.Errorf("%s present with NAXIS = %d", k, naxis)
+				return nil, nil, fmt.Errorf("%s present with NAXIS = %d", k, naxis)
 			}
 		}
 	}
-	if !primary {
-		if p := ints["PCOUNT"]; p != 0 {
-			return nil, fmt.Errorf("PCOUNT %d: must be 0 for an IMAGE extension", p)
-		}
-		if g, ok := ints["GCOUNT"]; ok && g != 1 {
-			return nil, fmt.Errorf("GCOUNT %d: must be 1 for an IMAGE extension", g)
-		}
+	if bitpix == 8 && (primary || cards[0].Value != "BINTABLE") {
+		return nil, nil, errors.New("BITPIX 8: this package reads 8-bit data only in tables")
 	}
-	return h, nil
+	return h, ints, nil
 }
 
 // readChunk is how many bytes of data are read at a time. Data slices grow chunk by
