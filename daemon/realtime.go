@@ -71,7 +71,7 @@ func newRealtime(u *unit, g *geometry) *realtime {
 	}
 	rt.slopes = rt.asm.slopes
 	rt.out.Values = rt.cmd
-	u.telemetry.init(g.slopes, g.actuators)
+	u.telemetry.init(g.slopes, g.actuators, g.frameRate)
 	return rt
 }
 
@@ -179,7 +179,7 @@ func (rt *realtime) delivered(f *stillskyv1.StreamFramesResponse, received, comp
 		rec.frame(received, received-f.GetReadoutEndNs(), computed-received, sent-received)
 	}
 	rt.publish(res)
-	u.telemetry.record(f.GetFrameNumber(), rt.state, rt.slopes, rt.cmd, res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated, float64(sent-received)*1e-9)
+	u.telemetry.record(f.GetFrameNumber(), rt.state, rt.slopes, rt.cmd, res, frameTimes{f.GetReadoutEndNs(), received, computed, sent})
 	rt.offer(f)
 }
 

@@ -1651,11 +1651,395 @@ func (x *OptimiseModalGainsResponse) GetStatus() *GetStatusResponse {
 	return nil
 }
 
+// RecordTelemetryRequest asks for a recording.
+type RecordTelemetryRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Frames to record (1 to 100,000,000).
+	FrameCount    uint64 `protobuf:"varint,1,opt,name=frame_count,json=frameCount,proto3" json:"frame_count,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *RecordTelemetryRequest) Reset() {
+	*x = RecordTelemetryRequest{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[26]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *RecordTelemetryRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*RecordTelemetryRequest) ProtoMessage() {}
+
+func (x *RecordTelemetryRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[26]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use RecordTelemetryRequest.ProtoReflect.Descriptor instead.
+func (*RecordTelemetryRequest) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{26}
+}
+
+func (x *RecordTelemetryRequest) GetFrameCount() uint64 {
+	if x != nil {
+		return x.FrameCount
+	}
+	return 0
+}
+
+// RecordTelemetryResponse is the header of a recording (first message) or a batch
+// of its frames.
+type RecordTelemetryResponse struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Types that are valid to be assigned to Content:
+	//
+	//	*RecordTelemetryResponse_Header
+	//	*RecordTelemetryResponse_Frames
+	Content       isRecordTelemetryResponse_Content `protobuf_oneof:"content"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *RecordTelemetryResponse) Reset() {
+	*x = RecordTelemetryResponse{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[27]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *RecordTelemetryResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*RecordTelemetryResponse) ProtoMessage() {}
+
+func (x *RecordTelemetryResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[27]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use RecordTelemetryResponse.ProtoReflect.Descriptor instead.
+func (*RecordTelemetryResponse) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{27}
+}
+
+func (x *RecordTelemetryResponse) GetContent() isRecordTelemetryResponse_Content {
+	if x != nil {
+		return x.Content
+	}
+	return nil
+}
+
+func (x *RecordTelemetryResponse) GetHeader() *RecordingHeader {
+	if x != nil {
+		if x, ok := x.Content.(*RecordTelemetryResponse_Header); ok {
+			return x.Header
+		}
+	}
+	return nil
+}
+
+func (x *RecordTelemetryResponse) GetFrames() *RecordedFrames {
+	if x != nil {
+		if x, ok := x.Content.(*RecordTelemetryResponse_Frames); ok {
+			return x.Frames
+		}
+	}
+	return nil
+}
+
+type isRecordTelemetryResponse_Content interface {
+	isRecordTelemetryResponse_Content()
+}
+
+type RecordTelemetryResponse_Header struct {
+	Header *RecordingHeader `protobuf:"bytes,1,opt,name=header,proto3,oneof"`
+}
+
+type RecordTelemetryResponse_Frames struct {
+	Frames *RecordedFrames `protobuf:"bytes,2,opt,name=frames,proto3,oneof"`
+}
+
+func (*RecordTelemetryResponse_Header) isRecordTelemetryResponse_Content() {}
+
+func (*RecordTelemetryResponse_Frames) isRecordTelemetryResponse_Content() {}
+
+// RecordingHeader is what a recording needs to be read on its own: the devices as
+// they describe themselves and the loop as it stood when the recording began.
+type RecordingHeader struct {
+	state  protoimpl.MessageState         `protogen:"open.v1"`
+	Camera *CameraServiceDescribeResponse `protobuf:"bytes,1,opt,name=camera,proto3" json:"camera,omitempty"`
+	Mirror *MirrorServiceDescribeResponse `protobuf:"bytes,2,opt,name=mirror,proto3" json:"mirror,omitempty"`
+	Gain   float64                        `protobuf:"fixed64,3,opt,name=gain,proto3" json:"gain,omitempty"`
+	Leak   float64                        `protobuf:"fixed64,4,opt,name=leak,proto3" json:"leak,omitempty"`
+	// Per-mode gain multipliers (empty: all 1).
+	ModalGains         []float64 `protobuf:"fixed64,5,rep,packed,name=modal_gains,json=modalGains,proto3" json:"modal_gains,omitempty"`
+	ScienceWavelengthM float64   `protobuf:"fixed64,6,opt,name=science_wavelength_m,json=scienceWavelengthM,proto3" json:"science_wavelength_m,omitempty"`
+	// The reconstructor in use (unset when none) and its file, as SaveReconstructor
+	// streams it.
+	Reconstructor     *ReconstructorInfo `protobuf:"bytes,7,opt,name=reconstructor,proto3" json:"reconstructor,omitempty"`
+	ReconstructorFile []byte             `protobuf:"bytes,8,opt,name=reconstructor_file,json=reconstructorFile,proto3" json:"reconstructor_file,omitempty"`
+	// Frames the daemon's ring holds: how far a client may fall behind.
+	WindowFrames uint32 `protobuf:"varint,9,opt,name=window_frames,json=windowFrames,proto3" json:"window_frames,omitempty"`
+	// Recording start, Unix nanoseconds (UTC).
+	StartedUnixNs int64 `protobuf:"varint,10,opt,name=started_unix_ns,json=startedUnixNs,proto3" json:"started_unix_ns,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *RecordingHeader) Reset() {
+	*x = RecordingHeader{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[28]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *RecordingHeader) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*RecordingHeader) ProtoMessage() {}
+
+func (x *RecordingHeader) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[28]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use RecordingHeader.ProtoReflect.Descriptor instead.
+func (*RecordingHeader) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{28}
+}
+
+func (x *RecordingHeader) GetCamera() *CameraServiceDescribeResponse {
+	if x != nil {
+		return x.Camera
+	}
+	return nil
+}
+
+func (x *RecordingHeader) GetMirror() *MirrorServiceDescribeResponse {
+	if x != nil {
+		return x.Mirror
+	}
+	return nil
+}
+
+func (x *RecordingHeader) GetGain() float64 {
+	if x != nil {
+		return x.Gain
+	}
+	return 0
+}
+
+func (x *RecordingHeader) GetLeak() float64 {
+	if x != nil {
+		return x.Leak
+	}
+	return 0
+}
+
+func (x *RecordingHeader) GetModalGains() []float64 {
+	if x != nil {
+		return x.ModalGains
+	}
+	return nil
+}
+
+func (x *RecordingHeader) GetScienceWavelengthM() float64 {
+	if x != nil {
+		return x.ScienceWavelengthM
+	}
+	return 0
+}
+
+func (x *RecordingHeader) GetReconstructor() *ReconstructorInfo {
+	if x != nil {
+		return x.Reconstructor
+	}
+	return nil
+}
+
+func (x *RecordingHeader) GetReconstructorFile() []byte {
+	if x != nil {
+		return x.ReconstructorFile
+	}
+	return nil
+}
+
+func (x *RecordingHeader) GetWindowFrames() uint32 {
+	if x != nil {
+		return x.WindowFrames
+	}
+	return 0
+}
+
+func (x *RecordingHeader) GetStartedUnixNs() int64 {
+	if x != nil {
+		return x.StartedUnixNs
+	}
+	return 0
+}
+
+// RecordedFrames is a batch of consecutive recorded frames. Per-frame fields have
+// one value per frame; slopes and commands are the frames' vectors one after the
+// other (count × slope_count, count × actuator_count).
+type RecordedFrames struct {
+	state        protoimpl.MessageState `protogen:"open.v1"`
+	FrameNumbers []uint64               `protobuf:"varint,1,rep,packed,name=frame_numbers,json=frameNumbers,proto3" json:"frame_numbers,omitempty"`
+	// Camera readout end, frame received, command computed, command sent;
+	// CLOCK_MONOTONIC nanoseconds (readout of the camera's host, the rest of the
+	// daemon's).
+	ReadoutEndNs          []int64     `protobuf:"varint,2,rep,packed,name=readout_end_ns,json=readoutEndNs,proto3" json:"readout_end_ns,omitempty"`
+	ReceivedNs            []int64     `protobuf:"varint,3,rep,packed,name=received_ns,json=receivedNs,proto3" json:"received_ns,omitempty"`
+	ComputedNs            []int64     `protobuf:"varint,4,rep,packed,name=computed_ns,json=computedNs,proto3" json:"computed_ns,omitempty"`
+	SentNs                []int64     `protobuf:"varint,5,rep,packed,name=sent_ns,json=sentNs,proto3" json:"sent_ns,omitempty"`
+	States                []LoopState `protobuf:"varint,6,rep,packed,name=states,proto3,enum=stillsky.v1.LoopState" json:"states,omitempty"`
+	SaturatedActuators    []uint32    `protobuf:"varint,7,rep,packed,name=saturated_actuators,json=saturatedActuators,proto3" json:"saturated_actuators,omitempty"`
+	ResidualWavefrontRmsM []float64   `protobuf:"fixed64,8,rep,packed,name=residual_wavefront_rms_m,json=residualWavefrontRmsM,proto3" json:"residual_wavefront_rms_m,omitempty"`
+	StrehlEstimate        []float64   `protobuf:"fixed64,9,rep,packed,name=strehl_estimate,json=strehlEstimate,proto3" json:"strehl_estimate,omitempty"`
+	// Slopes as received (radians) and the commands sent (metres of surface).
+	Slopes        []float32 `protobuf:"fixed32,10,rep,packed,name=slopes,proto3" json:"slopes,omitempty"`
+	Commands      []float32 `protobuf:"fixed32,11,rep,packed,name=commands,proto3" json:"commands,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *RecordedFrames) Reset() {
+	*x = RecordedFrames{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[29]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *RecordedFrames) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*RecordedFrames) ProtoMessage() {}
+
+func (x *RecordedFrames) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[29]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use RecordedFrames.ProtoReflect.Descriptor instead.
+func (*RecordedFrames) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{29}
+}
+
+func (x *RecordedFrames) GetFrameNumbers() []uint64 {
+	if x != nil {
+		return x.FrameNumbers
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetReadoutEndNs() []int64 {
+	if x != nil {
+		return x.ReadoutEndNs
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetReceivedNs() []int64 {
+	if x != nil {
+		return x.ReceivedNs
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetComputedNs() []int64 {
+	if x != nil {
+		return x.ComputedNs
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetSentNs() []int64 {
+	if x != nil {
+		return x.SentNs
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetStates() []LoopState {
+	if x != nil {
+		return x.States
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetSaturatedActuators() []uint32 {
+	if x != nil {
+		return x.SaturatedActuators
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetResidualWavefrontRmsM() []float64 {
+	if x != nil {
+		return x.ResidualWavefrontRmsM
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetStrehlEstimate() []float64 {
+	if x != nil {
+		return x.StrehlEstimate
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetSlopes() []float32 {
+	if x != nil {
+		return x.Slopes
+	}
+	return nil
+}
+
+func (x *RecordedFrames) GetCommands() []float32 {
+	if x != nil {
+		return x.Commands
+	}
+	return nil
+}
+
 var File_stillsky_v1_control_proto protoreflect.FileDescriptor
 
 const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\n" +
-	"\x19stillsky/v1/control.proto\x12\vstillsky.v1\"\x12\n" +
+	"\x19stillsky/v1/control.proto\x12\vstillsky.v1\x1a\x18stillsky/v1/camera.proto\x1a\x18stillsky/v1/mirror.proto\"\x12\n" +
 	"\x10GetStatusRequest\"\xca\a\n" +
 	"\x11GetStatusResponse\x12,\n" +
 	"\x05state\x18\x01 \x01(\x0e2\x16.stillsky.v1.LoopStateR\x05state\x12\x12\n" +
@@ -1763,14 +2147,49 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x05gains\x18\x01 \x03(\x01R\x05gains\x12:\n" +
 	"\x19predicted_residual_before\x18\x02 \x01(\x01R\x17predictedResidualBefore\x128\n" +
 	"\x18predicted_residual_after\x18\x03 \x01(\x01R\x16predictedResidualAfter\x126\n" +
-	"\x06status\x18\x04 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status*\x9c\x01\n" +
+	"\x06status\x18\x04 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status\"9\n" +
+	"\x16RecordTelemetryRequest\x12\x1f\n" +
+	"\vframe_count\x18\x01 \x01(\x04R\n" +
+	"frameCount\"\x93\x01\n" +
+	"\x17RecordTelemetryResponse\x126\n" +
+	"\x06header\x18\x01 \x01(\v2\x1c.stillsky.v1.RecordingHeaderH\x00R\x06header\x125\n" +
+	"\x06frames\x18\x02 \x01(\v2\x1b.stillsky.v1.RecordedFramesH\x00R\x06framesB\t\n" +
+	"\acontent\"\xd6\x03\n" +
+	"\x0fRecordingHeader\x12B\n" +
+	"\x06camera\x18\x01 \x01(\v2*.stillsky.v1.CameraServiceDescribeResponseR\x06camera\x12B\n" +
+	"\x06mirror\x18\x02 \x01(\v2*.stillsky.v1.MirrorServiceDescribeResponseR\x06mirror\x12\x12\n" +
+	"\x04gain\x18\x03 \x01(\x01R\x04gain\x12\x12\n" +
+	"\x04leak\x18\x04 \x01(\x01R\x04leak\x12\x1f\n" +
+	"\vmodal_gains\x18\x05 \x03(\x01R\n" +
+	"modalGains\x120\n" +
+	"\x14science_wavelength_m\x18\x06 \x01(\x01R\x12scienceWavelengthM\x12D\n" +
+	"\rreconstructor\x18\a \x01(\v2\x1e.stillsky.v1.ReconstructorInfoR\rreconstructor\x12-\n" +
+	"\x12reconstructor_file\x18\b \x01(\fR\x11reconstructorFile\x12#\n" +
+	"\rwindow_frames\x18\t \x01(\rR\fwindowFrames\x12&\n" +
+	"\x0fstarted_unix_ns\x18\n" +
+	" \x01(\x03R\rstartedUnixNs\"\xad\x03\n" +
+	"\x0eRecordedFrames\x12#\n" +
+	"\rframe_numbers\x18\x01 \x03(\x04R\fframeNumbers\x12$\n" +
+	"\x0ereadout_end_ns\x18\x02 \x03(\x03R\freadoutEndNs\x12\x1f\n" +
+	"\vreceived_ns\x18\x03 \x03(\x03R\n" +
+	"receivedNs\x12\x1f\n" +
+	"\vcomputed_ns\x18\x04 \x03(\x03R\n" +
+	"computedNs\x12\x17\n" +
+	"\asent_ns\x18\x05 \x03(\x03R\x06sentNs\x12.\n" +
+	"\x06states\x18\x06 \x03(\x0e2\x16.stillsky.v1.LoopStateR\x06states\x12/\n" +
+	"\x13saturated_actuators\x18\a \x03(\rR\x12saturatedActuators\x127\n" +
+	"\x18residual_wavefront_rms_m\x18\b \x03(\x01R\x15residualWavefrontRmsM\x12'\n" +
+	"\x0fstrehl_estimate\x18\t \x03(\x01R\x0estrehlEstimate\x12\x16\n" +
+	"\x06slopes\x18\n" +
+	" \x03(\x02R\x06slopes\x12\x1a\n" +
+	"\bcommands\x18\v \x03(\x02R\bcommands*\x9c\x01\n" +
 	"\tLoopState\x12\x1a\n" +
 	"\x16LOOP_STATE_UNSPECIFIED\x10\x00\x12\x13\n" +
 	"\x0fLOOP_STATE_OPEN\x10\x01\x12\x15\n" +
 	"\x11LOOP_STATE_CLOSED\x10\x02\x12\x13\n" +
 	"\x0fLOOP_STATE_HOLD\x10\x03\x12\x1a\n" +
 	"\x16LOOP_STATE_CALIBRATING\x10\x04\x12\x16\n" +
-	"\x12LOOP_STATE_TRIPPED\x10\x052\xff\a\n" +
+	"\x12LOOP_STATE_TRIPPED\x10\x052\xdf\b\n" +
 	"\x0eControlService\x12J\n" +
 	"\tGetStatus\x12\x1d.stillsky.v1.GetStatusRequest\x1a\x1e.stillsky.v1.GetStatusResponse\x12G\n" +
 	"\bOpenLoop\x12\x1c.stillsky.v1.OpenLoopRequest\x1a\x1d.stillsky.v1.OpenLoopResponse\x12J\n" +
@@ -1783,7 +2202,8 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x11SaveReconstructor\x12%.stillsky.v1.SaveReconstructorRequest\x1a&.stillsky.v1.SaveReconstructorResponse0\x01\x12d\n" +
 	"\x11LoadReconstructor\x12%.stillsky.v1.LoadReconstructorRequest\x1a&.stillsky.v1.LoadReconstructorResponse(\x01\x12^\n" +
 	"\x0fStreamTelemetry\x12#.stillsky.v1.StreamTelemetryRequest\x1a$.stillsky.v1.StreamTelemetryResponse0\x01\x12e\n" +
-	"\x12OptimiseModalGains\x12&.stillsky.v1.OptimiseModalGainsRequest\x1a'.stillsky.v1.OptimiseModalGainsResponseB'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
+	"\x12OptimiseModalGains\x12&.stillsky.v1.OptimiseModalGainsRequest\x1a'.stillsky.v1.OptimiseModalGainsResponse\x12^\n" +
+	"\x0fRecordTelemetry\x12#.stillsky.v1.RecordTelemetryRequest\x1a$.stillsky.v1.RecordTelemetryResponse0\x01B'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
 
 var (
 	file_stillsky_v1_control_proto_rawDescOnce sync.Once
@@ -1798,35 +2218,41 @@ func file_stillsky_v1_control_proto_rawDescGZIP() []byte {
 }
 
 var file_stillsky_v1_control_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
-var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 26)
+var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 30)
 var file_stillsky_v1_control_proto_goTypes = []any{
-	(LoopState)(0),                     // 0: stillsky.v1.LoopState
-	(*GetStatusRequest)(nil),           // 1: stillsky.v1.GetStatusRequest
-	(*GetStatusResponse)(nil),          // 2: stillsky.v1.GetStatusResponse
-	(*LatencySummary)(nil),             // 3: stillsky.v1.LatencySummary
-	(*ReconstructorInfo)(nil),          // 4: stillsky.v1.ReconstructorInfo
-	(*OpenLoopRequest)(nil),            // 5: stillsky.v1.OpenLoopRequest
-	(*OpenLoopResponse)(nil),           // 6: stillsky.v1.OpenLoopResponse
-	(*CloseLoopRequest)(nil),           // 7: stillsky.v1.CloseLoopRequest
-	(*CloseLoopResponse)(nil),          // 8: stillsky.v1.CloseLoopResponse
-	(*HoldLoopRequest)(nil),            // 9: stillsky.v1.HoldLoopRequest
-	(*HoldLoopResponse)(nil),           // 10: stillsky.v1.HoldLoopResponse
-	(*SetGainRequest)(nil),             // 11: stillsky.v1.SetGainRequest
-	(*SetGainResponse)(nil),            // 12: stillsky.v1.SetGainResponse
-	(*SetLeakRequest)(nil),             // 13: stillsky.v1.SetLeakRequest
-	(*SetLeakResponse)(nil),            // 14: stillsky.v1.SetLeakResponse
-	(*SetModalGainsRequest)(nil),       // 15: stillsky.v1.SetModalGainsRequest
-	(*SetModalGainsResponse)(nil),      // 16: stillsky.v1.SetModalGainsResponse
-	(*CalibrateRequest)(nil),           // 17: stillsky.v1.CalibrateRequest
-	(*CalibrateResponse)(nil),          // 18: stillsky.v1.CalibrateResponse
-	(*SaveReconstructorRequest)(nil),   // 19: stillsky.v1.SaveReconstructorRequest
-	(*SaveReconstructorResponse)(nil),  // 20: stillsky.v1.SaveReconstructorResponse
-	(*LoadReconstructorRequest)(nil),   // 21: stillsky.v1.LoadReconstructorRequest
-	(*LoadReconstructorResponse)(nil),  // 22: stillsky.v1.LoadReconstructorResponse
-	(*StreamTelemetryRequest)(nil),     // 23: stillsky.v1.StreamTelemetryRequest
-	(*StreamTelemetryResponse)(nil),    // 24: stillsky.v1.StreamTelemetryResponse
-	(*OptimiseModalGainsRequest)(nil),  // 25: stillsky.v1.OptimiseModalGainsRequest
-	(*OptimiseModalGainsResponse)(nil), // 26: stillsky.v1.OptimiseModalGainsResponse
+	(LoopState)(0),                        // 0: stillsky.v1.LoopState
+	(*GetStatusRequest)(nil),              // 1: stillsky.v1.GetStatusRequest
+	(*GetStatusResponse)(nil),             // 2: stillsky.v1.GetStatusResponse
+	(*LatencySummary)(nil),                // 3: stillsky.v1.LatencySummary
+	(*ReconstructorInfo)(nil),             // 4: stillsky.v1.ReconstructorInfo
+	(*OpenLoopRequest)(nil),               // 5: stillsky.v1.OpenLoopRequest
+	(*OpenLoopResponse)(nil),              // 6: stillsky.v1.OpenLoopResponse
+	(*CloseLoopRequest)(nil),              // 7: stillsky.v1.CloseLoopRequest
+	(*CloseLoopResponse)(nil),             // 8: stillsky.v1.CloseLoopResponse
+	(*HoldLoopRequest)(nil),               // 9: stillsky.v1.HoldLoopRequest
+	(*HoldLoopResponse)(nil),              // 10: stillsky.v1.HoldLoopResponse
+	(*SetGainRequest)(nil),                // 11: stillsky.v1.SetGainRequest
+	(*SetGainResponse)(nil),               // 12: stillsky.v1.SetGainResponse
+	(*SetLeakRequest)(nil),                // 13: stillsky.v1.SetLeakRequest
+	(*SetLeakResponse)(nil),               // 14: stillsky.v1.SetLeakResponse
+	(*SetModalGainsRequest)(nil),          // 15: stillsky.v1.SetModalGainsRequest
+	(*SetModalGainsResponse)(nil),         // 16: stillsky.v1.SetModalGainsResponse
+	(*CalibrateRequest)(nil),              // 17: stillsky.v1.CalibrateRequest
+	(*CalibrateResponse)(nil),             // 18: stillsky.v1.CalibrateResponse
+	(*SaveReconstructorRequest)(nil),      // 19: stillsky.v1.SaveReconstructorRequest
+	(*SaveReconstructorResponse)(nil),     // 20: stillsky.v1.SaveReconstructorResponse
+	(*LoadReconstructorRequest)(nil),      // 21: stillsky.v1.LoadReconstructorRequest
+	(*LoadReconstructorResponse)(nil),     // 22: stillsky.v1.LoadReconstructorResponse
+	(*StreamTelemetryRequest)(nil),        // 23: stillsky.v1.StreamTelemetryRequest
+	(*StreamTelemetryResponse)(nil),       // 24: stillsky.v1.StreamTelemetryResponse
+	(*OptimiseModalGainsRequest)(nil),     // 25: stillsky.v1.OptimiseModalGainsRequest
+	(*OptimiseModalGainsResponse)(nil),    // 26: stillsky.v1.OptimiseModalGainsResponse
+	(*RecordTelemetryRequest)(nil),        // 27: stillsky.v1.RecordTelemetryRequest
+	(*RecordTelemetryResponse)(nil),       // 28: stillsky.v1.RecordTelemetryResponse
+	(*RecordingHeader)(nil),               // 29: stillsky.v1.RecordingHeader
+	(*RecordedFrames)(nil),                // 30: stillsky.v1.RecordedFrames
+	(*CameraServiceDescribeResponse)(nil), // 31: stillsky.v1.CameraServiceDescribeResponse
+	(*MirrorServiceDescribeResponse)(nil), // 32: stillsky.v1.MirrorServiceDescribeResponse
 }
 var file_stillsky_v1_control_proto_depIdxs = []int32{
 	0,  // 0: stillsky.v1.GetStatusResponse.state:type_name -> stillsky.v1.LoopState
@@ -1843,35 +2269,43 @@ var file_stillsky_v1_control_proto_depIdxs = []int32{
 	4,  // 11: stillsky.v1.LoadReconstructorResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
 	0,  // 12: stillsky.v1.StreamTelemetryResponse.state:type_name -> stillsky.v1.LoopState
 	2,  // 13: stillsky.v1.OptimiseModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	1,  // 14: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
-	5,  // 15: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
-	7,  // 16: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
-	9,  // 17: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
-	11, // 18: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
-	13, // 19: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
-	15, // 20: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
-	17, // 21: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
-	19, // 22: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
-	21, // 23: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
-	23, // 24: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
-	25, // 25: stillsky.v1.ControlService.OptimiseModalGains:input_type -> stillsky.v1.OptimiseModalGainsRequest
-	2,  // 26: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
-	6,  // 27: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
-	8,  // 28: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
-	10, // 29: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
-	12, // 30: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
-	14, // 31: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
-	16, // 32: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
-	18, // 33: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
-	20, // 34: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
-	22, // 35: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
-	24, // 36: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
-	26, // 37: stillsky.v1.ControlService.OptimiseModalGains:output_type -> stillsky.v1.OptimiseModalGainsResponse
-	26, // [26:38] is the sub-list for method output_type
-	14, // [14:26] is the sub-list for method input_type
-	14, // [14:14] is the sub-list for extension type_name
-	14, // [14:14] is the sub-list for extension extendee
-	0,  // [0:14] is the sub-list for field type_name
+	29, // 14: stillsky.v1.RecordTelemetryResponse.header:type_name -> stillsky.v1.RecordingHeader
+	30, // 15: stillsky.v1.RecordTelemetryResponse.frames:type_name -> stillsky.v1.RecordedFrames
+	31, // 16: stillsky.v1.RecordingHeader.camera:type_name -> stillsky.v1.CameraServiceDescribeResponse
+	32, // 17: stillsky.v1.RecordingHeader.mirror:type_name -> stillsky.v1.MirrorServiceDescribeResponse
+	4,  // 18: stillsky.v1.RecordingHeader.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	0,  // 19: stillsky.v1.RecordedFrames.states:type_name -> stillsky.v1.LoopState
+	1,  // 20: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
+	5,  // 21: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
+	7,  // 22: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
+	9,  // 23: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
+	11, // 24: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
+	13, // 25: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
+	15, // 26: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
+	17, // 27: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
+	19, // 28: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
+	21, // 29: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
+	23, // 30: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
+	25, // 31: stillsky.v1.ControlService.OptimiseModalGains:input_type -> stillsky.v1.OptimiseModalGainsRequest
+	27, // 32: stillsky.v1.ControlService.RecordTelemetry:input_type -> stillsky.v1.RecordTelemetryRequest
+	2,  // 33: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
+	6,  // 34: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
+	8,  // 35: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
+	10, // 36: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
+	12, // 37: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
+	14, // 38: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
+	16, // 39: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
+	18, // 40: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
+	20, // 41: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
+	22, // 42: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
+	24, // 43: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
+	26, // 44: stillsky.v1.ControlService.OptimiseModalGains:output_type -> stillsky.v1.OptimiseModalGainsResponse
+	28, // 45: stillsky.v1.ControlService.RecordTelemetry:output_type -> stillsky.v1.RecordTelemetryResponse
+	33, // [33:46] is the sub-list for method output_type
+	20, // [20:33] is the sub-list for method input_type
+	20, // [20:20] is the sub-list for extension type_name
+	20, // [20:20] is the sub-list for extension extendee
+	0,  // [0:20] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_control_proto_init() }
@@ -1879,13 +2313,19 @@ func file_stillsky_v1_control_proto_init() {
 	if File_stillsky_v1_control_proto != nil {
 		return
 	}
+	file_stillsky_v1_camera_proto_init()
+	file_stillsky_v1_mirror_proto_init()
+	file_stillsky_v1_control_proto_msgTypes[27].OneofWrappers = []any{
+		(*RecordTelemetryResponse_Header)(nil),
+		(*RecordTelemetryResponse_Frames)(nil),
+	}
 	type x struct{}
 	out := protoimpl.TypeBuilder{
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_control_proto_rawDesc), len(file_stillsky_v1_control_proto_rawDesc)),
 			NumEnums:      1,
-			NumMessages:   26,
+			NumMessages:   30,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -31,6 +31,7 @@ const (
 	ControlService_LoadReconstructor_FullMethodName  = "/stillsky.v1.ControlService/LoadReconstructor"
 	ControlService_StreamTelemetry_FullMethodName    = "/stillsky.v1.ControlService/StreamTelemetry"
 	ControlService_OptimiseModalGains_FullMethodName = "/stillsky.v1.ControlService/OptimiseModalGains"
+	ControlService_RecordTelemetry_FullMethodName    = "/stillsky.v1.ControlService/RecordTelemetry"
 )
 
 // ControlServiceClient is the client API for ControlService service.
@@ -38,7 +39,8 @@ const (
 // For semantics around ctx use and closing/ending streaming RPCs, please refer to https://pkg.go.dev/google.golang.org/grpc/?tab=doc#ClientConn.NewStream.
 //
 // ControlService is the loop daemon's operator interface. GetStatus and
-// StreamTelemetry are read-only; every other RPC changes the state of the loop.
+// StreamTelemetry are read-only; every other RPC changes the state of the loop or,
+// like SaveReconstructor and RecordTelemetry, hands out its reconstructor.
 //
 // Errors common to the state-changing RPCs: UNAUTHENTICATED when the daemon requires
 // credentials and none (or bad ones) were presented; PERMISSION_DENIED when the
@@ -91,6 +93,19 @@ type ControlServiceClient interface {
 	// matrix is loaded, or the loop is neither open nor closed; INVALID_ARGUMENT for a
 	// frame count outside [512, 65536]; DEADLINE_EXCEEDED when the frames do not come.
 	OptimiseModalGains(ctx context.Context, in *OptimiseModalGainsRequest, opts ...grpc.CallOption) (*OptimiseModalGainsResponse, error)
+	// RecordTelemetry records every frame the loop handles, from the next one on, for
+	// frame_count frames: the first message is the recording's header (the devices'
+	// descriptions, the loop parameters, the reconstructor file), the others carry the
+	// frames in order, several to a message. The real-time loop copies each frame into
+	// a ring of window_frames frames and never waits for the recording; a client that
+	// falls further behind than the ring loses the recording, and the loop goes on.
+	// Frames the loop refused or skipped as late are not recorded (frame numbers show
+	// the gaps).
+	// Errors: INVALID_ARGUMENT for a frame count of 0 or over 100,000,000;
+	// FAILED_PRECONDITION when the devices are not connected; DATA_LOSS when the
+	// client fell more than the ring behind; ABORTED when the device session ends
+	// during the recording.
+	RecordTelemetry(ctx context.Context, in *RecordTelemetryRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[RecordTelemetryResponse], error)
 }
 
 type controlServiceClient struct {
@@ -251,12 +266,32 @@ func (c *controlServiceClient) OptimiseModalGains(ctx context.Context, in *Optim
 	return out, nil
 }
 
+func (c *controlServiceClient) RecordTelemetry(ctx context.Context, in *RecordTelemetryRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[RecordTelemetryResponse], error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	stream, err := c.cc.NewStream(ctx, &ControlService_ServiceDesc.Streams[4], ControlService_RecordTelemetry_FullMethodName, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	x := &grpc.GenericClientStream[RecordTelemetryRequest, RecordTelemetryResponse]{ClientStream: stream}
+	if err := x.ClientStream.SendMsg(in); err != nil {
+		return nil, err
+	}
+	if err := x.ClientStream.CloseSend(); err != nil {
+		return nil, err
+	}
+	return x, nil
+}
+
+// This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
+type ControlService_RecordTelemetryClient = grpc.ServerStreamingClient[RecordTelemetryResponse]
+
 // ControlServiceServer is the server API for ControlService service.
 // All implementations must embed UnimplementedControlServiceServer
 // for forward compatibility.
 //
 // ControlService is the loop daemon's operator interface. GetStatus and
-// StreamTelemetry are read-only; every other RPC changes the state of the loop.
+// StreamTelemetry are read-only; every other RPC changes the state of the loop or,
+// like SaveReconstructor and RecordTelemetry, hands out its reconstructor.
 //
 // Errors common to the state-changing RPCs: UNAUTHENTICATED when the daemon requires
 // credentials and none (or bad ones) were presented; PERMISSION_DENIED when the
@@ -309,6 +344,19 @@ type ControlServiceServer interface {
 	// matrix is loaded, or the loop is neither open nor closed; INVALID_ARGUMENT for a
 	// frame count outside [512, 65536]; DEADLINE_EXCEEDED when the frames do not come.
 	OptimiseModalGains(context.Context, *OptimiseModalGainsRequest) (*OptimiseModalGainsResponse, error)
+	// RecordTelemetry records every frame the loop handles, from the next one on, for
+	// frame_count frames: the first message is the recording's header (the devices'
+	// descriptions, the loop parameters, the reconstructor file), the others carry the
+	// frames in order, several to a message. The real-time loop copies each frame into
+	// a ring of window_frames frames and never waits for the recording; a client that
+	// falls further behind than the ring loses the recording, and the loop goes on.
+	// Frames the loop refused or skipped as late are not recorded (frame numbers show
+	// the gaps).
+	// Errors: INVALID_ARGUMENT for a frame count of 0 or over 100,000,000;
+	// FAILED_PRECONDITION when the devices are not connected; DATA_LOSS when the
+	// client fell more than the ring behind; ABORTED when the device session ends
+	// during the recording.
+	RecordTelemetry(*RecordTelemetryRequest, grpc.ServerStreamingServer[RecordTelemetryResponse]) error
 	mustEmbedUnimplementedControlServiceServer()
 }
 
@@ -354,6 +402,9 @@ func (UnimplementedControlServiceServer) StreamTelemetry(*StreamTelemetryRequest
 }
 func (UnimplementedControlServiceServer) OptimiseModalGains(context.Context, *OptimiseModalGainsRequest) (*OptimiseModalGainsResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method OptimiseModalGains not implemented")
+}
+func (UnimplementedControlServiceServer) RecordTelemetry(*RecordTelemetryRequest, grpc.ServerStreamingServer[RecordTelemetryResponse]) error {
+	return status.Error(codes.Unimplemented, "method RecordTelemetry not implemented")
 }
 func (UnimplementedControlServiceServer) mustEmbedUnimplementedControlServiceServer() {}
 func (UnimplementedControlServiceServer) testEmbeddedByValue()                        {}
@@ -560,6 +611,17 @@ func _ControlService_OptimiseModalGains_Handler(srv interface{}, ctx context.Con
 	return interceptor(ctx, in, info, handler)
 }
 
+func _ControlService_RecordTelemetry_Handler(srv interface{}, stream grpc.ServerStream) error {
+	m := new(RecordTelemetryRequest)
+	if err := stream.RecvMsg(m); err != nil {
+		return err
+	}
+	return srv.(ControlServiceServer).RecordTelemetry(m, &grpc.GenericServerStream[RecordTelemetryRequest, RecordTelemetryResponse]{ServerStream: stream})
+}
+
+// This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
+type ControlService_RecordTelemetryServer = grpc.ServerStreamingServer[RecordTelemetryResponse]
+
 // ControlService_ServiceDesc is the grpc.ServiceDesc for ControlService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -619,6 +681,11 @@ var ControlService_ServiceDesc = grpc.ServiceDesc{
 		{
 			StreamName:    "StreamTelemetry",
 			Handler:       _ControlService_StreamTelemetry_Handler,
+			ServerStreams: true,
+		},
+		{
+			StreamName:    "RecordTelemetry",
+			Handler:       _ControlService_RecordTelemetry_Handler,
 			ServerStreams: true,
 		},
 	},

@@ -14,11 +14,12 @@ class CameraServiceDescribeRequest(_message.Message):
     def __init__(self) -> None: ...
 
 class CameraServiceDescribeResponse(_message.Message):
-    __slots__ = ["delay_frames", "description", "frame_rate_hz", "lockstep", "pupil_diameter_m", "slope_count", "slope_unit", "subaperture_size_m", "subapertures", "valid_subapertures", "wavelength_m"]
+    __slots__ = ["delay_frames", "description", "frame_rate_hz", "lockstep", "obstruction", "pupil_diameter_m", "slope_count", "slope_unit", "subaperture_size_m", "subapertures", "valid_subapertures", "wavelength_m", "zenith_deg"]
     DELAY_FRAMES_FIELD_NUMBER: _ClassVar[int]
     DESCRIPTION_FIELD_NUMBER: _ClassVar[int]
     FRAME_RATE_HZ_FIELD_NUMBER: _ClassVar[int]
     LOCKSTEP_FIELD_NUMBER: _ClassVar[int]
+    OBSTRUCTION_FIELD_NUMBER: _ClassVar[int]
     PUPIL_DIAMETER_M_FIELD_NUMBER: _ClassVar[int]
     SLOPE_COUNT_FIELD_NUMBER: _ClassVar[int]
     SLOPE_UNIT_FIELD_NUMBER: _ClassVar[int]
@@ -26,10 +27,12 @@ class CameraServiceDescribeResponse(_message.Message):
     SUBAPERTURE_SIZE_M_FIELD_NUMBER: _ClassVar[int]
     VALID_SUBAPERTURES_FIELD_NUMBER: _ClassVar[int]
     WAVELENGTH_M_FIELD_NUMBER: _ClassVar[int]
+    ZENITH_DEG_FIELD_NUMBER: _ClassVar[int]
     delay_frames: int
     description: str
     frame_rate_hz: float
     lockstep: bool
+    obstruction: float
     pupil_diameter_m: float
     slope_count: int
     slope_unit: str
@@ -37,7 +40,8 @@ class CameraServiceDescribeResponse(_message.Message):
     subapertures: int
     valid_subapertures: _containers.RepeatedScalarFieldContainer[int]
     wavelength_m: float
-    def __init__(self, subapertures: _Optional[int] = ..., valid_subapertures: _Optional[_Iterable[int]] = ..., slope_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., subaperture_size_m: _Optional[float] = ..., pupil_diameter_m: _Optional[float] = ..., wavelength_m: _Optional[float] = ..., slope_unit: _Optional[str] = ..., lockstep: bool = ..., delay_frames: _Optional[int] = ..., description: _Optional[str] = ...) -> None: ...
+    zenith_deg: float
+    def __init__(self, subapertures: _Optional[int] = ..., valid_subapertures: _Optional[_Iterable[int]] = ..., slope_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., subaperture_size_m: _Optional[float] = ..., pupil_diameter_m: _Optional[float] = ..., wavelength_m: _Optional[float] = ..., slope_unit: _Optional[str] = ..., lockstep: bool = ..., delay_frames: _Optional[int] = ..., description: _Optional[str] = ..., zenith_deg: _Optional[float] = ..., obstruction: _Optional[float] = ...) -> None: ...
 
 class SetSourceRequest(_message.Message):
     __slots__ = ["source"]

@@ -11,9 +11,11 @@ from google.protobuf import symbol_database as _symbol_database
 _sym_db = _symbol_database.Default()
 
 
+from stillsky.v1 import camera_pb2 as stillsky_dot_v1_dot_camera__pb2
+from stillsky.v1 import mirror_pb2 as stillsky_dot_v1_dot_mirror__pb2
 
 
-DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x19stillsky/v1/control.proto\x12\x0bstillsky.v1\"\x12\n\x10GetStatusRequest\"\x8c\x05\n\x11GetStatusResponse\x12%\n\x05state\x18\x01 \x01(\x0e\x32\x16.stillsky.v1.LoopState\x12\x0c\n\x04gain\x18\x02 \x01(\x01\x12\x0c\n\x04leak\x18\x03 \x01(\x01\x12\x0e\n\x06\x66rames\x18\x04 \x01(\x04\x12\x16\n\x0e\x66rames_dropped\x18\x05 \x01(\x04\x12\x17\n\x0f\x66rames_rejected\x18\x06 \x01(\x04\x12\x12\n\nlast_frame\x18\x07 \x01(\x04\x12\x13\n\x0bslope_count\x18\x08 \x01(\r\x12\x16\n\x0e\x61\x63tuator_count\x18\t \x01(\r\x12\x15\n\rframe_rate_hz\x18\n \x01(\x01\x12\x35\n\rreconstructor\x18\x0b \x01(\x0b\x32\x1e.stillsky.v1.ReconstructorInfo\x12\x1e\n\x16residual_slope_rms_rad\x18\x0c \x01(\x01\x12 \n\x18residual_wavefront_rms_m\x18\r \x01(\x01\x12\x17\n\x0fstrehl_estimate\x18\x0e \x01(\x01\x12\x1c\n\x14science_wavelength_m\x18\x0f \x01(\x01\x12\x1b\n\x13saturated_actuators\x18\x10 \x01(\r\x12\x30\n\x0brtc_latency\x18\x11 \x01(\x0b\x32\x1b.stillsky.v1.LatencySummary\x12\x37\n\x12\x65nd_to_end_latency\x18\x12 \x01(\x0b\x32\x1b.stillsky.v1.LatencySummary\x12\x17\n\x0finterlock_trips\x18\x13 \x01(\x04\x12\x16\n\x0elast_interlock\x18\x14 \x01(\t\x12\x18\n\x10\x63\x61mera_connected\x18\x15 \x01(\x08\x12\x18\n\x10mirror_connected\x18\x16 \x01(\x08\"T\n\x0eLatencySummary\x12\x0b\n\x03p50\x18\x01 \x01(\x01\x12\x0b\n\x03p99\x18\x02 \x01(\x01\x12\x0c\n\x04p999\x18\x03 \x01(\x01\x12\x0b\n\x03max\x18\x04 \x01(\x01\x12\r\n\x05\x63ount\x18\x05 \x01(\x04\"\xad\x01\n\x11ReconstructorInfo\x12\x0e\n\x06method\x18\x01 \x01(\t\x12\x12\n\nmodes_kept\x18\x02 \x01(\r\x12\x13\n\x0bslope_count\x18\x03 \x01(\r\x12\x16\n\x0e\x61\x63tuator_count\x18\x04 \x01(\r\x12\x18\n\x10\x63ondition_number\x18\x05 \x01(\x01\x12\x14\n\x0c\x63reated_unix\x18\x06 \x01(\x03\x12\x17\n\x0fsingular_values\x18\x07 \x03(\x01\"\x11\n\x0fOpenLoopRequest\"B\n\x10OpenLoopResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x12\n\x10\x43loseLoopRequest\"C\n\x11\x43loseLoopResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x11\n\x0fHoldLoopRequest\"B\n\x10HoldLoopResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x1e\n\x0eSetGainRequest\x12\x0c\n\x04gain\x18\x01 \x01(\x01\"A\n\x0fSetGainResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x1e\n\x0eSetLeakRequest\x12\x0c\n\x04leak\x18\x01 \x01(\x01\"A\n\x0fSetLeakResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"%\n\x14SetModalGainsRequest\x12\r\n\x05gains\x18\x01 \x03(\x01\"G\n\x15SetModalGainsResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x92\x01\n\x10\x43\x61librateRequest\x12\x13\n\x0b\x61mplitude_m\x18\x01 \x01(\x01\x12\x1a\n\x12\x66rames_per_pattern\x18\x02 \x01(\r\x12\x10\n\x08hadamard\x18\x03 \x01(\x08\x12\x12\n\nmodes_kept\x18\x04 \x01(\r\x12\x15\n\rmax_condition\x18\x05 \x01(\x01\x12\x10\n\x08tikhonov\x18\x06 \x01(\x01\"v\n\x11\x43\x61librateResponse\x12\r\n\x05phase\x18\x01 \x01(\t\x12\x0c\n\x04\x64one\x18\x02 \x01(\r\x12\r\n\x05total\x18\x03 \x01(\r\x12\x35\n\rreconstructor\x18\x04 \x01(\x0b\x32\x1e.stillsky.v1.ReconstructorInfo\"\x1a\n\x18SaveReconstructorRequest\"*\n\x19SaveReconstructorResponse\x12\r\n\x05\x63hunk\x18\x01 \x01(\x0c\")\n\x18LoadReconstructorRequest\x12\r\n\x05\x63hunk\x18\x01 \x01(\x0c\"R\n\x19LoadReconstructorResponse\x12\x35\n\rreconstructor\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.ReconstructorInfo\",\n\x16StreamTelemetryRequest\x12\x12\n\ndecimation\x18\x01 \x01(\r\"\x87\x02\n\x17StreamTelemetryResponse\x12\x14\n\x0c\x66rame_number\x18\x01 \x01(\x04\x12%\n\x05state\x18\x02 \x01(\x0e\x32\x16.stillsky.v1.LoopState\x12\x0e\n\x06slopes\x18\x03 \x03(\x02\x12\x10\n\x08\x63ommands\x18\x04 \x03(\x02\x12\x1e\n\x16residual_slope_rms_rad\x18\x05 \x01(\x01\x12 \n\x18residual_wavefront_rms_m\x18\x06 \x01(\x01\x12\x17\n\x0fstrehl_estimate\x18\x07 \x01(\x01\x12\x1b\n\x13saturated_actuators\x18\x08 \x01(\r\x12\x15\n\rrtc_latency_s\x18\t \x01(\x01*\x9c\x01\n\tLoopState\x12\x1a\n\x16LOOP_STATE_UNSPECIFIED\x10\x00\x12\x13\n\x0fLOOP_STATE_OPEN\x10\x01\x12\x15\n\x11LOOP_STATE_CLOSED\x10\x02\x12\x13\n\x0fLOOP_STATE_HOLD\x10\x03\x12\x1a\n\x16LOOP_STATE_CALIBRATING\x10\x04\x12\x16\n\x12LOOP_STATE_TRIPPED\x10\x05\x32\x98\x07\n\x0e\x43ontrolService\x12J\n\tGetStatus\x12\x1d.stillsky.v1.GetStatusRequest\x1a\x1e.stillsky.v1.GetStatusResponse\x12G\n\x08OpenLoop\x12\x1c.stillsky.v1.OpenLoopRequest\x1a\x1d.stillsky.v1.OpenLoopResponse\x12J\n\tCloseLoop\x12\x1d.stillsky.v1.CloseLoopRequest\x1a\x1e.stillsky.v1.CloseLoopResponse\x12G\n\x08HoldLoop\x12\x1c.stillsky.v1.HoldLoopRequest\x1a\x1d.stillsky.v1.HoldLoopResponse\x12\x44\n\x07SetGain\x12\x1b.stillsky.v1.SetGainRequest\x1a\x1c.stillsky.v1.SetGainResponse\x12\x44\n\x07SetLeak\x12\x1b.stillsky.v1.SetLeakRequest\x1a\x1c.stillsky.v1.SetLeakResponse\x12V\n\rSetModalGains\x12!.stillsky.v1.SetModalGainsRequest\x1a\".stillsky.v1.SetModalGainsResponse\x12L\n\tCalibrate\x12\x1d.stillsky.v1.CalibrateRequest\x1a\x1e.stillsky.v1.CalibrateResponse0\x01\x12\x64\n\x11SaveReconstructor\x12%.stillsky.v1.SaveReconstructorRequest\x1a&.stillsky.v1.SaveReconstructorResponse0\x01\x12\x64\n\x11LoadReconstructor\x12%.stillsky.v1.LoadReconstructorRequest\x1a&.stillsky.v1.LoadReconstructorResponse(\x01\x12^\n\x0fStreamTelemetry\x12#.stillsky.v1.StreamTelemetryRequest\x1a$.stillsky.v1.StreamTelemetryResponse0\x01\x42\'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3')
+DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x19stillsky/v1/control.proto\x12\x0bstillsky.v1\x1a\x18stillsky/v1/camera.proto\x1a\x18stillsky/v1/mirror.proto\"\x12\n\x10GetStatusRequest\"\x8c\x05\n\x11GetStatusResponse\x12%\n\x05state\x18\x01 \x01(\x0e\x32\x16.stillsky.v1.LoopState\x12\x0c\n\x04gain\x18\x02 \x01(\x01\x12\x0c\n\x04leak\x18\x03 \x01(\x01\x12\x0e\n\x06\x66rames\x18\x04 \x01(\x04\x12\x16\n\x0e\x66rames_dropped\x18\x05 \x01(\x04\x12\x17\n\x0f\x66rames_rejected\x18\x06 \x01(\x04\x12\x12\n\nlast_frame\x18\x07 \x01(\x04\x12\x13\n\x0bslope_count\x18\x08 \x01(\r\x12\x16\n\x0e\x61\x63tuator_count\x18\t \x01(\r\x12\x15\n\rframe_rate_hz\x18\n \x01(\x01\x12\x35\n\rreconstructor\x18\x0b \x01(\x0b\x32\x1e.stillsky.v1.ReconstructorInfo\x12\x1e\n\x16residual_slope_rms_rad\x18\x0c \x01(\x01\x12 \n\x18residual_wavefront_rms_m\x18\r \x01(\x01\x12\x17\n\x0fstrehl_estimate\x18\x0e \x01(\x01\x12\x1c\n\x14science_wavelength_m\x18\x0f \x01(\x01\x12\x1b\n\x13saturated_actuators\x18\x10 \x01(\r\x12\x30\n\x0brtc_latency\x18\x11 \x01(\x0b\x32\x1b.stillsky.v1.LatencySummary\x12\x37\n\x12\x65nd_to_end_latency\x18\x12 \x01(\x0b\x32\x1b.stillsky.v1.LatencySummary\x12\x17\n\x0finterlock_trips\x18\x13 \x01(\x04\x12\x16\n\x0elast_interlock\x18\x14 \x01(\t\x12\x18\n\x10\x63\x61mera_connected\x18\x15 \x01(\x08\x12\x18\n\x10mirror_connected\x18\x16 \x01(\x08\"T\n\x0eLatencySummary\x12\x0b\n\x03p50\x18\x01 \x01(\x01\x12\x0b\n\x03p99\x18\x02 \x01(\x01\x12\x0c\n\x04p999\x18\x03 \x01(\x01\x12\x0b\n\x03max\x18\x04 \x01(\x01\x12\r\n\x05\x63ount\x18\x05 \x01(\x04\"\xad\x01\n\x11ReconstructorInfo\x12\x0e\n\x06method\x18\x01 \x01(\t\x12\x12\n\nmodes_kept\x18\x02 \x01(\r\x12\x13\n\x0bslope_count\x18\x03 \x01(\r\x12\x16\n\x0e\x61\x63tuator_count\x18\x04 \x01(\r\x12\x18\n\x10\x63ondition_number\x18\x05 \x01(\x01\x12\x14\n\x0c\x63reated_unix\x18\x06 \x01(\x03\x12\x17\n\x0fsingular_values\x18\x07 \x03(\x01\"\x11\n\x0fOpenLoopRequest\"B\n\x10OpenLoopResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x12\n\x10\x43loseLoopRequest\"C\n\x11\x43loseLoopResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x11\n\x0fHoldLoopRequest\"B\n\x10HoldLoopResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x1e\n\x0eSetGainRequest\x12\x0c\n\x04gain\x18\x01 \x01(\x01\"A\n\x0fSetGainResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x1e\n\x0eSetLeakRequest\x12\x0c\n\x04leak\x18\x01 \x01(\x01\"A\n\x0fSetLeakResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"%\n\x14SetModalGainsRequest\x12\r\n\x05gains\x18\x01 \x03(\x01\"G\n\x15SetModalGainsResponse\x12.\n\x06status\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"\x92\x01\n\x10\x43\x61librateRequest\x12\x13\n\x0b\x61mplitude_m\x18\x01 \x01(\x01\x12\x1a\n\x12\x66rames_per_pattern\x18\x02 \x01(\r\x12\x10\n\x08hadamard\x18\x03 \x01(\x08\x12\x12\n\nmodes_kept\x18\x04 \x01(\r\x12\x15\n\rmax_condition\x18\x05 \x01(\x01\x12\x10\n\x08tikhonov\x18\x06 \x01(\x01\"v\n\x11\x43\x61librateResponse\x12\r\n\x05phase\x18\x01 \x01(\t\x12\x0c\n\x04\x64one\x18\x02 \x01(\r\x12\r\n\x05total\x18\x03 \x01(\r\x12\x35\n\rreconstructor\x18\x04 \x01(\x0b\x32\x1e.stillsky.v1.ReconstructorInfo\"\x1a\n\x18SaveReconstructorRequest\"*\n\x19SaveReconstructorResponse\x12\r\n\x05\x63hunk\x18\x01 \x01(\x0c\")\n\x18LoadReconstructorRequest\x12\r\n\x05\x63hunk\x18\x01 \x01(\x0c\"R\n\x19LoadReconstructorResponse\x12\x35\n\rreconstructor\x18\x01 \x01(\x0b\x32\x1e.stillsky.v1.ReconstructorInfo\",\n\x16StreamTelemetryRequest\x12\x12\n\ndecimation\x18\x01 \x01(\r\"\x87\x02\n\x17StreamTelemetryResponse\x12\x14\n\x0c\x66rame_number\x18\x01 \x01(\x04\x12%\n\x05state\x18\x02 \x01(\x0e\x32\x16.stillsky.v1.LoopState\x12\x0e\n\x06slopes\x18\x03 \x03(\x02\x12\x10\n\x08\x63ommands\x18\x04 \x03(\x02\x12\x1e\n\x16residual_slope_rms_rad\x18\x05 \x01(\x01\x12 \n\x18residual_wavefront_rms_m\x18\x06 \x01(\x01\x12\x17\n\x0fstrehl_estimate\x18\x07 \x01(\x01\x12\x1b\n\x13saturated_actuators\x18\x08 \x01(\r\x12\x15\n\rrtc_latency_s\x18\t \x01(\x01\"<\n\x19OptimiseModalGainsRequest\x12\x0e\n\x06\x66rames\x18\x01 \x01(\r\x12\x0f\n\x07\x64ry_run\x18\x02 \x01(\x08\"\xa0\x01\n\x1aOptimiseModalGainsResponse\x12\r\n\x05gains\x18\x01 \x03(\x01\x12!\n\x19predicted_residual_before\x18\x02 \x01(\x01\x12 \n\x18predicted_residual_after\x18\x03 \x01(\x01\x12.\n\x06status\x18\x04 \x01(\x0b\x32\x1e.stillsky.v1.GetStatusResponse\"-\n\x16RecordTelemetryRequest\x12\x13\n\x0b\x66rame_count\x18\x01 \x01(\x04\"\x83\x01\n\x17RecordTelemetryResponse\x12.\n\x06header\x18\x01 \x01(\x0b\x32\x1c.stillsky.v1.RecordingHeaderH\x00\x12-\n\x06\x66rames\x18\x02 \x01(\x0b\x32\x1b.stillsky.v1.RecordedFramesH\x00\x42\t\n\x07\x63ontent\"\xdb\x02\n\x0fRecordingHeader\x12:\n\x06\x63\x61mera\x18\x01 \x01(\x0b\x32*.stillsky.v1.CameraServiceDescribeResponse\x12:\n\x06mirror\x18\x02 \x01(\x0b\x32*.stillsky.v1.MirrorServiceDescribeResponse\x12\x0c\n\x04gain\x18\x03 \x01(\x01\x12\x0c\n\x04leak\x18\x04 \x01(\x01\x12\x13\n\x0bmodal_gains\x18\x05 \x03(\x01\x12\x1c\n\x14science_wavelength_m\x18\x06 \x01(\x01\x12\x35\n\rreconstructor\x18\x07 \x01(\x0b\x32\x1e.stillsky.v1.ReconstructorInfo\x12\x1a\n\x12reconstructor_file\x18\x08 \x01(\x0c\x12\x15\n\rwindow_frames\x18\t \x01(\r\x12\x17\n\x0fstarted_unix_ns\x18\n \x01(\x03\"\x9c\x02\n\x0eRecordedFrames\x12\x15\n\rframe_numbers\x18\x01 \x03(\x04\x12\x16\n\x0ereadout_end_ns\x18\x02 \x03(\x03\x12\x13\n\x0breceived_ns\x18\x03 \x03(\x03\x12\x13\n\x0b\x63omputed_ns\x18\x04 \x03(\x03\x12\x0f\n\x07sent_ns\x18\x05 \x03(\x03\x12&\n\x06states\x18\x06 \x03(\x0e\x32\x16.stillsky.v1.LoopState\x12\x1b\n\x13saturated_actuators\x18\x07 \x03(\r\x12 \n\x18residual_wavefront_rms_m\x18\x08 \x03(\x01\x12\x17\n\x0fstrehl_estimate\x18\t \x03(\x01\x12\x0e\n\x06slopes\x18\n \x03(\x02\x12\x10\n\x08\x63ommands\x18\x0b \x03(\x02*\x9c\x01\n\tLoopState\x12\x1a\n\x16LOOP_STATE_UNSPECIFIED\x10\x00\x12\x13\n\x0fLOOP_STATE_OPEN\x10\x01\x12\x15\n\x11LOOP_STATE_CLOSED\x10\x02\x12\x13\n\x0fLOOP_STATE_HOLD\x10\x03\x12\x1a\n\x16LOOP_STATE_CALIBRATING\x10\x04\x12\x16\n\x12LOOP_STATE_TRIPPED\x10\x05\x32\xdf\x08\n\x0e\x43ontrolService\x12J\n\tGetStatus\x12\x1d.stillsky.v1.GetStatusRequest\x1a\x1e.stillsky.v1.GetStatusResponse\x12G\n\x08OpenLoop\x12\x1c.stillsky.v1.OpenLoopRequest\x1a\x1d.stillsky.v1.OpenLoopResponse\x12J\n\tCloseLoop\x12\x1d.stillsky.v1.CloseLoopRequest\x1a\x1e.stillsky.v1.CloseLoopResponse\x12G\n\x08HoldLoop\x12\x1c.stillsky.v1.HoldLoopRequest\x1a\x1d.stillsky.v1.HoldLoopResponse\x12\x44\n\x07SetGain\x12\x1b.stillsky.v1.SetGainRequest\x1a\x1c.stillsky.v1.SetGainResponse\x12\x44\n\x07SetLeak\x12\x1b.stillsky.v1.SetLeakRequest\x1a\x1c.stillsky.v1.SetLeakResponse\x12V\n\rSetModalGains\x12!.stillsky.v1.SetModalGainsRequest\x1a\".stillsky.v1.SetModalGainsResponse\x12L\n\tCalibrate\x12\x1d.stillsky.v1.CalibrateRequest\x1a\x1e.stillsky.v1.CalibrateResponse0\x01\x12\x64\n\x11SaveReconstructor\x12%.stillsky.v1.SaveReconstructorRequest\x1a&.stillsky.v1.SaveReconstructorResponse0\x01\x12\x64\n\x11LoadReconstructor\x12%.stillsky.v1.LoadReconstructorRequest\x1a&.stillsky.v1.LoadReconstructorResponse(\x01\x12^\n\x0fStreamTelemetry\x12#.stillsky.v1.StreamTelemetryRequest\x1a$.stillsky.v1.StreamTelemetryResponse0\x01\x12\x65\n\x12OptimiseModalGains\x12&.stillsky.v1.OptimiseModalGainsRequest\x1a\'.stillsky.v1.OptimiseModalGainsResponse\x12^\n\x0fRecordTelemetry\x12#.stillsky.v1.RecordTelemetryRequest\x1a$.stillsky.v1.RecordTelemetryResponse0\x01\x42\'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3')
 
 _builder.BuildMessageAndEnumDescriptors(DESCRIPTOR, globals())
 _builder.BuildTopDescriptorsAndMessages(DESCRIPTOR, 'stillsky.v1.control_pb2', globals())
@@ -21,56 +23,68 @@ if _descriptor._USE_C_DESCRIPTORS == False:
 
   DESCRIPTOR._options = None
   DESCRIPTOR._serialized_options = b'Z%stillsky/proto/stillsky/v1;stillskyv1'
-  _LOOPSTATE._serialized_start=2333
-  _LOOPSTATE._serialized_end=2489
-  _GETSTATUSREQUEST._serialized_start=42
-  _GETSTATUSREQUEST._serialized_end=60
-  _GETSTATUSRESPONSE._serialized_start=63
-  _GETSTATUSRESPONSE._serialized_end=715
-  _LATENCYSUMMARY._serialized_start=717
-  _LATENCYSUMMARY._serialized_end=801
-  _RECONSTRUCTORINFO._serialized_start=804
-  _RECONSTRUCTORINFO._serialized_end=977
-  _OPENLOOPREQUEST._serialized_start=979
-  _OPENLOOPREQUEST._serialized_end=996
-  _OPENLOOPRESPONSE._serialized_start=998
-  _OPENLOOPRESPONSE._serialized_end=1064
-  _CLOSELOOPREQUEST._serialized_start=1066
-  _CLOSELOOPREQUEST._serialized_end=1084
-  _CLOSELOOPRESPONSE._serialized_start=1086
-  _CLOSELOOPRESPONSE._serialized_end=1153
-  _HOLDLOOPREQUEST._serialized_start=1155
-  _HOLDLOOPREQUEST._serialized_end=1172
-  _HOLDLOOPRESPONSE._serialized_start=1174
-  _HOLDLOOPRESPONSE._serialized_end=1240
-  _SETGAINREQUEST._serialized_start=1242
-  _SETGAINREQUEST._serialized_end=1272
-  _SETGAINRESPONSE._serialized_start=1274
-  _SETGAINRESPONSE._serialized_end=1339
-  _SETLEAKREQUEST._serialized_start=1341
-  _SETLEAKREQUEST._serialized_end=1371
-  _SETLEAKRESPONSE._serialized_start=1373
-  _SETLEAKRESPONSE._serialized_end=1438
-  _SETMODALGAINSREQUEST._serialized_start=1440
-  _SETMODALGAINSREQUEST._serialized_end=1477
-  _SETMODALGAINSRESPONSE._serialized_start=1479
-  _SETMODALGAINSRESPONSE._serialized_end=1550
-  _CALIBRATEREQUEST._serialized_start=1553
-  _CALIBRATEREQUEST._serialized_end=1699
-  _CALIBRATERESPONSE._serialized_start=1701
-  _CALIBRATERESPONSE._serialized_end=1819
-  _SAVERECONSTRUCTORREQUEST._serialized_start=1821
-  _SAVERECONSTRUCTORREQUEST._serialized_end=1847
-  _SAVERECONSTRUCTORRESPONSE._serialized_start=1849
-  _SAVERECONSTRUCTORRESPONSE._serialized_end=1891
-  _LOADRECONSTRUCTORREQUEST._serialized_start=1893
-  _LOADRECONSTRUCTORREQUEST._serialized_end=1934
-  _LOADRECONSTRUCTORRESPONSE._serialized_start=1936
-  _LOADRECONSTRUCTORRESPONSE._serialized_end=2018
-  _STREAMTELEMETRYREQUEST._serialized_start=2020
-  _STREAMTELEMETRYREQUEST._serialized_end=2064
-  _STREAMTELEMETRYRESPONSE._serialized_start=2067
-  _STREAMTELEMETRYRESPONSE._serialized_end=2330
-  _CONTROLSERVICE._serialized_start=2492
-  _CONTROLSERVICE._serialized_end=3412
+  _LOOPSTATE._serialized_start=3428
+  _LOOPSTATE._serialized_end=3584
+  _GETSTATUSREQUEST._serialized_start=94
+  _GETSTATUSREQUEST._serialized_end=112
+  _GETSTATUSRESPONSE._serialized_start=115
+  _GETSTATUSRESPONSE._serialized_end=767
+  _LATENCYSUMMARY._serialized_start=769
+  _LATENCYSUMMARY._serialized_end=853
+  _RECONSTRUCTORINFO._serialized_start=856
+  _RECONSTRUCTORINFO._serialized_end=1029
+  _OPENLOOPREQUEST._serialized_start=1031
+  _OPENLOOPREQUEST._serialized_end=1048
+  _OPENLOOPRESPONSE._serialized_start=1050
+  _OPENLOOPRESPONSE._serialized_end=1116
+  _CLOSELOOPREQUEST._serialized_start=1118
+  _CLOSELOOPREQUEST._serialized_end=1136
+  _CLOSELOOPRESPONSE._serialized_start=1138
+  _CLOSELOOPRESPONSE._serialized_end=1205
+  _HOLDLOOPREQUEST._serialized_start=1207
+  _HOLDLOOPREQUEST._serialized_end=1224
+  _HOLDLOOPRESPONSE._serialized_start=1226
+  _HOLDLOOPRESPONSE._serialized_end=1292
+  _SETGAINREQUEST._serialized_start=1294
+  _SETGAINREQUEST._serialized_end=1324
+  _SETGAINRESPONSE._serialized_start=1326
+  _SETGAINRESPONSE._serialized_end=1391
+  _SETLEAKREQUEST._serialized_start=1393
+  _SETLEAKREQUEST._serialized_end=1423
+  _SETLEAKRESPONSE._serialized_start=1425
+  _SETLEAKRESPONSE._serialized_end=1490
+  _SETMODALGAINSREQUEST._serialized_start=1492
+  _SETMODALGAINSREQUEST._serialized_end=1529
+  _SETMODALGAINSRESPONSE._serialized_start=1531
+  _SETMODALGAINSRESPONSE._serialized_end=1602
+  _CALIBRATEREQUEST._serialized_start=1605
+  _CALIBRATEREQUEST._serialized_end=1751
+  _CALIBRATERESPONSE._serialized_start=1753
+  _CALIBRATERESPONSE._serialized_end=1871
+  _SAVERECONSTRUCTORREQUEST._serialized_start=1873
+  _SAVERECONSTRUCTORREQUEST._serialized_end=1899
+  _SAVERECONSTRUCTORRESPONSE._serialized_start=1901
+  _SAVERECONSTRUCTORRESPONSE._serialized_end=1943
+  _LOADRECONSTRUCTORREQUEST._serialized_start=1945
+  _LOADRECONSTRUCTORREQUEST._serialized_end=1986
+  _LOADRECONSTRUCTORRESPONSE._serialized_start=1988
+  _LOADRECONSTRUCTORRESPONSE._serialized_end=2070
+  _STREAMTELEMETRYREQUEST._serialized_start=2072
+  _STREAMTELEMETRYREQUEST._serialized_end=2116
+  _STREAMTELEMETRYRESPONSE._serialized_start=2119
+  _STREAMTELEMETRYRESPONSE._serialized_end=2382
+  _OPTIMISEMODALGAINSREQUEST._serialized_start=2384
+  _OPTIMISEMODALGAINSREQUEST._serialized_end=2444
+  _OPTIMISEMODALGAINSRESPONSE._serialized_start=2447
+  _OPTIMISEMODALGAINSRESPONSE._serialized_end=2607
+  _RECORDTELEMETRYREQUEST._serialized_start=2609
+  _RECORDTELEMETRYREQUEST._serialized_end=2654
+  _RECORDTELEMETRYRESPONSE._serialized_start=2657
+  _RECORDTELEMETRYRESPONSE._serialized_end=2788
+  _RECORDINGHEADER._serialized_start=2791
+  _RECORDINGHEADER._serialized_end=3138
+  _RECORDEDFRAMES._serialized_start=3141
+  _RECORDEDFRAMES._serialized_end=3425
+  _CONTROLSERVICE._serialized_start=3587
+  _CONTROLSERVICE._serialized_end=4706
 # @@protoc_insertion_point(module_scope)

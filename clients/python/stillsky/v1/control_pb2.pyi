@@ -1,3 +1,5 @@
+from stillsky.v1 import camera_pb2 as _camera_pb2
+from stillsky.v1 import mirror_pb2 as _mirror_pb2
 from google.protobuf.internal import containers as _containers
 from google.protobuf.internal import enum_type_wrapper as _enum_type_wrapper
 from google.protobuf import descriptor as _descriptor
@@ -148,6 +150,26 @@ class OpenLoopResponse(_message.Message):
     status: GetStatusResponse
     def __init__(self, status: _Optional[_Union[GetStatusResponse, _Mapping]] = ...) -> None: ...
 
+class OptimiseModalGainsRequest(_message.Message):
+    __slots__ = ["dry_run", "frames"]
+    DRY_RUN_FIELD_NUMBER: _ClassVar[int]
+    FRAMES_FIELD_NUMBER: _ClassVar[int]
+    dry_run: bool
+    frames: int
+    def __init__(self, frames: _Optional[int] = ..., dry_run: bool = ...) -> None: ...
+
+class OptimiseModalGainsResponse(_message.Message):
+    __slots__ = ["gains", "predicted_residual_after", "predicted_residual_before", "status"]
+    GAINS_FIELD_NUMBER: _ClassVar[int]
+    PREDICTED_RESIDUAL_AFTER_FIELD_NUMBER: _ClassVar[int]
+    PREDICTED_RESIDUAL_BEFORE_FIELD_NUMBER: _ClassVar[int]
+    STATUS_FIELD_NUMBER: _ClassVar[int]
+    gains: _containers.RepeatedScalarFieldContainer[float]
+    predicted_residual_after: float
+    predicted_residual_before: float
+    status: GetStatusResponse
+    def __init__(self, gains: _Optional[_Iterable[float]] = ..., predicted_residual_before: _Optional[float] = ..., predicted_residual_after: _Optional[float] = ..., status: _Optional[_Union[GetStatusResponse, _Mapping]] = ...) -> None: ...
+
 class ReconstructorInfo(_message.Message):
     __slots__ = ["actuator_count", "condition_number", "created_unix", "method", "modes_kept", "singular_values", "slope_count"]
     ACTUATOR_COUNT_FIELD_NUMBER: _ClassVar[int]
@@ -165,6 +187,70 @@ class ReconstructorInfo(_message.Message):
     singular_values: _containers.RepeatedScalarFieldContainer[float]
     slope_count: int
     def __init__(self, method: _Optional[str] = ..., modes_kept: _Optional[int] = ..., slope_count: _Optional[int] = ..., actuator_count: _Optional[int] = ..., condition_number: _Optional[float] = ..., created_unix: _Optional[int] = ..., singular_values: _Optional[_Iterable[float]] = ...) -> None: ...
+
+class RecordTelemetryRequest(_message.Message):
+    __slots__ = ["frame_count"]
+    FRAME_COUNT_FIELD_NUMBER: _ClassVar[int]
+    frame_count: int
+    def __init__(self, frame_count: _Optional[int] = ...) -> None: ...
+
+class RecordTelemetryResponse(_message.Message):
+    __slots__ = ["frames", "header"]
+    FRAMES_FIELD_NUMBER: _ClassVar[int]
+    HEADER_FIELD_NUMBER: _ClassVar[int]
+    frames: RecordedFrames
+    header: RecordingHeader
+    def __init__(self, header: _Optional[_Union[RecordingHeader, _Mapping]] = ..., frames: _Optional[_Union[RecordedFrames, _Mapping]] = ...) -> None: ...
+
+class RecordedFrames(_message.Message):
+    __slots__ = ["commands", "computed_ns", "frame_numbers", "readout_end_ns", "received_ns", "residual_wavefront_rms_m", "saturated_actuators", "sent_ns", "slopes", "states", "strehl_estimate"]
+    COMMANDS_FIELD_NUMBER: _ClassVar[int]
+    COMPUTED_NS_FIELD_NUMBER: _ClassVar[int]
+    FRAME_NUMBERS_FIELD_NUMBER: _ClassVar[int]
+    READOUT_END_NS_FIELD_NUMBER: _ClassVar[int]
+    RECEIVED_NS_FIELD_NUMBER: _ClassVar[int]
+    RESIDUAL_WAVEFRONT_RMS_M_FIELD_NUMBER: _ClassVar[int]
+    SATURATED_ACTUATORS_FIELD_NUMBER: _ClassVar[int]
+    SENT_NS_FIELD_NUMBER: _ClassVar[int]
+    SLOPES_FIELD_NUMBER: _ClassVar[int]
+    STATES_FIELD_NUMBER: _ClassVar[int]
+    STREHL_ESTIMATE_FIELD_NUMBER: _ClassVar[int]
+    commands: _containers.RepeatedScalarFieldContainer[float]
+    computed_ns: _containers.RepeatedScalarFieldContainer[int]
+    frame_numbers: _containers.RepeatedScalarFieldContainer[int]
+    readout_end_ns: _containers.RepeatedScalarFieldContainer[int]
+    received_ns: _containers.RepeatedScalarFieldContainer[int]
+    residual_wavefront_rms_m: _containers.RepeatedScalarFieldContainer[float]
+    saturated_actuators: _containers.RepeatedScalarFieldContainer[int]
+    sent_ns: _containers.RepeatedScalarFieldContainer[int]
+    slopes: _containers.RepeatedScalarFieldContainer[float]
+    states: _containers.RepeatedScalarFieldContainer[LoopState]
+    strehl_estimate: _containers.RepeatedScalarFieldContainer[float]
+    def __init__(self, frame_numbers: _Optional[_Iterable[int]] = ..., readout_end_ns: _Optional[_Iterable[int]] = ..., received_ns: _Optional[_Iterable[int]] = ..., computed_ns: _Optional[_Iterable[int]] = ..., sent_ns: _Optional[_Iterable[int]] = ..., states: _Optional[_Iterable[_Union[LoopState, str]]] = ..., saturated_actuators: _Optional[_Iterable[int]] = ..., residual_wavefront_rms_m: _Optional[_Iterable[float]] = ..., strehl_estimate: _Optional[_Iterable[float]] = ..., slopes: _Optional[_Iterable[float]] = ..., commands: _Optional[_Iterable[float]] = ...) -> None: ...
+
+class RecordingHeader(_message.Message):
+    __slots__ = ["camera", "gain", "leak", "mirror", "modal_gains", "reconstructor", "reconstructor_file", "science_wavelength_m", "started_unix_ns", "window_frames"]
+    CAMERA_FIELD_NUMBER: _ClassVar[int]
+    GAIN_FIELD_NUMBER: _ClassVar[int]
+    LEAK_FIELD_NUMBER: _ClassVar[int]
+    MIRROR_FIELD_NUMBER: _ClassVar[int]
+    MODAL_GAINS_FIELD_NUMBER: _ClassVar[int]
+    RECONSTRUCTOR_FIELD_NUMBER: _ClassVar[int]
+    RECONSTRUCTOR_FILE_FIELD_NUMBER: _ClassVar[int]
+    SCIENCE_WAVELENGTH_M_FIELD_NUMBER: _ClassVar[int]
+    STARTED_UNIX_NS_FIELD_NUMBER: _ClassVar[int]
+    WINDOW_FRAMES_FIELD_NUMBER: _ClassVar[int]
+    camera: _camera_pb2.CameraServiceDescribeResponse
+    gain: float
+    leak: float
+    mirror: _mirror_pb2.MirrorServiceDescribeResponse
+    modal_gains: _containers.RepeatedScalarFieldContainer[float]
+    reconstructor: ReconstructorInfo
+    reconstructor_file: bytes
+    science_wavelength_m: float
+    started_unix_ns: int
+    window_frames: int
+    def __init__(self, camera: _Optional[_Union[_camera_pb2.CameraServiceDescribeResponse, _Mapping]] = ..., mirror: _Optional[_Union[_mirror_pb2.MirrorServiceDescribeResponse, _Mapping]] = ..., gain: _Optional[float] = ..., leak: _Optional[float] = ..., modal_gains: _Optional[_Iterable[float]] = ..., science_wavelength_m: _Optional[float] = ..., reconstructor: _Optional[_Union[ReconstructorInfo, _Mapping]] = ..., reconstructor_file: _Optional[bytes] = ..., window_frames: _Optional[int] = ..., started_unix_ns: _Optional[int] = ...) -> None: ...
 
 class SaveReconstructorRequest(_message.Message):
     __slots__ = []

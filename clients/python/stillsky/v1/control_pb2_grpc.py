@@ -7,7 +7,8 @@ from stillsky.v1 import control_pb2 as stillsky_dot_v1_dot_control__pb2
 
 class ControlServiceStub(object):
     """ControlService is the loop daemon's operator interface. GetStatus and
-    StreamTelemetry are read-only; every other RPC changes the state of the loop.
+    StreamTelemetry are read-only; every other RPC changes the state of the loop or,
+    like SaveReconstructor and RecordTelemetry, hands out its reconstructor.
 
     Errors common to the state-changing RPCs: UNAUTHENTICATED when the daemon requires
     credentials and none (or bad ones) were presented; PERMISSION_DENIED when the
@@ -75,11 +76,22 @@ class ControlServiceStub(object):
                 request_serializer=stillsky_dot_v1_dot_control__pb2.StreamTelemetryRequest.SerializeToString,
                 response_deserializer=stillsky_dot_v1_dot_control__pb2.StreamTelemetryResponse.FromString,
                 )
+        self.OptimiseModalGains = channel.unary_unary(
+                '/stillsky.v1.ControlService/OptimiseModalGains',
+                request_serializer=stillsky_dot_v1_dot_control__pb2.OptimiseModalGainsRequest.SerializeToString,
+                response_deserializer=stillsky_dot_v1_dot_control__pb2.OptimiseModalGainsResponse.FromString,
+                )
+        self.RecordTelemetry = channel.unary_stream(
+                '/stillsky.v1.ControlService/RecordTelemetry',
+                request_serializer=stillsky_dot_v1_dot_control__pb2.RecordTelemetryRequest.SerializeToString,
+                response_deserializer=stillsky_dot_v1_dot_control__pb2.RecordTelemetryResponse.FromString,
+                )
 
 
 class ControlServiceServicer(object):
     """ControlService is the loop daemon's operator interface. GetStatus and
-    StreamTelemetry are read-only; every other RPC changes the state of the loop.
+    StreamTelemetry are read-only; every other RPC changes the state of the loop or,
+    like SaveReconstructor and RecordTelemetry, hands out its reconstructor.
 
     Errors common to the state-changing RPCs: UNAUTHENTICATED when the daemon requires
     credentials and none (or bad ones) were presented; PERMISSION_DENIED when the
@@ -180,6 +192,37 @@ class ControlServiceServicer(object):
         context.set_details('Method not implemented!')
         raise NotImplementedError('Method not implemented!')
 
+    def OptimiseModalGains(self, request, context):
+        """OptimiseModalGains records the next frames, projects their pseudo-open-loop
+        slopes on the reconstructor's modes, chooses each mode's gain to minimise its
+        predicted residual from its temporal spectrum (Gendron & Léna 1994) and, unless
+        dry_run, applies the gains as SetModalGains would, relative to the current gain.
+        Errors: FAILED_PRECONDITION when no reconstructor with modes and an interaction
+        matrix is loaded, or the loop is neither open nor closed; INVALID_ARGUMENT for a
+        frame count outside [512, 65536]; DEADLINE_EXCEEDED when the frames do not come.
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
+    def RecordTelemetry(self, request, context):
+        """RecordTelemetry records every frame the loop handles, from the next one on, for
+        frame_count frames: the first message is the recording's header (the devices'
+        descriptions, the loop parameters, the reconstructor file), the others carry the
+        frames in order, several to a message. The real-time loop copies each frame into
+        a ring of window_frames frames and never waits for the recording; a client that
+        falls further behind than the ring loses the recording, and the loop goes on.
+        Frames the loop refused or skipped as late are not recorded (frame numbers show
+        the gaps).
+        Errors: INVALID_ARGUMENT for a frame count of 0 or over 100,000,000;
+        FAILED_PRECONDITION when the devices are not connected; DATA_LOSS when the
+        client fell more than the ring behind; ABORTED when the device session ends
+        during the recording.
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
 
 def add_ControlServiceServicer_to_server(servicer, server):
     rpc_method_handlers = {
@@ -238,6 +281,16 @@ def add_ControlServiceServicer_to_server(servicer, server):
                     request_deserializer=stillsky_dot_v1_dot_control__pb2.StreamTelemetryRequest.FromString,
                     response_serializer=stillsky_dot_v1_dot_control__pb2.StreamTelemetryResponse.SerializeToString,
             ),
+            'OptimiseModalGains': grpc.unary_unary_rpc_method_handler(
+                    servicer.OptimiseModalGains,
+                    request_deserializer=stillsky_dot_v1_dot_control__pb2.OptimiseModalGainsRequest.FromString,
+                    response_serializer=stillsky_dot_v1_dot_control__pb2.OptimiseModalGainsResponse.SerializeToString,
+            ),
+            'RecordTelemetry': grpc.unary_stream_rpc_method_handler(
+                    servicer.RecordTelemetry,
+                    request_deserializer=stillsky_dot_v1_dot_control__pb2.RecordTelemetryRequest.FromString,
+                    response_serializer=stillsky_dot_v1_dot_control__pb2.RecordTelemetryResponse.SerializeToString,
+            ),
     }
     generic_handler = grpc.method_handlers_generic_handler(
             'stillsky.v1.ControlService', rpc_method_handlers)
@@ -247,7 +300,8 @@ def add_ControlServiceServicer_to_server(servicer, server):
  # This class is part of an EXPERIMENTAL API.
 class ControlService(object):
     """ControlService is the loop daemon's operator interface. GetStatus and
-    StreamTelemetry are read-only; every other RPC changes the state of the loop.
+    StreamTelemetry are read-only; every other RPC changes the state of the loop or,
+    like SaveReconstructor and RecordTelemetry, hands out its reconstructor.
 
     Errors common to the state-changing RPCs: UNAUTHENTICATED when the daemon requires
     credentials and none (or bad ones) were presented; PERMISSION_DENIED when the
@@ -438,5 +492,39 @@ class ControlService(object):
         return grpc.experimental.unary_stream(request, target, '/stillsky.v1.ControlService/StreamTelemetry',
             stillsky_dot_v1_dot_control__pb2.StreamTelemetryRequest.SerializeToString,
             stillsky_dot_v1_dot_control__pb2.StreamTelemetryResponse.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
+
+    @staticmethod
+    def OptimiseModalGains(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_unary(request, target, '/stillsky.v1.ControlService/OptimiseModalGains',
+            stillsky_dot_v1_dot_control__pb2.OptimiseModalGainsRequest.SerializeToString,
+            stillsky_dot_v1_dot_control__pb2.OptimiseModalGainsResponse.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
+
+    @staticmethod
+    def RecordTelemetry(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_stream(request, target, '/stillsky.v1.ControlService/RecordTelemetry',
+            stillsky_dot_v1_dot_control__pb2.RecordTelemetryRequest.SerializeToString,
+            stillsky_dot_v1_dot_control__pb2.RecordTelemetryResponse.FromString,
             options, channel_credentials,
             insecure, call_credentials, compression, wait_for_ready, timeout, metadata)

@@ -24,7 +24,7 @@ import (
 )
 
 // Usage lists the verbs.
-const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard] | save FILE | load FILE"
+const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard] | save FILE | load FILE | " + RecordUsage
 
 // Run performs one verb against the Control API on conn and writes the result to out.
 func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out io.Writer) error {
@@ -151,6 +151,12 @@ func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out 
 				fmt.Fprintf(out, "reconstructor loaded: %s\n", describeReconstructor(info))
 			}
 		}
+	case "record":
+		n, path, perr := parseRecord(rest)
+		if perr != nil {
+			return perr
+		}
+		return Record(ctx, c, n, path, out)
 	default:
 		return fmt.Errorf("unknown verb %q: %s", verb, Usage)
 	}
