@@ -2,7 +2,9 @@ package daemon_test
 
 import (
 	"context"
+	"fmt"
 	"math"
+	"os"
 	"testing"
 	"time"
 
@@ -270,23 +272,37 @@ func TestStaleCameraHolds(t *testing.T) {
 // camera describes 100 Hz, so the watchdog's limit (20 periods, 200 ms) is far
 // above any pause of the sender on a loaded machine.
 func TestGarbageOnlyCameraHolds(t *testing.T) {
-	r := startHostileRate(t, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 20}}, 100)
-	r.sync(t)
-	r.loadMatrix(t)
-	r.closeLoop(t)
-	start, last, gap := time.Now(), time.Now(), time.Duration(0)
-	for time.Since(start) < time.Second {
-		f := r.good()
-		f.Slopes[1] = float32(math.NaN())
-		r.send(t, f)
-		gap, last = max(gap, time.Since(last)), time.Now()
-		time.Sleep(time.Millisecond)
-	}
-	if gap > 100*time.Millisecond {
-		t.Skipf("the sender paused %v: inconclusive", gap)
-	}
-	if got := tripped(scrape(t, r.d.MetricsAddr()))["stale_camera"]; got != 1 {
-		t.Errorf("stale_camera trips %g after 1 s (5 stale limits) of refused frames, want 1", got)
+	// A pause of the sender over 100 ms (half the stale limit) would itself let
+	// the watchdog trip, proving nothing: such an attempt is run again, and a
+	// machine that pauses every attempt fails the test under CI.
+	const attempts = 3
+	for attempt := 1; ; attempt++ {
+		r := startHostileRate(t, daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 20}}, 100)
+		r.sync(t)
+		r.loadMatrix(t)
+		r.closeLoop(t)
+		start, last, gap := time.Now(), time.Now(), time.Duration(0)
+		for time.Since(start) < time.Second {
+			f := r.good()
+			f.Slopes[1] = float32(math.NaN())
+			r.send(t, f)
+			gap, last = max(gap, time.Since(last)), time.Now()
+			time.Sleep(time.Millisecond)
+		}
+		if gap <= 100*time.Millisecond {
+			if got := tripped(scrape(t, r.d.MetricsAddr()))["stale_camera"]; got != 1 {
+				t.Errorf("stale_camera trips %g after 1 s (5 stale limits) of refused frames, want 1", got)
+			}
+			return
+		}
+		if attempt == attempts {
+			msg := fmt.Sprintf("the sender paused up to %v in each of %d attempts: inconclusive", gap, attempts)
+			if os.Getenv("CI") == "true" {
+				t.Fatal(msg)
+			}
+			t.Skip(msg)
+		}
+		t.Logf("attempt %d: the sender paused %v; again", attempt, gap)
 	}
 }
 

@@ -3,6 +3,13 @@
 // slopes), and the column-range form y += A[:, c0:c1]·x[c0:c1] used to
 // multiply a frame chunk by chunk as the camera reads it out.
 //
+// The contract: every kernel computes the same product as Plain (to float32
+// rounding, and to the stored precision with BFloat16); MulVec and MulVecCols
+// allocate nothing, do no I/O and read no clocks. The package depends on
+// nothing but the standard library, golang.org/x/sys/cpu and, on Linux,
+// golang.org/x/sys/unix (mmap and madvise for the stored matrix; its tests also
+// use gonum).
+//
 // # Kernels
 //
 // Plain (NewPlain) is the portable reference: a row-by-row float32 dot
@@ -20,11 +27,11 @@
 // Options.Kernel forces one and New fails if the CPU or build lacks it.
 // Available lists the usable ones.
 //
-// The product is bound by the bytes of A it reads: 850×1600 float32 (5.4 MB)
-// and 1300×2500 (13 MB) stream from L3, beyond one core's 2 MB L2; 3300×6400
-// (84 MB) streams at DRAM speed here, although the guest reports a 105 MB
-// L3 (shared with the other guests of the host). So the kernels are built to
-// stream A at full speed. The AVX-512 float32 loop takes eight rows per pass
+// The product is bound by the bytes of A it reads: a control matrix of a
+// few thousand slopes is megabytes (850×1600 float32 is 5.4 MB, 3300×6400 is
+// 84 MB), beyond a core's L2, so it streams from L3 or memory at every frame
+// (the README gives the rates measured on the development machine). So the
+// kernels are built to stream A at full speed. The AVX-512 float32 loop takes eight rows per pass
 // (one load of x feeds eight FMAs, sixteen accumulators keep the FMA pipes
 // busy) and prefetches each row 256 bytes ahead; the AVX2 loop takes four.
 // Every stored row starts on a cache line. A float32 row is padded only to a
@@ -78,9 +85,4 @@
 // alternates our product with OpenBLAS cblas_sgemv on the same thread count
 // and reports ours/openblas (> 1: ours is faster); it needs cgo and Debian
 // libopenblas-dev. On a shared machine quote medians of -count 5 or more.
-//
-// It depends on nothing but the standard library, golang.org/x/sys/cpu and,
-// on Linux, golang.org/x/sys/unix (mmap and madvise for the stored matrix;
-// its tests also use gonum); it does no I/O, reads no clocks, and never
-// allocates in MulVec or MulVecCols.
 package mvm
