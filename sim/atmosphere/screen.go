@@ -329,7 +329,7 @@ func (g *ScreenGenerator) units(j *job) int {
 //
 // Plane 2q + p is the field φ(x + p/2, y + q/2), x and y in samples: with the
 // transform's sign, φ(x) = Σ_k c_k exp(−2πi k·x/N), so the shift multiplies c_k by
-// exp(−iπ(p·kx + q·ky)/N), k signed in [−N/2, N/2] (the DFT shift theorem). This is
+// exp(−iπ(p·kx + q·ky)/N), k signed in (−N/2, N/2] (the DFT shift theorem). This is
 // the band-limited interpolation of the screen, exact at every point between the
 // samples; the planes interleaved are the field on a grid of half the spacing.
 func (g *ScreenGenerator) step(j *job, max int) bool {

@@ -207,7 +207,7 @@ func TestNewScreenGeneratorRejects(t *testing.T) {
 
 // fourierShift returns the band-limited periodic field of the n×n samples z at the
 // grid points shifted by (sx, sy) samples: z(x) = Σ_k C_k exp(−2πi k·x/n), so the
-// shifted field has the coefficients C_k·exp(−2πi k·s/n), k signed in [−n/2, n/2]
+// shifted field has the coefficients C_k·exp(−2πi k·s/n), k signed in (−n/2, n/2]
 // (the DFT shift theorem), computed with gonum's FFT.
 func fourierShift(z []complex128, n int, sx, sy float64) []complex128 {
 	f := fourier.NewCmplxFFT(n)
