@@ -2,6 +2,7 @@ package controller
 
 import (
 	"errors"
+	"fmt"
 	"math"
 	"math/cmplx"
 	"math/rand/v2"
@@ -81,15 +82,17 @@ func TestSteadyStateResidual(t *testing.T) {
 		d          int
 		gain, leak float64
 	}{{1, 0.5, 0.01}, {1, 0.3, 0.1}, {2, 0.4, 0.05}, {3, 0.3, 0.02}} {
-		l, err := NewLoop(identityParams(t, 1, c.gain, c.leak, 1e3))
-		if err != nil {
-			t.Fatal(err)
-		}
-		e := runScalar(c.d, constant(1, 3000), loopStep(t, l))
-		want := c.leak / (c.leak + c.gain)
-		if got := e[len(e)-1]; math.Abs(got-want) > 1e-5 {
-			t.Errorf("d=%d g=%g ℓ=%g: residual %.7f, want ℓ/(ℓ+g) = %.7f", c.d, c.gain, c.leak, got, want)
-		}
+		t.Run(fmt.Sprintf("d=%d g=%g leak=%g", c.d, c.gain, c.leak), func(t *testing.T) {
+			l, err := NewLoop(identityParams(t, 1, c.gain, c.leak, 1e3))
+			if err != nil {
+				t.Fatal(err)
+			}
+			e := runScalar(c.d, constant(1, 3000), loopStep(t, l))
+			want := c.leak / (c.leak + c.gain)
+			if got := e[len(e)-1]; math.Abs(got-want) > 1e-5 {
+				t.Errorf("d=%d g=%g ℓ=%g: residual %.7f, want ℓ/(ℓ+g) = %.7f", c.d, c.gain, c.leak, got, want)
+			}
+		})
 	}
 }
 
@@ -142,38 +145,40 @@ func TestSinusoidRejection(t *testing.T) {
 		d          int
 		gain, leak float64
 	}{{2, 0.4, 0}, {1, 0.6, 0}, {3, 0.25, 0.05}} {
-		for _, f := range []float64{0.005, 0.02, 0.05, 0.1, 0.2, 0.35} { // cycles per frame
-			l, err := NewLoop(identityParams(t, 1, c.gain, c.leak, 1e3))
-			if err != nil {
-				t.Fatal(err)
+		t.Run(fmt.Sprintf("d=%d g=%g leak=%g", c.d, c.gain, c.leak), func(t *testing.T) {
+			for _, f := range []float64{0.005, 0.02, 0.05, 0.1, 0.2, 0.35} { // cycles per frame
+				l, err := NewLoop(identityParams(t, 1, c.gain, c.leak, 1e3))
+				if err != nil {
+					t.Fatal(err)
+				}
+				w := 2 * math.Pi * f
+				const settle, n = 3000, 4000
+				phi := make([]float64, settle+n)
+				for k := range phi {
+					phi[k] = math.Sin(w * float64(k))
+				}
+				e := runScalar(c.d, phi, loopStep(t, l))[settle:]
+				// Least-squares amplitude of e_k = a sin(ωk) + b cos(ωk).
+				var ss, cc, sc, es, ec float64
+				for i, v := range e {
+					k := float64(settle + i)
+					s, co := math.Sin(w*k), math.Cos(w*k)
+					ss, cc, sc, es, ec = ss+s*s, cc+co*co, sc+s*co, es+v*s, ec+v*co
+				}
+				det := ss*cc - sc*sc
+				a, b := (es*cc-ec*sc)/det, (ec*ss-es*sc)/det
+				got := math.Hypot(a, b)
+				zi := cmplx.Exp(complex(0, -w)) // z⁻¹ on the unit circle
+				num := 1 - complex(1-c.leak, 0)*zi
+				den := 1 - complex(1-c.leak, 0)*zi + complex(c.gain, 0)*cmplx.Pow(zi, complex(float64(c.d), 0))
+				want := cmplx.Abs(num / den)
+				if rel := math.Abs(got-want) / want; rel > 0.05 {
+					t.Errorf("d=%d g=%g ℓ=%g f=%g: amplitude %.5f, |E| = %.5f (%.2g%% off)", c.d, c.gain, c.leak, f, got, want, 100*rel)
+				} else {
+					t.Logf("d=%d g=%g ℓ=%g f=%g: amplitude %.5f, |E| = %.5f (rel %.1e)", c.d, c.gain, c.leak, f, got, want, rel)
+				}
 			}
-			w := 2 * math.Pi * f
-			const settle, n = 3000, 4000
-			phi := make([]float64, settle+n)
-			for k := range phi {
-				phi[k] = math.Sin(w * float64(k))
-			}
-			e := runScalar(c.d, phi, loopStep(t, l))[settle:]
-			// Least-squares amplitude of e_k = a sin(ωk) + b cos(ωk).
-			var ss, cc, sc, es, ec float64
-			for i, v := range e {
-				k := float64(settle + i)
-				s, co := math.Sin(w*k), math.Cos(w*k)
-				ss, cc, sc, es, ec = ss+s*s, cc+co*co, sc+s*co, es+v*s, ec+v*co
-			}
-			det := ss*cc - sc*sc
-			a, b := (es*cc-ec*sc)/det, (ec*ss-es*sc)/det
-			got := math.Hypot(a, b)
-			zi := cmplx.Exp(complex(0, -w)) // z⁻¹ on the unit circle
-			num := 1 - complex(1-c.leak, 0)*zi
-			den := 1 - complex(1-c.leak, 0)*zi + complex(c.gain, 0)*cmplx.Pow(zi, complex(float64(c.d), 0))
-			want := cmplx.Abs(num / den)
-			if rel := math.Abs(got-want) / want; rel > 0.05 {
-				t.Errorf("d=%d g=%g ℓ=%g f=%g: amplitude %.5f, |E| = %.5f (%.2g%% off)", c.d, c.gain, c.leak, f, got, want, 100*rel)
-			} else {
-				t.Logf("d=%d g=%g ℓ=%g f=%g: amplitude %.5f, |E| = %.5f (rel %.1e)", c.d, c.gain, c.leak, f, got, want, rel)
-			}
-		}
+		})
 	}
 }
 
@@ -686,15 +691,17 @@ func TestKernelOptions(t *testing.T) {
 		{"plain", mvm.Options{Kernel: "plain"}, 1e-5},
 		{"bfloat16", mvm.Options{Precision: mvm.BFloat16}, 1e-2},
 	} {
-		got := run(c.opts)
-		var d float64
-		for i := range got {
-			d += math.Pow(float64(got[i]-ref[i]), 2)
-		}
-		if rel := math.Sqrt(d) / norm; rel > c.tol {
-			t.Errorf("%s: command differs from the default kernel by %.3g (relative), want <= %g", c.name, rel, c.tol)
-		} else {
-			t.Logf("%s: relative difference %.2g", c.name, rel)
-		}
+		t.Run(c.name, func(t *testing.T) {
+			got := run(c.opts)
+			var d float64
+			for i := range got {
+				d += math.Pow(float64(got[i]-ref[i]), 2)
+			}
+			if rel := math.Sqrt(d) / norm; rel > c.tol {
+				t.Errorf("%s: command differs from the default kernel by %.3g (relative), want <= %g", c.name, rel, c.tol)
+			} else {
+				t.Logf("%s: relative difference %.2g", c.name, rel)
+			}
+		})
 	}
 }

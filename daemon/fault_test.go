@@ -578,16 +578,18 @@ func TestIncompleteFrameNotDropped(t *testing.T) {
 			return []*stillskyv1.StreamFramesResponse{a, b}
 		}},
 	} {
-		s0 := r.status(t)
-		fs := c.frames()
-		r.send(t, fs...)
-		r.sync(t)
-		s1 := r.status(t)
-		numbers := fs[len(fs)-1].GetFrameNumber() - fs[0].GetFrameNumber() + 1
-		rej, drop := s1.GetFramesRejected()-s0.GetFramesRejected(), s1.GetFramesDropped()-s0.GetFramesDropped()
-		if drop != 0 || rej < 1 || rej > numbers {
-			t.Errorf("%s: rejected +%d, dropped +%d for %d frame numbers; want 1..%d rejected, none dropped", c.name, rej, drop, numbers, numbers)
-		}
+		t.Run(c.name, func(t *testing.T) {
+			s0 := r.status(t)
+			fs := c.frames()
+			r.send(t, fs...)
+			r.sync(t)
+			s1 := r.status(t)
+			numbers := fs[len(fs)-1].GetFrameNumber() - fs[0].GetFrameNumber() + 1
+			rej, drop := s1.GetFramesRejected()-s0.GetFramesRejected(), s1.GetFramesDropped()-s0.GetFramesDropped()
+			if drop != 0 || rej < 1 || rej > numbers {
+				t.Errorf("%s: rejected +%d, dropped +%d for %d frame numbers; want 1..%d rejected, none dropped", c.name, rej, drop, numbers, numbers)
+			}
+		})
 	}
 }
 
@@ -679,19 +681,21 @@ func TestBadControlRequests(t *testing.T) {
 		{"hold while closed is fine, calibrate while closed is not", func() error { return calibrate(&stillskyv1.CalibrateRequest{}) }, codes.FailedPrecondition},
 	}
 	for _, c := range cases {
-		before := r.status(t)
-		err := c.call()
-		if status.Code(err) != c.code || status.Convert(err).Message() == "" {
-			t.Errorf("%s: %v, want %v with a message", c.name, err, c.code)
-		}
-		r.sync(t)
-		after := r.status(t)
-		if after.GetState() != before.GetState() || after.GetGain() != before.GetGain() || after.GetLeak() != before.GetLeak() ||
-			after.GetReconstructor().GetCreatedUnix() != rec.Created.Unix() || after.GetReconstructor().GetSlopeCount() != uint32(r.h.slopes) {
-			t.Errorf("%s changed the state: %v/%g/%g/%d → %v/%g/%g/%d", c.name,
-				before.GetState(), before.GetGain(), before.GetLeak(), before.GetReconstructor().GetCreatedUnix(),
-				after.GetState(), after.GetGain(), after.GetLeak(), after.GetReconstructor().GetCreatedUnix())
-		}
+		t.Run(c.name, func(t *testing.T) {
+			before := r.status(t)
+			err := c.call()
+			if status.Code(err) != c.code || status.Convert(err).Message() == "" {
+				t.Errorf("%s: %v, want %v with a message", c.name, err, c.code)
+			}
+			r.sync(t)
+			after := r.status(t)
+			if after.GetState() != before.GetState() || after.GetGain() != before.GetGain() || after.GetLeak() != before.GetLeak() ||
+				after.GetReconstructor().GetCreatedUnix() != rec.Created.Unix() || after.GetReconstructor().GetSlopeCount() != uint32(r.h.slopes) {
+				t.Errorf("%s changed the state: %v/%g/%g/%d → %v/%g/%g/%d", c.name,
+					before.GetState(), before.GetGain(), before.GetLeak(), before.GetReconstructor().GetCreatedUnix(),
+					after.GetState(), after.GetGain(), after.GetLeak(), after.GetReconstructor().GetCreatedUnix())
+			}
+		})
 	}
 	r.h.mu.Lock()
 	defer r.h.mu.Unlock()
@@ -976,26 +980,28 @@ func TestBadCalibrationRequests(t *testing.T) {
 		{"tikhonov NaN", &stillskyv1.CalibrateRequest{Tikhonov: math.NaN()}},
 		{"max condition negative", &stillskyv1.CalibrateRequest{MaxCondition: -1}},
 	} {
-		before := scrape(t, r.d.MetricsAddr())
-		start := time.Now()
-		s, err := r.client.Calibrate(context.Background(), c.req)
-		if err == nil {
-			for {
-				if _, err = s.Recv(); err != nil {
-					break
+		t.Run(c.name, func(t *testing.T) {
+			before := scrape(t, r.d.MetricsAddr())
+			start := time.Now()
+			s, err := r.client.Calibrate(context.Background(), c.req)
+			if err == nil {
+				for {
+					if _, err = s.Recv(); err != nil {
+						break
+					}
 				}
 			}
-		}
-		if status.Code(err) != codes.InvalidArgument {
-			t.Errorf("%s: %v after %v, want InvalidArgument", c.name, err, time.Since(start))
-		}
-		after := scrape(t, r.d.MetricsAddr())
-		if st := r.status(t); st.GetState() != stillskyv1.LoopState_LOOP_STATE_OPEN || st.GetReconstructor() != nil {
-			t.Errorf("%s: state %v, reconstructor %v; want open, none", c.name, st.GetState(), st.GetReconstructor())
-		}
-		if k := "stillsky_calibrations_total{ok}"; after[k] != before[k] {
-			t.Errorf("%s: %s rose", c.name, k)
-		}
+			if status.Code(err) != codes.InvalidArgument {
+				t.Errorf("%s: %v after %v, want InvalidArgument", c.name, err, time.Since(start))
+			}
+			after := scrape(t, r.d.MetricsAddr())
+			if st := r.status(t); st.GetState() != stillskyv1.LoopState_LOOP_STATE_OPEN || st.GetReconstructor() != nil {
+				t.Errorf("%s: state %v, reconstructor %v; want open, none", c.name, st.GetState(), st.GetReconstructor())
+			}
+			if k := "stillsky_calibrations_total{ok}"; after[k] != before[k] {
+				t.Errorf("%s: %s rose", c.name, k)
+			}
+		})
 	}
 }
 
@@ -1014,21 +1020,23 @@ func TestCalibrationSettingsCheckedFirst(t *testing.T) {
 		{"max condition +Inf", &stillskyv1.CalibrateRequest{MaxCondition: math.Inf(1)}},
 		{"tikhonov +Inf", &stillskyv1.CalibrateRequest{Tikhonov: math.Inf(1)}},
 	} {
-		start := time.Now()
-		s, err := r.client.Calibrate(context.Background(), c.req)
-		pokes := uint32(0)
-		if err == nil {
-			for {
-				var m *stillskyv1.CalibrateResponse
-				if m, err = s.Recv(); err != nil {
-					break
+		t.Run(c.name, func(t *testing.T) {
+			start := time.Now()
+			s, err := r.client.Calibrate(context.Background(), c.req)
+			pokes := uint32(0)
+			if err == nil {
+				for {
+					var m *stillskyv1.CalibrateResponse
+					if m, err = s.Recv(); err != nil {
+						break
+					}
+					pokes = max(pokes, m.GetDone())
 				}
-				pokes = max(pokes, m.GetDone())
 			}
-		}
-		if status.Code(err) != codes.InvalidArgument || pokes > 0 {
-			t.Errorf("%s: %v after %d calibration frames (%v), want InvalidArgument before any", c.name, err, pokes, time.Since(start).Round(time.Millisecond))
-		}
+			if status.Code(err) != codes.InvalidArgument || pokes > 0 {
+				t.Errorf("%s: %v after %d calibration frames (%v), want InvalidArgument before any", c.name, err, pokes, time.Since(start).Round(time.Millisecond))
+			}
+		})
 	}
 }
 

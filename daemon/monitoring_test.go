@@ -39,13 +39,15 @@ func TestMetricsPassPromtool(t *testing.T) {
 		{"loop daemon", r.d.MetricsAddr()},
 		{"bench", r.rig.BenchHTTPAddr},
 	} {
-		body := fetch(t, "http://"+c.addr+"/metrics")
-		cmd := exec.Command(promtool, "check", "metrics")
-		cmd.Stdin = bytes.NewReader(body)
-		out, err := cmd.CombinedOutput()
-		if err != nil || len(bytes.TrimSpace(out)) > 0 {
-			t.Errorf("%s: promtool check metrics: %v\n%s", c.name, err, out)
-		}
+		t.Run(c.name, func(t *testing.T) {
+			body := fetch(t, "http://"+c.addr+"/metrics")
+			cmd := exec.Command(promtool, "check", "metrics")
+			cmd.Stdin = bytes.NewReader(body)
+			out, err := cmd.CombinedOutput()
+			if err != nil || len(bytes.TrimSpace(out)) > 0 {
+				t.Errorf("%s: promtool check metrics: %v\n%s", c.name, err, out)
+			}
+		})
 	}
 }
 

@@ -160,14 +160,16 @@ func TestListenOffLoopbackNeedsTLS(t *testing.T) {
 		{"token shorter than 16 characters", "0.0.0.0:0", daemon.Security{CertFile: cert, KeyFile: key, TokenFile: shortToken}, "at least 16"},
 		{"key missing", "0.0.0.0:0", daemon.Security{CertFile: cert, ClientCAFile: ca.file}, "certificate"},
 	} {
-		d, err := daemon.New(daemon.Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:2", ListenAddr: c.listen, MetricsAddr: "-", Security: c.sec})
-		if err == nil {
-			t.Errorf("%s: daemon.New accepted listening on %s (at %s)", c.name, c.listen, d.ControlAddr())
-			continue
-		}
-		if !strings.Contains(err.Error(), c.want) {
-			t.Errorf("%s: error %q does not say %q", c.name, err, c.want)
-		}
+		t.Run(c.name, func(t *testing.T) {
+			d, err := daemon.New(daemon.Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:2", ListenAddr: c.listen, MetricsAddr: "-", Security: c.sec})
+			if err == nil {
+				t.Errorf("%s: daemon.New accepted listening on %s (at %s)", c.name, c.listen, d.ControlAddr())
+				return
+			}
+			if !strings.Contains(err.Error(), c.want) {
+				t.Errorf("%s: error %q does not say %q", c.name, err, c.want)
+			}
+		})
 	}
 	// Loopback without TLS is the default and fine.
 	if _, err := daemon.New(daemon.Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:2", ListenAddr: "127.0.0.1:0", MetricsAddr: "-"}); err != nil {

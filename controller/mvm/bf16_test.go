@@ -135,39 +135,41 @@ func TestBFloat16CommandError(t *testing.T) {
 	}
 	const u = 1.0 / 256
 	for _, tc := range tests {
-		f32, err := New(tc.a, Options{Workers: 1})
-		if err != nil {
-			t.Fatal(err)
-		}
-		b16, err := New(tc.a, Options{Workers: 1, Precision: BFloat16})
-		if err != nil {
-			t.Fatal(err)
-		}
-		y32, y16 := make([]float32, tc.a.Rows), make([]float32, tc.a.Rows)
-		f32.MulVec(y32, tc.x)
-		b16.MulVec(y16, tc.x)
-		var e2, y2, model float64
-		for i := range y32 {
-			d := float64(y16[i]) - float64(y32[i])
-			e2 += d * d
-			y2 += float64(y32[i]) * float64(y32[i])
-			for j, a := range tc.a.Row(i) {
-				p := float64(a) * float64(tc.x[j])
-				model += p * p
+		t.Run(tc.name, func(t *testing.T) {
+			f32, err := New(tc.a, Options{Workers: 1})
+			if err != nil {
+				t.Fatal(err)
 			}
-		}
-		rel := math.Sqrt(e2 / y2)
-		bound := math.Sqrt(u * u / 3 * model / y2)
-		t.Logf("%s: relative rms command error %.3g%% (model bound %.3g%%)", tc.name, 100*rel, 100*bound)
-		// 10% headroom for the sampling fluctuation of e2 over a few hundred
-		// rows; the float32 summation error is 1e-6 relative, negligible.
-		if rel > 1.1*bound {
-			t.Errorf("%s: relative rms error %.3g exceeds the rounding model's %.3g", tc.name, rel, bound)
-		}
-		if rel == 0 {
-			t.Errorf("%s: bfloat16 product equals the float32 one exactly: matrix not narrowed", tc.name)
-		}
-		f32.Close()
-		b16.Close()
+			b16, err := New(tc.a, Options{Workers: 1, Precision: BFloat16})
+			if err != nil {
+				t.Fatal(err)
+			}
+			y32, y16 := make([]float32, tc.a.Rows), make([]float32, tc.a.Rows)
+			f32.MulVec(y32, tc.x)
+			b16.MulVec(y16, tc.x)
+			var e2, y2, model float64
+			for i := range y32 {
+				d := float64(y16[i]) - float64(y32[i])
+				e2 += d * d
+				y2 += float64(y32[i]) * float64(y32[i])
+				for j, a := range tc.a.Row(i) {
+					p := float64(a) * float64(tc.x[j])
+					model += p * p
+				}
+			}
+			rel := math.Sqrt(e2 / y2)
+			bound := math.Sqrt(u * u / 3 * model / y2)
+			t.Logf("%s: relative rms command error %.3g%% (model bound %.3g%%)", tc.name, 100*rel, 100*bound)
+			// 10% headroom for the sampling fluctuation of e2 over a few hundred
+			// rows; the float32 summation error is 1e-6 relative, negligible.
+			if rel > 1.1*bound {
+				t.Errorf("%s: relative rms error %.3g exceeds the rounding model's %.3g", tc.name, rel, bound)
+			}
+			if rel == 0 {
+				t.Errorf("%s: bfloat16 product equals the float32 one exactly: matrix not narrowed", tc.name)
+			}
+			f32.Close()
+			b16.Close()
+		})
 	}
 }

@@ -270,9 +270,11 @@ func TestBFloat16Rounding(t *testing.T) {
 		{0, 0},
 	}
 	for _, tc := range tests {
-		if got := roundBF16(tc.in); got != tc.want {
-			t.Errorf("roundBF16(%v) = %#04x, want %#04x", tc.in, got, tc.want)
-		}
+		t.Run(fmt.Sprint(tc.in), func(t *testing.T) {
+			if got := roundBF16(tc.in); got != tc.want {
+				t.Errorf("roundBF16(%v) = %#04x, want %#04x", tc.in, got, tc.want)
+			}
+		})
 	}
 }
 
@@ -337,14 +339,16 @@ func TestSumKernels(t *testing.T) {
 		want += float64(e)
 	}
 	for _, k := range kernels() {
-		got := k.sum(&v[0], len(v)/4)
-		var abs float64
-		for _, e := range v {
-			abs += math.Abs(float64(e))
-		}
-		if !closeTo(got, float32(want), len(v), abs, 0) {
-			t.Errorf("%s: sum %v, float64 sum %v", k.name, got, want)
-		}
+		t.Run(k.name, func(t *testing.T) {
+			got := k.sum(&v[0], len(v)/4)
+			var abs float64
+			for _, e := range v {
+				abs += math.Abs(float64(e))
+			}
+			if !closeTo(got, float32(want), len(v), abs, 0) {
+				t.Errorf("%s: sum %v, float64 sum %v", k.name, got, want)
+			}
+		})
 	}
 }
 

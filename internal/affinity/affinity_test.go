@@ -19,18 +19,20 @@ func TestParse(t *testing.T) {
 		{"1,3", []int{1, 3}},
 		{"0-2, 5", []int{0, 1, 2, 5}},
 	} {
-		set, err := Parse(c.list)
-		if err != nil {
-			t.Fatalf("%q: %v", c.list, err)
-		}
-		if set.Count() != len(c.want) {
-			t.Errorf("%q: %d CPUs, want %v", c.list, set.Count(), c.want)
-		}
-		for _, cpu := range c.want {
-			if !set.IsSet(cpu) {
-				t.Errorf("%q: CPU %d not set", c.list, cpu)
+		t.Run(c.list, func(t *testing.T) {
+			set, err := Parse(c.list)
+			if err != nil {
+				t.Fatalf("%q: %v", c.list, err)
 			}
-		}
+			if set.Count() != len(c.want) {
+				t.Errorf("%q: %d CPUs, want %v", c.list, set.Count(), c.want)
+			}
+			for _, cpu := range c.want {
+				if !set.IsSet(cpu) {
+					t.Errorf("%q: CPU %d not set", c.list, cpu)
+				}
+			}
+		})
 	}
 	for _, bad := range []string{"", "x", "3-1", "-1", "0-", "99999"} {
 		if _, err := Parse(bad); err == nil {

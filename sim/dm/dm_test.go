@@ -40,45 +40,47 @@ func TestNeighbourCoupling(t *testing.T) {
 		coupling float64
 		samples  int
 	}{{0.10, 96}, {0.15, 96}, {0.15, 192}, {0.30, 48}} {
-		p := pupil(t, c.samples)
-		m, err := New(p, Config{Actuators: 25, Coupling: c.coupling, Stroke: 3e-6, Margin: 0.75})
-		if err != nil {
-			t.Fatal(err)
-		}
-		// Poke the actuator 3 pitches right of centre: well inside the pupil,
-		// away from the obstruction.
-		k := index(m, 3, 0)
-		if k < 0 {
-			t.Fatal("actuator (3, 0) not valid")
-		}
-		cmd := make([]float32, m.NumValid())
-		cmd[k] = 1e-6
-		surface := make([]float64, p.N*p.N)
-		m.Surface(cmd, surface)
-		at := func(x, y float64) float64 {
-			// Samples with centres at x ± scale/2, y ± scale/2.
-			ix := int(math.Round((x+p.Diameter/2)/p.Scale)) - 1
-			iy := int(math.Round((y+p.Diameter/2)/p.Scale)) - 1
-			prod := 1.0
-			for dy := 0; dy < 2; dy++ {
-				for dx := 0; dx < 2; dx++ {
-					prod *= surface[(iy+dy)*p.N+ix+dx]
+		t.Run(fmt.Sprintf("coupling %g, %d samples", c.coupling, c.samples), func(t *testing.T) {
+			p := pupil(t, c.samples)
+			m, err := New(p, Config{Actuators: 25, Coupling: c.coupling, Stroke: 3e-6, Margin: 0.75})
+			if err != nil {
+				t.Fatal(err)
+			}
+			// Poke the actuator 3 pitches right of centre: well inside the pupil,
+			// away from the obstruction.
+			k := index(m, 3, 0)
+			if k < 0 {
+				t.Fatal("actuator (3, 0) not valid")
+			}
+			cmd := make([]float32, m.NumValid())
+			cmd[k] = 1e-6
+			surface := make([]float64, p.N*p.N)
+			m.Surface(cmd, surface)
+			at := func(x, y float64) float64 {
+				// Samples with centres at x ± scale/2, y ± scale/2.
+				ix := int(math.Round((x+p.Diameter/2)/p.Scale)) - 1
+				iy := int(math.Round((y+p.Diameter/2)/p.Scale)) - 1
+				prod := 1.0
+				for dy := 0; dy < 2; dy++ {
+					for dx := 0; dx < 2; dx++ {
+						prod *= surface[(iy+dy)*p.N+ix+dx]
+					}
+				}
+				return math.Pow(prod, 0.25)
+			}
+			pos := m.Positions()[k]
+			centre := at(pos[0], pos[1])
+			for _, d := range [][2]float64{{1, 0}, {-1, 0}, {0, 1}, {0, -1}} {
+				got := at(pos[0]+d[0]*m.Pitch(), pos[1]+d[1]*m.Pitch()) / centre
+				if math.Abs(got-c.coupling) > 1e-9 {
+					t.Errorf("coupling %g, %d samples: neighbour %v reads %.6f", c.coupling, c.samples, d, got)
 				}
 			}
-			return math.Pow(prod, 0.25)
-		}
-		pos := m.Positions()[k]
-		centre := at(pos[0], pos[1])
-		for _, d := range [][2]float64{{1, 0}, {-1, 0}, {0, 1}, {0, -1}} {
-			got := at(pos[0]+d[0]*m.Pitch(), pos[1]+d[1]*m.Pitch()) / centre
-			if math.Abs(got-c.coupling) > 1e-9 {
-				t.Errorf("coupling %g, %d samples: neighbour %v reads %.6f", c.coupling, c.samples, d, got)
+			// Diagonal neighbour of a separable Gaussian: c² (derived).
+			if got := at(pos[0]+m.Pitch(), pos[1]+m.Pitch()) / centre; math.Abs(got-c.coupling*c.coupling) > 1e-9 {
+				t.Errorf("coupling %g: diagonal reads %.6f, want %.6f", c.coupling, got, c.coupling*c.coupling)
 			}
-		}
-		// Diagonal neighbour of a separable Gaussian: c² (derived).
-		if got := at(pos[0]+m.Pitch(), pos[1]+m.Pitch()) / centre; math.Abs(got-c.coupling*c.coupling) > 1e-9 {
-			t.Errorf("coupling %g: diagonal reads %.6f, want %.6f", c.coupling, got, c.coupling*c.coupling)
-		}
+		})
 	}
 }
 
@@ -104,16 +106,18 @@ func TestClipping(t *testing.T) {
 	mu, _ := New(p, cfgUnit)
 	mu.Surface(cmd, unit)
 	for _, c := range cases {
-		cmd[k] = float32(c.cmd)
-		m.Surface(cmd, surface)
-		for i := range ref {
-			ref[i] = c.want * unit[i]
-		}
-		for i := range surface {
-			if math.Abs(surface[i]-ref[i]) > 1e-6*math.Abs(c.want)+1e-18 {
-				t.Fatalf("cmd %g: surface[%d] = %g, want %g (clipped to %g)", c.cmd, i, surface[i], ref[i], c.want)
+		t.Run(fmt.Sprintf("command %g", c.cmd), func(t *testing.T) {
+			cmd[k] = float32(c.cmd)
+			m.Surface(cmd, surface)
+			for i := range ref {
+				ref[i] = c.want * unit[i]
 			}
-		}
+			for i := range surface {
+				if math.Abs(surface[i]-ref[i]) > 1e-6*math.Abs(c.want)+1e-18 {
+					t.Fatalf("cmd %g: surface[%d] = %g, want %g (clipped to %g)", c.cmd, i, surface[i], ref[i], c.want)
+				}
+			}
+		})
 	}
 	if n := m.Saturated([]float32{0, 1e-6, 3e-6, -3e-6, float32(math.NaN())}); n != 3 {
 		t.Errorf("Saturated = %d, want 3", n)
@@ -127,22 +131,24 @@ func TestValidCount(t *testing.T) {
 		actuators int
 		want      int
 	}{{9, 49}, {25, 441}, {41, 1257}} {
-		p := pupil(t, 4*(c.actuators-1))
-		m, err := New(p, Config{Actuators: c.actuators, Coupling: 0.15, Stroke: 3e-6, Margin: 0})
-		if err != nil {
-			t.Fatal(err)
-		}
-		if m.NumValid() != c.want {
-			t.Errorf("%d×%d, margin 0: %d valid, want %d", c.actuators, c.actuators, m.NumValid(), c.want)
-		}
-		// A margin keeps more, never more than the whole grid.
-		wide, err := New(p, Config{Actuators: c.actuators, Coupling: 0.15, Stroke: 3e-6, Margin: 0.75})
-		if err != nil {
-			t.Fatal(err)
-		}
-		if wide.NumValid() <= m.NumValid() || wide.NumValid() > c.actuators*c.actuators {
-			t.Errorf("%d×%d, margin 0.75: %d valid", c.actuators, c.actuators, wide.NumValid())
-		}
+		t.Run(fmt.Sprintf("%d actuators", c.actuators), func(t *testing.T) {
+			p := pupil(t, 4*(c.actuators-1))
+			m, err := New(p, Config{Actuators: c.actuators, Coupling: 0.15, Stroke: 3e-6, Margin: 0})
+			if err != nil {
+				t.Fatal(err)
+			}
+			if m.NumValid() != c.want {
+				t.Errorf("%d×%d, margin 0: %d valid, want %d", c.actuators, c.actuators, m.NumValid(), c.want)
+			}
+			// A margin keeps more, never more than the whole grid.
+			wide, err := New(p, Config{Actuators: c.actuators, Coupling: 0.15, Stroke: 3e-6, Margin: 0.75})
+			if err != nil {
+				t.Fatal(err)
+			}
+			if wide.NumValid() <= m.NumValid() || wide.NumValid() > c.actuators*c.actuators {
+				t.Errorf("%d×%d, margin 0.75: %d valid", c.actuators, c.actuators, wide.NumValid())
+			}
+		})
 	}
 }
 

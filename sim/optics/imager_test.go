@@ -1,6 +1,7 @@
 package optics
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -178,9 +179,11 @@ func TestNewImagerRejects(t *testing.T) {
 		lambda float64
 		pad    int
 	}{{0, 2}, {math.NaN(), 2}, {1e-6, 0}, {1e-6, 17}} {
-		if _, err := NewImager(p, c.lambda, c.pad); err == nil {
-			t.Errorf("NewImager(λ=%g, pad=%d) accepted", c.lambda, c.pad)
-		}
+		t.Run(fmt.Sprintf("lambda=%g pad=%d", c.lambda, c.pad), func(t *testing.T) {
+			if _, err := NewImager(p, c.lambda, c.pad); err == nil {
+				t.Errorf("NewImager(λ=%g, pad=%d) accepted", c.lambda, c.pad)
+			}
+		})
 	}
 }
 

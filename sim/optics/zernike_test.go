@@ -1,6 +1,7 @@
 package optics
 
 import (
+	"fmt"
 	"math"
 	"testing"
 )
@@ -21,9 +22,11 @@ func TestNollIndex(t *testing.T) {
 		{7, 3, -1}, {8, 3, 1}, {9, 3, -3}, {10, 3, 3}, {11, 4, 0}, {12, 4, 2},
 		{13, 4, -2}, {14, 4, 4}, {15, 4, -4}, {16, 5, 1}, {21, 5, -5}, {22, 6, 0},
 	} {
-		if n, m := NollIndex(c.j); n != c.n || m != c.m {
-			t.Errorf("NollIndex(%d) = (%d, %d), want (%d, %d)", c.j, n, m, c.n, c.m)
-		}
+		t.Run(fmt.Sprintf("j=%d", c.j), func(t *testing.T) {
+			if n, m := NollIndex(c.j); n != c.n || m != c.m {
+				t.Errorf("NollIndex(%d) = (%d, %d), want (%d, %d)", c.j, n, m, c.n, c.m)
+			}
+		})
 	}
 }
 
@@ -49,12 +52,14 @@ func TestZernikeExplicit(t *testing.T) {
 		{11, math.Sqrt(5) * (6*math.Pow(r, 4) - 6*r*r + 1)},
 		{22, math.Sqrt(7) * (20*math.Pow(r, 6) - 30*math.Pow(r, 4) + 12*r*r - 1)},
 	} {
-		if err := Zernike(c.j, p, out); err != nil {
-			t.Fatal(err)
-		}
-		if got := out[iy*64+ix]; math.Abs(got-c.want) > 1e-12 {
-			t.Errorf("Z%d = %.15g, want %.15g", c.j, got, c.want)
-		}
+		t.Run(fmt.Sprintf("j=%d", c.j), func(t *testing.T) {
+			if err := Zernike(c.j, p, out); err != nil {
+				t.Fatal(err)
+			}
+			if got := out[iy*64+ix]; math.Abs(got-c.want) > 1e-12 {
+				t.Errorf("Z%d = %.15g, want %.15g", c.j, got, c.want)
+			}
+		})
 	}
 }
 

@@ -1,6 +1,7 @@
 package wfs
 
 import (
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -72,34 +73,36 @@ func TestTiltSlopes(t *testing.T) {
 		{"diffractive 8 samples per subaperture", Diffractive, 192, 1, 1, 0.01},
 	}
 	for _, c := range cases {
-		for _, xAxis := range []bool{true, false} {
-			p := pupil(t, c.samples, 0.15, 4)
-			cfg := config(c.mode)
-			cfg.ValidThreshold = c.threshold
-			s, err := New(p, cfg)
-			if err != nil {
-				t.Fatal(err)
+		t.Run(c.name, func(t *testing.T) {
+			for _, xAxis := range []bool{true, false} {
+				p := pupil(t, c.samples, 0.15, 4)
+				cfg := config(c.mode)
+				cfg.ValidThreshold = c.threshold
+				s, err := New(p, cfg)
+				if err != nil {
+					t.Fatal(err)
+				}
+				want := c.shift * pixel
+				// Slope of a·2x/R is 2a/R, so a = want·R/2.
+				opd := make([]float64, p.N*p.N)
+				tilt(p, want*p.Diameter/4, xAxis, opd)
+				slopes := make([]float32, s.NumSlopes())
+				s.Sense(opd, nil, slopes)
+				on, off := 0, 1
+				if !xAxis {
+					on, off = 1, 0
+				}
+				worst, cross := 0.0, 0.0
+				for k := 0; k < s.NumValid(); k++ {
+					worst = max(worst, math.Abs(float64(slopes[2*k+on])/want-1))
+					cross = max(cross, math.Abs(float64(slopes[2*k+off])/want))
+				}
+				t.Logf("%s x=%v: %d subapertures, worst relative error %.2g, cross-axis %.2g", c.name, xAxis, s.NumValid(), worst, cross)
+				if worst > c.tol || cross > c.tol {
+					t.Errorf("%s x=%v: worst relative error %.4g, cross-axis %.4g: want <= %g", c.name, xAxis, worst, cross, c.tol)
+				}
 			}
-			want := c.shift * pixel
-			// Slope of a·2x/R is 2a/R, so a = want·R/2.
-			opd := make([]float64, p.N*p.N)
-			tilt(p, want*p.Diameter/4, xAxis, opd)
-			slopes := make([]float32, s.NumSlopes())
-			s.Sense(opd, nil, slopes)
-			on, off := 0, 1
-			if !xAxis {
-				on, off = 1, 0
-			}
-			worst, cross := 0.0, 0.0
-			for k := 0; k < s.NumValid(); k++ {
-				worst = max(worst, math.Abs(float64(slopes[2*k+on])/want-1))
-				cross = max(cross, math.Abs(float64(slopes[2*k+off])/want))
-			}
-			t.Logf("%s x=%v: %d subapertures, worst relative error %.2g, cross-axis %.2g", c.name, xAxis, s.NumValid(), worst, cross)
-			if worst > c.tol || cross > c.tol {
-				t.Errorf("%s x=%v: worst relative error %.4g, cross-axis %.4g: want <= %g", c.name, xAxis, worst, cross, c.tol)
-			}
-		}
+		})
 	}
 }
 
@@ -291,38 +294,40 @@ func TestValidCount(t *testing.T) {
 		obstruction float64
 		spiders     int
 	}{{0, 0}, {0.15, 0}, {0.15, 4}, {0.3, 0}} {
-		p := pupil(t, 96, c.obstruction, c.spiders)
-		s, err := New(p, config(Geometric))
-		if err != nil {
-			t.Fatal(err)
-		}
-		// Plain geometry: an annulus of outer diameter N subapertures covers
-		// (π/4)·N²·(1 − ε²) subaperture areas; a 0.5 threshold keeps about that many.
-		want := math.Pi / 4 * nSub * nSub * (1 - c.obstruction*c.obstruction)
-		got := float64(s.NumValid())
-		if math.Abs(got/want-1) > 0.05 {
-			t.Errorf("obstruction %g spiders %d: %v valid, want %.0f ± 5%%", c.obstruction, c.spiders, got, want)
-		}
-		v := s.Valid()
-		for sy := 0; sy < nSub; sy++ {
-			for sx := 0; sx < nSub; sx++ {
-				if v[sy*nSub+sx] != v[(nSub-1-sy)*nSub+(nSub-1-sx)] {
-					t.Fatalf("valid map not symmetric under inversion at (%d, %d)", sx, sy)
+		t.Run(fmt.Sprintf("obstruction %g, %d spiders", c.obstruction, c.spiders), func(t *testing.T) {
+			p := pupil(t, 96, c.obstruction, c.spiders)
+			s, err := New(p, config(Geometric))
+			if err != nil {
+				t.Fatal(err)
+			}
+			// Plain geometry: an annulus of outer diameter N subapertures covers
+			// (π/4)·N²·(1 − ε²) subaperture areas; a 0.5 threshold keeps about that many.
+			want := math.Pi / 4 * nSub * nSub * (1 - c.obstruction*c.obstruction)
+			got := float64(s.NumValid())
+			if math.Abs(got/want-1) > 0.05 {
+				t.Errorf("obstruction %g spiders %d: %v valid, want %.0f ± 5%%", c.obstruction, c.spiders, got, want)
+			}
+			v := s.Valid()
+			for sy := 0; sy < nSub; sy++ {
+				for sx := 0; sx < nSub; sx++ {
+					if v[sy*nSub+sx] != v[(nSub-1-sy)*nSub+(nSub-1-sx)] {
+						t.Fatalf("valid map not symmetric under inversion at (%d, %d)", sx, sy)
+					}
 				}
 			}
-		}
-		if c.obstruction > 0 && v[(nSub/2)*nSub+nSub/2] {
-			t.Errorf("obstruction %g: the central subaperture is valid", c.obstruction)
-		}
-		strict := config(Geometric)
-		strict.ValidThreshold = 1
-		s1, err := New(p, strict)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if s1.NumValid() >= s.NumValid() {
-			t.Errorf("threshold 1 keeps %d, threshold 0.5 keeps %d: want fewer", s1.NumValid(), s.NumValid())
-		}
+			if c.obstruction > 0 && v[(nSub/2)*nSub+nSub/2] {
+				t.Errorf("obstruction %g: the central subaperture is valid", c.obstruction)
+			}
+			strict := config(Geometric)
+			strict.ValidThreshold = 1
+			s1, err := New(p, strict)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if s1.NumValid() >= s.NumValid() {
+				t.Errorf("threshold 1 keeps %d, threshold 0.5 keeps %d: want fewer", s1.NumValid(), s.NumValid())
+			}
+		})
 	}
 }
 
@@ -367,11 +372,13 @@ func TestNewRefuses(t *testing.T) {
 		{"centroid threshold 1", func(c *Config) { c.CentroidThreshold = 1 }},
 	}
 	for _, c := range cases {
-		cfg := config(Diffractive)
-		c.edit(&cfg)
-		if _, err := New(p, cfg); err == nil {
-			t.Errorf("%s: accepted", c.name)
-		}
+		t.Run(c.name, func(t *testing.T) {
+			cfg := config(Diffractive)
+			c.edit(&cfg)
+			if _, err := New(p, cfg); err == nil {
+				t.Errorf("%s: accepted", c.name)
+			}
+		})
 	}
 }
 
