@@ -81,9 +81,47 @@ type ReconstructorConfig struct {
 	// commands. By default piston is projected out, as a slope sensor cannot see it;
 	// set KeepPiston only for a sensor that does.
 	KeepPiston bool
+	// Solver picks the factorisation: SolverAuto (the zero value), SolverSVD or
+	// SolverNormal.
+	Solver Solver
+	// Progress, if not nil, is called now and then with the work done and the
+	// total (in floating-point operations, estimated), so that a caller with a
+	// clock can show the time left. It is called from BuildReconstructor's
+	// goroutine.
+	Progress func(done, total float64)
 	// Created is recorded as the creation time (the controller reads no clock).
 	Created time.Time
 }
+
+// Solver is the factorisation BuildReconstructor inverts the interaction matrix with.
+type Solver uint8
+
+// Solvers.
+const (
+	// SolverAuto uses SolverNormal from NormalSolverActuators actuators (or basis
+	// modes) up, SolverSVD below.
+	SolverAuto Solver = iota
+	// SolverSVD factorises M = U·S·Vᵀ directly (gonum's SVD, LAPACK's Dgesvd):
+	// accurate to the last singular value, but it takes minutes beyond a few
+	// thousand actuators on two cores.
+	SolverSVD
+	// SolverNormal takes the eigen-decomposition of the normal matrix
+	// MᵀM = V·S²·Vᵀ, then U_k = M·V_k·S_k⁻¹ (Golub & Van Loan, Matrix
+	// Computations, 4th ed., §8.6). It squares the condition number, so
+	// singular values below about 1e-7·s_max are lost in rounding; that is far
+	// below the unseen-mode cut, which it requires to be <= MaxNormalCondition.
+	SolverNormal
+)
+
+// NormalSolverActuators is the size from which SolverAuto uses SolverNormal:
+// below it gonum's SVD takes seconds or less.
+const NormalSolverActuators = 1000
+
+// MaxNormalCondition bounds the unseen-mode and truncation conditions accepted
+// with SolverNormal: the eigenvalues of MᵀM carry an absolute error of about
+// ε·s_max² (ε = 2.2e-16), so s_max/sᵢ = 1e5 leaves sᵢ² about 1e-6 relative
+// accuracy.
+const MaxNormalCondition = 1e5
 
 // Reconstructor holds a control matrix and the modal decomposition it came from.
 // Treat it as immutable once built; NewParams copies what the hot path needs.
@@ -161,42 +199,59 @@ func BuildReconstructor(m *mat.Dense, c ReconstructorConfig) (*Reconstructor, er
 		}
 	}
 
-	var svd mat.SVD
-	if !svd.Factorize(m, mat.SVDThin) {
-		return nil, fmt.Errorf("controller: interaction matrix %d×%d: SVD did not converge", ns, na)
+	solver := c.Solver
+	if solver == SolverAuto {
+		size := na
+		if c.Basis != nil {
+			_, nb := c.Basis.Dims()
+			size = max(na, nb)
+		}
+		solver = SolverSVD
+		if size >= NormalSolverActuators {
+			solver = SolverNormal
+		}
 	}
-	sv := svd.Values(nil)
+	if solver != SolverSVD && solver != SolverNormal {
+		return nil, fmt.Errorf("controller: reconstructor solver %d: unknown", solver)
+	}
+	if solver == SolverNormal && (unseenCond > MaxNormalCondition || c.MaxCondition > MaxNormalCondition) {
+		return nil, fmt.Errorf("controller: reconstructor condition %g: the normal-matrix solver takes at most %g", max(unseenCond, c.MaxCondition), float64(MaxNormalCondition))
+	}
+	work := newWorkMeter(c.Progress, solver, ns, na, c.Basis)
+
+	f, err := factorize(m, solver, work)
+	if err != nil {
+		return nil, fmt.Errorf("controller: interaction matrix %d×%d: %w", ns, na, err)
+	}
+	sv, v := f.values, f.v
 	if len(sv) == 0 || !(sv[0] > 0) {
 		return nil, fmt.Errorf("controller: interaction matrix %d×%d: all zero", ns, na)
 	}
-	var v mat.Dense
-	svd.VTo(&v)
 	seen := 0
 	for seen < len(sv) && sv[seen] > 0 && sv[0]/sv[seen] <= unseenCond {
 		seen++
 	}
-	q := unseenProjector(&v, seen, na, !c.KeepPiston)
+	q := unseenProjector(v, seen, na, !c.KeepPiston)
 
 	var modes, inverse *mat.Dense
 	var values []float64
 	var kept int
-	var err error
 	if c.Basis == nil {
 		values = sv
 		kept, err = modesToKeep(c, sv, seen, unseenCond)
 		if err != nil {
 			return nil, err
 		}
-		inverse = filteredInverse(&svd, c, sv, kept)
+		inverse = f.filteredInverse(c, kept)
 		modes = mat.DenseCopyOf(v.Slice(0, na, 0, kept))
 	} else {
 		var mb mat.Dense
 		mb.Mul(m, c.Basis)
-		var bsvd mat.SVD
-		if !bsvd.Factorize(&mb, mat.SVDThin) {
-			return nil, fmt.Errorf("controller: interaction matrix times basis: SVD did not converge")
+		bf, err := factorize(&mb, solver, work)
+		if err != nil {
+			return nil, fmt.Errorf("controller: interaction matrix times basis: %w", err)
 		}
-		values = bsvd.Values(nil)
+		values = bf.values
 		if !(values[0] > 0) {
 			return nil, fmt.Errorf("controller: interaction matrix times basis: all zero (the sensor sees no basis mode)")
 		}
@@ -209,12 +264,10 @@ func BuildReconstructor(m *mat.Dense, c ReconstructorConfig) (*Reconstructor, er
 			return nil, err
 		}
 		// (M·B)⁺ = V' F U'ᵀ, the modal coefficients of each basis mode.
-		coef := filteredInverse(&bsvd, c, values, kept)
-		var bv mat.Dense
-		bsvd.VTo(&bv)
+		coef := bf.filteredInverse(c, kept)
 		_, nb := c.Basis.Dims()
 		inverse = mat.NewDense(nb, ns, nil)
-		inverse.Mul(bv.Slice(0, nb, 0, kept), coef)
+		inverse.Mul(bf.v.Slice(0, nb, 0, kept), coef)
 		modes = mat.DenseCopyOf(c.Basis)
 	}
 	unseen := 0
@@ -227,9 +280,15 @@ func BuildReconstructor(m *mat.Dense, c ReconstructorConfig) (*Reconstructor, er
 		modes.Sub(modes, &corr)
 		_, unseen = q.Dims()
 	}
-	control := mat.NewDense(na, ns, nil)
-	control.Mul(modes, inverse)
-	control.Scale(-1, control)
+	var control *mat.Dense
+	if f.svd == nil && c.Basis == nil {
+		control = f.control(modes, kept, work)
+	} else {
+		control = mat.NewDense(na, ns, nil)
+		control.Mul(modes, inverse)
+		control.Scale(-1, control)
+	}
+	work.finish()
 	return &Reconstructor{
 		Method: c.Method, Slopes: ns, Actuators: na,
 		Control: control, Modes: modes, Inverse: inverse,
@@ -264,24 +323,140 @@ func modesToKeep(c ReconstructorConfig, sv []float64, seen int, unseenCond float
 	return c.ModesKept, nil
 }
 
-// filteredInverse returns diag(fᵢ)·U_kᵀ (k × rows of the factorised matrix) with
-// fᵢ = 1/sᵢ (truncated SVD) or sᵢ/(sᵢ² + α²) (Tikhonov, α = Regularization·s_max).
-func filteredInverse(svd *mat.SVD, c ReconstructorConfig, sv []float64, k int) *mat.Dense {
-	var u mat.Dense
-	svd.UTo(&u)
-	rows, _ := u.Dims()
-	out := mat.NewDense(k, rows, nil)
-	alpha2 := math.Pow(c.Regularization*sv[0], 2)
-	for i := 0; i < k; i++ {
-		f := 1 / sv[i]
-		if c.Method == MethodTikhonov {
-			f = sv[i] / (sv[i]*sv[i] + alpha2)
+// factorization is the singular spectrum of a matrix A (rows × cols) as
+// BuildReconstructor needs it: the singular values (descending), the right
+// singular vectors V as columns, and diag(f)·U_kᵀ.
+type factorization struct {
+	a      mat.Matrix
+	values []float64
+	v      *mat.Dense
+	svd    *mat.SVD   // SolverSVD only
+	w      *mat.Dense // SolverNormal: V_k·diag(fᵢ/sᵢ), once computed
+	work   *workMeter
+}
+
+// factorize returns the singular spectrum of a by the route of solver.
+func factorize(a mat.Matrix, solver Solver, work *workMeter) (*factorization, error) {
+	rows, cols := a.Dims()
+	if solver == SolverSVD {
+		var svd mat.SVD
+		if !svd.Factorize(a, mat.SVDThin) {
+			return nil, fmt.Errorf("SVD did not converge")
 		}
-		for j := 0; j < rows; j++ {
-			out.Set(i, j, f*u.At(j, i))
+		var v mat.Dense
+		svd.VTo(&v)
+		work.add(svdWork(rows, cols))
+		return &factorization{a: a, values: svd.Values(nil), v: &v, svd: &svd, work: work}, nil
+	}
+	// MᵀM through the symmetric rank-k update; gonum's multiply skips the zeros
+	// of a sparse interaction matrix.
+	var n mat.SymDense
+	n.SymOuterK(1, mat.DenseCopyOf(a).T())
+	buf := make([]float64, cols*cols)
+	for i := 0; i < cols; i++ {
+		for j := 0; j <= i; j++ {
+			buf[i*cols+j] = n.At(i, j)
 		}
 	}
+	work.add(normalWork(rows, cols))
+	base := work.done
+	lambda, v, err := symEigen(buf, cols, func(d float64) { work.set(base + d) })
+	if err != nil {
+		return nil, err
+	}
+	work.set(base + eigenTotal(cols))
+	// Singular values sᵢ = √λᵢ; a thin SVD has min(rows, cols) of them, and the
+	// normal matrix's rounding can make the smallest λᵢ slightly negative.
+	k := min(rows, cols)
+	values := make([]float64, k)
+	for i := range values {
+		values[i] = math.Sqrt(max(lambda[i], 0))
+	}
+	return &factorization{a: a, values: values, v: mat.DenseCopyOf(v.Slice(0, cols, 0, k)), work: work}, nil
+}
+
+// filteredInverse returns diag(fᵢ)·U_kᵀ (k × rows of the factorised matrix) with
+// fᵢ = 1/sᵢ (truncated SVD) or sᵢ/(sᵢ² + α²) (Tikhonov, α = Regularization·s_max).
+// From the normal matrix, U_k = A·V_k·S_k⁻¹, so diag(fᵢ)·U_kᵀ = (A·V_k·diag(fᵢ/sᵢ))ᵀ:
+// fᵢ/sᵢ = 1/sᵢ² or 1/(sᵢ² + α²).
+func (f *factorization) filteredInverse(c ReconstructorConfig, k int) *mat.Dense {
+	sv := f.values
+	rows, cols := f.a.Dims()
+	alpha2 := math.Pow(c.Regularization*sv[0], 2)
+	filter := func(i int) float64 {
+		if c.Method == MethodTikhonov {
+			return sv[i] / (sv[i]*sv[i] + alpha2)
+		}
+		return 1 / sv[i]
+	}
+	out := mat.NewDense(k, rows, nil)
+	if f.svd != nil {
+		var u mat.Dense
+		f.svd.UTo(&u)
+		for i := 0; i < k; i++ {
+			fi := filter(i)
+			for j := 0; j < rows; j++ {
+				out.Set(i, j, fi*u.At(j, i))
+			}
+		}
+		return out
+	}
+	var ut mat.Dense
+	ut.Mul(f.a, f.weights(c, k)) // rows × k; gonum's multiply skips the zeros of the sparse A on the left
+	out.Copy(ut.T())
+	f.work.add(float64(rows) * float64(cols) * float64(k) / 4)
 	return out
+}
+
+// weights returns W = V_k·diag(fᵢ/sᵢ) (cols × k) of a normal-matrix
+// factorisation, so that diag(fᵢ)·U_kᵀ = (A·W)ᵀ; the filter is kept for control.
+func (f *factorization) weights(c ReconstructorConfig, k int) *mat.Dense {
+	if f.w != nil {
+		return f.w
+	}
+	sv := f.values
+	_, cols := f.a.Dims()
+	alpha2 := math.Pow(c.Regularization*sv[0], 2)
+	w := mat.DenseCopyOf(f.v.Slice(0, cols, 0, k))
+	for i := 0; i < k; i++ {
+		s := 1 / (sv[i] * sv[i])
+		if c.Method == MethodTikhonov {
+			s = 1 / (sv[i]*sv[i] + alpha2)
+		}
+		for j := 0; j < cols; j++ {
+			w.Set(j, i, s*w.At(j, i))
+		}
+	}
+	f.w = w
+	return w
+}
+
+// control returns R = −Modes·Inverse for a normal-matrix factorisation of the
+// interaction matrix A itself (no basis): Inverse = (A·W)ᵀ, so
+// Rᵀ = −A·(W·Modesᵀ), which costs one dense na×na product and one with the
+// sparse A on the left instead of a dense na × k × ns product. The products go
+// in row panels so that progress shows.
+func (f *factorization) control(modes *mat.Dense, k int, work *workMeter) *mat.Dense {
+	rows, na := f.a.Dims()
+	w := f.w
+	p := mat.NewDense(na, na, nil)
+	const panel = 256
+	for r := 0; r < na; r += panel {
+		e := min(r+panel, na)
+		p.Slice(r, e, 0, na).(*mat.Dense).Mul(w.Slice(r, e, 0, k), modes.T())
+		work.add(2 * float64(e-r) * float64(k) * float64(na))
+	}
+	a := mat.DenseCopyOf(f.a)
+	rt := mat.NewDense(rows, na, nil)
+	for r := 0; r < rows; r += panel {
+		e := min(r+panel, rows)
+		rt.Slice(r, e, 0, na).(*mat.Dense).Mul(a.Slice(r, e, 0, na), p)
+		work.add(2 * float64(e-r) * float64(na) * float64(na) / 4)
+	}
+	control := mat.NewDense(na, rows, nil)
+	control.Copy(rt.T())
+	control.Scale(-1, control)
+	return control
 }
 
 // unseenProjector returns an orthonormal basis Q (na × q) of the unseen actuator

@@ -106,6 +106,7 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 		return fail(codes.Internal, "interaction matrix: %v", err)
 	}
 	rc.Created = time.Now().UTC()
+	rc.Progress = inversionProgress(send)
 	r, err := controller.BuildReconstructor(im, rc)
 	if err != nil {
 		return fail(codes.Internal, "reconstructor: %v", err)
@@ -140,8 +141,9 @@ func (d *Daemon) selectSource(ctx context.Context, src stillskyv1.Source) bool {
 }
 
 // calibrationSettings turns a request into calibrator and reconstructor settings,
-// filling the defaults: pokes of a tenth of the stroke, two frames per pattern,
-// one frame more settling than the loop delay.
+// filling the defaults: pokes of a tenth of the stroke, Hadamard patterns from
+// HadamardActuators actuators up, two frames per pattern (one for Hadamard
+// patterns), one frame more settling than the loop delay.
 func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (controller.CalibrationConfig, controller.ReconstructorConfig, error) {
 	cc := controller.CalibrationConfig{
 		Actuators:        g.actuators,
@@ -149,7 +151,7 @@ func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (control
 		Amplitude:        req.GetAmplitudeM(),
 		FramesPerPattern: int(req.GetFramesPerPattern()),
 		SettleFrames:     max(g.delayFrames, 1) + 1,
-		Hadamard:         req.GetHadamard(),
+		Hadamard:         req.GetHadamard() || g.actuators >= HadamardActuators,
 	}
 	if g.lockstep {
 		cc.SettleFrames = g.delayFrames
@@ -161,7 +163,7 @@ func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (control
 		return cc, controller.ReconstructorConfig{}, fmt.Errorf("poke amplitude %g m exceeds the mirror's stroke %g m", cc.Amplitude, g.stroke)
 	}
 	if cc.FramesPerPattern == 0 {
-		cc.FramesPerPattern = 2
+		cc.FramesPerPattern = defaultFramesPerPattern(cc.Hadamard)
 	}
 	rc := controller.ReconstructorConfig{
 		Method:       controller.MethodTruncatedSVD,

@@ -211,6 +211,7 @@ type Progress struct {
 	phase    string
 	last     time.Time
 	drawn    bool // a bar is on the terminal's current line
+	eta      timeLeft
 }
 
 // NewProgress returns a Progress writing to out.
@@ -225,15 +226,24 @@ func (p *Progress) Update(m *stillskyv1.CalibrateResponse) {
 	}
 	done, total := uint64(m.GetDone()), uint64(m.GetTotal())
 	pct := 100 * done / total
+	now := time.Now()
+	left := p.eta.update(m.GetPhase(), m.GetDone(), m.GetTotal(), now)
 	if p.terminal {
 		const width = 40
 		n := int(width * done / total)
-		fmt.Fprintf(p.out, "\rcalibrating [%s%s] %3d%% %-9s", strings.Repeat("#", n), strings.Repeat(".", width-n), pct, m.GetPhase())
+		fmt.Fprintf(p.out, "\rcalibrating [%s%s] %3d%% %-9s %-18s", strings.Repeat("#", n), strings.Repeat(".", width-n), pct, m.GetPhase(), left)
 		p.drawn = true
 		return
 	}
-	if now := time.Now(); m.GetPhase() != p.phase || now.Sub(p.last) >= progressEvery {
-		fmt.Fprintf(p.out, "calibrating: %3d%% (%d of %d frames) %s\n", pct, done, total, m.GetPhase())
+	if m.GetPhase() != p.phase || now.Sub(p.last) >= progressEvery {
+		what := fmt.Sprintf(" (%d of %d frames)", done, total)
+		if m.GetPhase() != "pokes" {
+			what = "" // the inversion counts its work in parts of the whole
+		}
+		if left != "" {
+			left = ", " + left
+		}
+		fmt.Fprintf(p.out, "calibrating: %3d%%%s %s%s\n", pct, what, m.GetPhase(), left)
 		p.phase, p.last = m.GetPhase(), now
 	}
 }
@@ -355,4 +365,26 @@ func upDown(b bool) string {
 		return "connected"
 	}
 	return "disconnected"
+}
+
+// timeLeft estimates the time left in a phase of a calibration from the rate
+// of its progress since the phase began.
+type timeLeft struct {
+	phase string
+	t0    time.Time
+	done0 uint32
+}
+
+// update takes a progress message received at now and returns "about 1m20s
+// left", or "" until the rate can be measured (a second into the phase).
+func (e *timeLeft) update(phase string, done, total uint32, now time.Time) string {
+	if phase != e.phase || done < e.done0 {
+		e.phase, e.t0, e.done0 = phase, now, done
+	}
+	el := now.Sub(e.t0)
+	if done >= total || el < time.Second || done == e.done0 {
+		return ""
+	}
+	left := time.Duration(float64(el) * float64(total-done) / float64(done-e.done0))
+	return "about " + left.Round(time.Second).String() + " left"
 }
