@@ -46,6 +46,7 @@ func (d *Daemon) registerLiveView(mux *http.ServeMux) {
 	mux.HandleFunc("GET /snapshot/commands.png", lv.serveCommands)
 	mux.HandleFunc("GET /snapshot/slopes.png", lv.serveSlopes)
 	mux.HandleFunc("GET /snapshot/psf.png", lv.servePSF)
+	mux.HandleFunc("GET /snapshot/contrast.json", lv.serveContrast)
 }
 
 // liveView serves the live view from the telemetry ring and the devices'
@@ -200,12 +201,22 @@ func (lv *liveView) serveSlopes(w http.ResponseWriter, _ *http.Request) {
 // servePSF relays the bench's PSF image, so that the page needs only this
 // origin and learns from the status whether the bench is reachable.
 func (lv *liveView) servePSF(w http.ResponseWriter, r *http.Request) {
+	lv.relay(w, r, "/psf.png", "image/png")
+}
+
+// serveContrast relays the bench's raw contrast at a few separations (JSON).
+func (lv *liveView) serveContrast(w http.ResponseWriter, r *http.Request) {
+	lv.relay(w, r, "/contrast.json", "application/json")
+}
+
+// relay answers with the bench's path, of the given content type.
+func (lv *liveView) relay(w http.ResponseWriter, r *http.Request, path, contentType string) {
 	base := lv.d.cfg.BenchURL
 	if base == "" {
 		http.Error(w, "live view: no bench URL configured", http.StatusNotFound)
 		return
 	}
-	req, err := http.NewRequestWithContext(r.Context(), http.MethodGet, strings.TrimSuffix(base, "/")+"/psf.png", nil)
+	req, err := http.NewRequestWithContext(r.Context(), http.MethodGet, strings.TrimSuffix(base, "/")+path, nil)
 	if err != nil {
 		http.Error(w, fmt.Sprintf("live view: bench URL %q: %v", base, err), http.StatusInternalServerError)
 		return
@@ -220,7 +231,7 @@ func (lv *liveView) servePSF(w http.ResponseWriter, r *http.Request) {
 		http.Error(w, "live view: bench answered "+resp.Status, http.StatusBadGateway)
 		return
 	}
-	w.Header().Set("Content-Type", "image/png")
+	w.Header().Set("Content-Type", contentType)
 	w.Header().Set("Cache-Control", "no-store")
 	io.Copy(w, resp.Body)
 }

@@ -170,6 +170,13 @@ func TestSnapshots(t *testing.T) {
 	if psf.Bounds().Dx() < 256 || len(colours(psf)) < 10 {
 		t.Errorf("relayed PSF: %v, %d colours", psf.Bounds(), len(colours(psf)))
 	}
+	var contrast struct {
+		Separations []int     `json:"separations_lambda_over_d"`
+		Contrast    []float64 `json:"contrast"`
+	}
+	if err := json.Unmarshal(fetch(t, base+"/snapshot/contrast.json"), &contrast); err != nil || len(contrast.Separations) != len(contrast.Contrast) {
+		t.Errorf("relayed contrast: %v, %+v", err, contrast)
+	}
 	page := string(fetch(t, base+"/"))
 	js := string(fetch(t, base+"/assets/live.js"))
 	if !bytes.Contains([]byte(page), []byte(`src="assets/live.js"`)) || !bytes.Contains([]byte(js), []byte("live.json")) {

@@ -53,6 +53,7 @@ var KnownMetrics = []Metric{
 	{Name: "stillsky_bench_commands_total", Type: "counter", Exporter: "bench"},
 	{Name: "stillsky_bench_residual_wavefront_rms_meters", Type: "gauge", Exporter: "bench"},
 	{Name: "stillsky_bench_strehl_ratio", Type: "gauge", Exporter: "bench"},
+	{Name: "stillsky_bench_raw_contrast_ratio", Type: "gauge", Labels: []string{"separation_lambda_over_d"}, Exporter: "bench"},
 	{Name: "stillsky_bench_science_wavelength_meters", Type: "gauge", Exporter: "bench"},
 	{Name: "stillsky_bench_frame_period_seconds", Type: "gauge", Exporter: "bench"},
 }

@@ -106,7 +106,18 @@ function refreshPSF(enabled) {
   if (psfBusy) return;
   psfBusy = true;
   const next = new Image();
-  next.onload = () => { img.src = next.src; show("psfnote", ""); psfBusy = false; };
+  next.onload = async () => {
+    img.src = next.src;
+    psfBusy = false;
+    try {
+      const r = await fetch("snapshot/contrast.json", { cache: "no-store" });
+      const c = await r.json();
+      show("contrast", c.separations_lambda_over_d.map((s, i) => `${s} λ/D: ${c.contrast[i].toExponential(1)}`).join(" · ") || "—");
+    } catch (e) {
+      show("contrast", "—");
+    }
+    show("psfnote", "");
+  };
   next.onerror = () => { show("psfnote", "— bench not reachable"); psfBusy = false; };
   next.src = "snapshot/psf.png?t=" + Date.now();
 }

@@ -21,10 +21,12 @@ const psfDecades = 5
 const psfMinSide = 256
 
 // RegisterLiveView adds GET /psf.png to mux: the science PSF of the newest
-// frame's residual, log scale. Pass it to Serve to offer it on the bench's
+// frame's residual, log scale, and GET /contrast.json, the last second's raw
+// contrast at a few separations. Pass it to Serve to offer them on the bench's
 // metrics port, for the loop's live view.
 func (b *Server) RegisterLiveView(mux *http.ServeMux) {
 	mux.HandleFunc("GET /psf.png", b.servePSF)
+	mux.HandleFunc("GET /contrast.json", b.serveContrast)
 }
 
 // servePSF images the newest residual with an imager of its own, so that a

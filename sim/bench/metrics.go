@@ -16,6 +16,7 @@ type benchMetrics struct {
 	frames, framesLost, commands                 prometheus.Counter
 	commandsRejected, lockstepTimeouts           prometheus.Counter
 	residual, strehl, wavelength, framePeriodGau prometheus.Gauge
+	contrast                                     *prometheus.GaugeVec
 }
 
 func newBenchMetrics(wavelength, period float64) *benchMetrics {
@@ -36,6 +37,9 @@ func newBenchMetrics(wavelength, period float64) *benchMetrics {
 	m.strehl = gauge("stillsky_bench_strehl_ratio", "True science Strehl ratio at the science wavelength, from the PSF.")
 	m.wavelength = gauge("stillsky_bench_science_wavelength_meters", "Science wavelength of the Strehl ratio.")
 	m.framePeriodGau = gauge("stillsky_bench_frame_period_seconds", "Frame period of the simulated camera.")
+	m.contrast = f.NewGaugeVec(prometheus.GaugeOpts{Name: "stillsky_bench_raw_contrast_ratio",
+		Help: "Raw contrast of the last second's science exposure: azimuthal mean of the PSF at a separation (in λ/D at the science wavelength) over its peak."},
+		[]string{"separation_lambda_over_d"})
 	m.wavelength.Set(wavelength)
 	m.framePeriodGau.Set(period)
 	if err := buildinfo.Register(m.reg); err != nil {

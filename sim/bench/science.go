@@ -46,6 +46,7 @@ func (b *Server) expose(psf []float64) {
 		st := b.sci.gauge.strehl()
 		b.metrics.strehl.Set(st)
 		b.sci.lastStrehl.Store(math.Float64bits(st))
+		b.setContrast(b.sci.gauge.contrastCurve(b.sys.PSFSize()))
 		b.sci.gauge.reset()
 	}
 }
@@ -87,6 +88,8 @@ type scienceCamera struct {
 	gauge        exposure
 	gaugeSamples int
 	lastStrehl   atomic.Uint64
+	// lastContrast is the gauge's last raw contrast at ContrastSeparations.
+	lastContrast contrastGauge
 }
 
 // exposure sums PSFs, as a science camera integrates.

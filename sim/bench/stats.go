@@ -21,6 +21,10 @@ type Stats struct {
 	// frames in the window (frame rate frames, however long they took), in order:
 	// how much the figure of a run varies over its length.
 	BlockStrehl []float64
+	// Contrast is the raw contrast curve of the window's exposure: Contrast[r]
+	// is the azimuthal mean of the PSF at r λ/D over its peak (optics.Contrast);
+	// nil before the first PSF.
+	Contrast []float64
 }
 
 type statsAccumulator struct {
@@ -69,7 +73,8 @@ func (b *Server) Stats() Stats {
 	a := &b.stats
 	a.mu.Lock()
 	defer a.mu.Unlock()
-	s := Stats{Frames: a.frames, StrehlSamples: a.exp.n, Strehl: a.exp.strehl(), BlockStrehl: append([]float64(nil), a.blocks...)}
+	s := Stats{Frames: a.frames, StrehlSamples: a.exp.n, Strehl: a.exp.strehl(), BlockStrehl: append([]float64(nil), a.blocks...),
+		Contrast: a.exp.contrastCurve(b.sys.PSFSize())}
 	if a.frames > 0 {
 		s.ResidualRMS = a.sumResidual / float64(a.frames)
 	}
