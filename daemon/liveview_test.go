@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"fmt"
 	"image"
 	"image/png"
 	"net"
@@ -200,32 +201,34 @@ func TestPSFRelayStatus(t *testing.T) {
 		{"", http.StatusNotFound},
 		{closed, http.StatusBadGateway},
 	} {
-		d, err := daemon.New(daemon.Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:1", ListenAddr: "127.0.0.1:0", MetricsAddr: "127.0.0.1:0", BenchURL: c.benchURL})
-		if err != nil {
-			t.Fatal(err)
-		}
-		ctx, cancel := context.WithCancel(context.Background())
-		done := make(chan error, 1)
-		go func() { done <- d.Run(ctx) }()
-		resp, err := http.Get("http://" + d.MetricsAddr() + "/snapshot/psf.png")
-		if err != nil {
-			t.Fatal(err)
-		}
-		resp.Body.Close()
-		if resp.StatusCode != c.want {
-			t.Errorf("bench URL %q: %s, want %d", c.benchURL, resp.Status, c.want)
-		}
-		// Before the devices are described there is nothing to draw.
-		resp, err = http.Get("http://" + d.MetricsAddr() + "/snapshot/commands.png")
-		if err != nil {
-			t.Fatal(err)
-		}
-		resp.Body.Close()
-		if resp.StatusCode != http.StatusServiceUnavailable {
-			t.Errorf("commands.png without devices: %s, want 503", resp.Status)
-		}
-		cancel()
-		<-done
+		t.Run(fmt.Sprintf("bench URL %q", c.benchURL), func(t *testing.T) {
+			d, err := daemon.New(daemon.Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:1", ListenAddr: "127.0.0.1:0", MetricsAddr: "127.0.0.1:0", BenchURL: c.benchURL})
+			if err != nil {
+				t.Fatal(err)
+			}
+			ctx, cancel := context.WithCancel(context.Background())
+			done := make(chan error, 1)
+			go func() { done <- d.Run(ctx) }()
+			resp, err := http.Get("http://" + d.MetricsAddr() + "/snapshot/psf.png")
+			if err != nil {
+				t.Fatal(err)
+			}
+			resp.Body.Close()
+			if resp.StatusCode != c.want {
+				t.Errorf("bench URL %q: %s, want %d", c.benchURL, resp.Status, c.want)
+			}
+			// Before the devices are described there is nothing to draw.
+			resp, err = http.Get("http://" + d.MetricsAddr() + "/snapshot/commands.png")
+			if err != nil {
+				t.Fatal(err)
+			}
+			resp.Body.Close()
+			if resp.StatusCode != http.StatusServiceUnavailable {
+				t.Errorf("commands.png without devices: %s, want 503", resp.Status)
+			}
+			cancel()
+			<-done
+		})
 	}
 }
 

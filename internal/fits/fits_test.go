@@ -230,12 +230,14 @@ func TestWriteRejects(t *testing.T) {
 		"bad value type":   {Bitpix: 16, Axes: []int{1}, Data: []int16{1}, Header: Header{Cards: []Card{{Key: "X", Value: []int{1}}}}},
 	}
 	for name, h := range cases {
-		var buf bytes.Buffer
-		if err := Write(&buf, sample(16, 2), h); err == nil {
-			t.Errorf("%s: Write accepted it", name)
-		} else if buf.Len() != 0 {
-			t.Errorf("%s: %d bytes written before the error", name, buf.Len())
-		}
+		t.Run(name, func(t *testing.T) {
+			var buf bytes.Buffer
+			if err := Write(&buf, sample(16, 2), h); err == nil {
+				t.Errorf("%s: Write accepted it", name)
+			} else if buf.Len() != 0 {
+				t.Errorf("%s: %d bytes written before the error", name, buf.Len())
+			}
+		})
 	}
 }
 
@@ -290,9 +292,11 @@ func TestReadRejectsCorrupt(t *testing.T) {
 		"no extension": append(b[:2880*2:2880*2], bytes.Repeat([]byte{' '}, 2880)...),
 	}
 	for name, data := range cases {
-		if _, err := Read(bytes.NewReader(data)); err == nil {
-			t.Errorf("%s: Read accepted it", name)
-		}
+		t.Run(name, func(t *testing.T) {
+			if _, err := Read(bytes.NewReader(data)); err == nil {
+				t.Errorf("%s: Read accepted it", name)
+			}
+		})
 	}
 }
 
