@@ -6,6 +6,7 @@
         loop.calibrate(progress=lambda phase, done, total: print(phase, done, total))
         loop.close_loop()
         tel = loop.telemetry(1000)          # numpy arrays: tel.slopes, tel.commands, ...
+        rec = loop.record(5000)             # every frame, with its timestamps
 
 The wire code in stillsky.v1 is generated from the same .proto files as the Go
 daemon (see generate.sh). Errors from the daemon raise stillsky.Error, which
@@ -20,6 +21,7 @@ from stillsky.client import (
     TRIPPED,
     Client,
     Error,
+    Recording,
     Telemetry,
     state_name,
 )
@@ -32,6 +34,7 @@ __all__ = [
     "TRIPPED",
     "Client",
     "Error",
+    "Recording",
     "Telemetry",
     "state_name",
 ]

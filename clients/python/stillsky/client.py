@@ -69,6 +69,34 @@ class Telemetry:
         return len(self.frame_number)
 
 
+@dataclass
+class Recording:
+    """A recording of every frame the loop handled, from RecordTelemetry.
+
+    header is the recording's RecordingHeader message (devices, gain, leak, modal
+    gains, reconstructor and its FITS file, start time); the arrays have one row
+    per recorded frame. Timestamps are CLOCK_MONOTONIC nanoseconds: readout_end_ns
+    on the camera's host, the others on the daemon's. Frames the loop refused or
+    skipped are missing (frame_number shows the gaps).
+    """
+
+    header: pb.RecordingHeader
+    frame_number: np.ndarray  # uint64 (n,)
+    readout_end_ns: np.ndarray  # int64 (n,)
+    received_ns: np.ndarray  # int64 (n,)
+    computed_ns: np.ndarray  # int64 (n,)
+    sent_ns: np.ndarray  # int64 (n,)
+    state: np.ndarray  # int32 (n,)
+    saturated_actuators: np.ndarray  # uint32 (n,)
+    residual_wavefront_rms_m: np.ndarray  # float64 (n,)
+    strehl_estimate: np.ndarray  # float64 (n,)
+    slopes: np.ndarray  # float32 (n, slopes), radians, as received
+    commands: np.ndarray  # float32 (n, actuators), metres of surface, as sent
+
+    def __len__(self) -> int:
+        return len(self.frame_number)
+
+
 class Client:
     """A connection to a loop daemon's Control API.
 
@@ -235,6 +263,63 @@ class Client:
                 data = f.read()
         chunks = (pb.LoadReconstructorRequest(chunk=data[i : i + _CHUNK]) for i in range(0, len(data), _CHUNK))
         return self._unary(self._stub.LoadReconstructor, chunks).reconstructor
+
+    def optimise_modal_gains(self, frames: int = 0, dry_run: bool = False,
+                             timeout: Optional[float] = None) -> pb.OptimiseModalGainsResponse:
+        """Records frames (0: the daemon's 4096), chooses each mode's gain from its
+        temporal spectrum and, unless dry_run, applies them. The response has the
+        gains (relative to the loop gain), the predicted residual before and after,
+        and the status."""
+        try:
+            return self._stub.OptimiseModalGains(pb.OptimiseModalGainsRequest(frames=frames, dry_run=dry_run),
+                                                 timeout=timeout)
+        except grpc.RpcError as err:
+            _raise(err)
+
+    def record(self, frame_count: int, timeout: Optional[float] = None) -> Recording:
+        """Records every frame the loop handles, from the next one on, for
+        frame_count frames, as numpy arrays (see Recording). A client that falls
+        more than the daemon's ring behind gets Error(DATA_LOSS)."""
+        header = None
+        batches = []
+        try:
+            for r in self._stub.RecordTelemetry(pb.RecordTelemetryRequest(frame_count=frame_count), timeout=timeout):
+                if r.HasField("header"):
+                    header = r.header
+                elif r.HasField("frames"):
+                    batches.append(r.frames)
+        except grpc.RpcError as err:
+            _raise(err)
+        if header is None:
+            raise Error(grpc.StatusCode.UNKNOWN, "recording ended without a header")
+
+        def column(name, dtype):
+            return np.concatenate([np.asarray(getattr(b, name), dtype=dtype) for b in batches]) if batches \
+                else np.empty(0, dtype=dtype)
+
+        frames = column("frame_numbers", np.uint64)
+        n = len(frames)
+
+        def matrix(name, width):
+            flat = column(name, np.float32)
+            if n and len(flat) != n * width:
+                raise Error(grpc.StatusCode.DATA_LOSS, f"recording: {len(flat)} {name} for {n} frames of {width}")
+            return flat.reshape(n, width)
+
+        return Recording(
+            header=header,
+            frame_number=frames,
+            readout_end_ns=column("readout_end_ns", np.int64),
+            received_ns=column("received_ns", np.int64),
+            computed_ns=column("computed_ns", np.int64),
+            sent_ns=column("sent_ns", np.int64),
+            state=column("states", np.int32),
+            saturated_actuators=column("saturated_actuators", np.uint32),
+            residual_wavefront_rms_m=column("residual_wavefront_rms_m", np.float64),
+            strehl_estimate=column("strehl_estimate", np.float64),
+            slopes=matrix("slopes", header.camera.slope_count),
+            commands=matrix("commands", header.mirror.actuator_count),
+        )
 
     def samples(self, decimation: int = 1) -> Iterator[pb.StreamTelemetryResponse]:
         """Yields telemetry messages as they come, the newest frame of each block of

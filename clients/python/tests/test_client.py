@@ -233,6 +233,41 @@ class ClosedLoop(unittest.TestCase):
         np.testing.assert_allclose(c[pairs], want, rtol=0, atol=1e-5 * scale)
         self.assertGreater(np.mean(tel.strehl_estimate[closed]), 0.3)
 
+    def test_recording(self):
+        """A recording has every frame in order, timestamps in the order the daemon
+        takes them (received, computed, sent on one CLOCK_MONOTONIC), the
+        reconstructor file SaveReconstructor gives, and commands that follow the
+        leaky integrator on every pair of consecutive closed-loop frames."""
+        gain = 0.35
+        self.client.set_gain(gain)
+        leak = self.client.status().leak
+        self.client.close_loop()
+        rec = self.client.record(300, timeout=60)
+        self.assertEqual(len(rec), 300)
+        self.assertEqual(rec.slopes.shape, (300, self.info.slope_count))
+        self.assertEqual(rec.commands.shape, (300, self.info.actuator_count))
+        self.assertAlmostEqual(rec.header.gain, gain)
+        self.assertEqual(rec.header.reconstructor_file, self.client.save_reconstructor())
+        self.assertTrue(np.all(np.diff(rec.frame_number.astype(np.int64)) >= 1))
+        self.assertTrue(np.all(rec.received_ns <= rec.computed_ns) and np.all(rec.computed_ns <= rec.sent_ns))
+        self.assertTrue(np.all(rec.readout_end_ns <= rec.received_ns), "one host: readout before receipt")
+        try:
+            from astropy.io import fits
+        except ImportError:
+            if os.environ.get("CI") == "true":
+                raise
+            self.skipTest("astropy not installed (Debian package python3-astropy)")
+        import io
+        with fits.open(io.BytesIO(rec.header.reconstructor_file)) as hdus:
+            r = hdus[0].data.astype(np.float64)
+        closed = rec.state == stillsky.CLOSED
+        k = np.flatnonzero((np.diff(rec.frame_number.astype(np.int64)) == 1) & closed[1:] & closed[:-1]
+                           & (rec.saturated_actuators[1:] == 0)) + 1
+        self.assertGreater(len(k), 200)
+        c, s = rec.commands.astype(np.float64), rec.slopes.astype(np.float64)
+        np.testing.assert_allclose(c[k], (1 - leak) * c[k - 1] + gain * s[k] @ r.T, rtol=0,
+                                   atol=1e-5 * np.abs(c[k]).max())
+
     def test_samples_decimated(self):
         frames = []
         for s in self.client.samples(decimation=5):
@@ -264,6 +299,32 @@ class ClosedLoop(unittest.TestCase):
         with self.assertRaises(stillsky.Error) as cm:
             self.client.set_modal_gains(np.ones(self.info.modes_kept + 1))
         self.assertEqual(cm.exception.code, grpc.StatusCode.INVALID_ARGUMENT)
+
+class ModalGains(unittest.TestCase):
+    """The modal gain optimiser on a lockstep bench, where no frame is lost."""
+
+    @classmethod
+    def setUpClass(cls):
+        cls.rig = Rig(sim_args=["--lockstep"])
+        cls.client = stillsky.Client(cls.rig.address)
+        cls.rig.wait_connected(cls.client)
+        cls.info = cls.client.calibrate(timeout=120)
+
+    @classmethod
+    def tearDownClass(cls):
+        cls.client.close()
+        cls.rig.stop()
+
+    def test_dry_run(self):
+        self.client.close_loop()
+        r = self.client.optimise_modal_gains(frames=512, dry_run=True, timeout=60)
+        self.assertEqual(len(r.gains), self.info.modes_kept)
+        self.assertTrue(np.all(np.isfinite(r.gains)))
+        self.assertTrue(np.isfinite(r.predicted_residual_before) and np.isfinite(r.predicted_residual_after))
+        with self.assertRaises(stillsky.Error) as cm:
+            self.client.optimise_modal_gains(frames=10)
+        self.assertEqual(cm.exception.code, grpc.StatusCode.INVALID_ARGUMENT)
+
 
 
 class Example(unittest.TestCase):
