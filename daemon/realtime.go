@@ -3,6 +3,7 @@ package daemon
 import (
 	"context"
 	"fmt"
+	"math"
 	"runtime"
 	"sync/atomic"
 
@@ -50,9 +51,21 @@ type realtime struct {
 	tags    [readoutRing]atomic.Uint64
 	acked   [readoutRing]atomic.Int64
 	period  int64 // ns
+	// ackBatch is how many commands the mirror may acknowledge at once outside
+	// a calibration (mirror protocol version 2).
+	ackBatch uint32
 }
 
 const readoutRing = 1024
+
+// ackWindow is the time one batch of mirror acknowledgements spans at most,
+// seconds: end-to-end latency reaches the metrics this much later, and the
+// daemon's transport allocates per acknowledgement message, not per command.
+const ackWindow = 0.1
+
+// maxAckBatch bounds a batch of acknowledgements, well inside readoutRing so
+// that a command's readout time is still known when its acknowledgement comes.
+const maxAckBatch = 256
 
 func newRealtime(u *unit, g *geometry) *realtime {
 	rt := &realtime{
@@ -68,6 +81,8 @@ func newRealtime(u *unit, g *geometry) *realtime {
 		guard:   guard{cfg: u.interlocks},
 		staleNs: int64(2e9 / g.frameRate),
 		period:  int64(1e9 / g.frameRate),
+		// A batch spans ackWindow; at 1 kHz that is 100 commands.
+		ackBatch: uint32(max(1, min(maxAckBatch, int(math.Round(g.frameRate*ackWindow))))),
 	}
 	rt.slopes = rt.asm.slopes
 	rt.out.Values = rt.cmd
@@ -162,6 +177,13 @@ func (rt *realtime) receive(f *stillskyv1.StreamFramesResponse, received int64) 
 	rt.tags[slot].Store(num)
 	rt.res = rt.compute(f)
 	rt.out.FrameNumber = num
+	rt.out.AckBatch = rt.ackBatch
+	if rt.state == stateCalibrating {
+		// A free-running calibration counts a frame only once the mirror has
+		// acknowledged its pattern (showsBlock): it needs every
+		// acknowledgement at once.
+		rt.out.AckBatch = 1
+	}
 	return true
 }
 
@@ -336,27 +358,42 @@ func (rt *realtime) publish(res controller.Result) {
 	u.stats.store(res)
 }
 
-// acks reads the mirror's acknowledgements and turns them into end-to-end latency.
+// acks reads the mirror's acknowledgements, one per command or in batches
+// (the earlier_* lists, protocol version 2), and turns them into end-to-end
+// latency.
 func (rt *realtime) acks(cmds receiver) error {
-	ack := &stillskyv1.StreamCommandsResponse{}
+	ack := &stillskyv1.StreamCommandsResponse{
+		EarlierFrameNumbers: make([]uint64, 0, maxAckBatch),
+		EarlierReceivedNs:   make([]int64, 0, maxAckBatch),
+		EarlierClipped:      make([]uint32, 0, maxAckBatch),
+	}
 	for {
 		if err := cmds.RecvMsg(ack); err != nil {
 			return err
 		}
-		num := ack.GetFrameNumber()
-		slot := num % readoutRing
-		if rt.tags[slot].Load() != num {
-			continue
+		nums, ats := ack.GetEarlierFrameNumbers(), ack.GetEarlierReceivedNs()
+		for i := range min(len(nums), len(ats)) { // equal, as the codec checks
+			rt.acknowledged(nums[i], ats[i])
 		}
-		rt.acked[slot].Store(ack.GetReceivedNs())
-		e2e := ack.GetReceivedNs() - rt.readout[slot].Load()
-		if e2e < 0 {
-			continue
-		}
-		rt.u.m.endToEnd.Observe(float64(e2e) * 1e-9)
-		rt.u.stats.e2e.add(e2e)
-		if rec := rt.u.recorder; rec != nil {
-			rec.endToEnd(e2e)
-		}
+		rt.acknowledged(ack.GetFrameNumber(), ack.GetReceivedNs())
+	}
+}
+
+// acknowledged records that the mirror received the command answering frame
+// num at time at (its CLOCK_MONOTONIC ns).
+func (rt *realtime) acknowledged(num uint64, at int64) {
+	slot := num % readoutRing
+	if rt.tags[slot].Load() != num {
+		return
+	}
+	rt.acked[slot].Store(at)
+	e2e := at - rt.readout[slot].Load()
+	if e2e < 0 {
+		return
+	}
+	rt.u.m.endToEnd.Observe(float64(e2e) * 1e-9)
+	rt.u.stats.e2e.add(e2e)
+	if rec := rt.u.recorder; rec != nil {
+		rec.endToEnd(e2e)
 	}
 }

@@ -58,7 +58,7 @@ func (d *Daemon) session(ctx context.Context) error {
 	d.m.framePeriod.Set(1 / g.frameRate)
 	d.m.actuators.Set(float64(g.actuators))
 	d.log.Info("devices described", "slopes", g.slopes, "actuators", g.actuators, "frame_rate_hz", g.frameRate,
-		"stroke_m", g.stroke, "lockstep", g.lockstep, "camera", camDesc.GetDescription())
+		"stroke_m", g.stroke, "lockstep", g.lockstep, "camera", camDesc.GetDescription(), "mirror_protocol", mirDesc.GetProtocolVersion())
 	d.restoreOnce(g)
 
 	sctx, cancel := context.WithCancel(ctx)

@@ -17,8 +17,9 @@ import (
 
 // FrameCodec is the wire codec of the loop's real-time streams. It speaks the
 // standard protobuf encoding (content subtype "proto"), so the devices need
-// nothing special, but it decodes slope frames into the caller's message reusing
-// its slope slice — the generated decoder always allocates a fresh one — and
+// nothing special, but it decodes slope frames and mirror acknowledgements into
+// the caller's message reusing its slices — the generated decoder always
+// allocates fresh ones — and
 // encodes commands into buffers it owns (see sendSlot). Other messages go
 // through the standard codec.
 type FrameCodec struct{}
@@ -127,18 +128,93 @@ func (s *sendSlot) Put(b *[]byte) {
 	s.busy.Store(false)
 }
 
-// Unmarshal decodes data into v; slope frames reuse v's slope slice.
+// Unmarshal decodes data into v; slope frames and mirror acknowledgements
+// reuse v's slices.
 func (FrameCodec) Unmarshal(data mem.BufferSlice, v any) error {
-	f, ok := v.(*stillskyv1.StreamFramesResponse)
-	if !ok {
+	switch v.(type) {
+	case *stillskyv1.StreamFramesResponse, *stillskyv1.StreamCommandsResponse:
+	default:
 		return standard.Unmarshal(data, v)
 	}
+	var b []byte
 	if len(data) == 1 {
-		return DecodeFrame(data[0].ReadOnlyData(), f)
+		b = data[0].ReadOnlyData()
+	} else {
+		buf := data.MaterializeToBuffer(mem.DefaultBufferPool())
+		defer buf.Free()
+		b = buf.ReadOnlyData()
 	}
-	buf := data.MaterializeToBuffer(mem.DefaultBufferPool())
-	defer buf.Free()
-	return DecodeFrame(buf.ReadOnlyData(), f)
+	if f, ok := v.(*stillskyv1.StreamFramesResponse); ok {
+		return DecodeFrame(b, f)
+	}
+	return DecodeAck(b, v.(*stillskyv1.StreamCommandsResponse))
+}
+
+// DecodeAck decodes the protobuf encoding of a StreamCommandsResponse into a,
+// overwriting every field and appending the earlier_* lists into a's slices
+// cut to length 0, so that a batch no longer than the previous one allocates
+// nothing. Packed and unpacked lists are both accepted, and unknown fields
+// skipped, as the standard decoder does.
+func DecodeAck(b []byte, a *stillskyv1.StreamCommandsResponse) error {
+	a.FrameNumber, a.ReceivedNs, a.Clipped = 0, 0, 0
+	nums, ats, clipped := a.EarlierFrameNumbers[:0], a.EarlierReceivedNs[:0], a.EarlierClipped[:0]
+	set := func(num protowire.Number, v uint64) {
+		switch num {
+		case 1:
+			a.FrameNumber = v
+		case 2:
+			a.ReceivedNs = int64(v)
+		case 3:
+			a.Clipped = uint32(v)
+		case 4:
+			nums = append(nums, v)
+		case 5:
+			ats = append(ats, int64(v))
+		case 6:
+			clipped = append(clipped, uint32(v))
+		}
+	}
+	for len(b) > 0 {
+		num, typ, n := protowire.ConsumeTag(b)
+		if n < 0 {
+			return fmt.Errorf("mirror acknowledgement: bad tag: %w", protowire.ParseError(n))
+		}
+		b = b[n:]
+		switch {
+		case num >= 1 && num <= 6 && typ == protowire.VarintType:
+			v, n := protowire.ConsumeVarint(b)
+			if n < 0 {
+				return fmt.Errorf("mirror acknowledgement: bad field %d: %w", num, protowire.ParseError(n))
+			}
+			b = b[n:]
+			set(num, v)
+		case num >= 4 && num <= 6 && typ == protowire.BytesType: // a packed list
+			p, n := protowire.ConsumeBytes(b)
+			if n < 0 {
+				return fmt.Errorf("mirror acknowledgement: bad field %d: %w", num, protowire.ParseError(n))
+			}
+			b = b[n:]
+			for len(p) > 0 {
+				v, m := protowire.ConsumeVarint(p)
+				if m < 0 {
+					return fmt.Errorf("mirror acknowledgement: bad field %d: %w", num, protowire.ParseError(m))
+				}
+				p = p[m:]
+				set(num, v)
+			}
+		default:
+			n = protowire.ConsumeFieldValue(num, typ, b)
+			if n < 0 {
+				return fmt.Errorf("mirror acknowledgement: bad field %d: %w", num, protowire.ParseError(n))
+			}
+			b = b[n:]
+		}
+	}
+	if len(ats) != len(nums) || len(clipped) != len(nums) {
+		return fmt.Errorf("mirror acknowledgement: earlier lists of lengths %d, %d, %d: want equal", len(nums), len(ats), len(clipped))
+	}
+	a.EarlierFrameNumbers, a.EarlierReceivedNs, a.EarlierClipped = nums, ats, clipped
+	return nil
 }
 
 // DecodeFrame decodes the protobuf encoding of a StreamFramesResponse into f,

@@ -150,3 +150,67 @@ func TestMarshalCommandAllocatesNothing(t *testing.T) {
 		t.Fatalf("%v allocations per encoded command, want 0", allocs)
 	}
 }
+
+// DecodeAck must agree with the generated protobuf decoder, the reference, on
+// single acknowledgements and batches, packed (as Go encodes them) and
+// unpacked (as proto3 decoders must also accept), and reuse its slices.
+func TestDecodeAckMatchesProto(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	got := &stillskyv1.StreamCommandsResponse{EarlierFrameNumbers: make([]uint64, 0, 64),
+		EarlierReceivedNs: make([]int64, 0, 64), EarlierClipped: make([]uint32, 0, 64)}
+	for trial := 0; trial < 200; trial++ {
+		in := &stillskyv1.StreamCommandsResponse{FrameNumber: rng.Uint64(), ReceivedNs: rng.Int64(), Clipped: rng.Uint32() % 900}
+		for range rng.IntN(50) {
+			in.EarlierFrameNumbers = append(in.EarlierFrameNumbers, rng.Uint64())
+			in.EarlierReceivedNs = append(in.EarlierReceivedNs, rng.Int64()-rng.Int64())
+			in.EarlierClipped = append(in.EarlierClipped, rng.Uint32())
+		}
+		b, err := proto.Marshal(in)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if trial%2 == 1 { // the same lists unpacked, field by field
+			b = b[:0]
+			b = protowire.AppendTag(b, 1, protowire.VarintType)
+			b = protowire.AppendVarint(b, in.FrameNumber)
+			for i := range in.EarlierFrameNumbers {
+				b = protowire.AppendTag(b, 4, protowire.VarintType)
+				b = protowire.AppendVarint(b, in.EarlierFrameNumbers[i])
+				b = protowire.AppendTag(b, 6, protowire.VarintType)
+				b = protowire.AppendVarint(b, uint64(in.EarlierClipped[i]))
+				b = protowire.AppendTag(b, 5, protowire.VarintType)
+				b = protowire.AppendVarint(b, uint64(in.EarlierReceivedNs[i]))
+			}
+			b = protowire.AppendTag(b, 2, protowire.VarintType)
+			b = protowire.AppendVarint(b, uint64(in.ReceivedNs))
+			b = protowire.AppendTag(b, 3, protowire.VarintType)
+			b = protowire.AppendVarint(b, uint64(in.Clipped))
+			b = protowire.AppendTag(b, 99, protowire.BytesType) // as a newer mirror might send
+			b = protowire.AppendBytes(b, []byte("future"))
+		}
+		want := &stillskyv1.StreamCommandsResponse{}
+		if err := proto.Unmarshal(b, want); err != nil {
+			t.Fatal(err)
+		}
+		want.ProtoReflect().SetUnknown(nil)
+		if err := DecodeAck(b, got); err != nil {
+			t.Fatal(err)
+		}
+		if len(want.EarlierFrameNumbers) == 0 { // proto.Equal tells nil from empty
+			want.EarlierFrameNumbers, want.EarlierReceivedNs, want.EarlierClipped = got.EarlierFrameNumbers, got.EarlierReceivedNs, got.EarlierClipped
+		}
+		if !proto.Equal(got, want) {
+			t.Fatalf("trial %d: decoded %v, want %v", trial, got, want)
+		}
+	}
+	b, _ := proto.Marshal(&stillskyv1.StreamCommandsResponse{FrameNumber: 9, EarlierFrameNumbers: []uint64{7, 8}, EarlierReceivedNs: []int64{1, 2}, EarlierClipped: []uint32{0, 0}})
+	if n := testing.AllocsPerRun(100, func() { _ = DecodeAck(b, got) }); n != 0 {
+		t.Errorf("DecodeAck allocated %.1f times per batch into reused lists", n)
+	}
+	bad, _ := proto.Marshal(&stillskyv1.StreamCommandsResponse{EarlierFrameNumbers: []uint64{7, 8}, EarlierReceivedNs: []int64{1}})
+	for _, b := range [][]byte{bad, {0x08}, {0x22, 0x05, 1}, {0xff, 0xff, 0xff}} {
+		if err := DecodeAck(b, got); err == nil {
+			t.Errorf("DecodeAck(%x) accepted malformed input", b)
+		}
+	}
+}

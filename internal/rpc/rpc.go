@@ -113,9 +113,19 @@ func NewHealthOnlyServer(services []string) *grpc.Server {
 // loop that falls behind meets back-pressure (the camera drops frames) instead
 // of working through a backlog of stale ones. The price is a WINDOW_UPDATE frame
 // per quarter window read (gRPC's threshold), a heap object or two each: about
-// one every 5 default-scenario frames on the camera link and one every 8
-// commands on the mirror link.
+// one every 5 default-scenario frames on the camera link. It is the window of
+// what the loop receives: frames, and the mirror's acknowledgements.
 const realTimeWindow = 64 << 10
+
+// commandWindow is the window of what the devices receive: the loop's
+// commands (and the transport probe's pings). A mirror applies a command as it
+// arrives, so the loop meets no useful back-pressure here, only a blocked send
+// when the window runs out; a wide window keeps that away and makes its
+// WINDOW_UPDATE frames rare (one per 128 default-scenario commands, where a
+// 64 KiB window sent one every 8, two heap objects each in the loop's process).
+// Commands in flight stay bounded: 1 MiB is 512 default-scenario commands, and
+// the mirror's acknowledgements report when each arrived.
+const commandWindow = 1 << 20
 
 // realTimeConnWindow is the connection's window. Each device connection carries
 // one real-time stream, whose own window already bounds what is in flight, so
@@ -135,7 +145,7 @@ func DeviceDialOptions() []grpc.DialOption {
 // DeviceServerOptions are the matching server options of the devices.
 func DeviceServerOptions() []grpc.ServerOption {
 	return []grpc.ServerOption{
-		grpc.StaticStreamWindowSize(realTimeWindow),
+		grpc.StaticStreamWindowSize(commandWindow),
 		grpc.StaticConnWindowSize(realTimeConnWindow),
 	}
 }

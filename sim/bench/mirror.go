@@ -41,6 +41,13 @@ type commandLog struct {
 	busy      atomic.Bool // a client drives the mirror
 }
 
+// maxAckBatch is the most commands one acknowledgement covers (protocol
+// version 2); a client's larger ack_batch counts as this.
+const maxAckBatch = 1024
+
+// mirrorProtocol is the StreamCommands protocol version the bench speaks.
+const mirrorProtocol = 2
+
 type timedCommand struct {
 	at     int64 // CLOCK_MONOTONIC ns of arrival
 	values []float32
@@ -63,7 +70,8 @@ func (m mirrorService) Describe(context.Context, *stillskyv1.MirrorServiceDescri
 	return m.b.describeMirror(), nil
 }
 
-// StreamCommands applies and acknowledges each command.
+// StreamCommands applies and acknowledges each command, one by one or in the
+// batches the client asks for.
 func (m mirrorService) StreamCommands(stream grpc.BidiStreamingServer[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
 	return m.b.streamCommands(stream)
 }
@@ -113,6 +121,7 @@ func (b *Server) describeMirror() *stillskyv1.MirrorServiceDescribeResponse {
 		StrokeM:         m.Stroke(),
 		CommandUnit:     "m",
 		Coupling:        b.scn.DM.Coupling,
+		ProtocolVersion: mirrorProtocol,
 	}
 }
 
@@ -124,7 +133,13 @@ func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.Strea
 	n := len(b.cmd)
 	stroke := float32(b.sys.Mirror().Stroke())
 	req := &stillskyv1.StreamCommandsRequest{}
-	ack := &stillskyv1.StreamCommandsResponse{}
+	// A batch collects in ack's earlier_* lists (protocol version 2): the
+	// newest command of a batch goes in the version 1 fields.
+	ack := &stillskyv1.StreamCommandsResponse{
+		EarlierFrameNumbers: make([]uint64, 0, maxAckBatch),
+		EarlierReceivedNs:   make([]int64, 0, maxAckBatch),
+		EarlierClipped:      make([]uint32, 0, maxAckBatch),
+	}
 	for {
 		if err := stream.RecvMsg(req); err != nil {
 			if errors.Is(err, context.Canceled) || status.Code(err) == codes.Canceled {
@@ -170,9 +185,18 @@ func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.Strea
 		default:
 		}
 		b.metrics.commands.Inc()
+		if batch := min(req.GetAckBatch(), maxAckBatch); len(ack.EarlierFrameNumbers)+1 < int(batch) {
+			ack.EarlierFrameNumbers = append(ack.EarlierFrameNumbers, req.GetFrameNumber())
+			ack.EarlierReceivedNs = append(ack.EarlierReceivedNs, received)
+			ack.EarlierClipped = append(ack.EarlierClipped, clipped)
+			continue
+		}
 		ack.FrameNumber, ack.ReceivedNs, ack.Clipped = req.GetFrameNumber(), received, clipped
 		if err := stream.Send(ack); err != nil {
 			return err
 		}
+		ack.EarlierFrameNumbers = ack.EarlierFrameNumbers[:0]
+		ack.EarlierReceivedNs = ack.EarlierReceivedNs[:0]
+		ack.EarlierClipped = ack.EarlierClipped[:0]
 	}
 }

@@ -74,9 +74,12 @@ type MirrorServiceDescribeResponse struct {
 	// Unit of the commands: "m" (mirror surface displacement).
 	CommandUnit string `protobuf:"bytes,6,opt,name=command_unit,json=commandUnit,proto3" json:"command_unit,omitempty"`
 	// Neighbour coupling of the influence functions.
-	Coupling      float64 `protobuf:"fixed64,7,opt,name=coupling,proto3" json:"coupling,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Coupling float64 `protobuf:"fixed64,7,opt,name=coupling,proto3" json:"coupling,omitempty"`
+	// The StreamCommands protocol the mirror speaks: 2 honours ack_batch; 0 (a
+	// mirror that predates the field) or 1 acknowledges every command.
+	ProtocolVersion uint32 `protobuf:"varint,8,opt,name=protocol_version,json=protocolVersion,proto3" json:"protocol_version,omitempty"`
+	unknownFields   protoimpl.UnknownFields
+	sizeCache       protoimpl.SizeCache
 }
 
 func (x *MirrorServiceDescribeResponse) Reset() {
@@ -158,13 +161,28 @@ func (x *MirrorServiceDescribeResponse) GetCoupling() float64 {
 	return 0
 }
 
+func (x *MirrorServiceDescribeResponse) GetProtocolVersion() uint32 {
+	if x != nil {
+		return x.ProtocolVersion
+	}
+	return 0
+}
+
 // StreamCommandsRequest is one mirror command.
 type StreamCommandsRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// The camera frame this command answers (0 for commands not tied to a frame).
 	FrameNumber uint64 `protobuf:"varint,1,opt,name=frame_number,json=frameNumber,proto3" json:"frame_number,omitempty"`
 	// Surface displacement per actuator, metres.
-	Values        []float32 `protobuf:"fixed32,2,rep,packed,name=values,proto3" json:"values,omitempty"`
+	Values []float32 `protobuf:"fixed32,2,rep,packed,name=values,proto3" json:"values,omitempty"`
+	// Protocol version 2: the most commands one response may acknowledge. The
+	// mirror answers once this many commands await acknowledgement, this one
+	// included; 0 or 1 acknowledges this command at once, with any still waiting
+	// before it. A client may change it with every command (for example 1 while
+	// it must know when each command arrived, more while only latency statistics
+	// need the receive times). At most 1024: a larger value counts as 1024.
+	// Version 1 mirrors ignore it.
+	AckBatch      uint32 `protobuf:"varint,3,opt,name=ack_batch,json=ackBatch,proto3" json:"ack_batch,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -213,17 +231,33 @@ func (x *StreamCommandsRequest) GetValues() []float32 {
 	return nil
 }
 
-// StreamCommandsResponse acknowledges one command.
+func (x *StreamCommandsRequest) GetAckBatch() uint32 {
+	if x != nil {
+		return x.AckBatch
+	}
+	return 0
+}
+
+// StreamCommandsResponse acknowledges one command (version 1), or a batch of
+// commands (version 2): the newest in fields 1 to 3, the ones before it, oldest
+// first, in the earlier_* lists, which all have the same length.
 type StreamCommandsResponse struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
-	// The frame number of the acknowledged command.
+	// The frame number of the (newest) acknowledged command.
 	FrameNumber uint64 `protobuf:"varint,1,opt,name=frame_number,json=frameNumber,proto3" json:"frame_number,omitempty"`
 	// When the mirror received the command, CLOCK_MONOTONIC nanoseconds of its host.
 	ReceivedNs int64 `protobuf:"varint,2,opt,name=received_ns,json=receivedNs,proto3" json:"received_ns,omitempty"`
 	// Actuators clipped at their stroke limit.
-	Clipped       uint32 `protobuf:"varint,3,opt,name=clipped,proto3" json:"clipped,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	Clipped uint32 `protobuf:"varint,3,opt,name=clipped,proto3" json:"clipped,omitempty"`
+	// Protocol version 2: frame numbers of the commands of the batch before the
+	// newest, oldest first (empty for a single acknowledgement).
+	EarlierFrameNumbers []uint64 `protobuf:"varint,4,rep,packed,name=earlier_frame_numbers,json=earlierFrameNumbers,proto3" json:"earlier_frame_numbers,omitempty"`
+	// Their receive times, as received_ns.
+	EarlierReceivedNs []int64 `protobuf:"varint,5,rep,packed,name=earlier_received_ns,json=earlierReceivedNs,proto3" json:"earlier_received_ns,omitempty"`
+	// Their clipped actuator counts, as clipped.
+	EarlierClipped []uint32 `protobuf:"varint,6,rep,packed,name=earlier_clipped,json=earlierClipped,proto3" json:"earlier_clipped,omitempty"`
+	unknownFields  protoimpl.UnknownFields
+	sizeCache      protoimpl.SizeCache
 }
 
 func (x *StreamCommandsResponse) Reset() {
@@ -277,12 +311,33 @@ func (x *StreamCommandsResponse) GetClipped() uint32 {
 	return 0
 }
 
+func (x *StreamCommandsResponse) GetEarlierFrameNumbers() []uint64 {
+	if x != nil {
+		return x.EarlierFrameNumbers
+	}
+	return nil
+}
+
+func (x *StreamCommandsResponse) GetEarlierReceivedNs() []int64 {
+	if x != nil {
+		return x.EarlierReceivedNs
+	}
+	return nil
+}
+
+func (x *StreamCommandsResponse) GetEarlierClipped() []uint32 {
+	if x != nil {
+		return x.EarlierClipped
+	}
+	return nil
+}
+
 var File_stillsky_v1_mirror_proto protoreflect.FileDescriptor
 
 const file_stillsky_v1_mirror_proto_rawDesc = "" +
 	"\n" +
 	"\x18stillsky/v1/mirror.proto\x12\vstillsky.v1\"\x1e\n" +
-	"\x1cMirrorServiceDescribeRequest\"\x85\x02\n" +
+	"\x1cMirrorServiceDescribeRequest\"\xb0\x02\n" +
 	"\x1dMirrorServiceDescribeResponse\x12%\n" +
 	"\x0eactuator_count\x18\x01 \x01(\rR\ractuatorCount\x12)\n" +
 	"\x10actuators_across\x18\x02 \x01(\rR\x0factuatorsAcross\x12\x1f\n" +
@@ -291,15 +346,20 @@ const file_stillsky_v1_mirror_proto_rawDesc = "" +
 	"\apitch_m\x18\x04 \x01(\x01R\x06pitchM\x12\x19\n" +
 	"\bstroke_m\x18\x05 \x01(\x01R\astrokeM\x12!\n" +
 	"\fcommand_unit\x18\x06 \x01(\tR\vcommandUnit\x12\x1a\n" +
-	"\bcoupling\x18\a \x01(\x01R\bcoupling\"R\n" +
+	"\bcoupling\x18\a \x01(\x01R\bcoupling\x12)\n" +
+	"\x10protocol_version\x18\b \x01(\rR\x0fprotocolVersion\"o\n" +
 	"\x15StreamCommandsRequest\x12!\n" +
 	"\fframe_number\x18\x01 \x01(\x04R\vframeNumber\x12\x16\n" +
-	"\x06values\x18\x02 \x03(\x02R\x06values\"v\n" +
+	"\x06values\x18\x02 \x03(\x02R\x06values\x12\x1b\n" +
+	"\tack_batch\x18\x03 \x01(\rR\backBatch\"\x83\x02\n" +
 	"\x16StreamCommandsResponse\x12!\n" +
 	"\fframe_number\x18\x01 \x01(\x04R\vframeNumber\x12\x1f\n" +
 	"\vreceived_ns\x18\x02 \x01(\x03R\n" +
 	"receivedNs\x12\x18\n" +
-	"\aclipped\x18\x03 \x01(\rR\aclipped2\xd1\x01\n" +
+	"\aclipped\x18\x03 \x01(\rR\aclipped\x122\n" +
+	"\x15earlier_frame_numbers\x18\x04 \x03(\x04R\x13earlierFrameNumbers\x12.\n" +
+	"\x13earlier_received_ns\x18\x05 \x03(\x03R\x11earlierReceivedNs\x12'\n" +
+	"\x0fearlier_clipped\x18\x06 \x03(\rR\x0eearlierClipped2\xd1\x01\n" +
 	"\rMirrorService\x12a\n" +
 	"\bDescribe\x12).stillsky.v1.MirrorServiceDescribeRequest\x1a*.stillsky.v1.MirrorServiceDescribeResponse\x12]\n" +
 	"\x0eStreamCommands\x12\".stillsky.v1.StreamCommandsRequest\x1a#.stillsky.v1.StreamCommandsResponse(\x010\x01B'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"

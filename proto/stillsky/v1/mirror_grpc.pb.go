@@ -28,13 +28,25 @@ const (
 // For semantics around ctx use and closing/ending streaming RPCs, please refer to https://pkg.go.dev/google.golang.org/grpc/?tab=doc#ClientConn.NewStream.
 //
 // MirrorService is the deformable mirror's drive electronics: it describes the
-// actuators and takes a stream of commands, acknowledging each one.
+// actuators and takes a stream of commands, acknowledging them.
+//
+// Protocol versions. Version 1 acknowledges every command with one
+// StreamCommandsResponse. Version 2 (MirrorServiceDescribeResponse.protocol_version
+// = 2) lets the client ask for acknowledgements in batches
+// (StreamCommandsRequest.ack_batch): one response then carries the receive times
+// of up to that many commands, which saves the client a message, and its
+// transport's allocations, per command. HTTP/2 flow control bounds the commands in
+// flight either way. Both are compatible: a version 1 client never sets ack_batch
+// and gets one acknowledgement per command; a version 2 client of a version 1
+// mirror gets the same, and a response with no earlier_* entries is exactly a
+// version 1 acknowledgement.
 type MirrorServiceClient interface {
 	// Describe returns the actuator layout and stroke limits.
 	// Errors: UNAVAILABLE while the device is not ready.
 	Describe(ctx context.Context, in *MirrorServiceDescribeRequest, opts ...grpc.CallOption) (*MirrorServiceDescribeResponse, error)
-	// StreamCommands applies each command it receives and answers with one
-	// acknowledgement per command, in order.
+	// StreamCommands applies each command it receives and acknowledges every
+	// command, in order: one response per command, or per batch when the client
+	// asks for batches (ack_batch, protocol version 2).
 	// Errors: INVALID_ARGUMENT for a command of the wrong length or with a non-finite
 	// value (the stream ends; the mirror keeps its last shape); RESOURCE_EXHAUSTED when
 	// another client already drives the mirror; UNAVAILABLE when the device stops.
@@ -77,13 +89,25 @@ type MirrorService_StreamCommandsClient = grpc.BidiStreamingClient[StreamCommand
 // for forward compatibility.
 //
 // MirrorService is the deformable mirror's drive electronics: it describes the
-// actuators and takes a stream of commands, acknowledging each one.
+// actuators and takes a stream of commands, acknowledging them.
+//
+// Protocol versions. Version 1 acknowledges every command with one
+// StreamCommandsResponse. Version 2 (MirrorServiceDescribeResponse.protocol_version
+// = 2) lets the client ask for acknowledgements in batches
+// (StreamCommandsRequest.ack_batch): one response then carries the receive times
+// of up to that many commands, which saves the client a message, and its
+// transport's allocations, per command. HTTP/2 flow control bounds the commands in
+// flight either way. Both are compatible: a version 1 client never sets ack_batch
+// and gets one acknowledgement per command; a version 2 client of a version 1
+// mirror gets the same, and a response with no earlier_* entries is exactly a
+// version 1 acknowledgement.
 type MirrorServiceServer interface {
 	// Describe returns the actuator layout and stroke limits.
 	// Errors: UNAVAILABLE while the device is not ready.
 	Describe(context.Context, *MirrorServiceDescribeRequest) (*MirrorServiceDescribeResponse, error)
-	// StreamCommands applies each command it receives and answers with one
-	// acknowledgement per command, in order.
+	// StreamCommands applies each command it receives and acknowledges every
+	// command, in order: one response per command, or per batch when the client
+	// asks for batches (ack_batch, protocol version 2).
 	// Errors: INVALID_ARGUMENT for a command of the wrong length or with a non-finite
 	// value (the stream ends; the mirror keeps its last shape); RESOURCE_EXHAUSTED when
 	// another client already drives the mirror; UNAVAILABLE when the device stops.

@@ -10,13 +10,14 @@ class MirrorServiceDescribeRequest(_message.Message):
     def __init__(self) -> None: ...
 
 class MirrorServiceDescribeResponse(_message.Message):
-    __slots__ = ["actuator_count", "actuators_across", "command_unit", "coupling", "pitch_m", "positions_m", "stroke_m"]
+    __slots__ = ["actuator_count", "actuators_across", "command_unit", "coupling", "pitch_m", "positions_m", "protocol_version", "stroke_m"]
     ACTUATORS_ACROSS_FIELD_NUMBER: _ClassVar[int]
     ACTUATOR_COUNT_FIELD_NUMBER: _ClassVar[int]
     COMMAND_UNIT_FIELD_NUMBER: _ClassVar[int]
     COUPLING_FIELD_NUMBER: _ClassVar[int]
     PITCH_M_FIELD_NUMBER: _ClassVar[int]
     POSITIONS_M_FIELD_NUMBER: _ClassVar[int]
+    PROTOCOL_VERSION_FIELD_NUMBER: _ClassVar[int]
     STROKE_M_FIELD_NUMBER: _ClassVar[int]
     actuator_count: int
     actuators_across: int
@@ -24,23 +25,32 @@ class MirrorServiceDescribeResponse(_message.Message):
     coupling: float
     pitch_m: float
     positions_m: _containers.RepeatedScalarFieldContainer[float]
+    protocol_version: int
     stroke_m: float
-    def __init__(self, actuator_count: _Optional[int] = ..., actuators_across: _Optional[int] = ..., positions_m: _Optional[_Iterable[float]] = ..., pitch_m: _Optional[float] = ..., stroke_m: _Optional[float] = ..., command_unit: _Optional[str] = ..., coupling: _Optional[float] = ...) -> None: ...
+    def __init__(self, actuator_count: _Optional[int] = ..., actuators_across: _Optional[int] = ..., positions_m: _Optional[_Iterable[float]] = ..., pitch_m: _Optional[float] = ..., stroke_m: _Optional[float] = ..., command_unit: _Optional[str] = ..., coupling: _Optional[float] = ..., protocol_version: _Optional[int] = ...) -> None: ...
 
 class StreamCommandsRequest(_message.Message):
-    __slots__ = ["frame_number", "values"]
+    __slots__ = ["ack_batch", "frame_number", "values"]
+    ACK_BATCH_FIELD_NUMBER: _ClassVar[int]
     FRAME_NUMBER_FIELD_NUMBER: _ClassVar[int]
     VALUES_FIELD_NUMBER: _ClassVar[int]
+    ack_batch: int
     frame_number: int
     values: _containers.RepeatedScalarFieldContainer[float]
-    def __init__(self, frame_number: _Optional[int] = ..., values: _Optional[_Iterable[float]] = ...) -> None: ...
+    def __init__(self, frame_number: _Optional[int] = ..., values: _Optional[_Iterable[float]] = ..., ack_batch: _Optional[int] = ...) -> None: ...
 
 class StreamCommandsResponse(_message.Message):
-    __slots__ = ["clipped", "frame_number", "received_ns"]
+    __slots__ = ["clipped", "earlier_clipped", "earlier_frame_numbers", "earlier_received_ns", "frame_number", "received_ns"]
     CLIPPED_FIELD_NUMBER: _ClassVar[int]
+    EARLIER_CLIPPED_FIELD_NUMBER: _ClassVar[int]
+    EARLIER_FRAME_NUMBERS_FIELD_NUMBER: _ClassVar[int]
+    EARLIER_RECEIVED_NS_FIELD_NUMBER: _ClassVar[int]
     FRAME_NUMBER_FIELD_NUMBER: _ClassVar[int]
     RECEIVED_NS_FIELD_NUMBER: _ClassVar[int]
     clipped: int
+    earlier_clipped: _containers.RepeatedScalarFieldContainer[int]
+    earlier_frame_numbers: _containers.RepeatedScalarFieldContainer[int]
+    earlier_received_ns: _containers.RepeatedScalarFieldContainer[int]
     frame_number: int
     received_ns: int
-    def __init__(self, frame_number: _Optional[int] = ..., received_ns: _Optional[int] = ..., clipped: _Optional[int] = ...) -> None: ...
+    def __init__(self, frame_number: _Optional[int] = ..., received_ns: _Optional[int] = ..., clipped: _Optional[int] = ..., earlier_frame_numbers: _Optional[_Iterable[int]] = ..., earlier_received_ns: _Optional[_Iterable[int]] = ..., earlier_clipped: _Optional[_Iterable[int]] = ...) -> None: ...

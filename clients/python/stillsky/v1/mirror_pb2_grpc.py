@@ -7,7 +7,18 @@ from stillsky.v1 import mirror_pb2 as stillsky_dot_v1_dot_mirror__pb2
 
 class MirrorServiceStub(object):
     """MirrorService is the deformable mirror's drive electronics: it describes the
-    actuators and takes a stream of commands, acknowledging each one.
+    actuators and takes a stream of commands, acknowledging them.
+
+    Protocol versions. Version 1 acknowledges every command with one
+    StreamCommandsResponse. Version 2 (MirrorServiceDescribeResponse.protocol_version
+    = 2) lets the client ask for acknowledgements in batches
+    (StreamCommandsRequest.ack_batch): one response then carries the receive times
+    of up to that many commands, which saves the client a message, and its
+    transport's allocations, per command. HTTP/2 flow control bounds the commands in
+    flight either way. Both are compatible: a version 1 client never sets ack_batch
+    and gets one acknowledgement per command; a version 2 client of a version 1
+    mirror gets the same, and a response with no earlier_* entries is exactly a
+    version 1 acknowledgement.
     """
 
     def __init__(self, channel):
@@ -30,7 +41,18 @@ class MirrorServiceStub(object):
 
 class MirrorServiceServicer(object):
     """MirrorService is the deformable mirror's drive electronics: it describes the
-    actuators and takes a stream of commands, acknowledging each one.
+    actuators and takes a stream of commands, acknowledging them.
+
+    Protocol versions. Version 1 acknowledges every command with one
+    StreamCommandsResponse. Version 2 (MirrorServiceDescribeResponse.protocol_version
+    = 2) lets the client ask for acknowledgements in batches
+    (StreamCommandsRequest.ack_batch): one response then carries the receive times
+    of up to that many commands, which saves the client a message, and its
+    transport's allocations, per command. HTTP/2 flow control bounds the commands in
+    flight either way. Both are compatible: a version 1 client never sets ack_batch
+    and gets one acknowledgement per command; a version 2 client of a version 1
+    mirror gets the same, and a response with no earlier_* entries is exactly a
+    version 1 acknowledgement.
     """
 
     def Describe(self, request, context):
@@ -42,8 +64,9 @@ class MirrorServiceServicer(object):
         raise NotImplementedError('Method not implemented!')
 
     def StreamCommands(self, request_iterator, context):
-        """StreamCommands applies each command it receives and answers with one
-        acknowledgement per command, in order.
+        """StreamCommands applies each command it receives and acknowledges every
+        command, in order: one response per command, or per batch when the client
+        asks for batches (ack_batch, protocol version 2).
         Errors: INVALID_ARGUMENT for a command of the wrong length or with a non-finite
         value (the stream ends; the mirror keeps its last shape); RESOURCE_EXHAUSTED when
         another client already drives the mirror; UNAVAILABLE when the device stops.
@@ -74,7 +97,18 @@ def add_MirrorServiceServicer_to_server(servicer, server):
  # This class is part of an EXPERIMENTAL API.
 class MirrorService(object):
     """MirrorService is the deformable mirror's drive electronics: it describes the
-    actuators and takes a stream of commands, acknowledging each one.
+    actuators and takes a stream of commands, acknowledging them.
+
+    Protocol versions. Version 1 acknowledges every command with one
+    StreamCommandsResponse. Version 2 (MirrorServiceDescribeResponse.protocol_version
+    = 2) lets the client ask for acknowledgements in batches
+    (StreamCommandsRequest.ack_batch): one response then carries the receive times
+    of up to that many commands, which saves the client a message, and its
+    transport's allocations, per command. HTTP/2 flow control bounds the commands in
+    flight either way. Both are compatible: a version 1 client never sets ack_batch
+    and gets one acknowledgement per command; a version 2 client of a version 1
+    mirror gets the same, and a response with no earlier_* entries is exactly a
+    version 1 acknowledgement.
     """
 
     @staticmethod
