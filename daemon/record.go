@@ -15,8 +15,13 @@ import (
 // maxRecordFrames bounds one recording (a day at 1 kHz is 86,400,000 frames).
 const maxRecordFrames = 100_000_000
 
-// recordBatch is the most frames one RecordedFrames message carries.
-const recordBatch = 64
+// recordBatch is the most frames one RecordedFrames message carries, and
+// maxBatchBytes about the most bytes (gRPC's default limit on a received
+// message is 4 MiB).
+const (
+	recordBatch   = 64
+	maxBatchBytes = 1 << 20
+)
 
 // recordPoll is how often the recording looks for new frames in the ring: a
 // fraction of the time the smallest ring spans at any rate the loop keeps.
@@ -36,16 +41,25 @@ func (s *controlServer) RecordTelemetry(req *stillskyv1.RecordTelemetryRequest, 
 	if !d.cameraUp.Load() || !d.mirrorUp.Load() || b == nil || desc == nil {
 		return status.Error(codes.FailedPrecondition, "cannot record: devices not connected")
 	}
-	next := b.written.Load() + 1
-	head, err := d.recordingHeader(desc, len(b.slots))
+	head, file, err := d.recordingHeader(desc, len(b.slots))
 	if err != nil {
 		return err
 	}
 	if err := stream.Send(&stillskyv1.RecordTelemetryResponse{Content: &stillskyv1.RecordTelemetryResponse_Header{Header: head}}); err != nil {
 		return err
 	}
-	d.log.Info("recording telemetry", "frames", n)
+	for len(file) > 0 {
+		k := min(len(file), saveChunk)
+		if err := stream.Send(&stillskyv1.RecordTelemetryResponse{Content: &stillskyv1.RecordTelemetryResponse_ReconstructorChunk{ReconstructorChunk: file[:k]}}); err != nil {
+			return err
+		}
+		file = file[k:]
+	}
+	// The frames start after the preamble, which may take a while to send.
+	next := b.written.Load() + 1
 	x := b.sample()
+	perBatch := max(1, min(recordBatch, maxBatchBytes/(4*(len(x.slopes)+len(x.cmd))+64)))
+	d.log.Info("recording telemetry", "frames", n)
 	batch := &stillskyv1.RecordedFrames{}
 	msg := &stillskyv1.RecordTelemetryResponse{Content: &stillskyv1.RecordTelemetryResponse_Frames{Frames: batch}}
 	tick := time.NewTicker(recordPoll)
@@ -53,7 +67,7 @@ func (s *controlServer) RecordTelemetry(req *stillskyv1.RecordTelemetryRequest, 
 	ctx := stream.Context()
 	for sent := uint64(0); sent < n; {
 		resetBatch(batch)
-		for len(batch.FrameNumbers) < recordBatch && sent+uint64(len(batch.FrameNumbers)) < n {
+		for len(batch.FrameNumbers) < perBatch && sent+uint64(len(batch.FrameNumbers)) < n {
 			r := b.read(next, x)
 			if r == readNotYet {
 				break
@@ -84,8 +98,9 @@ func (s *controlServer) RecordTelemetry(req *stillskyv1.RecordTelemetryRequest, 
 	return nil
 }
 
-// recordingHeader describes the devices and the loop as they stand now.
-func (d *Daemon) recordingHeader(desc *describes, window int) (*stillskyv1.RecordingHeader, error) {
+// recordingHeader describes the devices and the loop as they stand now, and
+// returns the reconstructor file (nil when none is loaded).
+func (d *Daemon) recordingHeader(desc *describes, window int) (*stillskyv1.RecordingHeader, []byte, error) {
 	d.paramsMu.Lock()
 	gain, leak := d.gain, d.leak
 	d.paramsMu.Unlock()
@@ -104,11 +119,12 @@ func (d *Daemon) recordingHeader(desc *describes, window int) (*stillskyv1.Recor
 		h.Reconstructor = reconstructorInfo(r)
 		var buf bytes.Buffer
 		if err := controller.WriteReconstructor(&buf, r); err != nil {
-			return nil, status.Errorf(codes.Internal, "encoding reconstructor: %v", err)
+			return nil, nil, status.Errorf(codes.Internal, "encoding reconstructor: %v", err)
 		}
-		h.ReconstructorFile = buf.Bytes()
+		h.ReconstructorFileBytes = uint64(buf.Len())
+		return h, buf.Bytes(), nil
 	}
-	return h, nil
+	return h, nil, nil
 }
 
 func resetBatch(b *stillskyv1.RecordedFrames) {

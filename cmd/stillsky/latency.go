@@ -42,6 +42,7 @@ func runLatency(args []string) error {
 	simCPUs := fs.String("sim-cpus", "", "pin the simulator's process to these CPUs, e.g. 0 (\"\": no pinning)")
 	inProcess := fs.Bool("in-process", false, "run the simulated bench inside the loop's process instead of as its own")
 	logLevel := fs.String("log-level", "warn", "log level of bench and loop")
+	replay := fs.String("replay", "", "measure against this telemetry recording (stillsky ctl record) replayed as the camera, with its reconstructor, instead of a simulated scenario")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -70,7 +71,7 @@ func runLatency(args []string) error {
 		SimulatorExecutable: sim, SimulatorCPUs: *simCPUs,
 		Realtime:  daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo},
 		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
-		Chunks: *chunks, ReadoutTime: *readout, Out: os.Stdout, Logger: log, Kernel: kernel,
+		Chunks: *chunks, ReadoutTime: *readout, Out: os.Stdout, Logger: log, Kernel: kernel, Replay: *replay,
 	})
 	if rs != nil && *jsonOut != "" {
 		if werr := latency.WriteJSON(*jsonOut, rs); werr != nil {

@@ -1,8 +1,11 @@
 package main
 
 import (
+	"errors"
+	"flag"
 	"fmt"
 	"runtime"
+	"strings"
 
 	"stillsky/internal/affinity"
 	"stillsky/sim/bench"
@@ -25,12 +28,30 @@ func runSim(args []string) error {
 	idle := fs.Bool("idle-priority", true, "free-running, simulate and image under SCHED_IDLE so the device streams and a loop on the same machine always come first")
 	cpus := fs.String("cpus", "", "pin the simulator's threads to these CPUs, e.g. 0 or 0-1 (\"\": no pinning)")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
+	replay := fs.String("replay", "", "serve this telemetry recording (stillsky ctl record) as the camera, at its frame rate, looping, with a mirror that takes commands; no simulation, no metrics")
+	loop := fs.String("loop", "", "with --replay: refuse a recording whose geometry differs from the loop daemon's at this Control API address")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
 	log, err := newLogger(*logLevel)
 	if err != nil {
 		return err
+	}
+	if *replay != "" {
+		var simOnly []string
+		fs.Visit(func(f *flag.Flag) {
+			switch f.Name {
+			case "scenario", "lockstep", "delay-frames", "readout-time", "metrics":
+				simOnly = append(simOnly, "--"+f.Name)
+			}
+		})
+		if len(simOnly) > 0 {
+			return fmt.Errorf("%s: not for --replay, which serves the recording as it was recorded", strings.Join(simOnly, ", "))
+		}
+		return runReplay(*replay, *camera, *mirror, *loop, log)
+	}
+	if *loop != "" {
+		return errors.New("--loop checks a recording's geometry: it needs --replay")
 	}
 	if *cpus != "" {
 		set, err := affinity.Parse(*cpus)

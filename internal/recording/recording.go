@@ -85,10 +85,10 @@ func columns(ns, na int) []fits.Column {
 	}
 }
 
-// Create writes the primary HDU, the geometry and the reconstructor to w and
-// starts the FRAMES table for up to frames rows. For fewer rows, w must be an
-// io.WriteSeeker (a file).
-func Create(w io.Writer, h *stillskyv1.RecordingHeader, frames int) (*Writer, error) {
+// Create writes the primary HDU, the geometry and the reconstructor file (nil
+// for none) to w and starts the FRAMES table for up to frames rows. For fewer
+// rows, w must be an io.WriteSeeker (a file).
+func Create(w io.Writer, h *stillskyv1.RecordingHeader, file []byte, frames int) (*Writer, error) {
 	cam, mir := h.GetCamera(), h.GetMirror()
 	ns, na := int(cam.GetSlopeCount()), int(mir.GetActuatorCount())
 	if ns < 1 || na < 1 || len(cam.GetValidSubapertures())*2 != ns || len(mir.GetPositionsM()) != 2*na {
@@ -117,7 +117,6 @@ func Create(w io.Writer, h *stillskyv1.RecordingHeader, frames int) (*Writer, er
 	k.Set("LEAK", h.GetLeak(), "integrator leak at the start")
 	k.Set("SCIWAVE", h.GetScienceWavelengthM(), "[m] science wavelength of the estimates")
 	k.Set("WINDOW", h.GetWindowFrames(), "[frames] the daemon's telemetry ring")
-	file := h.GetReconstructorFile()
 	k.Set("RECON", len(file) > 0, "a reconstructor was loaded")
 	var rhdus []*fits.HDU
 	if len(file) > 0 {

@@ -149,19 +149,10 @@ func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.Strea
 		}
 		received := monoclock.Now()
 		v := req.GetValues()
-		if len(v) != n {
+		clipped, err := checkCommand(req.GetFrameNumber(), v, n, stroke)
+		if err != nil {
 			b.metrics.commandsRejected.Inc()
-			return status.Errorf(codes.InvalidArgument, "mirror: command for frame %d has %d values, want %d", req.GetFrameNumber(), len(v), n)
-		}
-		clipped := uint32(0)
-		for i, x := range v {
-			if math.IsNaN(float64(x)) || math.IsInf(float64(x), 0) {
-				b.metrics.commandsRejected.Inc()
-				return status.Errorf(codes.InvalidArgument, "mirror: command for frame %d: value %d is %v", req.GetFrameNumber(), i, x)
-			}
-			if x > stroke || x < -stroke {
-				clipped++
-			}
+			return err
 		}
 		if f := req.GetFrameNumber(); b.opt.Lockstep && f != 0 {
 			b.mu.Lock()
@@ -199,4 +190,23 @@ func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.Strea
 		ack.EarlierReceivedNs = ack.EarlierReceivedNs[:0]
 		ack.EarlierClipped = ack.EarlierClipped[:0]
 	}
+}
+
+// checkCommand refuses a command of the wrong length or with a non-finite value
+// (InvalidArgument, which ends the mirror stream), and counts the values beyond
+// the stroke, which the mirror clips.
+func checkCommand(frame uint64, v []float32, n int, stroke float32) (uint32, error) {
+	if len(v) != n {
+		return 0, status.Errorf(codes.InvalidArgument, "mirror: command for frame %d has %d values, want %d", frame, len(v), n)
+	}
+	clipped := uint32(0)
+	for i, x := range v {
+		if math.IsNaN(float64(x)) || math.IsInf(float64(x), 0) {
+			return 0, status.Errorf(codes.InvalidArgument, "mirror: command for frame %d: value %d is %v", frame, i, x)
+		}
+		if x > stroke || x < -stroke {
+			clipped++
+		}
+	}
+	return clipped, nil
 }

@@ -1697,14 +1697,15 @@ func (x *RecordTelemetryRequest) GetFrameCount() uint64 {
 	return 0
 }
 
-// RecordTelemetryResponse is the header of a recording (first message) or a batch
-// of its frames.
+// RecordTelemetryResponse is the header of a recording (first message), a chunk
+// of its reconstructor file or a batch of its frames.
 type RecordTelemetryResponse struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// Types that are valid to be assigned to Content:
 	//
 	//	*RecordTelemetryResponse_Header
 	//	*RecordTelemetryResponse_Frames
+	//	*RecordTelemetryResponse_ReconstructorChunk
 	Content       isRecordTelemetryResponse_Content `protobuf_oneof:"content"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
@@ -1765,6 +1766,15 @@ func (x *RecordTelemetryResponse) GetFrames() *RecordedFrames {
 	return nil
 }
 
+func (x *RecordTelemetryResponse) GetReconstructorChunk() []byte {
+	if x != nil {
+		if x, ok := x.Content.(*RecordTelemetryResponse_ReconstructorChunk); ok {
+			return x.ReconstructorChunk
+		}
+	}
+	return nil
+}
+
 type isRecordTelemetryResponse_Content interface {
 	isRecordTelemetryResponse_Content()
 }
@@ -1777,9 +1787,17 @@ type RecordTelemetryResponse_Frames struct {
 	Frames *RecordedFrames `protobuf:"bytes,2,opt,name=frames,proto3,oneof"`
 }
 
+type RecordTelemetryResponse_ReconstructorChunk struct {
+	// A chunk of the reconstructor file, as SaveReconstructor streams it; the
+	// chunks come in order, after the header and before the first frames.
+	ReconstructorChunk []byte `protobuf:"bytes,3,opt,name=reconstructor_chunk,json=reconstructorChunk,proto3,oneof"`
+}
+
 func (*RecordTelemetryResponse_Header) isRecordTelemetryResponse_Content() {}
 
 func (*RecordTelemetryResponse_Frames) isRecordTelemetryResponse_Content() {}
+
+func (*RecordTelemetryResponse_ReconstructorChunk) isRecordTelemetryResponse_Content() {}
 
 // RecordingHeader is what a recording needs to be read on its own: the devices as
 // they describe themselves and the loop as it stood when the recording began.
@@ -1792,10 +1810,10 @@ type RecordingHeader struct {
 	// Per-mode gain multipliers (empty: all 1).
 	ModalGains         []float64 `protobuf:"fixed64,5,rep,packed,name=modal_gains,json=modalGains,proto3" json:"modal_gains,omitempty"`
 	ScienceWavelengthM float64   `protobuf:"fixed64,6,opt,name=science_wavelength_m,json=scienceWavelengthM,proto3" json:"science_wavelength_m,omitempty"`
-	// The reconstructor in use (unset when none) and its file, as SaveReconstructor
-	// streams it.
-	Reconstructor     *ReconstructorInfo `protobuf:"bytes,7,opt,name=reconstructor,proto3" json:"reconstructor,omitempty"`
-	ReconstructorFile []byte             `protobuf:"bytes,8,opt,name=reconstructor_file,json=reconstructorFile,proto3" json:"reconstructor_file,omitempty"`
+	// The reconstructor in use (unset when none); its file follows in chunks.
+	Reconstructor *ReconstructorInfo `protobuf:"bytes,7,opt,name=reconstructor,proto3" json:"reconstructor,omitempty"`
+	// Size of the reconstructor file in bytes (0 when none).
+	ReconstructorFileBytes uint64 `protobuf:"varint,8,opt,name=reconstructor_file_bytes,json=reconstructorFileBytes,proto3" json:"reconstructor_file_bytes,omitempty"`
 	// Frames the daemon's ring holds: how far a client may fall behind.
 	WindowFrames uint32 `protobuf:"varint,9,opt,name=window_frames,json=windowFrames,proto3" json:"window_frames,omitempty"`
 	// Recording start, Unix nanoseconds (UTC).
@@ -1883,11 +1901,11 @@ func (x *RecordingHeader) GetReconstructor() *ReconstructorInfo {
 	return nil
 }
 
-func (x *RecordingHeader) GetReconstructorFile() []byte {
+func (x *RecordingHeader) GetReconstructorFileBytes() uint64 {
 	if x != nil {
-		return x.ReconstructorFile
+		return x.ReconstructorFileBytes
 	}
-	return nil
+	return 0
 }
 
 func (x *RecordingHeader) GetWindowFrames() uint32 {
@@ -2150,11 +2168,12 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x06status\x18\x04 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status\"9\n" +
 	"\x16RecordTelemetryRequest\x12\x1f\n" +
 	"\vframe_count\x18\x01 \x01(\x04R\n" +
-	"frameCount\"\x93\x01\n" +
+	"frameCount\"\xc6\x01\n" +
 	"\x17RecordTelemetryResponse\x126\n" +
 	"\x06header\x18\x01 \x01(\v2\x1c.stillsky.v1.RecordingHeaderH\x00R\x06header\x125\n" +
-	"\x06frames\x18\x02 \x01(\v2\x1b.stillsky.v1.RecordedFramesH\x00R\x06framesB\t\n" +
-	"\acontent\"\xd6\x03\n" +
+	"\x06frames\x18\x02 \x01(\v2\x1b.stillsky.v1.RecordedFramesH\x00R\x06frames\x121\n" +
+	"\x13reconstructor_chunk\x18\x03 \x01(\fH\x00R\x12reconstructorChunkB\t\n" +
+	"\acontent\"\xe1\x03\n" +
 	"\x0fRecordingHeader\x12B\n" +
 	"\x06camera\x18\x01 \x01(\v2*.stillsky.v1.CameraServiceDescribeResponseR\x06camera\x12B\n" +
 	"\x06mirror\x18\x02 \x01(\v2*.stillsky.v1.MirrorServiceDescribeResponseR\x06mirror\x12\x12\n" +
@@ -2163,8 +2182,8 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\vmodal_gains\x18\x05 \x03(\x01R\n" +
 	"modalGains\x120\n" +
 	"\x14science_wavelength_m\x18\x06 \x01(\x01R\x12scienceWavelengthM\x12D\n" +
-	"\rreconstructor\x18\a \x01(\v2\x1e.stillsky.v1.ReconstructorInfoR\rreconstructor\x12-\n" +
-	"\x12reconstructor_file\x18\b \x01(\fR\x11reconstructorFile\x12#\n" +
+	"\rreconstructor\x18\a \x01(\v2\x1e.stillsky.v1.ReconstructorInfoR\rreconstructor\x128\n" +
+	"\x18reconstructor_file_bytes\x18\b \x01(\x04R\x16reconstructorFileBytes\x12#\n" +
 	"\rwindow_frames\x18\t \x01(\rR\fwindowFrames\x12&\n" +
 	"\x0fstarted_unix_ns\x18\n" +
 	" \x01(\x03R\rstartedUnixNs\"\xad\x03\n" +
@@ -2318,6 +2337,7 @@ func file_stillsky_v1_control_proto_init() {
 	file_stillsky_v1_control_proto_msgTypes[27].OneofWrappers = []any{
 		(*RecordTelemetryResponse_Header)(nil),
 		(*RecordTelemetryResponse_Frames)(nil),
+		(*RecordTelemetryResponse_ReconstructorChunk)(nil),
 	}
 	type x struct{}
 	out := protoimpl.TypeBuilder{

@@ -95,8 +95,8 @@ type ControlServiceClient interface {
 	OptimiseModalGains(ctx context.Context, in *OptimiseModalGainsRequest, opts ...grpc.CallOption) (*OptimiseModalGainsResponse, error)
 	// RecordTelemetry records every frame the loop handles, from the next one on, for
 	// frame_count frames: the first message is the recording's header (the devices'
-	// descriptions, the loop parameters, the reconstructor file), the others carry the
-	// frames in order, several to a message. The real-time loop copies each frame into
+	// descriptions, the loop parameters), then come the reconstructor file in chunks
+	// (when one is loaded), then the frames in order, several to a message. The real-time loop copies each frame into
 	// a ring of window_frames frames and never waits for the recording; a client that
 	// falls further behind than the ring loses the recording, and the loop goes on.
 	// Frames the loop refused or skipped as late are not recorded (frame numbers show
@@ -346,8 +346,8 @@ type ControlServiceServer interface {
 	OptimiseModalGains(context.Context, *OptimiseModalGainsRequest) (*OptimiseModalGainsResponse, error)
 	// RecordTelemetry records every frame the loop handles, from the next one on, for
 	// frame_count frames: the first message is the recording's header (the devices'
-	// descriptions, the loop parameters, the reconstructor file), the others carry the
-	// frames in order, several to a message. The real-time loop copies each frame into
+	// descriptions, the loop parameters), then come the reconstructor file in chunks
+	// (when one is loaded), then the frames in order, several to a message. The real-time loop copies each frame into
 	// a ring of window_frames frames and never waits for the recording; a client that
 	// falls further behind than the ring loses the recording, and the loop goes on.
 	// Frames the loop refused or skipped as late are not recorded (frame numbers show

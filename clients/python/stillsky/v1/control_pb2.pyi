@@ -195,12 +195,14 @@ class RecordTelemetryRequest(_message.Message):
     def __init__(self, frame_count: _Optional[int] = ...) -> None: ...
 
 class RecordTelemetryResponse(_message.Message):
-    __slots__ = ["frames", "header"]
+    __slots__ = ["frames", "header", "reconstructor_chunk"]
     FRAMES_FIELD_NUMBER: _ClassVar[int]
     HEADER_FIELD_NUMBER: _ClassVar[int]
+    RECONSTRUCTOR_CHUNK_FIELD_NUMBER: _ClassVar[int]
     frames: RecordedFrames
     header: RecordingHeader
-    def __init__(self, header: _Optional[_Union[RecordingHeader, _Mapping]] = ..., frames: _Optional[_Union[RecordedFrames, _Mapping]] = ...) -> None: ...
+    reconstructor_chunk: bytes
+    def __init__(self, header: _Optional[_Union[RecordingHeader, _Mapping]] = ..., frames: _Optional[_Union[RecordedFrames, _Mapping]] = ..., reconstructor_chunk: _Optional[bytes] = ...) -> None: ...
 
 class RecordedFrames(_message.Message):
     __slots__ = ["commands", "computed_ns", "frame_numbers", "readout_end_ns", "received_ns", "residual_wavefront_rms_m", "saturated_actuators", "sent_ns", "slopes", "states", "strehl_estimate"]
@@ -229,14 +231,14 @@ class RecordedFrames(_message.Message):
     def __init__(self, frame_numbers: _Optional[_Iterable[int]] = ..., readout_end_ns: _Optional[_Iterable[int]] = ..., received_ns: _Optional[_Iterable[int]] = ..., computed_ns: _Optional[_Iterable[int]] = ..., sent_ns: _Optional[_Iterable[int]] = ..., states: _Optional[_Iterable[_Union[LoopState, str]]] = ..., saturated_actuators: _Optional[_Iterable[int]] = ..., residual_wavefront_rms_m: _Optional[_Iterable[float]] = ..., strehl_estimate: _Optional[_Iterable[float]] = ..., slopes: _Optional[_Iterable[float]] = ..., commands: _Optional[_Iterable[float]] = ...) -> None: ...
 
 class RecordingHeader(_message.Message):
-    __slots__ = ["camera", "gain", "leak", "mirror", "modal_gains", "reconstructor", "reconstructor_file", "science_wavelength_m", "started_unix_ns", "window_frames"]
+    __slots__ = ["camera", "gain", "leak", "mirror", "modal_gains", "reconstructor", "reconstructor_file_bytes", "science_wavelength_m", "started_unix_ns", "window_frames"]
     CAMERA_FIELD_NUMBER: _ClassVar[int]
     GAIN_FIELD_NUMBER: _ClassVar[int]
     LEAK_FIELD_NUMBER: _ClassVar[int]
     MIRROR_FIELD_NUMBER: _ClassVar[int]
     MODAL_GAINS_FIELD_NUMBER: _ClassVar[int]
     RECONSTRUCTOR_FIELD_NUMBER: _ClassVar[int]
-    RECONSTRUCTOR_FILE_FIELD_NUMBER: _ClassVar[int]
+    RECONSTRUCTOR_FILE_BYTES_FIELD_NUMBER: _ClassVar[int]
     SCIENCE_WAVELENGTH_M_FIELD_NUMBER: _ClassVar[int]
     STARTED_UNIX_NS_FIELD_NUMBER: _ClassVar[int]
     WINDOW_FRAMES_FIELD_NUMBER: _ClassVar[int]
@@ -246,11 +248,11 @@ class RecordingHeader(_message.Message):
     mirror: _mirror_pb2.MirrorServiceDescribeResponse
     modal_gains: _containers.RepeatedScalarFieldContainer[float]
     reconstructor: ReconstructorInfo
-    reconstructor_file: bytes
+    reconstructor_file_bytes: int
     science_wavelength_m: float
     started_unix_ns: int
     window_frames: int
-    def __init__(self, camera: _Optional[_Union[_camera_pb2.CameraServiceDescribeResponse, _Mapping]] = ..., mirror: _Optional[_Union[_mirror_pb2.MirrorServiceDescribeResponse, _Mapping]] = ..., gain: _Optional[float] = ..., leak: _Optional[float] = ..., modal_gains: _Optional[_Iterable[float]] = ..., science_wavelength_m: _Optional[float] = ..., reconstructor: _Optional[_Union[ReconstructorInfo, _Mapping]] = ..., reconstructor_file: _Optional[bytes] = ..., window_frames: _Optional[int] = ..., started_unix_ns: _Optional[int] = ...) -> None: ...
+    def __init__(self, camera: _Optional[_Union[_camera_pb2.CameraServiceDescribeResponse, _Mapping]] = ..., mirror: _Optional[_Union[_mirror_pb2.MirrorServiceDescribeResponse, _Mapping]] = ..., gain: _Optional[float] = ..., leak: _Optional[float] = ..., modal_gains: _Optional[_Iterable[float]] = ..., science_wavelength_m: _Optional[float] = ..., reconstructor: _Optional[_Union[ReconstructorInfo, _Mapping]] = ..., reconstructor_file_bytes: _Optional[int] = ..., window_frames: _Optional[int] = ..., started_unix_ns: _Optional[int] = ...) -> None: ...
 
 class SaveReconstructorRequest(_message.Message):
     __slots__ = []

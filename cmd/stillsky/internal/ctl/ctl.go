@@ -4,6 +4,7 @@
 package ctl
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"fmt"
@@ -19,6 +20,7 @@ import (
 	"google.golang.org/grpc/status"
 
 	"stillsky/internal/atomicfile"
+	"stillsky/internal/recording"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/rig"
 )
@@ -302,19 +304,32 @@ func save(ctx context.Context, c stillskyv1.ControlServiceClient, path string) e
 	})
 }
 
+// load uploads the reconstructor file at path, or the reconstructor stored in a
+// telemetry recording (stillsky ctl record).
 func load(ctx context.Context, c stillskyv1.ControlServiceClient, path string) (*stillskyv1.ReconstructorInfo, error) {
+	if rec, err := recording.ReadFile(path); err == nil {
+		if rec.ReconstructorFile == nil {
+			return nil, fmt.Errorf("%s: the recording holds no reconstructor (none was loaded when it was made)", path)
+		}
+		return Upload(ctx, c, bytes.NewReader(rec.ReconstructorFile))
+	}
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, err
 	}
 	defer f.Close()
+	return Upload(ctx, c, f)
+}
+
+// Upload streams a reconstructor file to the daemon, which installs it.
+func Upload(ctx context.Context, c stillskyv1.ControlServiceClient, r io.Reader) (*stillskyv1.ReconstructorInfo, error) {
 	stream, err := c.LoadReconstructor(ctx)
 	if err != nil {
 		return nil, err
 	}
 	buf := make([]byte, 1<<20)
 	for {
-		n, rerr := f.Read(buf)
+		n, rerr := r.Read(buf)
 		if n > 0 {
 			if err := stream.Send(&stillskyv1.LoadReconstructorRequest{Chunk: append([]byte(nil), buf[:n]...)}); err != nil {
 				if errors.Is(err, io.EOF) {
@@ -330,11 +345,11 @@ func load(ctx context.Context, c stillskyv1.ControlServiceClient, path string) (
 			return nil, rerr
 		}
 	}
-	r, err := stream.CloseAndRecv()
+	resp, err := stream.CloseAndRecv()
 	if err != nil {
 		return nil, err
 	}
-	return r.GetReconstructor(), nil
+	return resp.GetReconstructor(), nil
 }
 
 // WriteStatus prints a status snapshot.

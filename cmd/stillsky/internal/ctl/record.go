@@ -75,11 +75,23 @@ func RecordTo(ctx context.Context, c stillskyv1.ControlServiceClient, frames uin
 	if h == nil {
 		return sum, errors.New("the daemon's recording did not start with a header")
 	}
-	rw, err := recording.Create(w, h, int(frames))
+	var file []byte
+	for uint64(len(file)) < h.GetReconstructorFileBytes() {
+		m, err := stream.Recv()
+		if err != nil {
+			return sum, err
+		}
+		c, ok := m.GetContent().(*stillskyv1.RecordTelemetryResponse_ReconstructorChunk)
+		if !ok {
+			return sum, fmt.Errorf("the daemon sent %d of the %d bytes of the reconstructor file", len(file), h.GetReconstructorFileBytes())
+		}
+		file = append(file, c.ReconstructorChunk...)
+	}
+	rw, err := recording.Create(w, h, file, int(frames))
 	if err != nil {
 		return sum, err
 	}
-	sum.HasReconstructor = len(h.GetReconstructorFile()) > 0
+	sum.HasReconstructor = file != nil
 	sum.SlopesPerFrame, sum.ActuatorsPerFrame = int(h.GetCamera().GetSlopeCount()), int(h.GetMirror().GetActuatorCount())
 	var t0, t1 int64
 	for uint64(rw.Frames()) < frames {

@@ -21,6 +21,7 @@ import (
 
 	"stillsky/cmd/stillsky/internal/ctl"
 	"stillsky/internal/recording"
+	"stillsky/internal/rpc"
 	"stillsky/internal/testtool"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/rig"
@@ -298,7 +299,87 @@ func TestRecord(t *testing.T) {
 		}
 		loopCarriesOn(t, r, "a stalled recording")
 	})
+	t.Run("replay", func(t *testing.T) { testReplay(t, rec, path) })
 	if err := ctl.Run(ctx, r.Conn, []string{"record", "--frames", "20", path}, io.Discard); err != nil {
 		t.Errorf("a recording after the failures: %v", err)
+	}
+}
+
+// testReplay serves the recording as devices: the camera sends the recorded
+// slopes in order and over again, and a loop daemon that loads the recording's
+// reconstructor closes its loop on them while the mirror takes its commands.
+func testReplay(t *testing.T, rec *recording.Recording, path string) {
+	ctx, cancel := context.WithTimeout(context.Background(), time.Minute)
+	defer cancel()
+	rp, err := bench.NewReplay(rec, filepath.Base(path), nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	l, err := bench.Listen(bench.Addrs{Camera: "127.0.0.1:0", Mirror: "127.0.0.1:0"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	served := make(chan error, 1)
+	go func() { served <- rp.Serve(ctx, l) }()
+	defer func() {
+		cancel()
+		if err := <-served; err != nil {
+			t.Errorf("replay: %v", err)
+		}
+	}()
+	cam, mir := l.Camera.Addr().String(), l.Mirror.Addr().String()
+	conn, err := rpc.Dial(cam)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	camera := stillskyv1.NewCameraServiceClient(conn)
+	d, err := camera.Describe(ctx, &stillskyv1.CameraServiceDescribeRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d.GetSlopeCount() != rec.Camera.GetSlopeCount() || fmt.Sprint(d.GetValidSubapertures()) != fmt.Sprint(rec.Camera.GetValidSubapertures()) || d.GetLockstep() {
+		t.Fatalf("replay describes %d slopes, lockstep %v", d.GetSlopeCount(), d.GetLockstep())
+	}
+	sctx, stop := context.WithCancel(ctx)
+	frames, err := camera.StreamFrames(sctx, &stillskyv1.StreamFramesRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ns := int(rec.Camera.GetSlopeCount())
+	for k := 1; k <= rec.Frames+30; k++ {
+		f, err := frames.Recv()
+		if err != nil {
+			t.Fatal(err)
+		}
+		i := (k - 1) % rec.Frames
+		if f.GetFrameNumber() != uint64(k) || fmt.Sprint(f.GetSlopes()) != fmt.Sprint(rec.Slopes[i*ns:(i+1)*ns]) {
+			t.Fatalf("replayed frame %d (number %d) differs from recorded frame %d", k, f.GetFrameNumber(), i)
+		}
+	}
+	stop()
+
+	lr, err := rig.Start(ctx, rig.Config{Devices: &rig.Devices{Camera: cam, Mirror: mir}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer lr.Close()
+	if _, err := lr.WaitFrames(ctx, 1); err != nil {
+		t.Fatal(err)
+	}
+	var out bytes.Buffer
+	if err := ctl.Run(ctx, lr.Conn, []string{"load", path}, &out); err != nil {
+		t.Fatalf("ctl load of the recording: %v", err)
+	}
+	if err := ctl.Run(ctx, lr.Conn, []string{"close"}, &out); err != nil {
+		t.Fatal(err)
+	}
+	before := rp.Commands()
+	s, err := lr.WaitFrames(ctx, 100)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED || rp.Commands()-before < 50 {
+		t.Errorf("loop on the replay: state %v, %d commands taken by the mirror in 100 frames", s.GetState(), rp.Commands()-before)
 	}
 }

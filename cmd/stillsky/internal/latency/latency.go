@@ -8,6 +8,7 @@
 package latency
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -21,11 +22,13 @@ import (
 	"path/filepath"
 	"time"
 
+	"stillsky/cmd/stillsky/internal/ctl"
 	"stillsky/controller/mvm"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
 	"stillsky/internal/cpustat"
 	"stillsky/internal/monoclock"
+	"stillsky/internal/recording"
 	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/rig"
@@ -63,6 +66,22 @@ type Config struct {
 	Out io.Writer
 	// Logger receives the bench's and the daemon's log.
 	Logger *slog.Logger
+	// Replay, if set, is a telemetry recording (stillsky ctl record) served as
+	// the camera at its recorded rate in place of the simulated bench, and the
+	// loop runs the reconstructor stored in it: the loop and the transport are
+	// measured with almost no simulator beside them. It excludes Scenarios,
+	// Rate and Chunks.
+	Replay string
+}
+
+// source is what feeds the loop: a scenario simulated by the bench, or a
+// recording replayed.
+type source struct {
+	name   string
+	rate   float64
+	scn    *scenario.Scenario
+	rec    *recording.Recording
+	replay string // the recording's path
 }
 
 // Result is one scenario on one transport.
@@ -116,7 +135,7 @@ var benchGain = 0.2
 // it keeps what the interrupted measurement recorded, prints the table of what
 // ran and returns it with ErrInterrupted.
 func Run(ctx context.Context, c Config) ([]Result, error) {
-	if len(c.Scenarios) == 0 {
+	if len(c.Scenarios) == 0 && c.Replay == "" {
 		c.Scenarios = []string{scenario.Default}
 	}
 	if c.Duration == 0 {
@@ -142,7 +161,14 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 	if c.Logger == nil {
 		c.Logger = slog.New(slog.DiscardHandler)
 	}
-	var out []Result
+	var sources []source
+	if c.Replay != "" {
+		src, err := replaySource(c)
+		if err != nil {
+			return nil, err
+		}
+		sources = append(sources, src)
+	}
 	for _, name := range c.Scenarios {
 		scn, err := scenario.Load(name)
 		if err != nil {
@@ -151,9 +177,17 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 		if c.Rate > 0 {
 			scn.Loop.FrameRate = c.Rate
 		}
+		sources = append(sources, source{name: scn.Name, rate: scn.Loop.FrameRate, scn: scn})
+	}
+	var out []Result
+	for _, src := range sources {
 		for _, tr := range c.Transports {
-			fmt.Fprintf(c.Out, "%s over %s at %.0f Hz: calibrating, then %v closed loop\n", scn.Name, tr, scn.Loop.FrameRate, c.Duration)
-			r, err := runOne(ctx, c, scn, tr)
+			first := "calibrating"
+			if src.rec != nil {
+				first = "loading the recorded reconstructor"
+			}
+			fmt.Fprintf(c.Out, "%s over %s at %.0f Hz: %s, then %v closed loop\n", src.name, tr, src.rate, first, c.Duration)
+			r, err := runOne(ctx, c, src, tr)
 			if r != nil {
 				out = append(out, *r)
 			}
@@ -162,7 +196,7 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 				return out, ErrInterrupted
 			}
 			if err != nil {
-				return nil, fmt.Errorf("latency: %s over %s: %w", scn.Name, tr, err)
+				return nil, fmt.Errorf("latency: %s over %s: %w", src.name, tr, err)
 			}
 		}
 	}
@@ -172,16 +206,16 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 
 // runOne measures one scenario on one transport. It returns a result marked
 // Interrupted, with ctx's error, when ctx ends during the measurement.
-func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport string) (*Result, error) {
+func runOne(ctx context.Context, c Config, src source, transport string) (*Result, error) {
 	// The parts run on a context of their own: an interrupted run still reads
 	// the loop's figures before stopping them.
 	simCtx, stopSim := context.WithCancel(context.Background())
 	defer stopSim()
-	period := 1 / scn.Loop.FrameRate
-	capacity := int(c.Duration.Seconds()*scn.Loop.FrameRate*1.5) + 1000
+	period := 1 / src.rate
+	capacity := int(c.Duration.Seconds()*src.rate*1.5) + 1000
 	rec := daemon.NewRecorder(capacity)
 	rc := rig.Config{
-		Scenario: scn,
+		Scenario: src.scn,
 		Unix:     transport == "unix",
 		Bench:    bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50, ReadoutTime: c.ReadoutTime},
 		Loop: daemon.Config{
@@ -196,14 +230,21 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 		},
 	}
 	var simDone chan error
-	if c.SimulatorExecutable != "" {
+	switch {
+	case src.rec != nil && c.SimulatorExecutable == "":
+		cam, mir, err := serveReplay(simCtx, src, transport, &simDone)
+		if err != nil {
+			return nil, err
+		}
+		rc.Devices = &rig.Devices{Camera: cam, Mirror: mir}
+	case c.SimulatorExecutable != "":
 		dir, err := os.MkdirTemp("", "stillsky-latency-")
 		if err != nil {
 			return nil, err
 		}
 		defer os.RemoveAll(dir)
 		simDone = make(chan error, 1)
-		cam, mir, err := startSimulator(simCtx, c, scn, transport, dir, simDone)
+		cam, mir, err := startSimulator(simCtx, c, src, transport, dir, simDone)
 		if err != nil {
 			return nil, err
 		}
@@ -220,7 +261,11 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 	if err != nil {
 		return nil, err
 	}
-	if _, err := r.Calibrate(ctx, &stillskyv1.CalibrateRequest{FramesPerPattern: 1}, nil); err != nil {
+	if src.rec != nil {
+		if _, err := ctl.Upload(ctx, r.Client, bytes.NewReader(src.rec.ReconstructorFile)); err != nil {
+			return nil, fmt.Errorf("loading the recorded reconstructor: %w", err)
+		}
+	} else if _, err := r.Calibrate(ctx, &stillskyv1.CalibrateRequest{FramesPerPattern: 1}, nil); err != nil {
 		return nil, fmt.Errorf("calibration: %w", err)
 	}
 	if _, err := r.Client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
@@ -278,7 +323,7 @@ func runOne(ctx context.Context, c Config, scn *scenario.Scenario, transport str
 	}
 
 	res := &Result{
-		Scenario: scn.Name, Transport: transport, RateHz: scn.Loop.FrameRate, Frames: len(s.RTC), Chunks: c.Chunks,
+		Scenario: src.name, Transport: transport, RateHz: src.rate, Frames: len(s.RTC), Chunks: c.Chunks,
 		ReadoutUs: float64(c.ReadoutTime.Microseconds()), MVMWorkers: c.Kernel.Workers, BFloat16: c.Kernel.Precision == mvm.BFloat16,
 		SimCPUs: c.SimulatorCPUs, RTCPU: rtCPU(c.Realtime), RTFIFO: c.Realtime.FIFOPriority,
 		Slopes: int(after.GetSlopeCount()), Actuators: int(after.GetActuatorCount()),
@@ -330,26 +375,24 @@ func rtCPU(r daemon.Realtime) int {
 // startSimulator runs the bench as its own process (`stillsky sim`), as the
 // camera and mirror are separate devices on a real system: the loop's runtime
 // then schedules only the loop.
-func startSimulator(ctx context.Context, c Config, scn *scenario.Scenario, transport, dir string, done chan<- error) (string, string, error) {
-	y, err := scn.YAML()
+func startSimulator(ctx context.Context, c Config, src source, transport, dir string, done chan<- error) (string, string, error) {
+	cam, mir, err := deviceAddrs(transport, dir)
 	if err != nil {
 		return "", "", err
 	}
-	path := filepath.Join(dir, "scenario.yaml")
-	if err := os.WriteFile(path, y, 0o644); err != nil {
-		return "", "", err
-	}
-	cam, mir := "unix:"+filepath.Join(dir, "camera.sock"), "unix:"+filepath.Join(dir, "mirror.sock")
-	if transport == "tcp" {
-		if cam, err = freePort(); err == nil {
-			mir, err = freePort()
-		}
+	args := []string{"sim", "--replay", src.replay, "--camera", cam, "--mirror", mir, "--log-level", "warn"}
+	if src.scn != nil {
+		y, err := src.scn.YAML()
 		if err != nil {
 			return "", "", err
 		}
+		path := filepath.Join(dir, "scenario.yaml")
+		if err := os.WriteFile(path, y, 0o644); err != nil {
+			return "", "", err
+		}
+		args = []string{"sim", "--scenario", path, "--camera", cam, "--mirror", mir, "--metrics", "", "--log-level", "warn",
+			"--readout-time", c.ReadoutTime.String()}
 	}
-	args := []string{"sim", "--scenario", path, "--camera", cam, "--mirror", mir, "--metrics", "", "--log-level", "warn",
-		"--readout-time", c.ReadoutTime.String()}
 	if c.SimulatorCPUs != "" {
 		args = append(args, "--cpus", c.SimulatorCPUs)
 	}
@@ -366,6 +409,63 @@ func startSimulator(ctx context.Context, c Config, scn *scenario.Scenario, trans
 		done <- err
 	}()
 	return cam, mir, nil
+}
+
+// deviceAddrs chooses the camera's and the mirror's addresses for a transport:
+// free loopback ports, or sockets in dir.
+func deviceAddrs(transport, dir string) (string, string, error) {
+	if transport == "unix" {
+		return "unix:" + filepath.Join(dir, "camera.sock"), "unix:" + filepath.Join(dir, "mirror.sock"), nil
+	}
+	cam, err := freePort()
+	if err != nil {
+		return "", "", err
+	}
+	mir, err := freePort()
+	return cam, mir, err
+}
+
+// replaySource reads and checks the recording of c.Replay.
+func replaySource(c Config) (source, error) {
+	if len(c.Scenarios) > 0 || c.Rate != 0 || c.Chunks > 1 {
+		return source{}, errors.New("latency: --replay serves the recording as recorded: --scenario, --rate and --chunks do not apply")
+	}
+	rec, err := recording.ReadFile(c.Replay)
+	if err != nil {
+		return source{}, fmt.Errorf("latency: %w", err)
+	}
+	if rec.ReconstructorFile == nil {
+		return source{}, fmt.Errorf("latency: %s: the recording holds no reconstructor (record with a calibrated loop)", c.Replay)
+	}
+	return source{name: "replay " + filepath.Base(c.Replay), rate: rec.Camera.GetFrameRateHz(), rec: rec, replay: c.Replay}, nil
+}
+
+// serveReplay serves the recording inside this process until ctx ends; its end
+// is reported on *done.
+func serveReplay(ctx context.Context, src source, transport string, done *chan error) (string, string, error) {
+	dir, err := os.MkdirTemp("", "stillsky-replay-")
+	if err != nil {
+		return "", "", err
+	}
+	cam, mir, err := deviceAddrs(transport, dir)
+	if err == nil {
+		var r *bench.Replay
+		var l *bench.Listeners
+		if r, err = bench.NewReplay(src.rec, filepath.Base(src.replay), nil); err == nil {
+			l, err = bench.Listen(bench.Addrs{Camera: cam, Mirror: mir})
+		}
+		if err == nil {
+			*done = make(chan error, 1)
+			go func() {
+				err := r.Serve(ctx, l)
+				os.RemoveAll(dir)
+				*done <- err
+			}()
+			return cam, mir, nil
+		}
+	}
+	os.RemoveAll(dir)
+	return "", "", err
 }
 
 // freePort returns a loopback address no one listens on at the moment.
