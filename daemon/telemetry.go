@@ -139,41 +139,45 @@ func (b *telemetryBuffer) sample() *telemetrySample {
 	return &telemetrySample{slopes: make([]float32, len(b.slots[0].slopes)), cmd: make([]float32, len(b.slots[0].cmd))}
 }
 
-// newest returns the ring's buffer and the newest sample in it, copied (nil
-// before the first frame of a session).
-func (t *telemetryRing) newest() (*telemetryBuffer, *telemetrySample) {
+// newest returns a copy of the newest sample (nil before the first frame of a
+// session).
+func (t *telemetryRing) newest() *telemetrySample {
 	b := t.buf.Load()
 	if b == nil {
-		return nil, nil
+		return nil
 	}
 	for {
 		w := b.written.Load()
 		if w == 0 {
-			return b, nil
+			return nil
 		}
 		x := b.sample()
 		if b.read(w, x) == readOK {
-			return b, x
+			return x
 		}
 		// Overwritten while we looked, or skipped by the real-time goroutine:
 		// the next one is newer still.
 		if b.written.Load() == w {
-			return b, nil
+			return nil
 		}
 	}
 }
 
 // snapshot returns a copy of the newest sample (an empty one before any).
 func (t *telemetryRing) snapshot() *stillskyv1.StreamTelemetryResponse {
-	_, x := t.newest()
+	x := t.newest()
 	if x == nil {
 		return &stillskyv1.StreamTelemetryResponse{}
 	}
+	return x.proto()
+}
+
+func (x *telemetrySample) proto() *stillskyv1.StreamTelemetryResponse {
 	return &stillskyv1.StreamTelemetryResponse{
 		FrameNumber:           x.frame,
 		State:                 x.state.proto(),
-		Slopes:                x.slopes,
-		Commands:              x.cmd,
+		Slopes:                append([]float32(nil), x.slopes...),
+		Commands:              append([]float32(nil), x.cmd...),
 		ResidualSlopeRmsRad:   x.slopeRMS,
 		ResidualWavefrontRmsM: x.wfRMS,
 		StrehlEstimate:        x.strehl,
@@ -182,31 +186,44 @@ func (t *telemetryRing) snapshot() *stillskyv1.StreamTelemetryResponse {
 	}
 }
 
-// stream sends every n-th frame number's sample until ctx ends. Frames are
-// sampled by frame number, so a slow client gets fewer samples, never stale ones.
+// streamLag is how many frames the telemetry stream may fall behind the loop
+// before it skips to the newest: a client that keeps up gets every frame (every
+// n-th with decimation), a slow one fewer, never any older than this.
+const streamLag = 64
+
+// stream sends one sample per block of n frame numbers, in order, until ctx ends.
 func (t *telemetryRing) stream(ctx context.Context, n uint64, send func(*stillskyv1.StreamTelemetryResponse) error) error {
 	tick := time.NewTicker(500 * time.Microsecond)
 	defer tick.Stop()
-	var last, seen uint64
+	var b *telemetryBuffer
+	var x *telemetrySample
+	var next, last uint64
 	for {
+		if cur := t.buf.Load(); cur != b && cur != nil {
+			b, x, next = cur, cur.sample(), 0
+		}
+		if b != nil {
+			w := b.written.Load()
+			if next == 0 || w >= next+streamLag {
+				next = max(w, 1)
+			}
+			for ; next <= w; next++ {
+				if b.read(next, x) != readOK {
+					continue
+				}
+				if num := x.frame; num == 0 || num == last || num/n == last/n {
+					continue
+				}
+				last = x.frame
+				if err := send(x.proto()); err != nil {
+					return err
+				}
+			}
+		}
 		select {
 		case <-ctx.Done():
 			return nil
 		case <-tick.C:
-		}
-		b := t.buf.Load()
-		if b == nil || b.written.Load() == seen {
-			continue
-		}
-		seen = b.written.Load()
-		x := t.snapshot()
-		num := x.GetFrameNumber()
-		if num == 0 || num == last || num/n == last/n {
-			continue
-		}
-		last = num
-		if err := send(x); err != nil {
-			return err
 		}
 	}
 }
