@@ -74,13 +74,15 @@ class Recording:
     """A recording of every frame the loop handled, from RecordTelemetry.
 
     header is the recording's RecordingHeader message (devices, gain, leak, modal
-    gains, reconstructor and its FITS file, start time); the arrays have one row
+    gains, reconstructor, start time), reconstructor_file the reconstructor's FITS
+    file as save_reconstructor returns it (b"" when none); the arrays have one row
     per recorded frame. Timestamps are CLOCK_MONOTONIC nanoseconds: readout_end_ns
     on the camera's host, the others on the daemon's. Frames the loop refused or
     skipped are missing (frame_number shows the gaps).
     """
 
     header: pb.RecordingHeader
+    reconstructor_file: bytes
     frame_number: np.ndarray  # uint64 (n,)
     readout_end_ns: np.ndarray  # int64 (n,)
     received_ns: np.ndarray  # int64 (n,)
@@ -282,10 +284,13 @@ class Client:
         more than the daemon's ring behind gets Error(DATA_LOSS)."""
         header = None
         batches = []
+        chunks = []
         try:
             for r in self._stub.RecordTelemetry(pb.RecordTelemetryRequest(frame_count=frame_count), timeout=timeout):
                 if r.HasField("header"):
                     header = r.header
+                elif r.HasField("reconstructor_chunk"):
+                    chunks.append(r.reconstructor_chunk)
                 elif r.HasField("frames"):
                     batches.append(r.frames)
         except grpc.RpcError as err:
@@ -306,8 +311,13 @@ class Client:
                 raise Error(grpc.StatusCode.DATA_LOSS, f"recording: {len(flat)} {name} for {n} frames of {width}")
             return flat.reshape(n, width)
 
+        file = b"".join(chunks)
+        if len(file) != header.reconstructor_file_bytes:
+            raise Error(grpc.StatusCode.DATA_LOSS,
+                        f"recording: {len(file)} of the {header.reconstructor_file_bytes} bytes of the reconstructor file")
         return Recording(
             header=header,
+            reconstructor_file=file,
             frame_number=frames,
             readout_end_ns=column("readout_end_ns", np.int64),
             received_ns=column("received_ns", np.int64),

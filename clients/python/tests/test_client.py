@@ -315,7 +315,7 @@ class Lockstep(unittest.TestCase):
         self.assertEqual(rec.slopes.shape, (300, self.info.slope_count))
         self.assertEqual(rec.commands.shape, (300, self.info.actuator_count))
         self.assertAlmostEqual(rec.header.gain, gain)
-        self.assertEqual(rec.header.reconstructor_file, self.client.save_reconstructor())
+        self.assertEqual(rec.reconstructor_file, self.client.save_reconstructor())
         self.assertTrue(np.all(np.diff(rec.frame_number.astype(np.int64)) >= 1))
         self.assertTrue(np.all(rec.received_ns <= rec.computed_ns) and np.all(rec.computed_ns <= rec.sent_ns))
         try:
@@ -325,7 +325,7 @@ class Lockstep(unittest.TestCase):
                 raise
             self.skipTest("astropy not installed (Debian package python3-astropy)")
         import io
-        with fits.open(io.BytesIO(rec.header.reconstructor_file)) as hdus:
+        with fits.open(io.BytesIO(rec.reconstructor_file)) as hdus:
             r = hdus[0].data.astype(np.float64)
         closed = rec.state == stillsky.CLOSED
         k = np.flatnonzero((np.diff(rec.frame_number.astype(np.int64)) == 1) & closed[1:] & closed[:-1]
