@@ -231,7 +231,7 @@ func (e *Estimator) Estimate(series [][]float64, rate, zenithDeg float64) (Turbu
 		var sum float64
 		model := make([]float64, orders)
 		for n := 1; n <= orders; n++ {
-			model[n-1] = ZernikeVariance(n, D, 1, L0, 0, 0)
+			model[n-1] = newOrderWeights(n, D, L0).at(0)
 			sum += math.Log(model[n-1]) - math.Log(signal[n-1])
 		}
 		lr := 0.6 * sum / float64(orders) // log r0
@@ -270,14 +270,16 @@ func (e *Estimator) Estimate(series [][]float64, rate, zenithDeg float64) (Turbu
 	if len(pts) == 0 {
 		return best, fmt.Errorf("analysis: the coefficients decorrelate within a frame: too few frames per second for a wind estimate")
 	}
+	weights := make([]orderWeights, orders)
 	var0 := make([]float64, orders)
 	for n := 1; n <= orders; n++ {
-		var0[n-1] = ZernikeVariance(n, D, 1, best.L0, 0, 0)
+		weights[n-1] = newOrderWeights(n, D, best.L0)
+		var0[n-1] = weights[n-1].at(0)
 	}
 	cost := func(v float64) float64 {
 		s := 0.0
 		for _, p := range pts {
-			d := p.rho - ZernikeVariance(p.n, D, 1, best.L0, v, p.tau)/var0[p.n-1]
+			d := p.rho - weights[p.n-1].at(v*p.tau)/var0[p.n-1]
 			s += d * d
 		}
 		return s

@@ -55,6 +55,40 @@ func modesUpTo(n int) int { return (n + 1) * (n + 2) / 2 }
 // spatial frequency below; the integrands are smooth in log f.
 const orderIntegralPoints = 600
 
+// orderWeights holds, for one radial order, the spatial-frequency grid and the
+// weights 2π(n+1) Φ(f) [J_{n+1}(πDf)/(πDf/2)]² f² Δ(ln f) of the integral below,
+// for r0 = 1 (the variance scales as r0^(−5/3)).
+type orderWeights struct {
+	f, w []float64
+}
+
+func newOrderWeights(n int, D, L0 float64) orderWeights {
+	lo, hi := math.Log(1e-8/D), math.Log(200*float64(n+1)/D)
+	du := (hi - lo) / orderIntegralPoints
+	o := orderWeights{f: make([]float64, orderIntegralPoints), w: make([]float64, orderIntegralPoints)}
+	for i := range orderIntegralPoints {
+		f := math.Exp(lo + (float64(i)+0.5)*du)
+		x := math.Pi * D * f
+		q := math.Jn(n+1, x) / (x / 2)
+		o.f[i] = f
+		o.w[i] = 2 * math.Pi * float64(n+1) * PhaseSpectrum(f, 1, L0) * q * q * f * f * du
+	}
+	return o
+}
+
+// at returns C_n at separation s = vτ (metres) for r0 = 1.
+func (o orderWeights) at(s float64) float64 {
+	c := 0.0
+	for i, w := range o.w {
+		if s == 0 {
+			c += w
+			continue
+		}
+		c += w * math.J0(2*math.Pi*o.f[i]*s)
+	}
+	return c
+}
+
 // ZernikeVariance returns the variance in rad² of one Zernike coefficient of
 // radial order n >= 1 over a pupil of diameter D, for von Kármán turbulence of
 // Fried parameter r0 (at the wavelength of interest) and outer scale L0, with the
@@ -66,18 +100,5 @@ const orderIntegralPoints = 600
 // (Noll, JOSA 66 (1976) 207, for the variance; the lag averages the direction of
 // the wind over the modes of one order, which turns cos(2π f·v τ) into J0).
 func ZernikeVariance(n int, D, r0, L0, v, tau float64) float64 {
-	lo, hi := math.Log(1e-8/D), math.Log(200*float64(n+1)/D)
-	du := (hi - lo) / orderIntegralPoints
-	s := 0.0
-	for i := range orderIntegralPoints {
-		f := math.Exp(lo + (float64(i)+0.5)*du)
-		x := math.Pi * D * f
-		q := math.Jn(n+1, x) / (x / 2)
-		c := 1.0
-		if tau != 0 && v != 0 {
-			c = math.J0(2 * math.Pi * f * v * tau)
-		}
-		s += PhaseSpectrum(f, r0, L0) * q * q * c * f * f * du
-	}
-	return 2 * math.Pi * float64(n+1) * s
+	return newOrderWeights(n, D, L0).at(v*tau) * math.Pow(r0, -5.0/3)
 }

@@ -159,6 +159,9 @@ type Analysis struct {
 	Gain float64
 }
 
+// Reconstructor returns the reconstructor in use, or nil.
+func (d *Daemon) Reconstructor() *controller.Reconstructor { return d.u.reconstructor() }
+
 // LatestAnalysis returns the latest analysis, or nil before the first.
 func (d *Daemon) LatestAnalysis() *Analysis { return d.an.last.Load() }
 

@@ -180,8 +180,8 @@ func (r *Rig) Predict(gain float64, modalGains []float64, benchSampling bool) (a
 
 // RunConfig chooses one closed-loop run.
 type RunConfig struct {
-	// Gain and ModalGains (nil: 1 each) of the integrator.
-	Gain       float64
+	// Gain, Leak and ModalGains (nil: 1 each) of the integrator.
+	Gain, Leak float64
 	ModalGains []float64
 	// Seed of the turbulence and noise (0: the scenario's).
 	Seed int64
@@ -242,7 +242,11 @@ func (r *Rig) Run(c RunConfig) (Measured, error) {
 	if c.NoDelay {
 		gain = 1
 	}
-	p, err := controller.NewParams(controller.ParamsConfig{Reconstructor: r.Reconstructor, Gain: gain,
+	leak := c.Leak
+	if c.NoDelay {
+		leak = 0
+	}
+	p, err := controller.NewParams(controller.ParamsConfig{Reconstructor: r.Reconstructor, Gain: gain, Leak: leak,
 		ModalGains: c.ModalGains, Stroke: scn.DM.Stroke, StrehlWavelength: scn.Science.Wavelength})
 	if err != nil {
 		return Measured{}, err

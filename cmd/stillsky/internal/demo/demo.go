@@ -96,6 +96,9 @@ type Summary struct {
 	FinalLoopState       string        `json:"final_loop_state"`
 	Gain                 float64       `json:"gain"`
 	Lockstep             bool          `json:"lockstep"`
+	// Budget is the error budget predicted for the run beside the measured
+	// figures (nil when the loop had no reconstructor).
+	Budget *BudgetSummary `json:"budget,omitempty"`
 	// Interrupted says the run was stopped early (Ctrl-C): the frames are those
 	// run, and the figures are of those frames.
 	Interrupted bool `json:"interrupted,omitempty"`
@@ -137,8 +140,10 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 		Scenario: scn,
 		// One science image every 20 frames is plenty for a long exposure of
 		// thousands of frames, and keeps the camera's FFTs off the loop's CPU time.
-		Bench:     bench.Options{Lockstep: c.Lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
-		Loop:      daemon.Config{Gain: c.Gain, Logger: c.Logger.With("process", "loop")},
+		Bench: bench.Options{Lockstep: c.Lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
+		// The loop analyses itself every 2 s, so that its turbulence estimate
+		// and budget reach the summary of a run of a few seconds.
+		Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 2 * time.Second, Logger: c.Logger.With("process", "loop")},
 		BenchHTTP: true,
 	})
 	if err != nil {
@@ -165,6 +170,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 		sum.InterlockTrips = st.GetInterlockTrips()
 		sum.FinalLoopState = stateName(st.GetState())
 		sum.Gain = st.GetGain()
+		sum.Budget = predictBudget(scn, r, sum.Gain, st.GetLeak())
 	}
 	if cerr := r.Close(); err == nil {
 		err = cerr
@@ -316,4 +322,5 @@ func writeTable(out io.Writer, s *Summary) {
 	fmt.Fprintf(out, "  rtc latency (µs)             p50 %.1f  p99 %.1f  p99.9 %.1f  max %.1f\n", s.RTCLatencyUs.P50, s.RTCLatencyUs.P99, s.RTCLatencyUs.P999, s.RTCLatencyUs.Max)
 	fmt.Fprintf(out, "  end-to-end latency (µs)      p50 %.1f  p99 %.1f  p99.9 %.1f  max %.1f\n", s.EndToEndLatencyUs.P50, s.EndToEndLatencyUs.P99, s.EndToEndLatencyUs.P999, s.EndToEndLatencyUs.Max)
 	fmt.Fprintf(out, "  frames dropped %d, rejected %d; interlock trips %d; final state %s\n", s.FramesDropped, s.FramesRejected, s.InterlockTrips, s.FinalLoopState)
+	s.Budget.write(out, s.StrehlClosed)
 }
