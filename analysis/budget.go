@@ -3,6 +3,8 @@ package analysis
 import (
 	"fmt"
 	"math"
+
+	"stillsky/sim/optics"
 )
 
 // Optics is what the error budget needs of the telescope, sensor and mirror.
@@ -61,6 +63,9 @@ type BudgetInput struct {
 	// over the pupil) that white slope noise puts into each controlled mode at unit
 	// gain, as PropagateNoise returns it; nil leaves the noise term out.
 	ModalNoise []float64
+	// LowOrder holds the steady-state correction κ_j of Noll modes 2 … as
+	// LowOrderCorrection returns it; nil leaves the low-order term out.
+	LowOrder []float64
 	// ModalGains are the relative gains of those modes (nil: 1 each); mode i runs
 	// at Loop.Gain·ModalGains[i]. They change only the noise term: the servo and
 	// aliasing terms use Loop.Gain.
@@ -84,6 +89,11 @@ type Budget struct {
 	Servo float64
 	// Noise: slope noise through the control matrix and the loop's noise gain.
 	Noise float64
+	// LowOrder: the share of the lowest Zernike modes the loop leaves in steady
+	// state because the mirror's edge cannot form them as the sensor sees them,
+	// Σⱼ Vⱼ [(1 − κⱼ g/(g + ℓ))² − (ℓ/(g + ℓ))²] with Vⱼ Noll's von Kármán variance
+	// of mode j (the leak's own share, (ℓ/(g + ℓ))² Vⱼ, is in Servo).
+	LowOrder float64
 	// Total is the sum of the terms (they are uncorrelated).
 	Total float64
 	// Strehl is the Maréchal approximation exp(−Total) (Mahajan, JOSA 73 (1983) 860).
@@ -126,7 +136,8 @@ func Compute(in BudgetInput) (Budget, error) {
 		return Budget{}, err
 	}
 	b.Noise = noise
-	b.Total = b.Fitting + b.Aliasing + b.Servo + b.Noise
+	b.LowOrder = lowOrderVariance(in, b.R0)
+	b.Total = b.Fitting + b.Aliasing + b.Servo + b.Noise + b.LowOrder
 	b.Strehl = math.Exp(-b.Total)
 	return b, nil
 }
@@ -279,4 +290,18 @@ func NoiseVariance(modalNoise, modalGains []float64, l Loop, lambda float64) (fl
 		total += k * k * v * ng
 	}
 	return total, nil
+}
+
+// lowOrderVariance is the LowOrder term of in for r0 at the science wavelength.
+func lowOrderVariance(in BudgetInput, r0 float64) float64 {
+	g, l := in.Loop.Gain, in.Loop.Leak
+	share := g / (g + l)
+	leak := l / (g + l)
+	v := 0.0
+	for m, k := range in.LowOrder {
+		n, _ := optics.NollIndex(m + 2)
+		e := 1 - k*share
+		v += ZernikeVariance(n, in.Optics.Diameter, r0, in.Turbulence.L0, 0, 0) * (e*e - leak*leak)
+	}
+	return math.Max(v, 0)
 }

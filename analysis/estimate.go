@@ -16,6 +16,8 @@ type SensorGeometry struct {
 	Valid []int
 	// SubapertureSize on the pupil and PupilDiameter, metres.
 	SubapertureSize, PupilDiameter float64
+	// Obstruction is the central obstruction as a fraction of the diameter.
+	Obstruction float64
 	// Wavelength of the sensing band, metres.
 	Wavelength float64
 }
@@ -30,6 +32,8 @@ func (g SensorGeometry) validate() error {
 		return fmt.Errorf("analysis: subaperture %g m, pupil %g m: must be > 0", g.SubapertureSize, g.PupilDiameter)
 	case !(g.Wavelength > 0) || math.IsInf(g.Wavelength, 0):
 		return fmt.Errorf("analysis: sensing wavelength %g m: must be > 0", g.Wavelength)
+	case !(g.Obstruction >= 0 && g.Obstruction < 1):
+		return fmt.Errorf("analysis: obstruction %g: must be in [0, 1)", g.Obstruction)
 	}
 	for _, v := range g.Valid {
 		if v < 0 || v >= g.Subapertures*g.Subapertures {
@@ -39,18 +43,16 @@ func (g SensorGeometry) validate() error {
 	return nil
 }
 
-// gauss6 are the 6-point Gauss–Legendre nodes and weights on [−1, 1].
-var gauss6 = [6][2]float64{
-	{-0.9324695142031521, 0.1713244923791704}, {-0.6612093864662645, 0.3607615730481386},
-	{-0.2386191860831969, 0.4679139345726910}, {0.2386191860831969, 0.4679139345726910},
-	{0.6612093864662645, 0.3607615730481386}, {0.9324695142031521, 0.1713244923791704},
-}
+// litSamples is the number of sample points across a subaperture at which the
+// Zernike gradients are averaged over its lit part.
+const litSamples = 8
 
 // ZernikeSlopes returns the Shack–Hartmann response to Noll modes 2 … modes+1
-// (slopes × modes): the mean gradient over each valid subaperture of mode j with
-// a unit coefficient (one metre rms of optical path over the pupil), which is
-// the difference of the mode across the square integrated along its edges,
-// (1/d²)∫[Z(x + d/2, y) − Z(x − d/2, y)] dy for x (6-point Gauss–Legendre).
+// (slopes × modes): the mean gradient of mode j with a unit coefficient (one
+// metre rms of optical path over the pupil) over the lit part of each valid
+// subaperture, the annulus between Obstruction·D/2 and D/2, as the sensor
+// averages it: the analytic gradient (central differences of the polynomial) at
+// litSamples² points of the subaperture, those outside the annulus left out.
 func ZernikeSlopes(g SensorGeometry, modes int) (*mat.Dense, error) {
 	if err := g.validate(); err != nil {
 		return nil, err
@@ -58,19 +60,34 @@ func ZernikeSlopes(g SensorGeometry, modes int) (*mat.Dense, error) {
 	R, d := g.PupilDiameter/2, g.SubapertureSize
 	z := mat.NewDense(2*len(g.Valid), modes, nil)
 	half := float64(g.Subapertures) * d / 2
+	const h = 1e-6 // of the radius
+	rin := g.Obstruction
 	for k, v := range g.Valid {
-		xc := (float64(v%g.Subapertures)+0.5)*d - half
-		yc := (float64(v/g.Subapertures)+0.5)*d - half
+		x0 := float64(v%g.Subapertures)*d - half
+		y0 := float64(v/g.Subapertures)*d - half
+		var pts [][2]float64
+		for iy := range litSamples {
+			for ix := range litSamples {
+				x := (x0 + (float64(ix)+0.5)*d/litSamples) / R
+				y := (y0 + (float64(iy)+0.5)*d/litSamples) / R
+				if r := math.Hypot(x, y); r <= 1 && r >= rin {
+					pts = append(pts, [2]float64{x, y})
+				}
+			}
+		}
+		if len(pts) == 0 { // a subaperture lit only between the sample points
+			pts = append(pts, [2]float64{(x0 + d/2) / R, (y0 + d/2) / R})
+		}
 		for m := range modes {
 			j := m + 2
 			var sx, sy float64
-			for _, q := range gauss6 {
-				t := q[0] * d / 2
-				sx += q[1] / 2 * (zernikeAt(j, (xc+d/2)/R, (yc+t)/R) - zernikeAt(j, (xc-d/2)/R, (yc+t)/R))
-				sy += q[1] / 2 * (zernikeAt(j, (xc+t)/R, (yc+d/2)/R) - zernikeAt(j, (xc+t)/R, (yc-d/2)/R))
+			for _, p := range pts {
+				sx += zernikeAt(j, p[0]+h, p[1]) - zernikeAt(j, p[0]-h, p[1])
+				sy += zernikeAt(j, p[0], p[1]+h) - zernikeAt(j, p[0], p[1]-h)
 			}
-			z.Set(2*k, m, sx/d)
-			z.Set(2*k+1, m, sy/d)
+			n := float64(len(pts)) * 2 * h * R
+			z.Set(2*k, m, sx/n)
+			z.Set(2*k+1, m, sy/n)
 		}
 	}
 	return z, nil

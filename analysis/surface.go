@@ -27,6 +27,7 @@ const influenceCutoff = 1e-4
 // pupil, to measure the surface variance a command makes.
 type Surface struct {
 	n     int
+	coord func(int) float64 // sample centre, metres from the pupil centre
 	mask  []bool
 	lit   int
 	start []int // actuator k reaches samples idx[start[k]:start[k+1]] with weights w
@@ -55,7 +56,7 @@ func NewSurface(diameter, obstruction float64, m Mirror, samplesPerPitch int) (*
 	n := int(math.Ceil(diameter / m.Pitch * float64(samplesPerPitch)))
 	step := diameter / float64(n)
 	coord := func(i int) float64 { return -diameter/2 + (float64(i)+0.5)*step }
-	s := &Surface{n: n, mask: make([]bool, n*n), buf: make([]float64, n*n), start: make([]int, len(m.Positions)+1)}
+	s := &Surface{n: n, coord: coord, mask: make([]bool, n*n), buf: make([]float64, n*n), start: make([]int, len(m.Positions)+1)}
 	r2o, r2i := diameter*diameter/4, obstruction*obstruction*diameter*diameter/4
 	for iy := range n {
 		for ix := range n {
@@ -107,15 +108,7 @@ func (s *Surface) Variance(cmd []float64) float64 {
 	if len(cmd) != s.Actuators() {
 		panic(fmt.Sprintf("analysis: Surface.Variance: %d values, want %d", len(cmd), s.Actuators()))
 	}
-	clear(s.buf)
-	for k, c := range cmd {
-		if c == 0 {
-			continue
-		}
-		for j := s.start[k]; j < s.start[k+1]; j++ {
-			s.buf[s.idx[j]] += c * s.w[j]
-		}
-	}
+	s.form(cmd)
 	var sum, sum2 float64
 	for i, v := range s.buf {
 		if s.mask[i] {
@@ -125,6 +118,47 @@ func (s *Surface) Variance(cmd []float64) float64 {
 	}
 	n := float64(s.lit)
 	return math.Max(sum2/n-(sum/n)*(sum/n), 0)
+}
+
+// form writes the surface of cmd into s.buf.
+func (s *Surface) form(cmd []float64) {
+	clear(s.buf)
+	for k, c := range cmd {
+		if c == 0 {
+			continue
+		}
+		for j := s.start[k]; j < s.start[k+1]; j++ {
+			s.buf[s.idx[j]] += c * s.w[j]
+		}
+	}
+}
+
+// zernikeShare returns ⟨Z_j, h⟩/⟨Z_j, Z_j⟩ over the lit samples for the surface
+// h that cmd forms, both with their mean removed; R is the pupil radius of Z_j.
+func (s *Surface) zernikeShare(cmd []float64, j int, R float64) float64 {
+	s.form(cmd)
+	var zm, hm float64
+	z := make([]float64, len(s.buf))
+	for iy := range s.n {
+		for ix := range s.n {
+			i := iy*s.n + ix
+			if s.mask[i] {
+				z[i] = zernikeAt(j, s.coord(ix)/R, s.coord(iy)/R)
+				zm += z[i]
+				hm += s.buf[i]
+			}
+		}
+	}
+	zm /= float64(s.lit)
+	hm /= float64(s.lit)
+	var zh, zz float64
+	for i, lit := range s.mask {
+		if lit {
+			zh += (z[i] - zm) * (s.buf[i] - hm)
+			zz += (z[i] - zm) * (z[i] - zm)
+		}
+	}
+	return zh / zz
 }
 
 // PropagateNoise returns, per controlled mode of r, the per-frame surface variance
@@ -171,6 +205,43 @@ func PropagateNoise(r *controller.Reconstructor, slopeNoise []float64, s *Surfac
 		}
 		mat.Col(col, i, r.Modes)
 		out[i] = v * s.Variance(col)
+	}
+	return out, nil
+}
+
+// LowOrderOrders is the number of radial orders whose steady-state correction
+// LowOrderCorrection measures: the modes with most of the turbulence's power.
+const LowOrderOrders = 5
+
+// LowOrderModes returns the number of modes LowOrderCorrection returns.
+func LowOrderModes() int { return modesUpTo(LowOrderOrders) - 1 }
+
+// LowOrderCorrection returns, for Noll modes 2 … (LowOrderOrders+1)(LowOrderOrders+2)/2,
+// the share κ_j of the mode that the loop forms in steady state: the sensor's
+// response to the mode (ZernikeSlopes), the command Δ = R·s_j that nulls it
+// (R the control matrix), and κ_j = ⟨Z_j, 2·h(Δ)⟩/⟨Z_j, Z_j⟩ over the pupil for
+// the surface h it forms (reflection doubles it). A mirror that forms the modes
+// exactly where the sensor sees them gives κ = 1; the last actuators at the pupil
+// edge make it smaller, and the loop then leaves (1 − κ) of each mode in place.
+func LowOrderCorrection(r *controller.Reconstructor, g SensorGeometry, s *Surface) ([]float64, error) {
+	if err := r.Validate(); err != nil {
+		return nil, err
+	}
+	modes := modesUpTo(LowOrderOrders) - 1
+	z, err := ZernikeSlopes(g, modes)
+	if err != nil {
+		return nil, err
+	}
+	if rows, _ := z.Dims(); rows != r.Slopes || s.Actuators() != r.Actuators {
+		return nil, fmt.Errorf("analysis: %d slopes and %d actuators described for a reconstructor of %d × %d", rows, s.Actuators(), r.Slopes, r.Actuators)
+	}
+	out := make([]float64, modes)
+	col := make([]float64, r.Slopes)
+	var c mat.VecDense
+	for m := range modes {
+		mat.Col(col, m, z)
+		c.MulVec(r.Control, mat.NewVecDense(len(col), col))
+		out[m] = 2 * s.zernikeShare(c.RawVector().Data, m+2, g.PupilDiameter/2)
 	}
 	return out, nil
 }

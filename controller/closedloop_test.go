@@ -140,7 +140,7 @@ func TestClosedLoopOnBench(t *testing.T) {
 		t.Fatal(err)
 	}
 	noll := 1.0299 * math.Pow(scn.Telescope.Diameter/b.R0, 5.0/3)
-	t.Logf("budget (rad²): fitting %.4f + aliasing %.4f + servo %.4f + noise %.4f = %.4f", b.Fitting, b.Aliasing, b.Servo, b.Noise, b.Total)
+	t.Logf("budget (rad²): fitting %.4f + aliasing %.4f + low order %.4f + servo %.4f + noise %.4f = %.4f", b.Fitting, b.Aliasing, b.LowOrder, b.Servo, b.Noise, b.Total)
 	t.Logf("closed loop %.4f rad² (Maréchal Strehl %.3f), loop's own estimate %.4f rad²", clVar, math.Exp(-clVar), estVar)
 	t.Logf("open loop %.2f rad² (Noll Δ1 %.2f rad²)", olVar, noll)
 	if math.Abs(clVar/b.Total-1) > 0.3 {

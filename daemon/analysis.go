@@ -143,6 +143,7 @@ type analyser struct {
 	zproj    *analysis.Projector // Zernike coefficients
 	mproj    *analysis.Projector // the reconstructor's modes
 	unitNois []float64           // modal noise at unit slope noise
+	kappa    []float64           // low-order steady-state correction
 	last     atomic.Pointer[Analysis]
 }
 
@@ -200,7 +201,7 @@ func (d *Daemon) prepare() (*geometry, *describes, *controller.Reconstructor, er
 	}
 	cam := desc.cam
 	geom := analysis.SensorGeometry{Subapertures: int(cam.GetSubapertures()), SubapertureSize: cam.GetSubapertureSizeM(),
-		PupilDiameter: cam.GetPupilDiameterM(), Wavelength: cam.GetWavelengthM()}
+		PupilDiameter: cam.GetPupilDiameterM(), Wavelength: cam.GetWavelengthM(), Obstruction: cam.GetObstruction()}
 	for _, v := range cam.GetValidSubapertures() {
 		geom.Valid = append(geom.Valid, int(v))
 	}
@@ -224,15 +225,16 @@ func (d *Daemon) prepare() (*geometry, *describes, *controller.Reconstructor, er
 	for i := 0; i+1 < len(pos); i += 2 {
 		m.Positions = append(m.Positions, [2]float64{pos[i], pos[i+1]})
 	}
-	var unit []float64
+	var unit, kappa []float64
 	if surf, err := analysis.NewSurface(geom.PupilDiameter, cam.GetObstruction(), m, 4); err == nil {
 		ones := make([]float64, r.Slopes)
 		for i := range ones {
 			ones[i] = 1
 		}
 		unit, _ = analysis.PropagateNoise(r, ones, surf)
+		kappa, _ = analysis.LowOrderCorrection(r, geom, surf)
 	}
-	a.recon, a.est, a.zproj, a.mproj, a.unitNois = r, est, zp, mp, unit
+	a.recon, a.est, a.zproj, a.mproj, a.unitNois, a.kappa = r, est, zp, mp, unit, kappa
 	return g, desc, r, nil
 }
 
@@ -301,7 +303,8 @@ func (d *Daemon) analyseOnce(ctx context.Context) error {
 				Pitch: desc.mir.GetPitchM(), ScienceWavelength: d.cfg.ScienceWavelength},
 			Turbulence: analysis.Turbulence{R0: te.R0, L0: te.L0, ZenithDeg: desc.cam.GetZenithDeg(),
 				Layers: []analysis.Layer{{Fraction: 1, WindSpeed: te.Wind}}},
-			Loop: loop,
+			Loop:     loop,
+			LowOrder: a.kappa,
 		}
 		if a.unitNois != nil {
 			in.ModalNoise = make([]float64, len(a.unitNois))
@@ -390,14 +393,14 @@ func (d *Daemon) optimiseModalGains(ctx context.Context, req *stillskyv1.Optimis
 
 // setBudget exports a budget.
 func (m *metrics) setBudget(b analysis.Budget) {
-	for i, v := range []float64{b.Fitting, b.Aliasing, b.Servo, b.Noise, b.Total} {
+	for i, v := range []float64{b.Fitting, b.Aliasing, b.Servo, b.Noise, b.LowOrder, b.Total} {
 		m.budget[i].Set(v)
 	}
 	m.budgetStrehl.Set(b.Strehl)
 }
 
 // budgetTerms are the label values of stillsky_budget_residual_square_radians.
-var budgetTerms = [...]string{"fitting", "aliasing", "servo", "noise", "total"}
+var budgetTerms = [...]string{"fitting", "aliasing", "servo", "noise", "low_order", "total"}
 
 // String formats an analysis on one line.
 func (a *Analysis) String() string {

@@ -18,6 +18,7 @@ func runBudget(args []string) error {
 	fs := newFlagSet("budget")
 	scn := fs.String("scenario", scenario.Default, "built-in scenario name or path to a scenario YAML file")
 	gain := fs.Float64("gain", budgetsim.DefaultGain, "integrator gain (the daemon's default 0.4)")
+	leak := fs.Float64("leak", budgetsim.DefaultLeak, "integrator leak (the daemon's default 0.01)")
 	asJSON := fs.Bool("json", false, "print the report as JSON")
 	simulate := fs.Bool("simulate", false, "also measure each term on the lockstep bench (noise off; no-delay loop; best mirror fit)")
 	seeds := fs.String("seeds", "1,2,3", "comma-separated turbulence seeds of --simulate")
@@ -39,7 +40,7 @@ func runBudget(args []string) error {
 			list = append(list, v)
 		}
 	}
-	rep, err := budgetsim.Evaluate(s, *gain, list, *frames)
+	rep, err := budgetsim.Evaluate(s, *gain, *leak, list, *frames)
 	if err != nil {
 		return err
 	}

@@ -14,6 +14,7 @@ func TestBudgetBadInput(t *testing.T) {
 		{[]string{"budget", "--scenario", "no-such-scenario"}, `scenario "no-such-scenario"`},
 		{[]string{"budget", "--scenario", "small", "--gain", "2.5"}, "unstable"},
 		{[]string{"budget", "--scenario", "small", "--gain", "-0.1"}, "gain -0.1"},
+		{[]string{"budget", "--scenario", "small", "--leak", "1"}, "leak 1"},
 		{[]string{"budget", "--scenario", "small", "--simulate", "--seeds", "1,x"}, "--seeds"},
 		{[]string{"budget", "--scenario", "small", "--simulate", "--frames", "10"}, "frames 10"},
 	} {

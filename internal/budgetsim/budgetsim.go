@@ -17,8 +17,11 @@ import (
 	"stillsky/sim/scenario"
 )
 
-// DefaultGain is the loop daemon's default integrator gain.
-const DefaultGain = 0.4
+// DefaultGain and DefaultLeak are the loop daemon's default integrator gain and leak.
+const (
+	DefaultGain = 0.4
+	DefaultLeak = 0.01
+)
 
 // DelayLine models the delay of the lockstep bench: the frame read at step k sees
 // the command computed after the frame of step k − d.
@@ -101,10 +104,13 @@ func Calibrate(scn *scenario.Scenario) (*Rig, error) {
 }
 
 // SensorGeometry returns the sensor's layout as its Describe reports it.
-func (r *Rig) SensorGeometry() analysis.SensorGeometry {
-	sensor := r.sys.Sensor()
+func (r *Rig) SensorGeometry() analysis.SensorGeometry { return sensorGeometry(r.Scenario, r.sys) }
+
+func sensorGeometry(scn *scenario.Scenario, sys *bench.System) analysis.SensorGeometry {
+	sensor := sys.Sensor()
 	g := analysis.SensorGeometry{Subapertures: sensor.Subapertures(), SubapertureSize: sensor.SubapertureSize(),
-		PupilDiameter: r.Scenario.Telescope.Diameter, Wavelength: r.Scenario.GuideStar.Wavelength}
+		PupilDiameter: scn.Telescope.Diameter, Wavelength: scn.GuideStar.Wavelength,
+		Obstruction: scn.Telescope.Obstruction}
 	for i, v := range sensor.Valid() {
 		if v {
 			g.Valid = append(g.Valid, i)
@@ -114,7 +120,7 @@ func (r *Rig) SensorGeometry() analysis.SensorGeometry {
 }
 
 // Input returns the budget input of scenario scn with reconstructor r at the
-// given gain (leak 0, the scenario's delay and frame rate). sys supplies the
+// given gain (leak 0: set in.Loop.Leak; the scenario's delay and frame rate). sys supplies the
 // geometry of the sensor and mirror as they describe themselves (positions,
 // pitch, coupling, slope noise). With benchSampling the wavefront stops at the
 // Nyquist frequency of the bench's pupil sampling, as the simulated one does;
@@ -150,9 +156,14 @@ func Input(scn *scenario.Scenario, sys *bench.System, r *controller.Reconstructo
 			return in, err
 		}
 		in.ModalNoise = mn
-		if modalGains == nil {
-			in.ModalGains = nil
-		}
+	}
+	surf, err := analysis.NewSurface(scn.Telescope.Diameter, scn.Telescope.Obstruction,
+		analysis.Mirror{Positions: m.Positions(), Pitch: m.Pitch(), Coupling: m.Coupling()}, 4)
+	if err != nil {
+		return in, err
+	}
+	if in.LowOrder, err = analysis.LowOrderCorrection(r, sensorGeometry(scn, sys), surf); err != nil {
+		return in, err
 	}
 	return in, nil
 }
@@ -168,13 +179,14 @@ func Turbulence(scn *scenario.Scenario) analysis.Turbulence {
 	return t
 }
 
-// Predict returns the analytic budget of the rig at gain g (modal gains nil for
-// all 1); benchSampling as in Input.
-func (r *Rig) Predict(gain float64, modalGains []float64, benchSampling bool) (analysis.Budget, error) {
+// Predict returns the analytic budget of the rig at gain and leak (modal gains
+// nil for all 1); benchSampling as in Input.
+func (r *Rig) Predict(gain, leak float64, modalGains []float64, benchSampling bool) (analysis.Budget, error) {
 	in, err := Input(r.Scenario, r.sys, r.Reconstructor, gain, modalGains, benchSampling)
 	if err != nil {
 		return analysis.Budget{}, err
 	}
+	in.Loop.Leak = leak
 	return analysis.Compute(in)
 }
 
@@ -205,7 +217,8 @@ type RunConfig struct {
 	Frame func(slopes, applied []float32)
 	// Fitting also measures the fitting error: the residual of the best
 	// least-squares mirror fit to the turbulence, every StrehlEvery-th frame (or
-	// every 10th without Strehl).
+	// every 10th without Strehl), and the loop's under-correction of the modes of
+	// analysis.LowOrderCorrection (Measured.LowOrder).
 	Fitting bool
 }
 
@@ -218,6 +231,10 @@ type Measured struct {
 	Strehl float64
 	// Fitting is the mean variance left by the best mirror fit (RunConfig.Fitting).
 	Fitting float64
+	// LowOrder is the mean variance of the part of the loop's residual in the
+	// low-order modes that is a fixed share of the turbulence's own coefficient
+	// of each: the loop's steady-state under-correction (RunConfig.Fitting).
+	LowOrder float64
 	// Saturated counts actuator clips, Rejected refused frames.
 	Saturated, Rejected int
 }
@@ -257,8 +274,10 @@ func (r *Rig) Run(c RunConfig) (Measured, error) {
 		return Measured{}, err
 	}
 	var fit *fitter
+	var low *underCorrection
 	if c.Fitting {
 		fit = newFitter(sys)
+		low = newUnderCorrection(sys.Pupil())
 	}
 	lambda := scn.Science.Wavelength
 	toPhase := func(opd float64) float64 { return math.Pow(2*math.Pi*opd/lambda, 2) }
@@ -302,11 +321,13 @@ func (r *Rig) Run(c RunConfig) (Measured, error) {
 		}
 		if fit != nil && (k-c.Warmup)%fitEvery == 0 {
 			m.Fitting += toPhase(fit.residualRMS(sys))
+			low.add(sys.Residual(), sys.Atmosphere())
 			nfit++
 		}
 	}
 	if nfit > 0 {
 		m.Fitting /= float64(nfit)
+		m.LowOrder = toPhase(math.Sqrt(low.variance(nfit)))
 	}
 	if c.StrehlEvery > 0 {
 		m.Strehl = sys.ExposureStrehl()
@@ -316,7 +337,9 @@ func (r *Rig) Run(c RunConfig) (Measured, error) {
 
 // Terms is a budget measured by simulation, rad² at the science wavelength.
 type Terms struct {
-	Fitting, Aliasing, Servo, Noise, Total float64
+	// Aliasing includes the low-order under-correction, of which LowOrder is
+	// the regressed part (see Decompose).
+	Fitting, Aliasing, Servo, Noise, LowOrder, Total float64
 	// Strehl is the long-exposure Strehl ratio of the full run.
 	Strehl float64
 }
@@ -325,13 +348,16 @@ type Terms struct {
 // the full loop (Total, Strehl); noise off (Total − it is Noise); the loop with
 // no delay, noise off (fitting and aliasing; the best mirror fit to the same
 // turbulence gives Fitting, the rest is Aliasing); and Servo is what the delayed
-// noise-free loop adds to the loop with no delay.
-func (r *Rig) Decompose(gain float64, seed int64, warmup, frames, strehlEvery int) (Terms, error) {
-	full, err := r.Run(RunConfig{Gain: gain, Seed: seed, Warmup: warmup, Frames: frames, StrehlEvery: strehlEvery})
+// noise-free loop adds to the loop with no delay. Aliasing therefore holds the
+// loop's steady-state under-correction of the low-order modes too (the analytic
+// budget's LowOrder term); LowOrder is that part as the no-delay loop shows it
+// (Measured.LowOrder), a regression that also picks up the coupling between modes.
+func (r *Rig) Decompose(gain, leak float64, seed int64, warmup, frames, strehlEvery int) (Terms, error) {
+	full, err := r.Run(RunConfig{Gain: gain, Leak: leak, Seed: seed, Warmup: warmup, Frames: frames, StrehlEvery: strehlEvery})
 	if err != nil {
 		return Terms{}, err
 	}
-	quiet, err := r.Run(RunConfig{Gain: gain, Seed: seed, NoNoise: true, Warmup: warmup, Frames: frames})
+	quiet, err := r.Run(RunConfig{Gain: gain, Leak: leak, Seed: seed, NoNoise: true, Warmup: warmup, Frames: frames})
 	if err != nil {
 		return Terms{}, err
 	}
@@ -340,7 +366,7 @@ func (r *Rig) Decompose(gain float64, seed int64, warmup, frames, strehlEvery in
 		return Terms{}, err
 	}
 	return Terms{
-		Fitting: ideal.Fitting, Aliasing: ideal.Residual - ideal.Fitting,
+		Fitting: ideal.Fitting, Aliasing: ideal.Residual - ideal.Fitting, LowOrder: ideal.LowOrder,
 		Servo: quiet.Residual - ideal.Residual, Noise: full.Residual - quiet.Residual,
 		Total: full.Residual, Strehl: full.Strehl,
 	}, nil

@@ -5,6 +5,7 @@ import (
 
 	"gonum.org/v1/gonum/mat"
 
+	"stillsky/analysis"
 	"stillsky/sim/bench"
 	"stillsky/sim/optics"
 )
@@ -93,4 +94,119 @@ func (f *fitter) residualRMS(sys *bench.System) float64 {
 		}
 	}
 	return optics.ResidualRMS(f.pupil, f.res)
+}
+
+// residual returns the last fit's residual (the fitter's own slice).
+func (f *fitter) residual() []float64 { return f.res }
+
+// lowOrder measures the variance over the pupil of the part of a wavefront that
+// the Noll modes 2 … of the budget's low-order term span (least squares, the pupil
+// mask as weights).
+type lowOrder struct {
+	pupil *optics.Pupil
+	modes [][]float64
+	chol  mat.Cholesky
+	g     *mat.SymDense
+	rhs   *mat.VecDense
+	sol   *mat.VecDense
+	buf   []float64
+}
+
+// centre removes the pupil-weighted mean (piston) of x over the pupil; x is 0
+// outside it.
+func centre(p *optics.Pupil, x []float64) {
+	s := 0.0
+	for i, w := range p.Mask {
+		s += w * x[i]
+	}
+	mean := s / p.Area
+	for i, w := range p.Mask {
+		if w != 0 {
+			x[i] -= mean
+		} else {
+			x[i] = 0
+		}
+	}
+}
+
+func newLowOrder(p *optics.Pupil) *lowOrder {
+	n := analysis.LowOrderModes()
+	l := &lowOrder{pupil: p, modes: make([][]float64, n), g: mat.NewSymDense(n, nil), rhs: mat.NewVecDense(n, nil), sol: mat.NewVecDense(n, nil)}
+	for m := range n {
+		z := make([]float64, p.N*p.N)
+		if err := optics.Zernike(m+2, p, z); err != nil {
+			panic(err)
+		}
+		centre(p, z)
+		l.modes[m] = z
+	}
+	l.buf = make([]float64, p.N*p.N)
+	for a := range n {
+		for b := a; b < n; b++ {
+			s := 0.0
+			for i, w := range p.Mask {
+				s += w * l.modes[a][i] * l.modes[b][i]
+			}
+			l.g.SetSym(a, b, s)
+		}
+	}
+	if !l.chol.Factorize(l.g) {
+		panic("budgetsim: low-order modes: Gram matrix not positive definite")
+	}
+	return l
+}
+
+// coefficients writes the least-squares low-order coefficients of opd (piston
+// removed) into out.
+func (l *lowOrder) coefficients(opd []float64, out []float64) {
+	copy(l.buf, opd)
+	centre(l.pupil, l.buf)
+	for m, z := range l.modes {
+		s := 0.0
+		for i, w := range l.pupil.Mask {
+			s += w * z[i] * l.buf[i]
+		}
+		l.rhs.SetVec(m, s)
+	}
+	if err := l.chol.SolveVecTo(l.sol, l.rhs); err != nil {
+		panic("budgetsim: low-order modes: " + err.Error())
+	}
+	copy(out, l.sol.RawVector().Data)
+}
+
+// underCorrection accumulates, mode by mode, the part of the loop's residual
+// that is a fixed share of the turbulence's own coefficient (the loop's
+// steady-state under-correction), as a regression of the one on the other:
+// Σ r a and Σ a² over the frames.
+type underCorrection struct {
+	low      *lowOrder
+	r, a     []float64
+	sra, saa []float64
+}
+
+func newUnderCorrection(p *optics.Pupil) *underCorrection {
+	low := newLowOrder(p)
+	n := len(low.modes)
+	return &underCorrection{low: low, r: make([]float64, n), a: make([]float64, n), sra: make([]float64, n), saa: make([]float64, n)}
+}
+
+func (u *underCorrection) add(residual, turbulence []float64) {
+	u.low.coefficients(residual, u.r)
+	u.low.coefficients(turbulence, u.a)
+	for j := range u.r {
+		u.sra[j] += u.r[j] * u.a[j]
+		u.saa[j] += u.a[j] * u.a[j]
+	}
+}
+
+// variance returns the mean variance (m² over the pupil) of the regressed part:
+// Σⱼ (Σ r a)²/Σ a² /frames, each mode weighted by its mean square over the pupil.
+func (u *underCorrection) variance(frames int) float64 {
+	v := 0.0
+	for j := range u.sra {
+		if u.saa[j] > 0 {
+			v += u.sra[j] * u.sra[j] / u.saa[j] * u.low.g.At(j, j) / u.low.pupil.Area
+		}
+	}
+	return v / float64(frames)
 }

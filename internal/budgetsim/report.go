@@ -19,6 +19,7 @@ import (
 type Report struct {
 	Scenario   string          `json:"scenario"`
 	Gain       float64         `json:"gain"`
+	Leak       float64         `json:"leak"`
 	Wavelength float64         `json:"science_wavelength_m"`
 	Design     analysis.Budget `json:"design"`
 	Simulated  analysis.Budget `json:"simulated"`
@@ -29,10 +30,10 @@ type Report struct {
 	Frames   int     `json:"frames,omitempty"`
 }
 
-// Evaluate calibrates the scenario's bench, computes both budgets at gain and,
+// Evaluate calibrates the scenario's bench, computes both budgets at gain and leak and,
 // when seeds is not empty, measures the terms by simulation over frames frames
 // per seed (after 200 to converge).
-func Evaluate(scn *scenario.Scenario, gain float64, seeds []int64, frames int) (*Report, error) {
+func Evaluate(scn *scenario.Scenario, gain, leak float64, seeds []int64, frames int) (*Report, error) {
 	if len(seeds) > 0 && (frames < 100 || frames > 1_000_000) {
 		return nil, fmt.Errorf("frames %d: must be in [100, 1000000]", frames)
 	}
@@ -40,11 +41,11 @@ func Evaluate(scn *scenario.Scenario, gain float64, seeds []int64, frames int) (
 	if err != nil {
 		return nil, err
 	}
-	rep := &Report{Scenario: scn.Name, Gain: gain, Wavelength: scn.Science.Wavelength}
-	if rep.Design, err = rig.Predict(gain, nil, false); err != nil {
+	rep := &Report{Scenario: scn.Name, Gain: gain, Leak: leak, Wavelength: scn.Science.Wavelength}
+	if rep.Design, err = rig.Predict(gain, leak, nil, false); err != nil {
 		return nil, err
 	}
-	if rep.Simulated, err = rig.Predict(gain, nil, true); err != nil {
+	if rep.Simulated, err = rig.Predict(gain, leak, nil, true); err != nil {
 		return nil, err
 	}
 	if len(seeds) == 0 {
@@ -53,7 +54,7 @@ func Evaluate(scn *scenario.Scenario, gain float64, seeds []int64, frames int) (
 	rep.Seeds, rep.Frames = seeds, frames
 	var mean Terms
 	for _, seed := range seeds {
-		m, err := rig.Decompose(gain, seed, 200, frames, 10)
+		m, err := rig.Decompose(gain, leak, seed, 200, frames, 10)
 		if err != nil {
 			return nil, err
 		}
@@ -62,6 +63,7 @@ func Evaluate(scn *scenario.Scenario, gain float64, seeds []int64, frames int) (
 		mean.Aliasing += k * m.Aliasing
 		mean.Servo += k * m.Servo
 		mean.Noise += k * m.Noise
+		mean.LowOrder += k * m.LowOrder
 		mean.Total += k * m.Total
 		mean.Strehl += k * m.Strehl
 	}
@@ -80,8 +82,8 @@ func (r *Report) WriteJSON(w io.Writer) error {
 // science wavelength.
 func (r *Report) WriteText(w io.Writer) error {
 	b := r.Design
-	fmt.Fprintf(w, "error budget: scenario %s, gain %.3g, science wavelength %.0f nm, r0 there %.3f m\n",
-		r.Scenario, r.Gain, r.Wavelength*1e9, b.R0)
+	fmt.Fprintf(w, "error budget: scenario %s, gain %.3g, leak %.3g, science wavelength %.0f nm, r0 there %.3f m\n",
+		r.Scenario, r.Gain, r.Leak, r.Wavelength*1e9, b.R0)
 	head := fmt.Sprintf("  %-10s %18s %18s", "term", "design rad² (nm)", "simulated rad² (nm)")
 	if r.Measured != nil {
 		head += fmt.Sprintf(" %20s %7s", "measured rad² (nm)", "ratio")
@@ -95,23 +97,28 @@ func (r *Report) WriteText(w io.Writer) error {
 	}{
 		{"fitting", r.Design.Fitting, r.Simulated.Fitting, 0},
 		{"aliasing", r.Design.Aliasing, r.Simulated.Aliasing, 0},
+		{"low order", r.Design.LowOrder, r.Simulated.LowOrder, 0},
+		{"alias+low", r.Design.Aliasing + r.Design.LowOrder, r.Simulated.Aliasing + r.Simulated.LowOrder, 0},
 		{"servo", r.Design.Servo, r.Simulated.Servo, 0},
 		{"noise", r.Design.Noise, r.Simulated.Noise, 0},
 		{"total", r.Design.Total, r.Simulated.Total, 0},
 	}
 	if m := r.Measured; m != nil {
-		for i, v := range []float64{m.Fitting, m.Aliasing, m.Servo, m.Noise, m.Total} {
+		for i, v := range []float64{m.Fitting, math.NaN(), m.LowOrder, m.Aliasing, m.Servo, m.Noise, m.Total} {
 			rows[i].measured = v
 		}
 	}
 	for _, row := range rows {
 		line := fmt.Sprintf("  %-10s %18s %18s", row.name, cell(row.d), cell(row.s))
 		if r.Measured != nil {
-			ratio := "   -"
-			if row.s > 0 {
-				ratio = fmt.Sprintf("%7.2f", row.measured/row.s)
+			ratio, m := "   -", "-"
+			if !math.IsNaN(row.measured) {
+				m = cell(math.Max(row.measured, 0))
+				if row.s > 0 {
+					ratio = fmt.Sprintf("%7.2f", row.measured/row.s)
+				}
 			}
-			line += fmt.Sprintf(" %20s %7s", cell(math.Max(row.measured, 0)), ratio)
+			line += fmt.Sprintf(" %20s %7s", m, ratio)
 		}
 		fmt.Fprintln(w, line)
 	}
@@ -123,7 +130,7 @@ func (r *Report) WriteText(w io.Writer) error {
 	fmt.Fprintln(w, "  (Strehl: Maréchal exp(−σ²) of the total; measured: long-exposure science PSF.")
 	fmt.Fprintln(w, "   design: a real atmosphere, gradients averaged over each subaperture; simulated: the bench's pupil sampling.)")
 	if r.Measured != nil {
-		fmt.Fprintf(w, "  measured on the lockstep bench over seeds %v, %d frames each: noise = full − noise off; servo = delayed − no-delay loop (noise off); fitting = best mirror fit; aliasing = no-delay loop − fitting\n", r.Seeds, r.Frames)
+		fmt.Fprintf(w, "  measured on the lockstep bench over seeds %v, %d frames each: noise = full − noise off; servo = delayed − no-delay loop (noise off; it also holds the leak's cost, which the budget puts in low order); fitting = best mirror fit; alias+low = no-delay loop − fitting (aliasing is not measured alone); low order = the share of Noll modes 2–21 the no-delay loop leaves, regressed on the turbulence's own\n", r.Seeds, r.Frames)
 	}
 	return nil
 }

@@ -61,8 +61,8 @@ func (s *BudgetSummary) write(out io.Writer, measured float64) {
 		return
 	}
 	b := s.Predicted
-	fmt.Fprintf(out, "  error budget (rad² at the science wavelength): fitting %.4f + aliasing %.4f + servo %.4f + noise %.4f = %.4f (%.0f nm)\n",
-		b.Fitting, b.Aliasing, b.Servo, b.Noise, b.Total, b.NM(b.Total))
+	fmt.Fprintf(out, "  error budget (rad² at the science wavelength): fitting %.4f + aliasing %.4f + low order %.4f + servo %.4f + noise %.4f = %.4f (%.0f nm)\n",
+		b.Fitting, b.Aliasing, b.LowOrder, b.Servo, b.Noise, b.Total, b.NM(b.Total))
 	fmt.Fprintf(out, "  Strehl predicted (Maréchal) %.3f, measured (long exposure) %.3f\n", b.Strehl, measured)
 	if t := s.LiveTurbulence; t.Frames > 0 {
 		fmt.Fprintf(out, "  loop's own estimate: r0 %.3f m (scenario %.3f m), τ0 %.2f ms (scenario %.2f ms), L0 %.0f m; its budget %.4f rad², Strehl %.3f\n",
