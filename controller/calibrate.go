@@ -198,15 +198,34 @@ func (c *Calibrator) InteractionMatrix() (*mat.Dense, error) {
 		m.Copy(c.y)
 		return m, nil
 	}
-	h := mat.NewDense(c.cfg.Actuators, c.order, nil)
-	for i := 0; i < c.cfg.Actuators; i++ {
-		for j := 0; j < c.order; j++ {
-			h.Set(i, j, hadamard(i, j))
+	// Row r of Y·Hᵀ is the Walsh–Hadamard transform of row r of Y (H is
+	// symmetric), which the fast transform gives in n·log₂n additions instead of
+	// the n² multiply-adds of the product per slope.
+	row := make([]float64, c.order)
+	inv := 1 / float64(c.order)
+	for r := 0; r < c.cfg.Slopes; r++ {
+		mat.Row(row, r, c.y)
+		walshHadamard(row)
+		for a := 0; a < c.cfg.Actuators; a++ {
+			m.Set(r, a, row[a]*inv)
 		}
 	}
-	m.Mul(c.y, h.T())
-	m.Scale(1/float64(c.order), m)
 	return m, nil
+}
+
+// walshHadamard overwrites x (length a power of two) with its Walsh–Hadamard
+// transform in Sylvester order, x̂ᵢ = Σⱼ (−1)^popcount(i&j) xⱼ, by the fast
+// butterfly (Fino & Algazi, IEEE Trans. Computers C-25 (1976) 1142, *from
+// memory*).
+func walshHadamard(x []float64) {
+	for h := 1; h < len(x); h *= 2 {
+		for i := 0; i < len(x); i += 2 * h {
+			for j := i; j < i+h; j++ {
+				a, b := x[j], x[j+h]
+				x[j], x[j+h] = a+b, a-b
+			}
+		}
+	}
 }
 
 func isFinite32(v float32) bool {

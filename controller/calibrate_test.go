@@ -171,3 +171,29 @@ func TestNewCalibratorRejects(t *testing.T) {
 		})
 	}
 }
+
+// The fast Walsh–Hadamard transform equals the product with the Sylvester
+// matrix Hᵢⱼ = (−1)^popcount(i&j) (gonum's dense product as reference).
+func TestWalshHadamardIsTheProduct(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	for _, n := range []int{1, 2, 8, 64} {
+		x := make([]float64, n)
+		for i := range x {
+			x[i] = rng.NormFloat64()
+		}
+		h := mat.NewDense(n, n, nil)
+		for i := range n {
+			for j := range n {
+				h.Set(i, j, hadamard(i, j))
+			}
+		}
+		var want mat.VecDense
+		want.MulVec(h, mat.NewVecDense(n, append([]float64(nil), x...)))
+		walshHadamard(x)
+		for i := range x {
+			if math.Abs(x[i]-want.AtVec(i)) > 1e-12*float64(n) {
+				t.Fatalf("n %d: element %d = %g, product %g", n, i, x[i], want.AtVec(i))
+			}
+		}
+	}
+}

@@ -29,7 +29,8 @@ type Config struct {
 	// Scenario is a built-in name or a YAML path; default scenario.Default.
 	Scenario string
 	// FramesOpen and FramesClosed are the frames run in each phase; defaults 2000
-	// and 5000.
+	// and 5000, or, when the demo falls back to lockstep, as many as take about
+	// 15 s and 40 s at the rate the loop then runs (at least 200 and 500).
 	FramesOpen, FramesClosed int
 	// Gain of the integrator in closed loop; nil keeps the daemon's default.
 	Gain *float64
@@ -39,6 +40,10 @@ type Config struct {
 	Out io.Writer
 	// Logger receives the log of the bench and the daemon; nil discards it.
 	Logger *slog.Logger
+
+	// scaleFrames says, after a fallback to lockstep, which phase's frames were
+	// left to their default and so follow the lockstep rate.
+	scaleFrames [2]bool
 }
 
 // Spread is how a figure varies over the blocks of a run.
@@ -99,6 +104,14 @@ type Summary struct {
 	// Budget is the error budget predicted for the run beside the measured
 	// figures (nil when the loop had no reconstructor).
 	Budget *BudgetSummary `json:"budget,omitempty"`
+	// NotRealTime, when set, says why the free-running bench and loop could not
+	// keep real time on this machine, so that the demo ran lockstep instead.
+	NotRealTime string `json:"not_real_time,omitempty"`
+	// ContrastOpen and ContrastClosed are the raw contrast of each phase's
+	// science exposure at bench.ContrastSeparations (separation in λ/D →
+	// azimuthal mean of the PSF over its peak), within the science image.
+	ContrastOpen   map[int]float64 `json:"contrast_open,omitempty"`
+	ContrastClosed map[int]float64 `json:"contrast_closed,omitempty"`
 	// Interrupted says the run was stopped early (Ctrl-C): the frames are those
 	// run, and the figures are of those frames.
 	Interrupted bool `json:"interrupted,omitempty"`
@@ -115,10 +128,11 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	if c.Scenario == "" {
 		c.Scenario = scenario.Default
 	}
-	if c.FramesOpen == 0 {
+	autoOpen, autoClosed := c.FramesOpen == 0, c.FramesClosed == 0
+	if autoOpen {
 		c.FramesOpen = 2000
 	}
-	if c.FramesClosed == 0 {
+	if autoClosed {
 		c.FramesClosed = 5000
 	}
 	if c.FramesOpen < 1 || c.FramesClosed < 1 {
@@ -136,25 +150,50 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	}
 	// The rig runs until the end of the summary whatever ctx does: an
 	// interrupted run still reports the loop's figures.
-	r, err := rig.Start(context.Background(), rig.Config{
-		Scenario: scn,
-		// One science image every 20 frames is plenty for a long exposure of
-		// thousands of frames, and keeps the camera's FFTs off the loop's CPU time.
-		Bench: bench.Options{Lockstep: c.Lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
-		// The loop analyses itself every 2 s, so that its turbulence estimate
-		// and budget reach the summary of a run of a few seconds.
-		Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 2 * time.Second, Logger: c.Logger.With("process", "loop")},
-		BenchHTTP: true,
-	})
+	start := func(lockstep bool) (*rig.Rig, error) {
+		return rig.Start(context.Background(), rig.Config{
+			Scenario: scn,
+			// One science image every 20 frames is plenty for a long exposure of
+			// thousands of frames, and keeps the camera's FFTs off the loop's CPU time.
+			Bench:     bench.Options{Lockstep: lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
+			// The loop analyses itself every 2 s, so that its turbulence estimate
+			// and budget reach the summary of a run of a few seconds.
+			Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 2 * time.Second, Logger: c.Logger.With("process", "loop")},
+			BenchHTTP: true,
+		})
+	}
+	r, err := start(c.Lockstep)
 	if err != nil {
 		return nil, err
 	}
-	defer r.Close()
+	defer func() { r.Close() }()
 	fmt.Fprintf(c.Out, "stillsky demo: scenario %q — %s\n", scn.Name, scn.Description)
+	sum := &Summary{Scenario: scn.Name, ScienceWavelengthM: scn.Science.Wavelength, Lockstep: c.Lockstep}
+	if !c.Lockstep {
+		if err := connected(ctx, r); err != nil {
+			return nil, err
+		}
+		v, err := checkRealTime(ctx, r)
+		if err != nil {
+			return nil, fmt.Errorf("demo: real-time check: %w", err)
+		}
+		if !v.ok {
+			fmt.Fprintf(c.Out, "not real time: %s on this machine. Running lockstep instead: each frame waits for the loop's command, so the figures are those of the %.0f Hz loop, at whatever rate this machine manages.\n",
+				v.why, scn.Loop.FrameRate)
+			if err := r.Close(); err != nil {
+				return nil, err
+			}
+			if r, err = start(true); err != nil {
+				return nil, err
+			}
+			sum.Lockstep, sum.NotRealTime = true, v.why
+			c.Lockstep = true
+			c.scaleFrames = [2]bool{autoOpen, autoClosed}
+		}
+	}
 	fmt.Fprintf(c.Out, "bench camera %s, mirror %s; loop control %s, metrics http://%s/metrics, live view http://%s/\n",
 		r.Devices.Camera, r.Devices.Mirror, r.ControlAddr, r.Loop.MetricsAddr(), r.Loop.MetricsAddr())
 
-	sum := &Summary{Scenario: scn.Name, ScienceWavelengthM: scn.Science.Wavelength, Lockstep: c.Lockstep}
 	st, err := run(ctx, c, r, sum)
 	if err != nil && ctx.Err() != nil {
 		// Stopped from outside: the summary of what ran, from the loop as it is.
@@ -185,22 +224,27 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 // run connects, calibrates and runs the open and the closed phase, filling sum
 // as it goes; it returns the loop's status at the end of the closed phase.
 func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.GetStatusResponse, error) {
-	wait, cancel := context.WithTimeout(ctx, 30*time.Second)
-	_, err := r.WaitFrames(wait, 1)
-	cancel()
-	if err != nil {
-		return nil, fmt.Errorf("demo: the loop did not connect to the bench: %w", err)
+	if err := connected(ctx, r); err != nil {
+		return nil, err
 	}
 	if err := ctl.Calibrate(ctx, r.Client, &stillskyv1.CalibrateRequest{}, c.Out); err != nil {
 		return nil, fmt.Errorf("demo: calibration: %w", err)
 	}
 
 	b := r.Bench
+	if c.scaleFrames[0] {
+		n, err := framesFor(ctx, r, 15*time.Second, 200, c.FramesOpen)
+		if err != nil {
+			return nil, err
+		}
+		c.FramesOpen = n
+	}
 	fmt.Fprintf(c.Out, "open loop: %d frames\n", c.FramesOpen)
 	b.ResetStats()
 	n, _, err := runPhase(ctx, r.Client, b, c.FramesOpen, c.Out)
 	open := b.Stats()
 	sum.FramesOpen, sum.StrehlOpen, sum.ResidualRMSNmOpen = n, open.Strehl, open.ResidualRMS*1e9
+	sum.ContrastOpen = atSeparations(open.Contrast)
 	sum.StrehlOpenBlocks = spread(open.BlockStrehl)
 	if err != nil {
 		return nil, err
@@ -212,10 +256,22 @@ func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.G
 	// Let the integrator converge before averaging: 50 frames is many time
 	// constants 1/g of the integrator at the usual gains.
 	settle := 50
-	fmt.Fprintf(c.Out, "closed loop: %d frames (after %d to converge)\n", c.FramesClosed, settle)
+	s0, err := r.Status(ctx)
+	if err != nil {
+		return nil, err
+	}
+	t0 := time.Now()
 	if _, _, err := runPhase(ctx, r.Client, b, settle, io.Discard); err != nil {
 		return nil, err
 	}
+	if c.scaleFrames[1] {
+		s1, err := r.Status(ctx)
+		if err != nil {
+			return nil, err
+		}
+		c.FramesClosed = lockstepFrames(s0, s1, time.Since(t0), 40*time.Second, 500, c.FramesClosed)
+	}
+	fmt.Fprintf(c.Out, "closed loop: %d frames (after %d to converge)\n", c.FramesClosed, settle)
 	b.ResetStats()
 	var estSum float64
 	var estN int
@@ -227,6 +283,7 @@ func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.G
 	})
 	closed := b.Stats()
 	sum.FramesClosed, sum.StrehlClosed, sum.ResidualRMSNmClosed = n, closed.Strehl, closed.ResidualRMS*1e9
+	sum.ContrastClosed = atSeparations(closed.Contrast)
 	sum.StrehlClosedBlocks = spread(closed.BlockStrehl)
 	if estN > 0 {
 		sum.StrehlEstimateClosed = estSum / float64(estN)
@@ -282,9 +339,9 @@ func runPhase(ctx context.Context, c stillskyv1.ControlServiceClient, b *bench.S
 			rate := float64(s.GetFrames()-lastFrames) / now.Sub(lastT).Seconds()
 			rms, strehl := b.Latest()
 			l := s.GetRtcLatency()
-			fmt.Fprintf(out, "  %-8s %6.0f frames/s  rtc p50 %5.1f µs p99 %6.1f µs  residual %6.1f nm (true %6.1f nm)  Strehl est %.3f true %.3f\n",
+			fmt.Fprintf(out, "  %-8s %6.0f frames/s  rtc p50 %5.1f µs p99 %6.1f µs  residual %6.1f nm (true %6.1f nm)  Strehl est %.3f true %.3f%s\n",
 				stateName(s.GetState()), rate, l.GetP50()*1e6, l.GetP99()*1e6,
-				s.GetResidualWavefrontRmsM()*1e9, rms*1e9, s.GetStrehlEstimate(), strehl)
+				s.GetResidualWavefrontRmsM()*1e9, rms*1e9, s.GetStrehlEstimate(), strehl, contrastText(b.LatestContrast(), "  contrast "))
 			lastLine, lastFrames, lastT = now, s.GetFrames(), now
 		}
 	}
@@ -319,8 +376,18 @@ func writeTable(out io.Writer, s *Summary) {
 	fmt.Fprintf(out, "  %-28s open %s  closed %s\n", "  over 1 s blocks", s.StrehlOpenBlocks, s.StrehlClosedBlocks)
 	fmt.Fprintf(out, "  %-28s %12s %12.3f\n", "estimated Strehl (Maréchal)", "", s.StrehlEstimateClosed)
 	fmt.Fprintf(out, "  %-28s %12.1f %12.1f\n", "true residual rms (nm)", s.ResidualRMSNmOpen, s.ResidualRMSNmClosed)
+	for _, sep := range bench.ContrastSeparations {
+		o, ok1 := s.ContrastOpen[sep]
+		cl, ok2 := s.ContrastClosed[sep]
+		if ok1 && ok2 {
+			fmt.Fprintf(out, "  %-28s %12.2e %12.2e\n", fmt.Sprintf("raw contrast at %d λ/D", sep), o, cl)
+		}
+	}
 	fmt.Fprintf(out, "  rtc latency (µs)             p50 %.1f  p99 %.1f  p99.9 %.1f  max %.1f\n", s.RTCLatencyUs.P50, s.RTCLatencyUs.P99, s.RTCLatencyUs.P999, s.RTCLatencyUs.Max)
 	fmt.Fprintf(out, "  end-to-end latency (µs)      p50 %.1f  p99 %.1f  p99.9 %.1f  max %.1f\n", s.EndToEndLatencyUs.P50, s.EndToEndLatencyUs.P99, s.EndToEndLatencyUs.P999, s.EndToEndLatencyUs.Max)
 	fmt.Fprintf(out, "  frames dropped %d, rejected %d; interlock trips %d; final state %s\n", s.FramesDropped, s.FramesRejected, s.InterlockTrips, s.FinalLoopState)
 	s.Budget.write(out, s.StrehlClosed)
+	if s.NotRealTime != "" {
+		fmt.Fprintf(out, "  ran lockstep, not in real time: %s\n", s.NotRealTime)
+	}
 }
