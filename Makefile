@@ -1,5 +1,6 @@
 # The README's test command is `make test`: every test, then the race detector over
-# the packages where goroutines meet (the daemon, the bench, the gRPC plumbing),
+# the packages where goroutines meet (the daemon, the bench, the rig that runs
+# both in one process, the gRPC plumbing),
 # on the tests that -short keeps (the long closed-loop runs are covered above).
 # Packages run one at a time (-p 1): several tests run a real-time loop at 1 kHz,
 # and on a 2-core machine another package's tests beside them would be the load
@@ -8,7 +9,7 @@
 
 test:
 	go test -p 1 ./...
-	go test -p 1 -race -short ./daemon/ ./sim/bench/ ./internal/... ./controller/...
+	go test -p 1 -race -short ./daemon/ ./sim/bench/ ./rig/ ./internal/... ./controller/...
 
 demo:
 	go run ./cmd/stillsky demo

@@ -49,8 +49,8 @@ type Config struct {
 	// precision of the control matrix; the zero value picks the fastest float32
 	// kernel and the thread count by size.
 	Kernel mvm.Options
-	// Realtime asks for CPU affinity, SCHED_FIFO and locked memory; the zero value
-	// asks for none.
+	// Realtime asks for CPU affinity and SCHED_FIFO of the real-time thread; the
+	// zero value asks for none. Its LockMemory is for ProcessSettings.
 	Realtime Realtime
 	// Recorder, if set, records every frame's timings while started.
 	Recorder *Recorder
@@ -220,7 +220,6 @@ func (d *Daemon) Run(ctx context.Context) error {
 			}
 		}()
 	}
-	d.processSettings()
 	d.log.Info("loop daemon listening", "control", d.ControlAddr(), "metrics", d.MetricsAddr())
 	go d.devices(ctx)
 	if d.cfg.AnalysisPeriod >= 0 {

@@ -5,6 +5,7 @@ import (
 	"context"
 	"io"
 	"net/http"
+	"os"
 	"testing"
 	"time"
 
@@ -19,6 +20,14 @@ import (
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
 )
+
+// TestMain gives the tests the process settings of a loop process (GOGC 400 and
+// the soft memory limit, see ProcessSettings), under which the timing and memory
+// figures they check are taken.
+func TestMain(m *testing.M) {
+	daemon.ProcessSettings(daemon.Realtime{}, nil)
+	os.Exit(m.Run())
+}
 
 // loopRig is a loop daemon under test and its Control API client; startRig
 // runs it with a bench, as separate gRPC endpoints on loopback.

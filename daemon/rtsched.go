@@ -20,7 +20,8 @@ type Realtime struct {
 	// the normal scheduler. On a machine with few cores keep one core for the rest.
 	FIFOPriority int
 	// LockMemory calls mlockall so that no page of the process is swapped out or
-	// faulted in during a frame.
+	// faulted in during a frame; it is a setting of the whole process, which
+	// ProcessSettings makes.
 	LockMemory bool
 }
 
@@ -34,7 +35,7 @@ func (r Realtime) validate() error {
 	return nil
 }
 
-// gcPercent is the GOGC the daemon runs with unless the GOGC environment variable
+// gcPercent is the GOGC a loop process runs with unless the GOGC environment variable
 // says otherwise. The hot path allocates nothing in the daemon's own code, so the
 // garbage comes from the control plane and gRPC's per-message buffers; a
 // collection every 4× growth of the live heap keeps collections rare without
@@ -45,21 +46,29 @@ const (
 	memoryLimit = 2 << 30
 )
 
-// processSettings applies the GC settings and mlockall, once at start.
-func (d *Daemon) processSettings() {
-	if debug.SetGCPercent(-1) == 100 { // 100 is the default: GOGC was not set
+// ProcessSettings applies the settings of a process that runs the loop daemon:
+// GOGC 400 and a 2 GiB soft memory limit, unless the GOGC and GOMEMLIMIT
+// environment variables say otherwise, and mlockall when r.LockMemory asks for
+// it. They belong to the whole process, so the process makes them, once, before
+// Run (stillsky loop, demo, latency and sweep do); the daemon itself changes
+// nothing process-wide.
+func ProcessSettings(r Realtime, log *slog.Logger) {
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	if old := debug.SetGCPercent(-1); old == 100 { // 100 is the default: GOGC was not set
 		debug.SetGCPercent(gcPercent)
 	} else {
-		debug.SetGCPercent(debug.SetGCPercent(-1))
+		debug.SetGCPercent(old)
 	}
 	if debug.SetMemoryLimit(-1) == int64(^uint64(0)>>1) { // GOMEMLIMIT not set
 		debug.SetMemoryLimit(memoryLimit)
 	}
-	if d.cfg.Realtime.LockMemory {
+	if r.LockMemory {
 		if err := unix.Mlockall(unix.MCL_CURRENT | unix.MCL_FUTURE); err != nil {
-			d.log.Warn("memory not locked (needs CAP_IPC_LOCK or a high RLIMIT_MEMLOCK); pages may fault during frames", "err", err)
+			log.Warn("memory not locked (needs CAP_IPC_LOCK or a high RLIMIT_MEMLOCK); pages may fault during frames", "err", err)
 		} else {
-			d.log.Info("memory locked (mlockall)")
+			log.Info("memory locked (mlockall)")
 		}
 	}
 }

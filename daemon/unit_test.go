@@ -1,8 +1,10 @@
 package daemon
 
 import (
+	"fmt"
 	"log/slog"
 	"math/rand/v2"
+	"runtime/debug"
 	"testing"
 	"time"
 
@@ -253,5 +255,21 @@ func TestUnitCalibratesFrameByFrame(t *testing.T) {
 		if v != 0 {
 			t.Fatalf("aborted calibration: actuator %d at %g m, want flat", j, v)
 		}
+	}
+}
+
+// ProcessSettings raises the runtime's default GOGC of 100 to 400 and keeps any
+// other value, as a GOGC in the environment sets it.
+func TestProcessSettingsGC(t *testing.T) {
+	old := debug.SetGCPercent(100)
+	defer debug.SetGCPercent(old)
+	for _, c := range []struct{ set, want int }{{100, gcPercent}, {250, 250}, {-1, -1}} {
+		t.Run(fmt.Sprintf("GOGC %d", c.set), func(t *testing.T) {
+			debug.SetGCPercent(c.set)
+			ProcessSettings(Realtime{}, nil)
+			if got := debug.SetGCPercent(c.set); got != c.want {
+				t.Errorf("GOGC %d: %d after ProcessSettings, want %d", c.set, got, c.want)
+			}
+		})
 	}
 }

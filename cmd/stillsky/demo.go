@@ -4,6 +4,7 @@ import (
 	"os"
 
 	"stillsky/cmd/stillsky/internal/demo"
+	"stillsky/daemon"
 )
 
 func init() {
@@ -29,6 +30,7 @@ func runDemo(args []string) error {
 	if *gain != -1 {
 		cfg.Gain = gain
 	}
+	daemon.ProcessSettings(daemon.Realtime{}, log)
 	ctx, stop := signalContext()
 	defer stop()
 	s, err := demo.Run(ctx, cfg)

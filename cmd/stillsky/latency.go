@@ -65,6 +65,7 @@ func runLatency(args []string) error {
 		}
 	}
 	shareProcessWithSimulator()
+	daemon.ProcessSettings(daemon.Realtime{}, log)
 	ctx, stop := signalContext()
 	defer stop()
 	rs, err := latency.Run(ctx, latency.Config{

@@ -61,6 +61,7 @@ func runLoop(args []string) error {
 	if err != nil {
 		return err
 	}
+	daemon.ProcessSettings(cfg.Realtime, log)
 	ctx, stop := signalContext()
 	defer stop()
 	return d.Run(ctx)

@@ -7,6 +7,7 @@ import (
 	"strconv"
 
 	"stillsky/cmd/stillsky/internal/sweep"
+	"stillsky/daemon"
 )
 
 func init() {
@@ -56,6 +57,7 @@ func runSweep(args []string) error {
 	}
 	// Every point runs the bench and the loop in this process, as the demo does.
 	shareProcessWithSimulator()
+	daemon.ProcessSettings(daemon.Realtime{}, nil)
 	if *fromEnv {
 		if *point >= 0 {
 			return errors.New("give --point or --point-from-env, not both")
