@@ -96,9 +96,6 @@ func (f *fitter) residualRMS(sys *bench.System) float64 {
 	return optics.ResidualRMS(f.pupil, f.res)
 }
 
-// residual returns the last fit's residual (the fitter's own slice).
-func (f *fitter) residual() []float64 { return f.res }
-
 // lowOrder measures the variance over the pupil of the part of a wavefront that
 // the Noll modes 2 … of the budget's low-order term span (least squares, the pupil
 // mask as weights).
