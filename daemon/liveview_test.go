@@ -141,30 +141,32 @@ func TestSnapshots(t *testing.T) {
 		// Background, cell, arrow colour.
 		{"/snapshot/slopes.png", g.Subapertures, len(g.Valid), 3},
 	} {
-		img := decodePNG(t, base+c.path)
-		b := img.Bounds()
-		if b.Dx() != b.Dy() || b.Dx()%c.across != 0 || b.Dx() < 200 {
-			t.Errorf("%s: %v: want a square of %d whole cells, >= 200 px", c.path, b, c.across)
-			continue
-		}
-		cols := colours(img)
-		if len(cols) < c.minColours {
-			t.Errorf("%s: %d colours, want >= %d", c.path, len(cols), c.minColours)
-		}
-		// Count the cells whose corner (inside the gap) is not the background.
-		s := b.Dx() / c.across
-		bg := img.At(0, 0)
-		drawn := 0
-		for row := range c.across {
-			for col := range c.across {
-				if img.At(col*s+s/4, row*s+s/4) != bg {
-					drawn++
+		t.Run(c.path, func(t *testing.T) {
+			img := decodePNG(t, base+c.path)
+			b := img.Bounds()
+			if b.Dx() != b.Dy() || b.Dx()%c.across != 0 || b.Dx() < 200 {
+				t.Errorf("%s: %v: want a square of %d whole cells, >= 200 px", c.path, b, c.across)
+				return
+			}
+			cols := colours(img)
+			if len(cols) < c.minColours {
+				t.Errorf("%s: %d colours, want >= %d", c.path, len(cols), c.minColours)
+			}
+			// Count the cells whose corner (inside the gap) is not the background.
+			s := b.Dx() / c.across
+			bg := img.At(0, 0)
+			drawn := 0
+			for row := range c.across {
+				for col := range c.across {
+					if img.At(col*s+s/4, row*s+s/4) != bg {
+						drawn++
+					}
 				}
 			}
-		}
-		if drawn != c.cells {
-			t.Errorf("%s: %d cells drawn, want %d (the devices' description)", c.path, drawn, c.cells)
-		}
+			if drawn != c.cells {
+				t.Errorf("%s: %d cells drawn, want %d (the devices' description)", c.path, drawn, c.cells)
+			}
+		})
 	}
 
 	psf := decodePNG(t, base+"/snapshot/psf.png")

@@ -286,21 +286,23 @@ func TestControlAuthentication(t *testing.T) {
 	}
 	before := r.status(t)
 	for name, call := range calls {
-		for _, c := range []struct {
-			who    string
-			client stillskyv1.ControlServiceClient
-			code   codes.Code
-		}{
-			{"no credentials", anonymous, codes.Unauthenticated},
-			{"wrong token", wrong, codes.PermissionDenied},
-			{"certificate of another CA, not offered", stranger, codes.Unauthenticated},
-			{"certificate of another CA, presented", forced, codes.Unavailable},
-			{"no TLS", plain, codes.Unavailable},
-		} {
-			if err := call(c.client); status.Code(err) != c.code {
-				t.Errorf("%s with %s: %v, want %v", name, c.who, err, c.code)
+		t.Run(name, func(t *testing.T) {
+			for _, c := range []struct {
+				who    string
+				client stillskyv1.ControlServiceClient
+				code   codes.Code
+			}{
+				{"no credentials", anonymous, codes.Unauthenticated},
+				{"wrong token", wrong, codes.PermissionDenied},
+				{"certificate of another CA, not offered", stranger, codes.Unauthenticated},
+				{"certificate of another CA, presented", forced, codes.Unavailable},
+				{"no TLS", plain, codes.Unavailable},
+			} {
+				if err := call(c.client); status.Code(err) != c.code {
+					t.Errorf("%s with %s: %v, want %v", name, c.who, err, c.code)
+				}
 			}
-		}
+		})
 	}
 	r.sync(t)
 	after := r.status(t)
