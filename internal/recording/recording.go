@@ -6,7 +6,7 @@
 //
 //	primary    no data; keywords RECVERS (format version, 1), DATE (start, UTC),
 //	           the sensor (NSUBAP, SLOPECNT, SUBAPSZ, PUPILD, WFSWAVE, FRATE, LOCKSTEP,
-//	           DELAY, CAMERA), the mirror (ACTCNT, ACTACROS, ACTPITCH, STROKE,
+//	           DELAY, CAMERA, ZENITH, OBSTRUCT), the mirror (ACTCNT, ACTACROS, ACTPITCH, STROKE,
 //	           COUPLING), the loop (GAIN, LEAK, SCIWAVE, WINDOW) and the reconstructor's
 //	           identity (RECON, RECMETH, RECMODES, RECCOND, RECDATE, RECSHA)
 //	VALIDSUB   int32, the row-major indices of the valid subapertures in slope order
@@ -62,11 +62,12 @@ var reconstructorExts = map[string]bool{"SINGVAL": true, "MODES": true, "MODALIN
 var ErrNotRecording = errors.New("not a stillsky telemetry recording")
 
 // Writer writes one recording: Create writes everything before the frames, Append
-// adds frames, Close ends the table and appends any further extensions.
+// adds frames, EndFrames ends the table and Close appends any further extensions.
 type Writer struct {
 	w      io.Writer
 	tw     *fits.TableWriter
 	ns, na int
+	ended  bool
 }
 
 func columns(ns, na int) []fits.Column {
@@ -108,6 +109,8 @@ func Create(w io.Writer, h *stillskyv1.RecordingHeader, file []byte, frames int)
 	k.Set("LOCKSTEP", cam.GetLockstep(), "camera waits for each command")
 	k.Set("DELAY", cam.GetDelayFrames(), "[frames] loop delay the camera models")
 	k.Set("CAMERA", clip(printable(cam.GetDescription()), 68), "camera description")
+	k.Set("ZENITH", cam.GetZenithDeg(), "[deg] zenith angle of the line of sight")
+	k.Set("OBSTRUCT", cam.GetObstruction(), "central obstruction / pupil diameter")
 	k.Set("ACTCNT", na, "driven actuators")
 	k.Set("ACTACROS", mir.GetActuatorsAcross(), "actuators across the grid")
 	k.Set("ACTPITCH", mir.GetPitchM(), "[m] actuator pitch on the pupil")
@@ -203,10 +206,23 @@ func (w *Writer) Append(b *stillskyv1.RecordedFrames) error {
 	return nil
 }
 
-// Close ends the FRAMES table and appends the extensions given.
-func (w *Writer) Close(after ...*fits.HDU) error {
+// EndFrames ends the FRAMES table; the file is then a complete recording.
+func (w *Writer) EndFrames() error {
+	if w.ended {
+		return nil
+	}
+	w.ended = true
 	if err := w.tw.Close(); err != nil {
 		return fmt.Errorf("recording: %w", err)
+	}
+	return nil
+}
+
+// Close ends the FRAMES table, if EndFrames has not, and appends the extensions
+// given.
+func (w *Writer) Close(after ...*fits.HDU) error {
+	if err := w.EndFrames(); err != nil {
+		return err
 	}
 	if len(after) > 0 {
 		if err := fits.AppendExtensions(w.w, after...); err != nil {
@@ -305,6 +321,8 @@ func FromHDUs(hdus []*fits.HDU) (*Recording, error) {
 		Lockstep:         lockstep == true,
 		DelayFrames:      uint32(count("DELAY")),
 		Description:      desc,
+		ZenithDeg:        num("ZENITH"),
+		Obstruction:      num("OBSTRUCT"),
 	}
 	r.Mirror = &stillskyv1.MirrorServiceDescribeResponse{
 		ActuatorCount:   uint32(count("ACTCNT")),

@@ -7,7 +7,10 @@ import (
 	"fmt"
 	"io"
 
+	"stillsky/analysis"
+	"stillsky/cmd/stillsky/internal/report"
 	"stillsky/internal/atomicfile"
+	"stillsky/internal/fits"
 	"stillsky/internal/recording"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
@@ -37,6 +40,10 @@ type Recorded struct {
 	HasReconstructor  bool
 	SlopesPerFrame    int
 	ActuatorsPerFrame int
+	// Turbulence is estimated from the frames and stored in the file (nil, with
+	// TurbulenceNote saying why, when it could not be).
+	Turbulence     *analysis.TurbulenceEstimate
+	TurbulenceNote string
 }
 
 // Record records frames frames from the daemon into the recording file at path,
@@ -54,6 +61,12 @@ func Record(ctx context.Context, c stillskyv1.ControlServiceClient, frames uint6
 	}
 	fmt.Fprintf(out, "recorded %d frames (%d to %d, %.3f s; %d slopes, %d actuators a frame) to %s\n",
 		sum.Frames, sum.First, sum.Last, sum.Duration, sum.SlopesPerFrame, sum.ActuatorsPerFrame, path)
+	if te := sum.Turbulence; te != nil {
+		fmt.Fprintf(out, "turbulence (stored in the file): r0 %.3f m at 500 nm towards the zenith, L0 %.3g m, wind %.1f m/s, τ0 %.2f ms\n",
+			te.R0, te.L0, te.Wind, te.Tau0*1e3)
+	} else {
+		fmt.Fprintf(out, "turbulence not estimated: %s\n", sum.TurbulenceNote)
+	}
 	return nil
 }
 
@@ -117,5 +130,50 @@ func RecordTo(ctx context.Context, c stillskyv1.ControlServiceClient, frames uin
 	}
 	sum.Frames = rw.Frames()
 	sum.Duration = float64(t1-t0) * 1e-9
-	return sum, rw.Close()
+	if err := rw.EndFrames(); err != nil {
+		return sum, err
+	}
+	var after []*fits.HDU
+	if f, ok := w.(io.ReadWriteSeeker); ok {
+		st, err := study(f, sum.Frames*4*(sum.SlopesPerFrame+sum.ActuatorsPerFrame))
+		if err == nil {
+			err = st.TurbulenceErr
+		}
+		if err == nil {
+			sum.Turbulence = &st.Turbulence
+			after = append(after, st.TurbulenceHDU())
+		} else {
+			sum.TurbulenceNote = err.Error()
+		}
+	}
+	return sum, rw.Close(after...)
+}
+
+// maxStudyBytes bounds the recordings whose turbulence the record verb
+// estimates, as it reads the whole file back.
+const maxStudyBytes = 1 << 30
+
+// study reads the recording just written to f back and studies it; f is left
+// at its end.
+func study(f io.ReadWriteSeeker, size int) (*report.Study, error) {
+	if size > maxStudyBytes {
+		return nil, fmt.Errorf("a recording of %d MiB is too large to study here (stillsky report studies it)", size>>20)
+	}
+	end, err := f.Seek(0, io.SeekCurrent)
+	if err != nil {
+		return nil, err
+	}
+	defer f.Seek(end, io.SeekStart)
+	if _, err := f.Seek(0, io.SeekStart); err != nil {
+		return nil, err
+	}
+	hdus, err := fits.Read(io.LimitReader(f, end))
+	if err != nil {
+		return nil, err
+	}
+	rec, err := recording.FromHDUs(hdus)
+	if err != nil {
+		return nil, err
+	}
+	return report.NewStudy(rec)
 }

@@ -20,6 +20,7 @@ import (
 	grpcstatus "google.golang.org/grpc/status"
 
 	"stillsky/cmd/stillsky/internal/ctl"
+	"stillsky/daemon"
 	"stillsky/internal/recording"
 	"stillsky/internal/rpc"
 	"stillsky/internal/testtool"
@@ -359,7 +360,11 @@ func testReplay(t *testing.T, rec *recording.Recording, path string) {
 	}
 	stop()
 
-	lr, err := rig.Start(ctx, rig.Config{Devices: &rig.Devices{Camera: cam, Mirror: mir}})
+	// The replay's camera runs in this test's process: on a busy machine it may
+	// pause longer than the stale-camera watchdog allows, which would hold the
+	// loop (the interlock doing its job) and tell nothing about the replay.
+	lr, err := rig.Start(ctx, rig.Config{Devices: &rig.Devices{Camera: cam, Mirror: mir},
+		Loop: daemon.Config{Interlocks: daemon.Interlocks{StalePeriods: 1 << 20}}})
 	if err != nil {
 		t.Fatal(err)
 	}
