@@ -27,6 +27,7 @@ func runSim(args []string) error {
 	readout := fs.Duration("readout-time", 0, "spread the chunks of a chunked frame over this readout time (0: back to back)")
 	idle := fs.Bool("idle-priority", true, "free-running, simulate and image under SCHED_IDLE so the device streams and a loop on the same machine always come first")
 	cpus := fs.String("cpus", "", "pin the simulator's threads to these CPUs, e.g. 0 or 0-1 (\"\": no pinning)")
+	prerendered := fs.Int("prerendered", 0, "free-running, render this many frames (sensor noise behind a corrected wavefront) at start and stream them in turn while the sky is selected, so the camera costs nothing per frame; the calibration source is still simulated (0: simulate every frame)")
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
 	replay := fs.String("replay", "", "serve this telemetry recording (stillsky ctl record) as the camera, at its frame rate, looping, with a mirror that takes commands; no simulation, no metrics")
 	loop := fs.String("loop", "", "with --replay: refuse a recording whose geometry differs from the loop daemon's at this Control API address")
@@ -69,7 +70,7 @@ func runSim(args []string) error {
 	if err != nil {
 		return err
 	}
-	srv, err := bench.NewServer(s, bench.Options{Lockstep: *lockstep, DelayFrames: *delay, ReadoutTime: *readout, IdlePriority: *idle, Logger: log})
+	srv, err := bench.NewServer(s, bench.Options{Lockstep: *lockstep, DelayFrames: *delay, ReadoutTime: *readout, IdlePriority: *idle, Prerendered: *prerendered, Logger: log})
 	if err != nil {
 		return err
 	}

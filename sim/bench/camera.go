@@ -2,6 +2,7 @@ package bench
 
 import (
 	"context"
+	"fmt"
 	"runtime"
 	"sync/atomic"
 
@@ -83,6 +84,15 @@ func (b *Server) Describe(context.Context, *stillskyv1.CameraServiceDescribeRequ
 	}, nil
 }
 
+// description names the scenario, and the pre-rendered camera when there is one.
+func (b *Server) description() string {
+	d := b.scn.Name + ": " + b.scn.Description
+	if b.frames != nil {
+		d += fmt.Sprintf(" (pre-rendered camera: %d frames of sensor noise on the sky)", b.frames.Len())
+	}
+	return d
+}
+
 // StreamFrames streams the frames to one consumer at a time.
 func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.ServerStreamingServer[stillskyv1.StreamFramesResponse]) error {
 	rows, err := b.chunkRows(req.GetChunks())
@@ -151,6 +161,7 @@ func (b *Server) SetSource(_ context.Context, req *stillskyv1.SetSourceRequest) 
 	b.sys.SetTurbulence(sky)
 	b.sys.SetNoise(sky && b.scn.WFS.Noise)
 	b.mu.Unlock()
+	b.sky.Store(sky)
 	b.log.Info("source selected", "source", req.GetSource().String())
 	return &stillskyv1.SetSourceResponse{Source: req.GetSource()}, nil
 }

@@ -37,8 +37,13 @@ func (b *Server) Run(ctx context.Context) error {
 // the atmosphere's slopes, noise) is done one frame ahead; after tick k−1 only
 // the mirror's part is added, and the frame waits in the ring for the camera
 // stream, which sends it at tick k. The figures of merit come last.
+//
+// With pre-rendered frames and the sky selected, frame k is frame k of the
+// set instead, copied into the ring: no physics, no figures. The clock's
+// thread then stays at normal priority, since it takes almost no CPU time and
+// an idle-priority thread on a busy machine would publish its frames late.
 func (b *Server) freeRun(ctx context.Context) {
-	if b.opt.IdlePriority {
+	if b.opt.IdlePriority && b.frames == nil {
 		runtime.LockOSThread()
 		if err := idleThread(); err != nil {
 			b.log.Warn("simulation thread stays at normal priority", "err", err)
@@ -56,6 +61,17 @@ func (b *Server) freeRun(ctx context.Context) {
 		if late := monoclock.Now() - tick; late > 10*period {
 			// Far behind (an overloaded machine): resynchronise instead of bursting.
 			tick = monoclock.Now()
+		}
+		if b.frames != nil && b.sky.Load() {
+			if slot, publish := b.nextSlot(); publish {
+				copy(slot.slopes, b.frames.Frame(k))
+				slot.number, slot.due = k, tick
+				b.cam.ready <- b.cam.written
+				b.cam.written++
+			}
+			b.metrics.frames.Inc()
+			sleepUntil(tick)
+			continue
 		}
 		b.commandAt(prev, cmd)
 		slot, publish := b.nextSlot()

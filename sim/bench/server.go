@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"log/slog"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	stillskyv1 "stillsky/proto/stillsky/v1"
@@ -37,6 +38,14 @@ type Options struct {
 	// frame's delivery or a command's arrival. For a process of the bench's
 	// own, whose GOMAXPROCS should then be IdleExtraProcs above its default.
 	IdlePriority bool
+	// Prerendered, if above 0, renders this many frames at start (the
+	// sensor's noise behind a corrected wavefront, see FrameSet) and streams
+	// them in turn, free-running, while the sky is selected: the camera then
+	// costs a copy per frame, and the simulator's physics is off the CPU while
+	// a latency benchmark measures. The mirror takes and acknowledges commands
+	// as always; they shape no frame. On the calibration source the bench
+	// simulates every frame as usual, so a loop calibrates against it.
+	Prerendered int
 }
 
 // IdleExtraProcs is how many Go processors a bench process with IdlePriority
@@ -64,6 +73,8 @@ type Server struct {
 	psf     []float64 // the newest sampled science PSF
 
 	cam     frameRing     // frames between the bench's clock and the camera stream
+	frames  *FrameSet     // the pre-rendered frames, nil when simulating every one
+	sky     atomic.Bool   // the sky is selected (not the calibration source)
 	mir     commandLog    // commands as the mirror stream received them
 	sci     scienceCamera // the free-running science camera
 	stats   statsAccumulator
@@ -89,6 +100,9 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	}
 	if opt.Logger == nil {
 		opt.Logger = slog.New(slog.DiscardHandler)
+	}
+	if opt.Prerendered < 0 || opt.Prerendered > 0 && opt.Lockstep {
+		return nil, fmt.Errorf("bench: %d pre-rendered frames: want 0, or more for a free-running camera", opt.Prerendered)
 	}
 	sys, err := NewSystem(s)
 	if err != nil {
@@ -126,6 +140,10 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	}
 	for i := range b.cam.slots {
 		b.cam.slots[i].slopes = make([]float32, sys.NumSlopes())
+	}
+	b.sky.Store(true)
+	if opt.Prerendered > 0 {
+		b.frames = prerender(sys, opt.Prerendered)
 	}
 	return b, nil
 }

@@ -1,0 +1,60 @@
+package bench
+
+import "fmt"
+
+// FrameSet is a fixed set of slope frames that a camera streams in turn on
+// its clock, from the first to the last and over again: frame k of the
+// stream (k ≥ 1) carries frame (k−1) mod Len of the set. A camera that streams
+// a FrameSet costs a copy per frame and no simulation, so that a latency
+// measurement against it sees the loop and its transport, not the
+// simulator's physics. The bench's pre-rendered camera (Options.Prerendered)
+// fills one at start; frames recorded from a running loop make one just as
+// well (NewFrameSet with the recording's slopes).
+type FrameSet struct {
+	slopes []float32 // Len frames of n slopes each, frame after frame
+	n      int
+}
+
+// NewFrameSet makes a set of len(slopes)/perFrame frames of perFrame slopes
+// each, frame after frame in slopes (which the set keeps, not copies). It
+// refuses an empty set and a slope count that does not divide len(slopes).
+func NewFrameSet(slopes []float32, perFrame int) (*FrameSet, error) {
+	if perFrame < 1 || len(slopes) < perFrame || len(slopes)%perFrame != 0 {
+		return nil, fmt.Errorf("frame set: %d slopes do not make whole frames of %d", len(slopes), perFrame)
+	}
+	return &FrameSet{slopes: slopes, n: perFrame}, nil
+}
+
+// Len returns the number of frames in the set.
+func (s *FrameSet) Len() int { return len(s.slopes) / s.n }
+
+// NumSlopes returns the slopes per frame.
+func (s *FrameSet) NumSlopes() int { return s.n }
+
+// Frame returns the slopes that frame k (k ≥ 1) of a stream carries, a view
+// into the set: frame (k−1) mod Len.
+func (s *FrameSet) Frame(k uint64) []float32 {
+	i := int((k - 1) % uint64(s.Len()))
+	return s.slopes[i*s.n : (i+1)*s.n]
+}
+
+// prerender renders n frames of what the sensor of sys sees behind a
+// corrected wavefront: the calibration source (no turbulence, a flat mirror)
+// with the sensor's noise as the scenario sets it — the residual a closed loop
+// at its limit would leave. A closed loop fed them over and over integrates
+// zero-mean noise, which its leak keeps bounded; open-loop turbulence frames
+// would wind its integrator up to the stroke limits. sys is left on the sky,
+// with its own noise setting and a flat mirror.
+func prerender(sys *System, n int) *FrameSet {
+	ns := sys.NumSlopes()
+	slopes := make([]float32, n*ns)
+	sys.SetCommand(make([]float32, sys.NumActuators()))
+	sys.SetTurbulence(false)
+	sys.SetNoise(sys.Scenario().WFS.Noise)
+	for i := range n {
+		sys.Frame(slopes[i*ns : (i+1)*ns])
+	}
+	sys.SetTurbulence(true)
+	set, _ := NewFrameSet(slopes, ns) // n ≥ 1 whole frames by construction
+	return set
+}

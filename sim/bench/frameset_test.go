@@ -1,0 +1,146 @@
+package bench_test
+
+import (
+	"context"
+	"path/filepath"
+	"slices"
+	"testing"
+
+	"stillsky/internal/rpc"
+	stillskyv1 "stillsky/proto/stillsky/v1"
+	"stillsky/sim/bench"
+	"stillsky/sim/scenario"
+)
+
+func TestNewFrameSet(t *testing.T) {
+	set, err := bench.NewFrameSet([]float32{1, 2, 3, 4, 5, 6}, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if set.Len() != 3 || set.NumSlopes() != 2 {
+		t.Fatalf("%d frames of %d slopes, want 3 of 2", set.Len(), set.NumSlopes())
+	}
+	for k, want := range map[uint64][]float32{1: {1, 2}, 3: {5, 6}, 4: {1, 2}, 8: {3, 4}} {
+		if got := set.Frame(k); !slices.Equal(got, want) {
+			t.Errorf("frame %d carries %v, want %v", k, got, want)
+		}
+	}
+	for _, c := range []struct {
+		n, per int
+	}{{0, 2}, {5, 2}, {4, 0}, {1, 2}} {
+		if _, err := bench.NewFrameSet(make([]float32, c.n), c.per); err == nil {
+			t.Errorf("NewFrameSet(%d slopes, %d per frame) accepted", c.n, c.per)
+		}
+	}
+}
+
+// TestPrerenderedCamera streams a bench with a pre-rendered camera over real
+// gRPC: on the sky, frame k carries pre-rendered frame (k−1) mod 5 whatever the
+// mirror does (the set repeats with period 5, and a poke changes nothing); on
+// the calibration source (noise off, a flat mirror) the bench simulates again
+// and a frame is exactly zero; back on the sky the set returns.
+func TestPrerenderedCamera(t *testing.T) {
+	s, err := scenario.Load("small")
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := bench.NewServer(s, bench.Options{Prerendered: 5, Lockstep: true}); err == nil {
+		t.Error("a lockstep bench with a pre-rendered camera accepted")
+	}
+	b, err := bench.NewServer(s, bench.Options{Prerendered: 5})
+	if err != nil {
+		t.Fatal(err)
+	}
+	addr := "unix:" + filepath.Join(t.TempDir(), "dev.sock")
+	l, err := bench.Listen(bench.Addrs{Camera: addr})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- b.Serve(ctx, l) }()
+	defer func() { cancel(); <-done }()
+	conn, err := rpc.Dial(addr, rpc.DeviceDialOptions()...)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	camera := stillskyv1.NewCameraServiceClient(conn)
+	desc, err := stillskyv1.NewMirrorServiceClient(conn).Describe(ctx, &stillskyv1.MirrorServiceDescribeRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	frames, err := camera.StreamFrames(ctx, &stillskyv1.StreamFramesRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	mirror, err := stillskyv1.NewMirrorServiceClient(conn).StreamCommands(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	poke := make([]float32, desc.GetActuatorCount())
+	for i := range poke {
+		poke[i] = 1e-7
+	}
+	if err := mirror.Send(&stillskyv1.StreamCommandsRequest{Values: poke}); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := mirror.Recv(); err != nil {
+		t.Fatal(err)
+	}
+	seen := map[uint64][]float32{} // by (k−1) mod 5
+	nonzero := false
+	for range 40 {
+		f, err := frames.Recv()
+		if err != nil {
+			t.Fatal(err)
+		}
+		i := (f.GetFrameNumber() - 1) % 5
+		if prev, ok := seen[i]; ok && !slices.Equal(prev, f.GetSlopes()) {
+			t.Fatalf("frame %d differs from the pre-rendered frame %d seen before", f.GetFrameNumber(), i)
+		}
+		seen[i] = slices.Clone(f.GetSlopes())
+		nonzero = nonzero || slices.ContainsFunc(f.GetSlopes(), func(v float32) bool { return v != 0 })
+	}
+	if len(seen) != 5 || !nonzero {
+		t.Fatalf("%d distinct pre-rendered frames seen, noise %v: want all 5, with the scenario's noise", len(seen), nonzero)
+	}
+	source := func(src stillskyv1.Source) {
+		t.Helper()
+		if _, err := camera.SetSource(ctx, &stillskyv1.SetSourceRequest{Source: src}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := mirror.Send(&stillskyv1.StreamCommandsRequest{Values: make([]float32, len(poke))}); err != nil {
+		t.Fatal(err)
+	}
+	source(stillskyv1.Source_SOURCE_CALIBRATION)
+	zero := 0
+	for n := 0; n < 50 && zero < 3; n++ {
+		f, err := frames.Recv()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if slices.ContainsFunc(f.GetSlopes(), func(v float32) bool { return v != 0 }) {
+			zero = 0
+			continue
+		}
+		zero++
+	}
+	if zero < 3 {
+		t.Fatal("on the calibration source with a flat mirror, no three zero frames in a row: the bench does not simulate")
+	}
+	source(stillskyv1.Source_SOURCE_SKY)
+	for n := 0; ; n++ {
+		f, err := frames.Recv()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if slices.Equal(f.GetSlopes(), seen[(f.GetFrameNumber()-1)%5]) {
+			break
+		}
+		if n == 20 {
+			t.Fatal("back on the sky, the pre-rendered frames do not return")
+		}
+	}
+}
