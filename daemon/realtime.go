@@ -387,13 +387,14 @@ func (rt *realtime) acknowledged(num uint64, at int64) {
 		return
 	}
 	rt.acked[slot].Store(at)
-	e2e := at - rt.readout[slot].Load()
+	readout := rt.readout[slot].Load()
+	e2e := at - readout
 	if e2e < 0 {
 		return
 	}
 	rt.u.m.endToEnd.Observe(float64(e2e) * 1e-9)
 	rt.u.stats.e2e.add(e2e)
 	if rec := rt.u.recorder; rec != nil {
-		rec.endToEnd(e2e)
+		rec.endToEnd(readout, e2e)
 	}
 }

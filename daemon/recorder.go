@@ -10,6 +10,7 @@ type Recorder struct {
 	n, ne                 atomic.Int64
 	arrival, compute, rtc []atomic.Int64
 	transit, e2e          []atomic.Int64
+	e2eReadout            []atomic.Int64
 }
 
 // NewRecorder returns a recorder for up to capacity frames.
@@ -20,6 +21,8 @@ func NewRecorder(capacity int) *Recorder {
 		rtc:     make([]atomic.Int64, capacity),
 		transit: make([]atomic.Int64, capacity),
 		e2e:     make([]atomic.Int64, capacity),
+
+		e2eReadout: make([]atomic.Int64, capacity),
 	}
 }
 
@@ -41,20 +44,28 @@ func (r *Recorder) frame(arrival, transit, compute, rtc int64) {
 	}
 }
 
-func (r *Recorder) endToEnd(ns int64) {
+// endToEnd records the end-to-end latency ns of the command answering the
+// frame read out at readout: acknowledgements come in batches, well after
+// their frames, and a benchmark that measures in blocks attributes each to
+// its frame's block.
+func (r *Recorder) endToEnd(readout, ns int64) {
 	if !r.on.Load() {
 		return
 	}
 	if i := r.ne.Add(1) - 1; i < int64(len(r.e2e)) {
 		r.e2e[i].Store(ns)
+		r.e2eReadout[i].Store(readout)
 	}
 }
 
 // Samples are the recorded timings in nanoseconds: frame arrival times
 // (CLOCK_MONOTONIC), the camera-to-loop transit (readout end to arrival), compute
-// and rtc latency per frame, and end-to-end latency per acknowledged command.
+// and rtc latency per frame, and end-to-end latency per acknowledged command
+// with the readout time of the frame it answered (CLOCK_MONOTONIC; in the
+// order the acknowledgements came).
 type Samples struct {
 	Arrival, Transit, Compute, RTC, EndToEnd []int64
+	EndToEndReadout                          []int64
 }
 
 // Samples copies what has been recorded.
@@ -68,5 +79,6 @@ func (r *Recorder) Samples() Samples {
 		return out
 	}
 	n, ne := r.n.Load(), r.ne.Load()
-	return Samples{Arrival: load(r.arrival, n), Transit: load(r.transit, n), Compute: load(r.compute, n), RTC: load(r.rtc, n), EndToEnd: load(r.e2e, ne)}
+	return Samples{Arrival: load(r.arrival, n), Transit: load(r.transit, n), Compute: load(r.compute, n), RTC: load(r.rtc, n),
+		EndToEnd: load(r.e2e, ne), EndToEndReadout: load(r.e2eReadout, ne)}
 }

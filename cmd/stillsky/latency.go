@@ -4,6 +4,7 @@ import (
 	"os"
 	"runtime"
 	"strings"
+	"time"
 
 	"stillsky/cmd/stillsky/internal/latency"
 	"stillsky/controller/mvm"
@@ -43,6 +44,8 @@ func runLatency(args []string) error {
 	inProcess := fs.Bool("in-process", false, "run the simulated bench inside the loop's process instead of as its own")
 	logLevel := fs.String("log-level", "warn", "log level of bench and loop")
 	replay := fs.String("replay", "", "measure against this telemetry recording (stillsky ctl record) replayed as the camera, with its reconstructor, instead of a simulated scenario")
+	camera := fs.String("camera", "simulated", "what feeds the loop while it is measured: simulated (the bench simulates every frame) or prerendered (the bench renders a set of frames at start and streams them in turn, its physics off the CPU)")
+	block := fs.Duration("block", time.Second, "length of each block of the measurement: loop and transport floor alternate, each block's figures and cpu steal kept")
 	if err := parseFlags(fs, args); err != nil {
 		return err
 	}
@@ -73,6 +76,7 @@ func runLatency(args []string) error {
 		Realtime:  daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo},
 		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
 		Chunks: *chunks, ReadoutTime: *readout, Out: os.Stdout, Logger: log, Kernel: kernel, Replay: *replay,
+		Camera: *camera, Block: *block,
 	})
 	if rs != nil && *jsonOut != "" {
 		if werr := latency.WriteJSON(*jsonOut, rs); werr != nil {

@@ -26,6 +26,7 @@ type frameRing struct {
 	scratch frameSlot   // a frame nobody will read
 	ready   chan uint64 // sequence numbers of filled slots
 	busy    atomic.Bool // a consumer holds the stream
+	paused  atomic.Bool // acquisition stopped: frames are made but not sent
 	written uint64      // slots filled so far; the next goes to written%ringSize
 }
 
@@ -40,14 +41,15 @@ type frameSlot struct {
 func (b *Server) RegisterCamera(g *grpc.Server) { stillskyv1.RegisterCameraServiceServer(g, b) }
 
 // nextSlot returns the slot the next frame goes to and whether it will be
-// handed to the camera stream: not when no consumer is connected, nor when the
-// consumer has fallen a ring behind (the frame is lost and counted).
+// handed to the camera stream: not when no consumer is connected or
+// acquisition is paused, nor when the consumer has fallen a ring behind (the
+// frame is lost and counted).
 func (b *Server) nextSlot() (*frameSlot, bool) {
 	// Slots are filled in sequence, whatever frames were lost. Only the producer
 	// writes them, and len(b.cam.ready) only shrinks concurrently: a free place in the
 	// channel means the consumer holds at most the slot ringSize−1 writes back,
 	// never the next one.
-	if !b.cam.busy.Load() {
+	if !b.cam.busy.Load() || b.cam.paused.Load() {
 		return &b.cam.scratch, false
 	}
 	if len(b.cam.ready) == cap(b.cam.ready) {
@@ -164,6 +166,13 @@ func (b *Server) SetSource(_ context.Context, req *stillskyv1.SetSourceRequest) 
 	b.sky.Store(sky)
 	b.log.Info("source selected", "source", req.GetSource().String())
 	return &stillskyv1.SetSourceResponse{Source: req.GetSource()}, nil
+}
+
+// SetAcquisition pauses or resumes the frame stream: paused, the clock runs on
+// and frames are made as usual, but none goes to the stream.
+func (b *Server) SetAcquisition(_ context.Context, req *stillskyv1.SetAcquisitionRequest) (*stillskyv1.SetAcquisitionResponse, error) {
+	b.cam.paused.Store(req.GetPaused())
+	return &stillskyv1.SetAcquisitionResponse{Paused: req.GetPaused()}, nil
 }
 
 // chunkRows splits the slope vector into n groups of whole subaperture rows, as

@@ -5,6 +5,7 @@ import (
 	"path/filepath"
 	"slices"
 	"testing"
+	"time"
 
 	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
@@ -131,6 +132,33 @@ func TestPrerenderedCamera(t *testing.T) {
 		t.Fatal("on the calibration source with a flat mirror, no three zero frames in a row: the bench does not simulate")
 	}
 	source(stillskyv1.Source_SOURCE_SKY)
+	// Paused, the clock runs on: the first frame after resuming shows a gap.
+	f, err := frames.Recv()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := camera.SetAcquisition(ctx, &stillskyv1.SetAcquisitionRequest{Paused: true}); err != nil {
+		t.Fatal(err)
+	}
+	time.Sleep(50 * time.Millisecond) // 25 periods of the small scenario
+	if _, err := camera.SetAcquisition(ctx, &stillskyv1.SetAcquisitionRequest{Paused: false}); err != nil {
+		t.Fatal(err)
+	}
+	last := f.GetFrameNumber()
+	for range 8 { // the ring's frames made before the pause, then the gap
+		g, err := frames.Recv()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if g.GetFrameNumber() > last+10 {
+			last = 0
+			break
+		}
+		last = g.GetFrameNumber()
+	}
+	if last != 0 {
+		t.Fatal("no gap in the frame numbers after a 50 ms pause")
+	}
 	for n := 0; ; n++ {
 		f, err := frames.Recv()
 		if err != nil {

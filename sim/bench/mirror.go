@@ -133,13 +133,7 @@ func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.Strea
 	n := len(b.cmd)
 	stroke := float32(b.sys.Mirror().Stroke())
 	req := &stillskyv1.StreamCommandsRequest{}
-	// A batch collects in ack's earlier_* lists (protocol version 2): the
-	// newest command of a batch goes in the version 1 fields.
-	ack := &stillskyv1.StreamCommandsResponse{
-		EarlierFrameNumbers: make([]uint64, 0, maxAckBatch),
-		EarlierReceivedNs:   make([]int64, 0, maxAckBatch),
-		EarlierClipped:      make([]uint32, 0, maxAckBatch),
-	}
+	acks := newAckBatcher()
 	for {
 		if err := stream.RecvMsg(req); err != nil {
 			if errors.Is(err, context.Canceled) || status.Code(err) == codes.Canceled {
@@ -176,20 +170,47 @@ func (b *Server) streamCommands(stream grpc.BidiStreamingServer[stillskyv1.Strea
 		default:
 		}
 		b.metrics.commands.Inc()
-		if batch := min(req.GetAckBatch(), maxAckBatch); len(ack.EarlierFrameNumbers)+1 < int(batch) {
-			ack.EarlierFrameNumbers = append(ack.EarlierFrameNumbers, req.GetFrameNumber())
-			ack.EarlierReceivedNs = append(ack.EarlierReceivedNs, received)
-			ack.EarlierClipped = append(ack.EarlierClipped, clipped)
-			continue
-		}
-		ack.FrameNumber, ack.ReceivedNs, ack.Clipped = req.GetFrameNumber(), received, clipped
-		if err := stream.Send(ack); err != nil {
+		if err := acks.add(stream, req, received, clipped); err != nil {
 			return err
 		}
-		ack.EarlierFrameNumbers = ack.EarlierFrameNumbers[:0]
-		ack.EarlierReceivedNs = ack.EarlierReceivedNs[:0]
-		ack.EarlierClipped = ack.EarlierClipped[:0]
 	}
+}
+
+// ackBatcher acknowledges the commands of one mirror stream, each at once or
+// in the batches the client asks for (ack_batch, protocol version 2): a batch
+// collects in the response's earlier_* lists, and its newest command goes in
+// the version 1 fields.
+type ackBatcher struct {
+	ack *stillskyv1.StreamCommandsResponse
+}
+
+func newAckBatcher() ackBatcher {
+	return ackBatcher{ack: &stillskyv1.StreamCommandsResponse{
+		EarlierFrameNumbers: make([]uint64, 0, maxAckBatch),
+		EarlierReceivedNs:   make([]int64, 0, maxAckBatch),
+		EarlierClipped:      make([]uint32, 0, maxAckBatch),
+	}}
+}
+
+// add acknowledges command req, received at received (CLOCK_MONOTONIC ns)
+// with clipped values beyond the stroke: it joins the batch, which is sent
+// once it holds the req.ack_batch commands asked for.
+func (a ackBatcher) add(stream grpc.ServerStream, req *stillskyv1.StreamCommandsRequest, received int64, clipped uint32) error {
+	ack := a.ack
+	if batch := min(req.GetAckBatch(), maxAckBatch); len(ack.EarlierFrameNumbers)+1 < int(batch) {
+		ack.EarlierFrameNumbers = append(ack.EarlierFrameNumbers, req.GetFrameNumber())
+		ack.EarlierReceivedNs = append(ack.EarlierReceivedNs, received)
+		ack.EarlierClipped = append(ack.EarlierClipped, clipped)
+		return nil
+	}
+	ack.FrameNumber, ack.ReceivedNs, ack.Clipped = req.GetFrameNumber(), received, clipped
+	if err := stream.SendMsg(ack); err != nil {
+		return err
+	}
+	ack.EarlierFrameNumbers = ack.EarlierFrameNumbers[:0]
+	ack.EarlierReceivedNs = ack.EarlierReceivedNs[:0]
+	ack.EarlierClipped = ack.EarlierClipped[:0]
+	return nil
 }
 
 // checkCommand refuses a command of the wrong length or with a non-finite value

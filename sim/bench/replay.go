@@ -21,7 +21,7 @@ import (
 
 // Replay serves a telemetry recording as devices: a free-running Camera that
 // sends the recorded slopes at the recorded frame rate, from the first frame to
-// the last and over again, and a Mirror that checks, acknowledges and counts the
+// the last and over again (a FrameSet, as the bench's pre-rendered camera), and a Mirror that checks, acknowledges and counts the
 // commands it gets (they change nothing: the slopes are the recording's). It
 // simulates nothing, so a latency benchmark against it measures the loop and the
 // transport with almost no simulator beside them.
@@ -29,11 +29,13 @@ type Replay struct {
 	stillskyv1.UnimplementedCameraServiceServer
 
 	rec    *recording.Recording
+	frames *FrameSet // the recorded slopes
 	name   string
 	log    *slog.Logger
 	period int64 // ns
 
 	camBusy, mirBusy atomic.Bool
+	paused           atomic.Bool // acquisition stopped
 	commands         atomic.Uint64
 }
 
@@ -46,7 +48,11 @@ func NewReplay(rec *recording.Recording, name string, log *slog.Logger) (*Replay
 	if log == nil {
 		log = slog.New(slog.DiscardHandler)
 	}
-	return &Replay{rec: rec, name: name, log: log, period: int64(1e9 / rec.Camera.GetFrameRateHz())}, nil
+	frames, err := NewFrameSet(rec.Slopes, int(rec.Camera.GetSlopeCount()))
+	if err != nil {
+		return nil, fmt.Errorf("replay %s: %w", name, err)
+	}
+	return &Replay{rec: rec, frames: frames, name: name, log: log, period: int64(1e9 / rec.Camera.GetFrameRateHz())}, nil
 }
 
 // Commands returns the number of commands the mirror has accepted.
@@ -67,6 +73,13 @@ func (r *Replay) SetSource(context.Context, *stillskyv1.SetSourceRequest) (*stil
 	return nil, status.Error(codes.Unimplemented, "replay camera: no calibration source")
 }
 
+// SetAcquisition pauses or resumes the frame stream: paused, the clock and
+// the frame numbers run on, and no frame is sent.
+func (r *Replay) SetAcquisition(_ context.Context, req *stillskyv1.SetAcquisitionRequest) (*stillskyv1.SetAcquisitionResponse, error) {
+	r.paused.Store(req.GetPaused())
+	return &stillskyv1.SetAcquisitionResponse{Paused: req.GetPaused()}, nil
+}
+
 // StreamFrames sends the recorded frames, whole, one per period of the recorded
 // frame rate, stamped with the tick they are read out at, looping at the end.
 func (r *Replay) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.ServerStreamingServer[stillskyv1.StreamFramesResponse]) error {
@@ -77,7 +90,6 @@ func (r *Replay) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 		return status.Error(codes.ResourceExhausted, "camera: another client holds the frame stream")
 	}
 	defer r.camBusy.Store(false)
-	ns := int(r.rec.Camera.GetSlopeCount())
 	msg := &stillskyv1.StreamFramesResponse{ChunkCount: 1}
 	ctx := stream.Context()
 	tick := monoclock.Now()
@@ -88,9 +100,11 @@ func (r *Replay) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 			tick = monoclock.Now()
 		}
 		waitUntil(tick)
-		i := int((k - 1) % uint64(r.rec.Frames))
+		if r.paused.Load() {
+			continue
+		}
 		msg.FrameNumber, msg.ReadoutEndNs = k, tick
-		msg.Slopes = r.rec.Slopes[i*ns : (i+1)*ns]
+		msg.Slopes = r.frames.Frame(k)
 		if err := stream.Send(msg); err != nil {
 			return err
 		}
@@ -106,12 +120,16 @@ type replayMirror struct {
 	r *Replay
 }
 
-// Describe returns the recorded mirror's layout.
+// Describe returns the recorded mirror's layout, and the protocol this
+// mirror speaks (whichever the recorded one spoke).
 func (m replayMirror) Describe(context.Context, *stillskyv1.MirrorServiceDescribeRequest) (*stillskyv1.MirrorServiceDescribeResponse, error) {
-	return m.r.rec.Mirror, nil
+	d := proto.Clone(m.r.rec.Mirror).(*stillskyv1.MirrorServiceDescribeResponse)
+	d.ProtocolVersion = mirrorProtocol
+	return d, nil
 }
 
-// StreamCommands checks and acknowledges each command.
+// StreamCommands checks and acknowledges each command, one by one or in the
+// batches the client asks for, as the bench's mirror does.
 func (m replayMirror) StreamCommands(stream grpc.BidiStreamingServer[stillskyv1.StreamCommandsRequest, stillskyv1.StreamCommandsResponse]) error {
 	r := m.r
 	if !r.mirBusy.CompareAndSwap(false, true) {
@@ -120,7 +138,7 @@ func (m replayMirror) StreamCommands(stream grpc.BidiStreamingServer[stillskyv1.
 	defer r.mirBusy.Store(false)
 	n, stroke := int(r.rec.Mirror.GetActuatorCount()), float32(r.rec.Mirror.GetStrokeM())
 	req := &stillskyv1.StreamCommandsRequest{}
-	ack := &stillskyv1.StreamCommandsResponse{}
+	acks := newAckBatcher()
 	for {
 		if err := stream.RecvMsg(req); err != nil {
 			if errors.Is(err, context.Canceled) || status.Code(err) == codes.Canceled {
@@ -134,8 +152,7 @@ func (m replayMirror) StreamCommands(stream grpc.BidiStreamingServer[stillskyv1.
 			return err
 		}
 		r.commands.Add(1)
-		ack.FrameNumber, ack.ReceivedNs, ack.Clipped = req.GetFrameNumber(), received, clipped
-		if err := stream.Send(ack); err != nil {
+		if err := acks.add(stream, req, received, clipped); err != nil {
 			return err
 		}
 	}

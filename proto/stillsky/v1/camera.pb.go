@@ -73,6 +73,97 @@ func (Source) EnumDescriptor() ([]byte, []int) {
 	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{0}
 }
 
+// SetAcquisitionRequest pauses or resumes the frame stream.
+type SetAcquisitionRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// True stops sending frames; false sends them again.
+	Paused        bool `protobuf:"varint,1,opt,name=paused,proto3" json:"paused,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *SetAcquisitionRequest) Reset() {
+	*x = SetAcquisitionRequest{}
+	mi := &file_stillsky_v1_camera_proto_msgTypes[0]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *SetAcquisitionRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*SetAcquisitionRequest) ProtoMessage() {}
+
+func (x *SetAcquisitionRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_camera_proto_msgTypes[0]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use SetAcquisitionRequest.ProtoReflect.Descriptor instead.
+func (*SetAcquisitionRequest) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{0}
+}
+
+func (x *SetAcquisitionRequest) GetPaused() bool {
+	if x != nil {
+		return x.Paused
+	}
+	return false
+}
+
+// SetAcquisitionResponse confirms the acquisition state.
+type SetAcquisitionResponse struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	Paused        bool                   `protobuf:"varint,1,opt,name=paused,proto3" json:"paused,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *SetAcquisitionResponse) Reset() {
+	*x = SetAcquisitionResponse{}
+	mi := &file_stillsky_v1_camera_proto_msgTypes[1]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *SetAcquisitionResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*SetAcquisitionResponse) ProtoMessage() {}
+
+func (x *SetAcquisitionResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_camera_proto_msgTypes[1]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use SetAcquisitionResponse.ProtoReflect.Descriptor instead.
+func (*SetAcquisitionResponse) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{1}
+}
+
+func (x *SetAcquisitionResponse) GetPaused() bool {
+	if x != nil {
+		return x.Paused
+	}
+	return false
+}
+
 // SetSourceRequest selects the source.
 type SetSourceRequest struct {
 	state         protoimpl.MessageState `protogen:"open.v1"`
@@ -83,7 +174,7 @@ type SetSourceRequest struct {
 
 func (x *SetSourceRequest) Reset() {
 	*x = SetSourceRequest{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[0]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[2]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -95,7 +186,7 @@ func (x *SetSourceRequest) String() string {
 func (*SetSourceRequest) ProtoMessage() {}
 
 func (x *SetSourceRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[0]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[2]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -108,7 +199,7 @@ func (x *SetSourceRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetSourceRequest.ProtoReflect.Descriptor instead.
 func (*SetSourceRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{0}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{2}
 }
 
 func (x *SetSourceRequest) GetSource() Source {
@@ -128,7 +219,7 @@ type SetSourceResponse struct {
 
 func (x *SetSourceResponse) Reset() {
 	*x = SetSourceResponse{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[1]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[3]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -140,7 +231,7 @@ func (x *SetSourceResponse) String() string {
 func (*SetSourceResponse) ProtoMessage() {}
 
 func (x *SetSourceResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[1]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[3]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -153,7 +244,7 @@ func (x *SetSourceResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetSourceResponse.ProtoReflect.Descriptor instead.
 func (*SetSourceResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{1}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{3}
 }
 
 func (x *SetSourceResponse) GetSource() Source {
@@ -172,7 +263,7 @@ type CameraServiceDescribeRequest struct {
 
 func (x *CameraServiceDescribeRequest) Reset() {
 	*x = CameraServiceDescribeRequest{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[2]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[4]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -184,7 +275,7 @@ func (x *CameraServiceDescribeRequest) String() string {
 func (*CameraServiceDescribeRequest) ProtoMessage() {}
 
 func (x *CameraServiceDescribeRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[2]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[4]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -197,7 +288,7 @@ func (x *CameraServiceDescribeRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CameraServiceDescribeRequest.ProtoReflect.Descriptor instead.
 func (*CameraServiceDescribeRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{2}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{4}
 }
 
 // CameraServiceDescribeResponse describes the sensor.
@@ -238,7 +329,7 @@ type CameraServiceDescribeResponse struct {
 
 func (x *CameraServiceDescribeResponse) Reset() {
 	*x = CameraServiceDescribeResponse{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[3]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[5]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -250,7 +341,7 @@ func (x *CameraServiceDescribeResponse) String() string {
 func (*CameraServiceDescribeResponse) ProtoMessage() {}
 
 func (x *CameraServiceDescribeResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[3]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[5]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -263,7 +354,7 @@ func (x *CameraServiceDescribeResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CameraServiceDescribeResponse.ProtoReflect.Descriptor instead.
 func (*CameraServiceDescribeResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{3}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{5}
 }
 
 func (x *CameraServiceDescribeResponse) GetSubapertures() uint32 {
@@ -369,7 +460,7 @@ type StreamFramesRequest struct {
 
 func (x *StreamFramesRequest) Reset() {
 	*x = StreamFramesRequest{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[4]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -381,7 +472,7 @@ func (x *StreamFramesRequest) String() string {
 func (*StreamFramesRequest) ProtoMessage() {}
 
 func (x *StreamFramesRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[4]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -394,7 +485,7 @@ func (x *StreamFramesRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamFramesRequest.ProtoReflect.Descriptor instead.
 func (*StreamFramesRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{4}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{6}
 }
 
 func (x *StreamFramesRequest) GetChunks() uint32 {
@@ -425,7 +516,7 @@ type StreamFramesResponse struct {
 
 func (x *StreamFramesResponse) Reset() {
 	*x = StreamFramesResponse{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[5]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -437,7 +528,7 @@ func (x *StreamFramesResponse) String() string {
 func (*StreamFramesResponse) ProtoMessage() {}
 
 func (x *StreamFramesResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[5]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -450,7 +541,7 @@ func (x *StreamFramesResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamFramesResponse.ProtoReflect.Descriptor instead.
 func (*StreamFramesResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{5}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{7}
 }
 
 func (x *StreamFramesResponse) GetFrameNumber() uint64 {
@@ -499,7 +590,11 @@ var File_stillsky_v1_camera_proto protoreflect.FileDescriptor
 
 const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\n" +
-	"\x18stillsky/v1/camera.proto\x12\vstillsky.v1\"?\n" +
+	"\x18stillsky/v1/camera.proto\x12\vstillsky.v1\"/\n" +
+	"\x15SetAcquisitionRequest\x12\x16\n" +
+	"\x06paused\x18\x01 \x01(\bR\x06paused\"0\n" +
+	"\x16SetAcquisitionResponse\x12\x16\n" +
+	"\x06paused\x18\x01 \x01(\bR\x06paused\"?\n" +
 	"\x10SetSourceRequest\x12+\n" +
 	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"@\n" +
 	"\x11SetSourceResponse\x12+\n" +
@@ -538,11 +633,12 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\x12SOURCE_UNSPECIFIED\x10\x00\x12\x0e\n" +
 	"\n" +
 	"SOURCE_SKY\x10\x01\x12\x16\n" +
-	"\x12SOURCE_CALIBRATION\x10\x022\x95\x02\n" +
+	"\x12SOURCE_CALIBRATION\x10\x022\xf0\x02\n" +
 	"\rCameraService\x12a\n" +
 	"\bDescribe\x12).stillsky.v1.CameraServiceDescribeRequest\x1a*.stillsky.v1.CameraServiceDescribeResponse\x12U\n" +
 	"\fStreamFrames\x12 .stillsky.v1.StreamFramesRequest\x1a!.stillsky.v1.StreamFramesResponse0\x01\x12J\n" +
-	"\tSetSource\x12\x1d.stillsky.v1.SetSourceRequest\x1a\x1e.stillsky.v1.SetSourceResponseB'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
+	"\tSetSource\x12\x1d.stillsky.v1.SetSourceRequest\x1a\x1e.stillsky.v1.SetSourceResponse\x12Y\n" +
+	"\x0eSetAcquisition\x12\".stillsky.v1.SetAcquisitionRequest\x1a#.stillsky.v1.SetAcquisitionResponseB'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
 
 var (
 	file_stillsky_v1_camera_proto_rawDescOnce sync.Once
@@ -557,27 +653,31 @@ func file_stillsky_v1_camera_proto_rawDescGZIP() []byte {
 }
 
 var file_stillsky_v1_camera_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
-var file_stillsky_v1_camera_proto_msgTypes = make([]protoimpl.MessageInfo, 6)
+var file_stillsky_v1_camera_proto_msgTypes = make([]protoimpl.MessageInfo, 8)
 var file_stillsky_v1_camera_proto_goTypes = []any{
 	(Source)(0),                           // 0: stillsky.v1.Source
-	(*SetSourceRequest)(nil),              // 1: stillsky.v1.SetSourceRequest
-	(*SetSourceResponse)(nil),             // 2: stillsky.v1.SetSourceResponse
-	(*CameraServiceDescribeRequest)(nil),  // 3: stillsky.v1.CameraServiceDescribeRequest
-	(*CameraServiceDescribeResponse)(nil), // 4: stillsky.v1.CameraServiceDescribeResponse
-	(*StreamFramesRequest)(nil),           // 5: stillsky.v1.StreamFramesRequest
-	(*StreamFramesResponse)(nil),          // 6: stillsky.v1.StreamFramesResponse
+	(*SetAcquisitionRequest)(nil),         // 1: stillsky.v1.SetAcquisitionRequest
+	(*SetAcquisitionResponse)(nil),        // 2: stillsky.v1.SetAcquisitionResponse
+	(*SetSourceRequest)(nil),              // 3: stillsky.v1.SetSourceRequest
+	(*SetSourceResponse)(nil),             // 4: stillsky.v1.SetSourceResponse
+	(*CameraServiceDescribeRequest)(nil),  // 5: stillsky.v1.CameraServiceDescribeRequest
+	(*CameraServiceDescribeResponse)(nil), // 6: stillsky.v1.CameraServiceDescribeResponse
+	(*StreamFramesRequest)(nil),           // 7: stillsky.v1.StreamFramesRequest
+	(*StreamFramesResponse)(nil),          // 8: stillsky.v1.StreamFramesResponse
 }
 var file_stillsky_v1_camera_proto_depIdxs = []int32{
 	0, // 0: stillsky.v1.SetSourceRequest.source:type_name -> stillsky.v1.Source
 	0, // 1: stillsky.v1.SetSourceResponse.source:type_name -> stillsky.v1.Source
-	3, // 2: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
-	5, // 3: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
-	1, // 4: stillsky.v1.CameraService.SetSource:input_type -> stillsky.v1.SetSourceRequest
-	4, // 5: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
-	6, // 6: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
-	2, // 7: stillsky.v1.CameraService.SetSource:output_type -> stillsky.v1.SetSourceResponse
-	5, // [5:8] is the sub-list for method output_type
-	2, // [2:5] is the sub-list for method input_type
+	5, // 2: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
+	7, // 3: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
+	3, // 4: stillsky.v1.CameraService.SetSource:input_type -> stillsky.v1.SetSourceRequest
+	1, // 5: stillsky.v1.CameraService.SetAcquisition:input_type -> stillsky.v1.SetAcquisitionRequest
+	6, // 6: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
+	8, // 7: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
+	4, // 8: stillsky.v1.CameraService.SetSource:output_type -> stillsky.v1.SetSourceResponse
+	2, // 9: stillsky.v1.CameraService.SetAcquisition:output_type -> stillsky.v1.SetAcquisitionResponse
+	6, // [6:10] is the sub-list for method output_type
+	2, // [2:6] is the sub-list for method input_type
 	2, // [2:2] is the sub-list for extension type_name
 	2, // [2:2] is the sub-list for extension extendee
 	0, // [0:2] is the sub-list for field type_name
@@ -594,7 +694,7 @@ func file_stillsky_v1_camera_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_camera_proto_rawDesc), len(file_stillsky_v1_camera_proto_rawDesc)),
 			NumEnums:      1,
-			NumMessages:   6,
+			NumMessages:   8,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

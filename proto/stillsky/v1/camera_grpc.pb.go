@@ -19,9 +19,10 @@ import (
 const _ = grpc.SupportPackageIsVersion9
 
 const (
-	CameraService_Describe_FullMethodName     = "/stillsky.v1.CameraService/Describe"
-	CameraService_StreamFrames_FullMethodName = "/stillsky.v1.CameraService/StreamFrames"
-	CameraService_SetSource_FullMethodName    = "/stillsky.v1.CameraService/SetSource"
+	CameraService_Describe_FullMethodName       = "/stillsky.v1.CameraService/Describe"
+	CameraService_StreamFrames_FullMethodName   = "/stillsky.v1.CameraService/StreamFrames"
+	CameraService_SetSource_FullMethodName      = "/stillsky.v1.CameraService/SetSource"
+	CameraService_SetAcquisition_FullMethodName = "/stillsky.v1.CameraService/SetAcquisition"
 )
 
 // CameraServiceClient is the client API for CameraService service.
@@ -47,6 +48,14 @@ type CameraServiceClient interface {
 	// Errors: INVALID_ARGUMENT for SOURCE_UNSPECIFIED; UNIMPLEMENTED for a device that
 	// has no calibration source (callers then calibrate on the sky).
 	SetSource(ctx context.Context, in *SetSourceRequest, opts ...grpc.CallOption) (*SetSourceResponse, error)
+	// SetAcquisition pauses or resumes the frame stream, as a detector's
+	// acquisition is stopped and started. Paused, the camera's clock and its frame
+	// numbers run on but no frame is sent, so a consumer sees a gap in the numbers
+	// when acquisition resumes. A latency benchmark pauses the camera to measure
+	// the bare transport between the same two processes in blocks between the
+	// loop's.
+	// Errors: UNIMPLEMENTED for a device that cannot pause.
+	SetAcquisition(ctx context.Context, in *SetAcquisitionRequest, opts ...grpc.CallOption) (*SetAcquisitionResponse, error)
 }
 
 type cameraServiceClient struct {
@@ -96,6 +105,16 @@ func (c *cameraServiceClient) SetSource(ctx context.Context, in *SetSourceReques
 	return out, nil
 }
 
+func (c *cameraServiceClient) SetAcquisition(ctx context.Context, in *SetAcquisitionRequest, opts ...grpc.CallOption) (*SetAcquisitionResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(SetAcquisitionResponse)
+	err := c.cc.Invoke(ctx, CameraService_SetAcquisition_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // CameraServiceServer is the server API for CameraService service.
 // All implementations must embed UnimplementedCameraServiceServer
 // for forward compatibility.
@@ -119,6 +138,14 @@ type CameraServiceServer interface {
 	// Errors: INVALID_ARGUMENT for SOURCE_UNSPECIFIED; UNIMPLEMENTED for a device that
 	// has no calibration source (callers then calibrate on the sky).
 	SetSource(context.Context, *SetSourceRequest) (*SetSourceResponse, error)
+	// SetAcquisition pauses or resumes the frame stream, as a detector's
+	// acquisition is stopped and started. Paused, the camera's clock and its frame
+	// numbers run on but no frame is sent, so a consumer sees a gap in the numbers
+	// when acquisition resumes. A latency benchmark pauses the camera to measure
+	// the bare transport between the same two processes in blocks between the
+	// loop's.
+	// Errors: UNIMPLEMENTED for a device that cannot pause.
+	SetAcquisition(context.Context, *SetAcquisitionRequest) (*SetAcquisitionResponse, error)
 	mustEmbedUnimplementedCameraServiceServer()
 }
 
@@ -137,6 +164,9 @@ func (UnimplementedCameraServiceServer) StreamFrames(*StreamFramesRequest, grpc.
 }
 func (UnimplementedCameraServiceServer) SetSource(context.Context, *SetSourceRequest) (*SetSourceResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method SetSource not implemented")
+}
+func (UnimplementedCameraServiceServer) SetAcquisition(context.Context, *SetAcquisitionRequest) (*SetAcquisitionResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method SetAcquisition not implemented")
 }
 func (UnimplementedCameraServiceServer) mustEmbedUnimplementedCameraServiceServer() {}
 func (UnimplementedCameraServiceServer) testEmbeddedByValue()                       {}
@@ -206,6 +236,24 @@ func _CameraService_SetSource_Handler(srv interface{}, ctx context.Context, dec 
 	return interceptor(ctx, in, info, handler)
 }
 
+func _CameraService_SetAcquisition_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(SetAcquisitionRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(CameraServiceServer).SetAcquisition(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: CameraService_SetAcquisition_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(CameraServiceServer).SetAcquisition(ctx, req.(*SetAcquisitionRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // CameraService_ServiceDesc is the grpc.ServiceDesc for CameraService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -220,6 +268,10 @@ var CameraService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "SetSource",
 			Handler:    _CameraService_SetSource_Handler,
+		},
+		{
+			MethodName: "SetAcquisition",
+			Handler:    _CameraService_SetAcquisition_Handler,
 		},
 	},
 	Streams: []grpc.StreamDesc{

@@ -43,6 +43,18 @@ class CameraServiceDescribeResponse(_message.Message):
     zenith_deg: float
     def __init__(self, subapertures: _Optional[int] = ..., valid_subapertures: _Optional[_Iterable[int]] = ..., slope_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., subaperture_size_m: _Optional[float] = ..., pupil_diameter_m: _Optional[float] = ..., wavelength_m: _Optional[float] = ..., slope_unit: _Optional[str] = ..., lockstep: bool = ..., delay_frames: _Optional[int] = ..., description: _Optional[str] = ..., zenith_deg: _Optional[float] = ..., obstruction: _Optional[float] = ...) -> None: ...
 
+class SetAcquisitionRequest(_message.Message):
+    __slots__ = ["paused"]
+    PAUSED_FIELD_NUMBER: _ClassVar[int]
+    paused: bool
+    def __init__(self, paused: bool = ...) -> None: ...
+
+class SetAcquisitionResponse(_message.Message):
+    __slots__ = ["paused"]
+    PAUSED_FIELD_NUMBER: _ClassVar[int]
+    paused: bool
+    def __init__(self, paused: bool = ...) -> None: ...
+
 class SetSourceRequest(_message.Message):
     __slots__ = ["source"]
     SOURCE_FIELD_NUMBER: _ClassVar[int]

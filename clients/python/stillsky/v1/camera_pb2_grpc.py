@@ -32,6 +32,11 @@ class CameraServiceStub(object):
                 request_serializer=stillsky_dot_v1_dot_camera__pb2.SetSourceRequest.SerializeToString,
                 response_deserializer=stillsky_dot_v1_dot_camera__pb2.SetSourceResponse.FromString,
                 )
+        self.SetAcquisition = channel.unary_unary(
+                '/stillsky.v1.CameraService/SetAcquisition',
+                request_serializer=stillsky_dot_v1_dot_camera__pb2.SetAcquisitionRequest.SerializeToString,
+                response_deserializer=stillsky_dot_v1_dot_camera__pb2.SetAcquisitionResponse.FromString,
+                )
 
 
 class CameraServiceServicer(object):
@@ -70,6 +75,19 @@ class CameraServiceServicer(object):
         context.set_details('Method not implemented!')
         raise NotImplementedError('Method not implemented!')
 
+    def SetAcquisition(self, request, context):
+        """SetAcquisition pauses or resumes the frame stream, as a detector's
+        acquisition is stopped and started. Paused, the camera's clock and its frame
+        numbers run on but no frame is sent, so a consumer sees a gap in the numbers
+        when acquisition resumes. A latency benchmark pauses the camera to measure
+        the bare transport between the same two processes in blocks between the
+        loop's.
+        Errors: UNIMPLEMENTED for a device that cannot pause.
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
 
 def add_CameraServiceServicer_to_server(servicer, server):
     rpc_method_handlers = {
@@ -87,6 +105,11 @@ def add_CameraServiceServicer_to_server(servicer, server):
                     servicer.SetSource,
                     request_deserializer=stillsky_dot_v1_dot_camera__pb2.SetSourceRequest.FromString,
                     response_serializer=stillsky_dot_v1_dot_camera__pb2.SetSourceResponse.SerializeToString,
+            ),
+            'SetAcquisition': grpc.unary_unary_rpc_method_handler(
+                    servicer.SetAcquisition,
+                    request_deserializer=stillsky_dot_v1_dot_camera__pb2.SetAcquisitionRequest.FromString,
+                    response_serializer=stillsky_dot_v1_dot_camera__pb2.SetAcquisitionResponse.SerializeToString,
             ),
     }
     generic_handler = grpc.method_handlers_generic_handler(
@@ -149,5 +172,22 @@ class CameraService(object):
         return grpc.experimental.unary_unary(request, target, '/stillsky.v1.CameraService/SetSource',
             stillsky_dot_v1_dot_camera__pb2.SetSourceRequest.SerializeToString,
             stillsky_dot_v1_dot_camera__pb2.SetSourceResponse.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
+
+    @staticmethod
+    def SetAcquisition(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_unary(request, target, '/stillsky.v1.CameraService/SetAcquisition',
+            stillsky_dot_v1_dot_camera__pb2.SetAcquisitionRequest.SerializeToString,
+            stillsky_dot_v1_dot_camera__pb2.SetAcquisitionResponse.FromString,
             options, channel_credentials,
             insecure, call_credentials, compression, wait_for_ready, timeout, metadata)

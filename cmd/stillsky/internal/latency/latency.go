@@ -2,9 +2,11 @@
 // scenario and transport (TCP loopback, unix socket) it runs the bench
 // free-running and the loop daemon closed, records every frame's timings, and in
 // the same run measures the transport floor with a bare gRPC ping-pong of the same
-// payload sizes against the bench's probe service, once the loop has stopped and
-// while the bench still runs: between the same two processes, over the same kind
-// of connection, with the simulator as busy as in the closed loop.
+// payload sizes against the bench's probe service, in blocks alternating with
+// the loop's (the camera paused meanwhile): between the same two processes,
+// over the same kind of connection, under the same load and steal. Each
+// block's figures and steal are kept, and the loop is compared with its floor
+// over the pairs of blocks of low steal.
 package latency
 
 import (
@@ -26,10 +28,7 @@ import (
 	"stillsky/controller/mvm"
 	"stillsky/daemon"
 	"stillsky/internal/atomicfile"
-	"stillsky/internal/cpustat"
-	"stillsky/internal/monoclock"
 	"stillsky/internal/recording"
-	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/rig"
 	"stillsky/sim/bench"
@@ -72,7 +71,20 @@ type Config struct {
 	// measured with almost no simulator beside them. It excludes Scenarios,
 	// Rate and Chunks.
 	Replay string
+	// Camera is "simulated" (or empty: the bench simulates every frame) or
+	// "prerendered": the bench renders PrerenderedFrames frames at start and
+	// streams them in turn while the loop is measured, so that its physics is
+	// off the CPU (bench.Options.Prerendered). A replay is its own camera.
+	Camera string
+	// Block is the length of each block of the interleaved measurement (loop,
+	// then floor, alternately); default 1 s.
+	Block time.Duration
 }
+
+// PrerenderedFrames is how many frames the pre-rendered camera renders: a
+// quarter of a second at 1 kHz, 0.9 MB for the default scenario, small
+// beside the caches the control matrix needs.
+const PrerenderedFrames = 256
 
 // source is what feeds the loop: a scenario simulated by the bench, or a
 // recording replayed.
@@ -121,8 +133,18 @@ type Result struct {
 	// cannot be read. On a shared virtual machine it sets the tails.
 	StealPercent float64 `json:"cpu_steal_percent"`
 	// Interrupted says the measurement was stopped early (Ctrl-C): the figures
-	// are of the frames recorded until then, and the floor was not measured.
+	// are of the pairs of blocks completed until then.
 	Interrupted bool `json:"interrupted,omitempty"`
+	// Camera is what fed the loop: "simulated", "prerendered" or "replay".
+	Camera string `json:"camera"`
+	// BlockS is the length of each block, seconds; Blocks are the blocks,
+	// loop and floor alternately, with their figures and steal; Quiet
+	// compares the loop with its floor over the pairs of blocks with steal
+	// below QuietSteal (absent when there were none). The figures above are
+	// over every block.
+	BlockS float64     `json:"block_s"`
+	Blocks []Block     `json:"blocks"`
+	Quiet  *Comparison `json:"quiet,omitempty"`
 }
 
 // ErrInterrupted is returned, with the results of what ran, when the run's
@@ -149,6 +171,15 @@ func Run(ctx context.Context, c Config) ([]Result, error) {
 	}
 	if len(c.Transports) == 0 {
 		c.Transports = []string{"tcp", "unix"}
+	}
+	if c.Camera != "" && c.Camera != "simulated" && c.Camera != "prerendered" {
+		return nil, fmt.Errorf("latency: camera %q: want simulated or prerendered", c.Camera)
+	}
+	if c.Camera == "prerendered" && c.Replay != "" {
+		return nil, errors.New("latency: --camera prerendered and --replay: a replay is its own camera")
+	}
+	if c.Block < 0 || c.Block > 0 && c.Block < 100*time.Millisecond {
+		return nil, fmt.Errorf("latency: block %v: must be at least 100ms", c.Block)
 	}
 	for _, t := range c.Transports {
 		if t != "tcp" && t != "unix" {
@@ -217,7 +248,7 @@ func runOne(ctx context.Context, c Config, src source, transport string) (*Resul
 	rc := rig.Config{
 		Scenario: src.scn,
 		Unix:     transport == "unix",
-		Bench:    bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50, ReadoutTime: c.ReadoutTime},
+		Bench:    bench.Options{Logger: c.Logger.With("process", "sim"), StrehlEvery: 50, ReadoutTime: c.ReadoutTime, Prerendered: prerendered(c)},
 		Loop: daemon.Config{
 			MetricsAddr: "-", Chunks: c.Chunks, Recorder: rec, Kernel: c.Kernel, Realtime: c.Realtime,
 			Logger: c.Logger.With("process", "loop"),
@@ -274,15 +305,19 @@ func runOne(ctx context.Context, c Config, src source, transport string) (*Resul
 	if err := sleep(ctx, 500*time.Millisecond); err != nil { // converge, warm caches
 		return nil, err
 	}
-	before, err := r.Status(ctx)
+	blockLen := c.Block
+	if blockLen == 0 {
+		blockLen = time.Second
+	}
+	status, err := r.Status(ctx)
 	if err != nil {
 		return nil, err
 	}
-	cpu0, errCPU0 := cpustat.Read("/proc/stat")
-	rec.Start()
-	interrupted := sleep(ctx, c.Duration) != nil
-	rec.Stop()
-	cpu1, errCPU1 := cpustat.Read("/proc/stat")
+	blocks, s, floor, pairs, interrupted, err := interleaved(ctx, r, rec, int(status.GetSlopeCount()), int(status.GetActuatorCount()),
+		time.Duration(period*float64(time.Second)), blockLen, c.Duration)
+	if err != nil {
+		return nil, err
+	}
 	after, err := r.Status(context.Background())
 	if err != nil {
 		return nil, err
@@ -290,27 +325,14 @@ func runOne(ctx context.Context, c Config, src source, transport string) (*Resul
 	if !interrupted && after.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED {
 		return nil, fmt.Errorf("the loop left the closed state during the run (now %v, last interlock %q)", after.GetState(), after.GetLastInterlock())
 	}
-	// The loop stops; the bench runs on, its camera clock ticking and its
-	// simulation as busy as before, and the transport floor is measured against
-	// it: between the same two processes, over the same kind of connection.
 	if err := r.StopLoop(); err != nil {
 		return nil, err
 	}
-	s := rec.Samples()
 	if len(s.RTC) < 10 {
 		if interrupted {
 			return nil, ctx.Err()
 		}
 		return nil, fmt.Errorf("only %d frames recorded", len(s.RTC))
-	}
-	var floor []int64
-	if !interrupted {
-		floor, err = measureFloor(ctx, r.Devices.Camera, int(after.GetSlopeCount()), int(after.GetActuatorCount()),
-			time.Duration(period*float64(time.Second)), min(len(s.RTC), 20000))
-		if err != nil && ctx.Err() == nil {
-			return nil, fmt.Errorf("transport floor: %w", err)
-		}
-		interrupted = ctx.Err() != nil
 	}
 	if err := r.Close(); err != nil && !interrupted {
 		return nil, err
@@ -321,6 +343,12 @@ func runOne(ctx context.Context, c Config, src source, transport string) (*Resul
 			return nil, err
 		}
 	}
+	var dropped uint64
+	var steal float64
+	for _, b := range blocks {
+		dropped += b.FramesDropped
+		steal += b.StealPercent / float64(len(blocks))
+	}
 
 	res := &Result{
 		Scenario: src.name, Transport: transport, RateHz: src.rate, Frames: len(s.RTC), Chunks: c.Chunks,
@@ -328,9 +356,9 @@ func runOne(ctx context.Context, c Config, src source, transport string) (*Resul
 		SimCPUs: c.SimulatorCPUs, RTCPU: rtCPU(c.Realtime), RTFIFO: c.Realtime.FIFOPriority,
 		Slopes: int(after.GetSlopeCount()), Actuators: int(after.GetActuatorCount()),
 		TransitUs: rig.QuantilesOf(s.Transit), ComputeUs: rig.QuantilesOf(s.Compute), RTCUs: rig.QuantilesOf(s.RTC), EndToEndUs: rig.QuantilesOf(s.EndToEnd),
-		FloorUs: rig.QuantilesOf(floor), FramesDropped: after.GetFramesDropped() - before.GetFramesDropped(),
-		StealPercent: cpustat.StealPercent(cpu0, cpu1, errCPU0, errCPU1),
-		Interrupted:  interrupted,
+		FloorUs: rig.QuantilesOf(floor), FramesDropped: dropped, StealPercent: math.Round(steal*10) / 10,
+		Camera: src.camera(c), BlockS: blockLen.Seconds(), Blocks: blocks, Quiet: compare(blocks, pairs),
+		Interrupted: interrupted,
 	}
 	jitter := make([]int64, 0, len(s.Arrival))
 	pns := int64(period * 1e9)
@@ -351,6 +379,14 @@ func runOne(ctx context.Context, c Config, src source, transport string) (*Resul
 		return res, ctx.Err()
 	}
 	return res, nil
+}
+
+// prerendered is the bench's Options.Prerendered for c.
+func prerendered(c Config) int {
+	if c.Camera == "prerendered" {
+		return PrerenderedFrames
+	}
+	return 0
 }
 
 // sleep waits for d, or returns ctx's error when it ends first.
@@ -393,6 +429,9 @@ func startSimulator(ctx context.Context, c Config, src source, transport, dir st
 		args = []string{"sim", "--scenario", path, "--camera", cam, "--mirror", mir, "--metrics", "", "--log-level", "warn",
 			"--readout-time", c.ReadoutTime.String()}
 	}
+	if n := prerendered(c); n > 0 && src.scn != nil {
+		args = append(args, "--prerendered", fmt.Sprint(n))
+	}
 	if c.SimulatorCPUs != "" {
 		args = append(args, "--cpus", c.SimulatorCPUs)
 	}
@@ -423,6 +462,17 @@ func deviceAddrs(transport, dir string) (string, string, error) {
 	}
 	mir, err := freePort()
 	return cam, mir, err
+}
+
+// camera names what feeds the loop.
+func (s source) camera(c Config) string {
+	switch {
+	case s.rec != nil:
+		return "replay"
+	case c.Camera == "prerendered":
+		return "prerendered"
+	}
+	return "simulated"
 }
 
 // replaySource reads and checks the recording of c.Replay.
@@ -478,46 +528,6 @@ func freePort() (string, error) {
 	return l.Addr().String(), nil
 }
 
-// measureFloor runs count ping-pongs against the bench's transport probe at
-// addr, one per frame period, of a slope frame out and a command back, and
-// returns the round-trip times in nanoseconds.
-func measureFloor(ctx context.Context, addr string, slopes, actuators int, period time.Duration, count int) ([]int64, error) {
-	conn, err := rpc.Dial(addr, rpc.DeviceDialOptions()...)
-	if err != nil {
-		return nil, err
-	}
-	defer conn.Close()
-	stream, err := stillskyv1.NewTransportProbeServiceClient(conn).Echo(ctx)
-	if err != nil {
-		return nil, err
-	}
-	req := &stillskyv1.EchoRequest{Values: make([]float32, slopes), ReplyValues: uint32(actuators)}
-	for i := range req.Values {
-		req.Values[i] = float32(i) * 1e-7 // non-zero, like slopes
-	}
-	resp := &stillskyv1.EchoResponse{}
-	rtt := make([]int64, 0, count)
-	next := time.Now()
-	for i := 0; i < count+100; i++ {
-		next = next.Add(period)
-		if d := time.Until(next); d > 0 {
-			time.Sleep(d)
-		}
-		t0 := monoclock.Now()
-		if err := stream.Send(req); err != nil {
-			return nil, err
-		}
-		if err := stream.RecvMsg(resp); err != nil {
-			return nil, err
-		}
-		if i >= 100 { // the first pings warm the connection
-			rtt = append(rtt, monoclock.Now()-t0)
-		}
-	}
-	stream.CloseSend()
-	return rtt, nil
-}
-
 // WriteJSON writes the results as a JSON array, atomically.
 func WriteJSON(path string, rs []Result) error {
 	b, err := json.MarshalIndent(rs, "", "  ")
@@ -530,20 +540,34 @@ func WriteJSON(path string, rs []Result) error {
 	})
 }
 
-// WriteTable prints the results as a Markdown table (µs).
+// WriteTable prints the results as Markdown tables (µs): the figures over
+// every block, then the comparison over the quiet pairs of blocks.
 func WriteTable(w io.Writer, rs []Result) {
-	fmt.Fprintln(w, "\n| scenario | transport | rate | frames | camera→loop p50/p99 | compute p50/p99/p99.9/max | rtc p50/p99/p99.9/max | end-to-end p50/p99/p99.9/max | floor p50/p99 | arrival jitter p99 | missed | dropped | max rate | cpu steal |")
-	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
+	fmt.Fprintln(w, "\n| scenario | transport | camera | rate | frames | camera→loop p50/p99 | compute p50/p99/p99.9/max | rtc p50/p99/p99.9/max | end-to-end p50/p99/p99.9/max | floor p50/p99 | arrival jitter p99 | missed | dropped | max rate | cpu steal |")
+	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
+	f := func(q rig.Quantiles) string {
+		return fmt.Sprintf("%.1f / %.1f / %.1f / %.1f", q.P50, q.P99, q.P999, q.Max)
+	}
 	for _, r := range rs {
-		f := func(q rig.Quantiles) string {
-			return fmt.Sprintf("%.1f / %.1f / %.1f / %.1f", q.P50, q.P99, q.P999, q.Max)
-		}
-		name, floor := r.Scenario, fmt.Sprintf("%.1f / %.1f", r.FloorUs.P50, r.FloorUs.P99)
+		name := r.Scenario
 		if r.Interrupted {
-			name, floor = name+" (interrupted)", "not measured"
+			name += " (interrupted)"
 		}
-		fmt.Fprintf(w, "| %s | %s | %.0f Hz | %d | %.1f / %.1f | %s | %s | %s | %s | %.1f | %d | %d | %.0f Hz | %.1f %% |\n",
-			name, r.Transport, r.RateHz, r.Frames, r.TransitUs.P50, r.TransitUs.P99, f(r.ComputeUs), f(r.RTCUs), f(r.EndToEndUs),
-			floor, r.ArrivalJitterUs.P99, r.MissedDeadlines, r.FramesDropped, r.MaxRateHz, r.StealPercent)
+		fmt.Fprintf(w, "| %s | %s | %s | %.0f Hz | %d | %.1f / %.1f | %s | %s | %s | %.1f / %.1f | %.1f | %d | %d | %.0f Hz | %.1f %% |\n",
+			name, r.Transport, r.Camera, r.RateHz, r.Frames, r.TransitUs.P50, r.TransitUs.P99, f(r.ComputeUs), f(r.RTCUs), f(r.EndToEndUs),
+			r.FloorUs.P50, r.FloorUs.P99, r.ArrivalJitterUs.P99, r.MissedDeadlines, r.FramesDropped, r.MaxRateHz, r.StealPercent)
+	}
+	fmt.Fprintf(w, "\nPairs of blocks (loop, then floor) with cpu steal below %.0f %%; margin = end-to-end − (floor + compute):\n\n", QuietSteal)
+	fmt.Fprintln(w, "| scenario | transport | camera | pairs | frames | cpu steal | compute p50/p99 | floor p50/p99 | end-to-end p50/p99 | margin p50/p99 | missed |")
+	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
+	for _, r := range rs {
+		q := r.Quiet
+		if q == nil {
+			fmt.Fprintf(w, "| %s | %s | %s | 0 of %d | | | | | | | |\n", r.Scenario, r.Transport, r.Camera, len(r.Blocks)/2)
+			continue
+		}
+		fmt.Fprintf(w, "| %s | %s | %s | %d of %d | %d | %.1f %% | %.1f / %.1f | %.1f / %.1f | %.1f / %.1f | %+.1f / %+.1f | %d |\n",
+			r.Scenario, r.Transport, r.Camera, q.Pairs, len(r.Blocks)/2, q.Frames, q.StealPercent, q.ComputeUs.P50, q.ComputeUs.P99,
+			q.FloorUs.P50, q.FloorUs.P99, q.EndToEndUs.P50, q.EndToEndUs.P99, q.P50MarginUs, q.P99MarginUs, q.MissedDeadlines)
 	}
 }

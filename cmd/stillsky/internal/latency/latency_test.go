@@ -18,7 +18,8 @@ func TestRunReportsEveryFigure(t *testing.T) {
 	if testing.Short() {
 		t.Skip("calibrates and runs a closed loop")
 	}
-	rs, err := Run(context.Background(), Config{Scenarios: []string{"small"}, Duration: 500 * time.Millisecond, Transports: []string{"unix"}})
+	rs, err := Run(context.Background(), Config{Scenarios: []string{"small"}, Duration: 500 * time.Millisecond, Block: 250 * time.Millisecond,
+		Transports: []string{"unix"}, Camera: "prerendered"})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -40,6 +41,26 @@ func TestRunReportsEveryFigure(t *testing.T) {
 	if r.MaxRateHz <= 0 {
 		t.Errorf("max rate %g Hz", r.MaxRateHz)
 	}
+	// Two pairs of blocks, loop then floor, each with its own figures.
+	if r.Camera != "prerendered" || len(r.Blocks) != 4 {
+		t.Fatalf("camera %q, %d blocks: want prerendered, 4", r.Camera, len(r.Blocks))
+	}
+	frames := 0
+	for i, b := range r.Blocks {
+		want := []string{"loop", "floor"}[i%2]
+		if b.Kind != want || b.Samples < 50 || (i > 0 && b.StartS <= r.Blocks[i-1].StartS) {
+			t.Errorf("block %d: %+v: want a %s block of at least 50 samples after the one before", i, b, want)
+		}
+		if (b.Kind == "loop") != (b.ComputeUs != nil && b.EndToEndUs != nil) || (b.Kind == "floor") != (b.FloorUs != nil) {
+			t.Errorf("block %d (%s) has the figures of the other kind", i, b.Kind)
+		}
+		if b.Kind == "loop" {
+			frames += b.Samples
+		}
+	}
+	if frames != r.Frames {
+		t.Errorf("loop blocks hold %d frames, the result %d", frames, r.Frames)
+	}
 	path := filepath.Join(t.TempDir(), "bench.json")
 	if err := WriteJSON(path, rs); err != nil {
 		t.Fatal(err)
@@ -49,7 +70,7 @@ func TestRunReportsEveryFigure(t *testing.T) {
 	if err := json.Unmarshal(b, &objs); err != nil {
 		t.Fatal(err)
 	}
-	for _, k := range []string{"scenario", "transport", "rate_hz", "frames", "compute_us", "rtc_us", "end_to_end_us", "floor_us", "arrival_jitter_us", "missed_deadlines", "max_rate_hz"} {
+	for _, k := range []string{"scenario", "transport", "rate_hz", "frames", "compute_us", "rtc_us", "end_to_end_us", "floor_us", "arrival_jitter_us", "missed_deadlines", "max_rate_hz", "camera", "blocks"} {
 		if _, ok := objs[0][k]; !ok {
 			t.Errorf("JSON lacks %q", k)
 		}
@@ -57,7 +78,8 @@ func TestRunReportsEveryFigure(t *testing.T) {
 }
 
 func TestRunRefusesBadConfig(t *testing.T) {
-	for _, c := range []Config{{Duration: time.Millisecond}, {Rate: -1}, {Transports: []string{"carrier pigeon"}}, {Scenarios: []string{"nonesuch"}}} {
+	for _, c := range []Config{{Duration: time.Millisecond}, {Rate: -1}, {Transports: []string{"carrier pigeon"}}, {Scenarios: []string{"nonesuch"}},
+		{Camera: "pinhole"}, {Block: time.Millisecond}} {
 		if _, err := Run(context.Background(), c); err == nil {
 			t.Errorf("Run(%+v) accepted a bad configuration", c)
 		}
