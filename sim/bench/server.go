@@ -66,7 +66,9 @@ type Server struct {
 
 	mu  sync.Mutex // guards sys, cmd, pending and psf
 	sys *System
-	cmd []float32 // the command the mirror holds
+	// calibrationSource is set while the camera looks at its calibration source.
+	calibrationSource atomic.Bool
+	cmd               []float32 // the command the mirror holds
 	// Lockstep commands wait here until the frame that must see them: the command
 	// answering frame j shapes frame j+DelayFrames, exactly.
 	pending [pendingRing]pendingCommand

@@ -233,7 +233,7 @@ func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.G
 
 	b := r.Bench
 	if c.scaleFrames[0] {
-		n, err := framesFor(ctx, r, 15*time.Second, 200, c.FramesOpen)
+		n, err := framesFor(ctx, r, openBudget, 200, c.FramesOpen)
 		if err != nil {
 			return nil, err
 		}
@@ -241,7 +241,10 @@ func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.G
 	}
 	fmt.Fprintf(c.Out, "open loop: %d frames\n", c.FramesOpen)
 	b.ResetStats()
-	n, _, err := runPhase(ctx, r.Client, b, c.FramesOpen, c.Out)
+	pctx, cancel := phaseContext(ctx, c.scaleFrames[0], openBudget)
+	n, _, err := runPhase(pctx, r.Client, b, c.FramesOpen, c.Out)
+	cancel()
+	err = budgetEnded(ctx, err, c.Out)
 	open := b.Stats()
 	sum.FramesOpen, sum.StrehlOpen, sum.ResidualRMSNmOpen = n, open.Strehl, open.ResidualRMS*1e9
 	sum.ContrastOpen = atSeparations(open.Contrast)
@@ -269,18 +272,21 @@ func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.G
 		if err != nil {
 			return nil, err
 		}
-		c.FramesClosed = lockstepFrames(s0, s1, time.Since(t0), 40*time.Second, 500, c.FramesClosed)
+		c.FramesClosed = lockstepFrames(s0, s1, time.Since(t0), closedBudget, 500, c.FramesClosed)
 	}
 	fmt.Fprintf(c.Out, "closed loop: %d frames (after %d to converge)\n", c.FramesClosed, settle)
 	b.ResetStats()
 	var estSum float64
 	var estN int
-	n, st, err := runPhase(ctx, r.Client, b, c.FramesClosed, c.Out, func(s *stillskyv1.GetStatusResponse) {
+	pctx, cancel = phaseContext(ctx, c.scaleFrames[1], closedBudget)
+	n, st, err := runPhase(pctx, r.Client, b, c.FramesClosed, c.Out, func(s *stillskyv1.GetStatusResponse) {
 		if s.GetState() == stillskyv1.LoopState_LOOP_STATE_CLOSED {
 			estSum += s.GetStrehlEstimate()
 			estN++
 		}
 	})
+	cancel()
+	err = budgetEnded(ctx, err, c.Out)
 	closed := b.Stats()
 	sum.FramesClosed, sum.StrehlClosed, sum.ResidualRMSNmClosed = n, closed.Strehl, closed.ResidualRMS*1e9
 	sum.ContrastClosed = atSeparations(closed.Contrast)

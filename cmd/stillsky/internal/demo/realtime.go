@@ -2,7 +2,9 @@ package demo
 
 import (
 	"context"
+	"errors"
 	"fmt"
+	"io"
 	"math/rand/v2"
 	"slices"
 	"time"
@@ -142,4 +144,30 @@ func framesFor(ctx context.Context, r *rig.Rig, budget time.Duration, lo, hi int
 		return 0, err
 	}
 	return lockstepFrames(s0, s1, time.Since(t0), budget, lo, hi), nil
+}
+
+// The wall-clock budgets of the open and the closed phase after a fallback
+// to lockstep: their default frames are sized to fit, and a machine that
+// slows down further ends the phase at the budget.
+const (
+	openBudget   = 15 * time.Second
+	closedBudget = 40 * time.Second
+)
+
+// phaseContext returns ctx, or, for a phase with a budget, ctx bounded by it.
+func phaseContext(ctx context.Context, budgeted bool, budget time.Duration) (context.Context, context.CancelFunc) {
+	if !budgeted {
+		return context.WithCancel(ctx)
+	}
+	return context.WithTimeout(ctx, budget)
+}
+
+// budgetEnded turns the end of a phase's budget (its context's deadline, with
+// the run's own ctx still live) into a normal end of the phase, said on out.
+func budgetEnded(ctx context.Context, err error, out io.Writer) error {
+	if err != nil && ctx.Err() == nil && errors.Is(err, context.DeadlineExceeded) {
+		fmt.Fprintln(out, "  (phase ended at its lockstep time budget)")
+		return nil
+	}
+	return err
 }
