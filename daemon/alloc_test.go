@@ -79,12 +79,15 @@ func TestHotPathAllocations(t *testing.T) {
 	// BufferSlice is read's too. The mirror's WINDOW_UPDATE frames for the
 	// commands (two objects each, in http2.parseWindowUpdateFrame and
 	// handleWindowUpdate) come once per 512 KiB of commands with the devices'
-	// 1 MiB receive window. gRPC-Go's public API reaches none of these. The
-	// bounds leave about half an object and 40 bytes of margin: one more heap
-	// object per frame (per-command acknowledgements again, a fresh BufferSlice
-	// per command) fails, as does the generated decoder's fresh slope slice
-	// (3.5 kB).
-	if perFrame > 4.7 || bytes > 250 {
-		t.Errorf("%.2f allocations and %.0f bytes per frame, want at most 4.7 and 250", perFrame, bytes)
+	// 1 MiB receive window. gRPC-Go's public API reaches none of these. Runs
+	// vary: 4.26 objects and 211 bytes per frame in one run here, 4.60 and 502
+	// in the next of the same process, the extra objects larger ones — most
+	// likely gRPC's buffer pool (a sync.Pool, emptied by garbage collections)
+	// refilling. The bounds leave room for that and not for one
+	// more heap object per frame (per-command acknowledgements again, a fresh
+	// BufferSlice per command), nor for the generated decoder's fresh slope
+	// slice (3.5 kB).
+	if perFrame > 5 || bytes > 1000 {
+		t.Errorf("%.2f allocations and %.0f bytes per frame, want at most 5 and 1000", perFrame, bytes)
 	}
 }
