@@ -5,6 +5,7 @@ import (
 	"log/slog"
 	"runtime/debug"
 	"strings"
+	"time"
 
 	"golang.org/x/sys/unix"
 )
@@ -23,11 +24,22 @@ type Realtime struct {
 	// faulted in during a frame; it is a setting of the whole process, which
 	// ProcessSettings makes.
 	LockMemory bool
+	// Spin, if above 0, runs the real-time goroutine on a locked thread of its
+	// own (pinned with Pin) that, after each command, polls for the next frame
+	// for up to Spin before it blocks: a frame that comes within Spin finds the
+	// thread running, so the wake-up of a sleeping thread, and on a virtual
+	// machine of a halted vCPU, is off the critical path. The thread keeps its
+	// CPU busy while it polls: a spin of about a frame period keeps a whole CPU
+	// busy, so leave it off on a machine whose CPUs are all needed elsewhere.
+	Spin time.Duration
 }
 
 func (r Realtime) validate() error {
 	if r.Pin && r.CPU < 0 {
 		return fmt.Errorf("daemon: real-time cpu %d: must be >= 0", r.CPU)
+	}
+	if r.Spin < 0 {
+		return fmt.Errorf("daemon: real-time spin %v: must be >= 0", r.Spin)
 	}
 	if r.FIFOPriority < 0 || r.FIFOPriority > 99 {
 		return fmt.Errorf("daemon: SCHED_FIFO priority %d: must be in 1–99, or 0 for none", r.FIFOPriority)

@@ -39,6 +39,7 @@ func runLatency(args []string) error {
 	bf16 := fs.Bool("bf16", false, "store the control matrix as bfloat16")
 	cpu := fs.Int("rt-cpu", -1, "pin the loop's real-time thread to this CPU (-1: no pinning)")
 	fifo := fs.Int("rt-fifo", 0, "run the loop's real-time thread under SCHED_FIFO at this priority (0: normal)")
+	spin := fs.Duration("rt-spin", 0, "the loop's real-time thread polls for the next frame for up to this long before blocking (0: block at once)")
 	workers := fs.Int("mvm-workers", -1, "threads of the loop's matrix-vector multiply (0: chosen by size; -1: 1 on a machine of 2 CPUs or fewer, whose other CPU the simulator needs, else by size)")
 	simCPUs := fs.String("sim-cpus", "", "pin the simulator's process to these CPUs, e.g. 0 (\"\": no pinning)")
 	inProcess := fs.Bool("in-process", false, "run the simulated bench inside the loop's process instead of as its own")
@@ -73,7 +74,7 @@ func runLatency(args []string) error {
 	defer stop()
 	rs, err := latency.Run(ctx, latency.Config{
 		SimulatorExecutable: sim, SimulatorCPUs: *simCPUs,
-		Realtime:  daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo},
+		Realtime:  daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo, Spin: *spin},
 		Scenarios: scenarios, Transports: transports, Rate: *rate, Duration: *duration,
 		Chunks: *chunks, ReadoutTime: *readout, Out: os.Stdout, Logger: log, Kernel: kernel, Replay: *replay,
 		Camera: *camera, Block: *block,

@@ -30,6 +30,7 @@ func runLoop(args []string) error {
 	logLevel := fs.String("log-level", "info", "log level: debug, info, warn, error")
 	cpu := fs.Int("rt-cpu", -1, "pin the real-time thread to this CPU (-1: no pinning)")
 	fifo := fs.Int("rt-fifo", 0, "run the real-time thread under SCHED_FIFO at this priority, 1-99 (0: normal scheduling)")
+	spin := fs.Duration("rt-spin", 0, "after each command, poll for the next frame on the real-time thread's own CPU for up to this long before blocking, e.g. 900us (0: block at once); keeps a CPU busy")
 	mlock := fs.Bool("mlock", false, "lock the process's memory (mlockall)")
 	bf16 := fs.Bool("bf16", false, "store the control matrix as bfloat16 (half the memory traffic, ~0.1% command error)")
 	workers := fs.Int("mvm-workers", 0, "threads of the matrix-vector multiply (0: chosen by size)")
@@ -53,7 +54,7 @@ func runLoop(args []string) error {
 		CameraAddr: *camera, MirrorAddr: *mirror, ListenAddr: *listen, HealthAddr: *health, MetricsAddr: *metrics,
 		StateDir: *stateDir, Gain: gain, Leak: leak, ScienceWavelength: *wavelength,
 		Chunks: *chunks, Security: sec, Logger: log, BenchURL: *benchURL,
-		Realtime: daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo, LockMemory: *mlock},
+		Realtime: daemon.Realtime{Pin: *cpu >= 0, CPU: *cpu, FIFOPriority: *fifo, LockMemory: *mlock, Spin: *spin},
 		Kernel:   kernelOptions(*bf16),
 	}
 	cfg.Kernel.Workers = *workers

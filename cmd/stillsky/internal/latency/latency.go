@@ -112,6 +112,7 @@ type Result struct {
 	SimCPUs         string        `json:"sim_cpus"`
 	RTCPU           int           `json:"rt_cpu"`
 	RTFIFO          int           `json:"rt_fifo"`
+	RTSpinUs        float64       `json:"rt_spin_us"` // the real-time thread's polling (0: it blocks)
 	Slopes          int           `json:"slopes"`
 	Actuators       int           `json:"actuators"`
 	TransitUs       rig.Quantiles `json:"transit_us"`
@@ -353,7 +354,7 @@ func runOne(ctx context.Context, c Config, src source, transport string) (*Resul
 	res := &Result{
 		Scenario: src.name, Transport: transport, RateHz: src.rate, Frames: len(s.RTC), Chunks: c.Chunks,
 		ReadoutUs: float64(c.ReadoutTime.Microseconds()), MVMWorkers: c.Kernel.Workers, BFloat16: c.Kernel.Precision == mvm.BFloat16,
-		SimCPUs: c.SimulatorCPUs, RTCPU: rtCPU(c.Realtime), RTFIFO: c.Realtime.FIFOPriority,
+		SimCPUs: c.SimulatorCPUs, RTCPU: rtCPU(c.Realtime), RTFIFO: c.Realtime.FIFOPriority, RTSpinUs: float64(c.Realtime.Spin.Microseconds()),
 		Slopes: int(after.GetSlopeCount()), Actuators: int(after.GetActuatorCount()),
 		TransitUs: rig.QuantilesOf(s.Transit), ComputeUs: rig.QuantilesOf(s.Compute), RTCUs: rig.QuantilesOf(s.RTC), EndToEndUs: rig.QuantilesOf(s.EndToEnd),
 		FloorUs: rig.QuantilesOf(floor), FramesDropped: dropped, StealPercent: math.Round(steal*10) / 10,
