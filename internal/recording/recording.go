@@ -284,6 +284,9 @@ func bad(format string, args ...any) error {
 
 // FromHDUs checks and decodes the HDUs of a recording.
 func FromHDUs(hdus []*fits.HDU) (*Recording, error) {
+	if len(hdus) == 0 {
+		return nil, bad("no HDU")
+	}
 	p := hdus[0].Header
 	v, ok := p.Int(keyVersion)
 	if !ok {
