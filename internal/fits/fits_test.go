@@ -337,6 +337,21 @@ func FuzzRead(f *testing.F) {
 	}
 	f.Add(b.Bytes())
 	f.Add([]byte("SIMPLE  =                    T"))
+	// A small binary table after a header-only primary.
+	var tb bytes.Buffer
+	if err := Write(&tb, &HDU{Bitpix: -32}); err != nil {
+		f.Fatal(err)
+	}
+	tw, err := NewTableWriter(&tb, Header{}, []Column{{Name: "N", Type: 'J', Repeat: 1}, {Name: "V", Type: 'E', Repeat: 2}}, 2)
+	if err != nil {
+		f.Fatal(err)
+	}
+	tw.WriteRow(int32(1), []float32{1, 2})
+	tw.WriteRow(int32(2), []float32{3, 4})
+	if err := tw.Close(); err != nil {
+		f.Fatal(err)
+	}
+	f.Add(tb.Bytes())
 	f.Fuzz(func(t *testing.T, data []byte) {
 		hdus, err := Read(bytes.NewReader(data))
 		if err != nil {
