@@ -80,7 +80,7 @@ func (b *Server) Describe(context.Context, *stillskyv1.CameraServiceDescribeRequ
 		SlopeUnit:         "rad",
 		Lockstep:          b.opt.Lockstep,
 		DelayFrames:       uint32(b.opt.DelayFrames),
-		Description:       b.scn.Name + ": " + b.scn.Description,
+		Description:       b.description(),
 		ZenithDeg:         b.scn.Atmosphere.ZenithDeg,
 		Obstruction:       b.scn.Telescope.Obstruction,
 	}, nil

@@ -4,6 +4,7 @@ import (
 	"context"
 	"path/filepath"
 	"slices"
+	"strings"
 	"testing"
 	"time"
 
@@ -70,6 +71,13 @@ func TestPrerenderedCamera(t *testing.T) {
 	desc, err := stillskyv1.NewMirrorServiceClient(conn).Describe(ctx, &stillskyv1.MirrorServiceDescribeRequest{})
 	if err != nil {
 		t.Fatal(err)
+	}
+	cd, err := camera.Describe(ctx, &stillskyv1.CameraServiceDescribeRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !strings.Contains(cd.GetDescription(), "pre-rendered camera: 5 frames") {
+		t.Errorf("camera description %q does not say it is pre-rendered", cd.GetDescription())
 	}
 	frames, err := camera.StreamFrames(ctx, &stillskyv1.StreamFramesRequest{})
 	if err != nil {
