@@ -43,16 +43,26 @@ func (g SensorGeometry) validate() error {
 	return nil
 }
 
-// litSamples is the number of sample points across a subaperture at which the
-// Zernike gradients are averaged over its lit part.
+// gauss6 are the 6-point Gauss–Legendre nodes and weights on [−1, 1].
+var gauss6 = [6][2]float64{
+	{-0.9324695142031521, 0.1713244923791704}, {-0.6612093864662645, 0.3607615730481386},
+	{-0.2386191860831969, 0.4679139345726910}, {0.2386191860831969, 0.4679139345726910},
+	{0.6612093864662645, 0.3607615730481386}, {0.9324695142031521, 0.1713244923791704},
+}
+
+// litSamples is the number of sample points across a partly lit subaperture at
+// which the Zernike gradients are averaged over its lit part.
 const litSamples = 8
 
 // ZernikeSlopes returns the Shack–Hartmann response to Noll modes 2 … modes+1
 // (slopes × modes): the mean gradient of mode j with a unit coefficient (one
 // metre rms of optical path over the pupil) over the lit part of each valid
 // subaperture, the annulus between Obstruction·D/2 and D/2, as the sensor
-// averages it: the analytic gradient (central differences of the polynomial) at
-// litSamples² points of the subaperture, those outside the annulus left out.
+// averages it. Over a fully lit subaperture that is the difference of the mode
+// across it integrated along its edges, (1/d²)∫[Z(x + d/2, y) − Z(x − d/2, y)] dy
+// for x (6-point Gauss–Legendre); over a partly lit one, the mean of the analytic
+// gradient (central differences of the polynomial) at the litSamples² points of
+// the subaperture inside the annulus.
 func ZernikeSlopes(g SensorGeometry, modes int) (*mat.Dense, error) {
 	if err := g.validate(); err != nil {
 		return nil, err
@@ -62,6 +72,7 @@ func ZernikeSlopes(g SensorGeometry, modes int) (*mat.Dense, error) {
 	half := float64(g.Subapertures) * d / 2
 	const h = 1e-6 // of the radius
 	rin := g.Obstruction
+	inside := func(x, y float64) bool { r := math.Hypot(x, y); return r <= 1 && r >= rin }
 	for k, v := range g.Valid {
 		x0 := float64(v%g.Subapertures)*d - half
 		y0 := float64(v/g.Subapertures)*d - half
@@ -70,17 +81,30 @@ func ZernikeSlopes(g SensorGeometry, modes int) (*mat.Dense, error) {
 			for ix := range litSamples {
 				x := (x0 + (float64(ix)+0.5)*d/litSamples) / R
 				y := (y0 + (float64(iy)+0.5)*d/litSamples) / R
-				if r := math.Hypot(x, y); r <= 1 && r >= rin {
+				if inside(x, y) {
 					pts = append(pts, [2]float64{x, y})
 				}
 			}
 		}
+		full := len(pts) == litSamples*litSamples &&
+			inside(x0/R, y0/R) && inside((x0+d)/R, y0/R) && inside(x0/R, (y0+d)/R) && inside((x0+d)/R, (y0+d)/R)
 		if len(pts) == 0 { // a subaperture lit only between the sample points
 			pts = append(pts, [2]float64{(x0 + d/2) / R, (y0 + d/2) / R})
 		}
+		xc, yc := x0+d/2, y0+d/2
 		for m := range modes {
 			j := m + 2
 			var sx, sy float64
+			if full {
+				for _, q := range gauss6 {
+					t := q[0] * d / 2
+					sx += q[1] / 2 * (zernikeAt(j, (xc+d/2)/R, (yc+t)/R) - zernikeAt(j, (xc-d/2)/R, (yc+t)/R))
+					sy += q[1] / 2 * (zernikeAt(j, (xc+t)/R, (yc+d/2)/R) - zernikeAt(j, (xc+t)/R, (yc-d/2)/R))
+				}
+				z.Set(2*k, m, sx/d)
+				z.Set(2*k+1, m, sy/d)
+				continue
+			}
 			for _, p := range pts {
 				sx += zernikeAt(j, p[0]+h, p[1]) - zernikeAt(j, p[0]-h, p[1])
 				sy += zernikeAt(j, p[0], p[1]+h) - zernikeAt(j, p[0], p[1]-h)

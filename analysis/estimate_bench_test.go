@@ -36,3 +36,20 @@ func BenchmarkEstimate(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkNewEstimator times building the estimator (the Zernike slope matrix
+// and its pseudo-inverse) for a 24×24-subaperture sensor.
+func BenchmarkNewEstimator(b *testing.B) {
+	g := SensorGeometry{Subapertures: 24, SubapertureSize: 0.15, PupilDiameter: 3.6, Wavelength: 7e-7, Obstruction: 0.15}
+	for i := range 24 * 24 {
+		x, y := float64(i%24)-11.5, float64(i/24)-11.5
+		if r := x*x + y*y; r < 144 && r > 4 {
+			g.Valid = append(g.Valid, i)
+		}
+	}
+	for range b.N {
+		if _, err := NewEstimator(g, EstimatorConfig{}); err != nil {
+			b.Fatal(err)
+		}
+	}
+}

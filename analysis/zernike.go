@@ -27,9 +27,77 @@ func fact(n int) int64 {
 	return f
 }
 
+// zernikeMode is Noll mode j with its radial coefficients precomputed.
+type zernikeMode struct {
+	m     int       // signed azimuthal frequency
+	coef  []float64 // coefficient of r^(n−2k), k = 0 …
+	n     int
+	scale float64 // sqrt(n+1), times √2 for m ≠ 0
+}
+
+// zernikeModes caches the modes used so far (the estimator's and the budget's
+// are the first few hundred); it is filled at package initialisation.
+var zernikeModes = func() []zernikeMode {
+	out := make([]zernikeMode, modesUpTo(maxCachedOrder)+1)
+	for j := 1; j < len(out); j++ {
+		n, m := optics.NollIndex(j)
+		am := m
+		if am < 0 {
+			am = -am
+		}
+		z := zernikeMode{m: m, n: n, scale: math.Sqrt(float64(n + 1))}
+		if m != 0 {
+			z.scale *= math.Sqrt2
+		}
+		for k := 0; k <= (n-am)/2; k++ {
+			c := float64(fact(n-k)) / (float64(fact(k)) * float64(fact((n+am)/2-k)) * float64(fact((n-am)/2-k)))
+			if k%2 == 1 {
+				c = -c
+			}
+			z.coef = append(z.coef, c)
+		}
+		out[j] = z
+	}
+	return out
+}()
+
+// maxCachedOrder is the highest radial order in zernikeModes.
+const maxCachedOrder = 16
+
 // zernikeAt returns Noll mode j at (x, y) in units of the pupil radius, unit rms
 // over the unit disk (Noll 1976), continued as the same polynomial outside it.
 func zernikeAt(j int, x, y float64) float64 {
+	if j >= len(zernikeModes) {
+		return zernikeSlow(j, x, y)
+	}
+	z := &zernikeModes[j]
+	r2 := x*x + y*y
+	// Σ c_k r^(n−2k) by Horner in r², times r^(n mod 2)… written for the lowest
+	// power r^(n − 2K) = r^|m|.
+	v := 0.0
+	for _, c := range z.coef {
+		v = v*r2 + c
+	}
+	am := z.m
+	if am < 0 {
+		am = -am
+	}
+	if am == 0 {
+		return z.scale * v
+	}
+	// r^|m| cos(|m|θ) and r^|m| sin(|m|θ) are the real and imaginary parts of (x + iy)^|m|.
+	re, im := 1.0, 0.0
+	for range am {
+		re, im = re*x-im*y, re*y+im*x
+	}
+	if z.m > 0 {
+		return z.scale * v * re
+	}
+	return z.scale * v * im
+}
+
+// zernikeSlow evaluates modes beyond the cache.
+func zernikeSlow(j int, x, y float64) float64 {
 	n, m := optics.NollIndex(j)
 	r, th := math.Hypot(x, y), math.Atan2(y, x)
 	am := m

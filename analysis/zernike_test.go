@@ -27,3 +27,15 @@ func TestZernikeVarianceNoll(t *testing.T) {
 		}
 	}
 }
+
+func TestZernikeFastMatchesSlow(t *testing.T) {
+	// The cached Horner evaluation against the direct sum of Noll's radial
+	// polynomial (Noll 1976) at points inside and outside the unit disk.
+	for j := 2; j < len(zernikeModes); j += 7 {
+		for _, p := range [][2]float64{{0.3, -0.2}, {-0.9, 0.1}, {0.6, 0.7}, {1.1, -0.4}} {
+			if a, b := zernikeAt(j, p[0], p[1]), zernikeSlow(j, p[0], p[1]); math.Abs(a-b) > 1e-9*(1+math.Abs(b)) {
+				t.Errorf("Z%d at %v: %g, direct %g", j, p, a, b)
+			}
+		}
+	}
+}

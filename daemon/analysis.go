@@ -144,6 +144,7 @@ type analyser struct {
 	mproj    *analysis.Projector // the reconstructor's modes
 	unitNois []float64           // modal noise at unit slope noise
 	kappa    []float64           // low-order steady-state correction
+	buf      *capture            // the last capture, reused when the size matches
 	last     atomic.Pointer[Analysis]
 }
 
@@ -238,9 +239,14 @@ func (d *Daemon) prepare() (*geometry, *describes, *controller.Reconstructor, er
 	return g, desc, r, nil
 }
 
-// record arms a capture of n frames and waits for it.
+// record arms a capture of n frames and waits for it; the caller holds an.mu.
 func (d *Daemon) record(ctx context.Context, g *geometry, n int) (*capture, error) {
-	c := newCapture(n, g.slopes, g.actuators)
+	c := d.an.buf
+	if c == nil || len(c.slopes) != n || len(c.slopes[0]) != g.slopes || len(c.cmds[0]) != g.actuators {
+		c = newCapture(n, g.slopes, g.actuators)
+		d.an.buf = c
+	}
+	c.count = 0
 	d.u.capture.Store(c)
 	defer d.u.capture.Store(nil)
 	c.armed.Store(true)
@@ -251,10 +257,14 @@ func (d *Daemon) record(ctx context.Context, g *geometry, n int) (*capture, erro
 	case <-c.done:
 		return c, nil
 	case <-t.C:
+		// The real-time goroutine may be copying a frame into it still: a
+		// capture given up is not reused.
 		c.armed.Store(false)
+		d.an.buf = nil
 		return nil, status.Errorf(codes.DeadlineExceeded, "analysis: %d consecutive frames did not come within %v", n, wait)
 	case <-ctx.Done():
 		c.armed.Store(false)
+		d.an.buf = nil
 		return nil, ctx.Err()
 	}
 }

@@ -27,10 +27,10 @@ func TestLiveAnalysis(t *testing.T) {
 	if _, err := r.client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
 		t.Fatal(err)
 	}
-	deadline := time.Now().Add(60 * time.Second)
+	deadline := time.Now().Add(120 * time.Second)
 	for r.d.LatestAnalysis() == nil {
 		if time.Now().After(deadline) {
-			t.Fatal("no analysis within 60 s of closing the loop")
+			t.Fatal("no analysis within 120 s of closing the loop")
 		}
 		time.Sleep(100 * time.Millisecond)
 	}

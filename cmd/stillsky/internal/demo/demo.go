@@ -156,9 +156,9 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 			// One science image every 20 frames is plenty for a long exposure of
 			// thousands of frames, and keeps the camera's FFTs off the loop's CPU time.
 			Bench: bench.Options{Lockstep: lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
-			// The loop analyses itself every 2 s, so that its turbulence estimate
+			// The loop analyses itself every 4 s, so that its turbulence estimate
 			// and budget reach the summary of a run of a few seconds.
-			Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 2 * time.Second, Logger: c.Logger.With("process", "loop")},
+			Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 4 * time.Second, Logger: c.Logger.With("process", "loop")},
 			BenchHTTP: true,
 		})
 	}
