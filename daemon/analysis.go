@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"runtime"
 	"slices"
 	"sync"
 	"sync/atomic"
@@ -14,6 +15,7 @@ import (
 
 	"stillsky/analysis"
 	"stillsky/controller"
+	"stillsky/internal/affinity"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
 
@@ -167,8 +169,14 @@ func (d *Daemon) Reconstructor() *controller.Reconstructor { return d.u.reconstr
 // LatestAnalysis returns the latest analysis, or nil before the first.
 func (d *Daemon) LatestAnalysis() *Analysis { return d.an.last.Load() }
 
-// analyse runs the periodic analysis until ctx ends.
+// analyse runs the periodic analysis until ctx ends. It is background work: its
+// thread runs under SCHED_IDLE, so it takes only CPU time that the loop (and a
+// bench in the same process) leave.
 func (d *Daemon) analyse(ctx context.Context) {
+	runtime.LockOSThread() // never unlocked: the thread ends with the goroutine
+	if err := affinity.IdleThread(); err != nil {
+		d.log.Info("analysis runs at normal priority", "err", err)
+	}
 	period := d.cfg.AnalysisPeriod
 	if period == 0 {
 		period = analysisPeriod

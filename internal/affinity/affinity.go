@@ -63,3 +63,13 @@ func PinProcess(set unix.CPUSet) error {
 	}
 	return nil
 }
+
+// IdleThread puts the calling thread under SCHED_IDLE: it runs only when a
+// CPU has nothing else to do, and any other thread that wakes preempts it.
+// Lowering one's own policy needs no privilege. Call it from a goroutine locked
+// to its thread (runtime.LockOSThread) that stays locked, so that the runtime
+// ends the thread with the goroutine instead of reusing it.
+func IdleThread() error {
+	attr := unix.SchedAttr{Size: unix.SizeofSchedAttr, Policy: unix.SCHED_IDLE}
+	return unix.SchedSetAttr(0, &attr, 0)
+}

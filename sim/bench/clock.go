@@ -7,6 +7,7 @@ import (
 
 	"golang.org/x/sys/unix"
 
+	"stillsky/internal/affinity"
 	"stillsky/internal/monoclock"
 )
 
@@ -45,7 +46,7 @@ func (b *Server) Run(ctx context.Context) error {
 func (b *Server) freeRun(ctx context.Context) {
 	if b.opt.IdlePriority && b.frames == nil {
 		runtime.LockOSThread()
-		if err := idleThread(); err != nil {
+		if err := affinity.IdleThread(); err != nil {
 			b.log.Warn("simulation thread stays at normal priority", "err", err)
 		}
 	}
@@ -160,12 +161,4 @@ func sleepUntil(t int64) {
 	ts := unix.NsecToTimespec(t)
 	for unix.ClockNanosleep(unix.CLOCK_MONOTONIC, unix.TIMER_ABSTIME, &ts, nil) == unix.EINTR {
 	}
-}
-
-// idleThread puts the calling thread under SCHED_IDLE: it runs only when a
-// CPU has nothing else to do, and any other thread that wakes preempts it.
-// Lowering one's own policy needs no privilege.
-func idleThread() error {
-	attr := unix.SchedAttr{Size: unix.SizeofSchedAttr, Policy: unix.SCHED_IDLE}
-	return unix.SchedSetAttr(0, &attr, 0)
 }

@@ -6,6 +6,7 @@ import (
 	"runtime"
 	"sync/atomic"
 
+	"stillsky/internal/affinity"
 	"stillsky/sim/optics"
 )
 
@@ -59,7 +60,7 @@ func (b *Server) expose(psf []float64) {
 func (b *Server) science(ctx context.Context) {
 	if b.opt.IdlePriority {
 		runtime.LockOSThread()
-		if err := idleThread(); err != nil {
+		if err := affinity.IdleThread(); err != nil {
 			b.log.Warn("science camera thread stays at normal priority", "err", err)
 		}
 	}
