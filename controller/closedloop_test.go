@@ -8,8 +8,8 @@ import (
 	"gonum.org/v1/gonum/mat"
 
 	"stillsky/analysis"
+	"stillsky/budgetsim"
 	"stillsky/controller"
-	"stillsky/internal/budgetsim"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
 )

@@ -6,7 +6,7 @@ import (
 	"strconv"
 	"strings"
 
-	"stillsky/internal/budgetsim"
+	"stillsky/budgetsim"
 	"stillsky/sim/scenario"
 )
 

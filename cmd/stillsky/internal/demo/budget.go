@@ -5,7 +5,7 @@ import (
 	"io"
 
 	"stillsky/analysis"
-	"stillsky/internal/budgetsim"
+	"stillsky/budgetsim"
 	"stillsky/rig"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
