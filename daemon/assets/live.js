@@ -112,7 +112,7 @@ function refreshPSF(enabled) {
     try {
       const r = await fetch("snapshot/contrast.json", { cache: "no-store" });
       const c = await r.json();
-      show("contrast", c.separations_lambda_over_d.map((s, i) => `${s} λ/D: ${c.contrast[i].toExponential(1)}`).join(" · ") || "—");
+      show("contrast", c.separations_lambda_over_d.map((s, i) => `${s} λ/D ${c.contrast[i].toExponential(1)}`).join(", ") || "—");
     } catch (e) {
       show("contrast", "—");
     }
