@@ -11,6 +11,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"math"
 	"time"
 
 	"gonum.org/v1/gonum/stat"
@@ -151,6 +152,14 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	// The rig runs until the end of the summary whatever ctx does: an
 	// interrupted run still reports the loop's figures.
 	start := func(lockstep bool) (*rig.Rig, error) {
+		var locks daemon.Interlocks
+		if lockstep && !c.Lockstep {
+			// A machine too slow for real time can leave the lockstep bench
+			// silent for more than the daemon's one second between frames; the
+			// fallback gives it lockstepSilence before the stale-camera interlock
+			// holds the loop, which still catches a device that is stuck.
+			locks.StalePeriods = int(math.Ceil(lockstepSilence.Seconds() * scn.Loop.FrameRate))
+		}
 		return rig.Start(context.Background(), rig.Config{
 			Scenario: scn,
 			// One science image every 20 frames is plenty for a long exposure of
@@ -158,7 +167,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 			Bench: bench.Options{Lockstep: lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
 			// The loop analyses itself every 4 s, so that its turbulence estimate
 			// and budget reach the summary of a run of a few seconds.
-			Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 4 * time.Second, Logger: c.Logger.With("process", "loop")},
+			Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 4 * time.Second, Interlocks: locks, Logger: c.Logger.With("process", "loop")},
 			BenchHTTP: true,
 		})
 	}

@@ -154,6 +154,10 @@ const (
 	closedBudget = 40 * time.Second
 )
 
+// lockstepSilence is how long the stale-camera interlock waits for a frame
+// after a fallback to lockstep.
+const lockstepSilence = 5 * time.Second
+
 // phaseContext returns ctx, or, for a phase with a budget, ctx bounded by it.
 func phaseContext(ctx context.Context, budgeted bool, budget time.Duration) (context.Context, context.CancelFunc) {
 	if !budgeted {
