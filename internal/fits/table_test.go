@@ -2,6 +2,7 @@ package fits
 
 import (
 	"bytes"
+	"fmt"
 	"os"
 	"path/filepath"
 	"slices"
@@ -63,52 +64,54 @@ func writeTableFile(t *testing.T, rows, announced int) string {
 
 func TestTableRoundTrip(t *testing.T) {
 	for _, c := range []struct{ rows, announced int }{{5, 5}, {3, 7}, {0, 2}, {900, 1000}} {
-		path := writeTableFile(t, c.rows, c.announced)
-		hdus, err := ReadFile(path)
-		if err != nil {
-			t.Fatalf("%d of %d rows: %v", c.rows, c.announced, err)
-		}
-		if len(hdus) != 4 || hdus[2].Table == nil {
-			t.Fatalf("%d HDUs, table %v", len(hdus), hdus[2].Table)
-		}
-		tb := hdus[2].Table
-		if tb.Rows != c.rows {
-			t.Fatalf("%d rows read, %d written", tb.Rows, c.rows)
-		}
-		if s, _ := hdus[2].Header.String("EXTNAME"); s != "FRAMES" {
-			t.Errorf("EXTNAME %q", s)
-		}
-		if v, _ := hdus[3].Header.Float("R0"); v != 0.12 {
-			t.Errorf("extension after the table: R0 = %v", v)
-		}
-		if !slices.Equal(tb.Columns, tableColumns) {
-			t.Errorf("columns %+v, want %+v", tb.Columns, tableColumns)
-		}
-		frames, _, _ := Values[int64](tb, "frame")
-		states, _, _ := Values[uint8](tb, "STATE")
-		counts, _, _ := Values[int16](tb, "COUNT")
-		sats, _, _ := Values[int32](tb, "SAT")
-		slopes, rs, _ := Values[float32](tb, "SLOPES")
-		rms, rr, err := Values[float64](tb, "RMS")
-		if err != nil || rs != 3 || rr != 2 {
-			t.Fatalf("repeats %d %d, %v", rs, rr, err)
-		}
-		for i := 0; i < c.rows; i++ {
-			want := tableRow(i)
-			if frames[i] != want[0] || states[i] != want[1] || counts[i] != want[2] || sats[i] != want[3] ||
-				!slices.Equal(slopes[3*i:3*i+3], want[4].([]float32)) || !slices.Equal(rms[2*i:2*i+2], want[5].([]float64)) {
-				t.Fatalf("row %d differs", i)
+		t.Run(fmt.Sprintf("%d rows of %d announced", c.rows, c.announced), func(t *testing.T) {
+			path := writeTableFile(t, c.rows, c.announced)
+			hdus, err := ReadFile(path)
+			if err != nil {
+				t.Fatalf("%d of %d rows: %v", c.rows, c.announced, err)
 			}
-		}
-		// What was read writes back to the same bytes.
-		var buf bytes.Buffer
-		if err := Write(&buf, hdus...); err != nil {
-			t.Fatal(err)
-		}
-		orig, _ := os.ReadFile(path)
-		if !bytes.Equal(buf.Bytes(), orig) {
-			t.Errorf("%d of %d rows: rewritten file differs from the streamed one", c.rows, c.announced)
-		}
+			if len(hdus) != 4 || hdus[2].Table == nil {
+				t.Fatalf("%d HDUs, table %v", len(hdus), hdus[2].Table)
+			}
+			tb := hdus[2].Table
+			if tb.Rows != c.rows {
+				t.Fatalf("%d rows read, %d written", tb.Rows, c.rows)
+			}
+			if s, _ := hdus[2].Header.String("EXTNAME"); s != "FRAMES" {
+				t.Errorf("EXTNAME %q", s)
+			}
+			if v, _ := hdus[3].Header.Float("R0"); v != 0.12 {
+				t.Errorf("extension after the table: R0 = %v", v)
+			}
+			if !slices.Equal(tb.Columns, tableColumns) {
+				t.Errorf("columns %+v, want %+v", tb.Columns, tableColumns)
+			}
+			frames, _, _ := Values[int64](tb, "frame")
+			states, _, _ := Values[uint8](tb, "STATE")
+			counts, _, _ := Values[int16](tb, "COUNT")
+			sats, _, _ := Values[int32](tb, "SAT")
+			slopes, rs, _ := Values[float32](tb, "SLOPES")
+			rms, rr, err := Values[float64](tb, "RMS")
+			if err != nil || rs != 3 || rr != 2 {
+				t.Fatalf("repeats %d %d, %v", rs, rr, err)
+			}
+			for i := 0; i < c.rows; i++ {
+				want := tableRow(i)
+				if frames[i] != want[0] || states[i] != want[1] || counts[i] != want[2] || sats[i] != want[3] ||
+					!slices.Equal(slopes[3*i:3*i+3], want[4].([]float32)) || !slices.Equal(rms[2*i:2*i+2], want[5].([]float64)) {
+					t.Fatalf("row %d differs", i)
+				}
+			}
+			// What was read writes back to the same bytes.
+			var buf bytes.Buffer
+			if err := Write(&buf, hdus...); err != nil {
+				t.Fatal(err)
+			}
+			orig, _ := os.ReadFile(path)
+			if !bytes.Equal(buf.Bytes(), orig) {
+				t.Errorf("%d of %d rows: rewritten file differs from the streamed one", c.rows, c.announced)
+			}
+		})
 	}
 }
 

@@ -73,8 +73,10 @@ func TestContrastRejects(t *testing.T) {
 		{"dark", make([]float64, 16), 4, 2},
 		{"NaN peak", []float64{math.Inf(1), 0, 0, 0}, 2, 1},
 	} {
-		if _, err := Contrast(c.psf, c.size, c.pad, out); err == nil {
-			t.Errorf("%s: accepted", c.name)
-		}
+		t.Run(c.name, func(t *testing.T) {
+			if _, err := Contrast(c.psf, c.size, c.pad, out); err == nil {
+				t.Errorf("%s: accepted", c.name)
+			}
+		})
 	}
 }
