@@ -73,6 +73,12 @@ func TestControlRequests(t *testing.T) {
 	if out, err := run("leak", "0.02"); err != nil || !strings.Contains(out, "/ 0.02") {
 		t.Fatalf("ctl leak 0.02: %v\n%s", err, out)
 	}
+	if out, err := run("optimise-gains", "--frames", "512", "--dry-run"); err != nil || !strings.Contains(out, "modal gains found (not applied) for") {
+		t.Fatalf("ctl optimise-gains --dry-run: %v\n%s", err, out)
+	}
+	if _, err := run("optimise-gains", "--frames", "many"); err == nil || !strings.Contains(err.Error(), "not a frame count") {
+		t.Fatalf("ctl optimise-gains --frames many: %v", err)
+	}
 	before := status()
 	for _, c := range []struct {
 		name string
@@ -86,6 +92,10 @@ func TestControlRequests(t *testing.T) {
 		{"leak -1", func() error { _, err := r.Client.SetLeak(ctx, &stillskyv1.SetLeakRequest{Leak: -1}); return err }, codes.InvalidArgument},
 		{"modal gains wrong length", func() error {
 			_, err := r.Client.SetModalGains(ctx, &stillskyv1.SetModalGainsRequest{Gains: []float64{1, 1}})
+			return err
+		}, codes.InvalidArgument},
+		{"optimise-gains on 10 frames", func() error {
+			_, err := r.Client.OptimiseModalGains(ctx, &stillskyv1.OptimiseModalGainsRequest{Frames: 10})
 			return err
 		}, codes.InvalidArgument},
 		{"telemetry decimation 0", func() error {
