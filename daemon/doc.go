@@ -24,8 +24,9 @@
 // with no sockets. Frame assembly and validation is a pure value (assembly.go).
 // The files: session.go (device connections), realtime.go, assembly.go, state.go,
 // stats.go (status figures), interlock.go; control.go (Control API handlers),
-// params.go, calibration.go, status.go; metrics.go, telemetry.go, liveview.go,
-// persist.go, auth.go, rtsched.go (threads and memory).
+// params.go, calibration.go, status.go; metrics.go, telemetry.go (the ring of
+// recent frames), record.go (recordings read from it), liveview.go, persist.go,
+// auth.go, rtsched.go (threads and memory).
 //
 // The real-time goroutine has an OS thread of its own only when pinned or under
 // SCHED_FIFO (see Realtime); otherwise it runs unlocked, on whichever thread the
