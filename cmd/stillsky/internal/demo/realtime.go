@@ -9,6 +9,9 @@ import (
 	"slices"
 	"time"
 
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
 	"stillsky/controller/mvm"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/rig"
@@ -168,8 +171,11 @@ func phaseContext(ctx context.Context, budgeted bool, budget time.Duration) (con
 
 // budgetEnded turns the end of a phase's budget (its context's deadline, with
 // the run's own ctx still live) into a normal end of the phase, said on out.
+// The deadline shows either as the context's error or, when gRPC's own timer
+// fires first, as a DeadlineExceeded status of the call in flight.
 func budgetEnded(ctx context.Context, err error, out io.Writer) error {
-	if err != nil && ctx.Err() == nil && errors.Is(err, context.DeadlineExceeded) {
+	deadline := errors.Is(err, context.DeadlineExceeded) || status.Code(err) == codes.DeadlineExceeded
+	if err != nil && ctx.Err() == nil && deadline {
 		fmt.Fprintln(out, "  (phase ended at its lockstep time budget)")
 		return nil
 	}
