@@ -142,8 +142,9 @@ func (d *Daemon) selectSource(ctx context.Context, src stillskyv1.Source) bool {
 
 // calibrationSettings turns a request into calibrator and reconstructor settings,
 // filling the defaults: pokes of a tenth of the stroke, Hadamard patterns from
-// HadamardActuators actuators up, two frames per pattern (one for Hadamard
-// patterns), one frame more settling than the loop delay.
+// HadamardActuators actuators up unless the request asks for single pokes, two
+// frames per pattern (one for Hadamard patterns), one frame more settling than
+// the loop delay.
 func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (controller.CalibrationConfig, controller.ReconstructorConfig, error) {
 	cc := controller.CalibrationConfig{
 		Actuators:        g.actuators,
@@ -151,7 +152,10 @@ func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (control
 		Amplitude:        req.GetAmplitudeM(),
 		FramesPerPattern: int(req.GetFramesPerPattern()),
 		SettleFrames:     max(g.delayFrames, 1) + 1,
-		Hadamard:         req.GetHadamard() || g.actuators >= HadamardActuators,
+		Hadamard:         req.GetHadamard() || (g.actuators >= HadamardActuators && !req.GetSinglePokes()),
+	}
+	if req.GetHadamard() && req.GetSinglePokes() {
+		return cc, controller.ReconstructorConfig{}, fmt.Errorf("hadamard and single_pokes: ask for one pattern kind, not both")
 	}
 	if g.lockstep {
 		cc.SettleFrames = g.delayFrames

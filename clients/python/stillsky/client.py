@@ -206,6 +206,7 @@ class Client:
         modes_kept: int = 0,
         max_condition: float = 0,
         tikhonov: float = 0,
+        single_pokes: bool = False,
         progress: Optional[Callable[[str, int, int], None]] = None,
         timeout: Optional[float] = None,
     ) -> pb.ReconstructorInfo:
@@ -213,7 +214,9 @@ class Client:
 
         Zero values take the daemon's defaults. progress(phase, done, total) is
         called for every progress message ("pokes", "inverting", "done"). Returns
-        the new reconstructor's description. The loop must be open."""
+        the new reconstructor's description. The loop must be open. hadamard or
+        single_pokes (not both) choose the poke patterns at any size; neither
+        takes the daemon's default (Hadamard from 1000 actuators up)."""
         req = pb.CalibrateRequest(
             amplitude_m=amplitude_m,
             frames_per_pattern=frames_per_pattern,
@@ -221,6 +224,7 @@ class Client:
             modes_kept=modes_kept,
             max_condition=max_condition,
             tikhonov=tikhonov,
+            single_pokes=single_pokes,
         )
         info = None
         try:

@@ -1047,7 +1047,10 @@ type CalibrateRequest struct {
 	// Truncated SVD: drop modes whose singular value is below the largest over this.
 	MaxCondition float64 `protobuf:"fixed64,5,opt,name=max_condition,json=maxCondition,proto3" json:"max_condition,omitempty"`
 	// Tikhonov regularisation weight (> 0 selects Tikhonov instead of truncated SVD).
-	Tikhonov      float64 `protobuf:"fixed64,6,opt,name=tikhonov,proto3" json:"tikhonov,omitempty"`
+	Tikhonov float64 `protobuf:"fixed64,6,opt,name=tikhonov,proto3" json:"tikhonov,omitempty"`
+	// Use single-actuator pokes at any size, overriding the Hadamard default from
+	// 1000 actuators up; refused together with hadamard.
+	SinglePokes   bool `protobuf:"varint,7,opt,name=single_pokes,json=singlePokes,proto3" json:"single_pokes,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1122,6 +1125,13 @@ func (x *CalibrateRequest) GetTikhonov() float64 {
 		return x.Tikhonov
 	}
 	return 0
+}
+
+func (x *CalibrateRequest) GetSinglePokes() bool {
+	if x != nil {
+		return x.SinglePokes
+	}
+	return false
 }
 
 // CalibrateResponse reports progress; the last message has done == total and the
@@ -2122,7 +2132,7 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x14SetModalGainsRequest\x12\x14\n" +
 	"\x05gains\x18\x01 \x03(\x01R\x05gains\"O\n" +
 	"\x15SetModalGainsResponse\x126\n" +
-	"\x06status\x18\x01 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status\"\xdd\x01\n" +
+	"\x06status\x18\x01 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status\"\x80\x02\n" +
 	"\x10CalibrateRequest\x12\x1f\n" +
 	"\vamplitude_m\x18\x01 \x01(\x01R\n" +
 	"amplitudeM\x12,\n" +
@@ -2131,7 +2141,8 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\n" +
 	"modes_kept\x18\x04 \x01(\rR\tmodesKept\x12#\n" +
 	"\rmax_condition\x18\x05 \x01(\x01R\fmaxCondition\x12\x1a\n" +
-	"\btikhonov\x18\x06 \x01(\x01R\btikhonov\"\x99\x01\n" +
+	"\btikhonov\x18\x06 \x01(\x01R\btikhonov\x12!\n" +
+	"\fsingle_pokes\x18\a \x01(\bR\vsinglePokes\"\x99\x01\n" +
 	"\x11CalibrateResponse\x12\x14\n" +
 	"\x05phase\x18\x01 \x01(\tR\x05phase\x12\x12\n" +
 	"\x04done\x18\x02 \x01(\rR\x04done\x12\x14\n" +

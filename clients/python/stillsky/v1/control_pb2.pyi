@@ -15,20 +15,22 @@ LOOP_STATE_TRIPPED: LoopState
 LOOP_STATE_UNSPECIFIED: LoopState
 
 class CalibrateRequest(_message.Message):
-    __slots__ = ["amplitude_m", "frames_per_pattern", "hadamard", "max_condition", "modes_kept", "tikhonov"]
+    __slots__ = ["amplitude_m", "frames_per_pattern", "hadamard", "max_condition", "modes_kept", "single_pokes", "tikhonov"]
     AMPLITUDE_M_FIELD_NUMBER: _ClassVar[int]
     FRAMES_PER_PATTERN_FIELD_NUMBER: _ClassVar[int]
     HADAMARD_FIELD_NUMBER: _ClassVar[int]
     MAX_CONDITION_FIELD_NUMBER: _ClassVar[int]
     MODES_KEPT_FIELD_NUMBER: _ClassVar[int]
+    SINGLE_POKES_FIELD_NUMBER: _ClassVar[int]
     TIKHONOV_FIELD_NUMBER: _ClassVar[int]
     amplitude_m: float
     frames_per_pattern: int
     hadamard: bool
     max_condition: float
     modes_kept: int
+    single_pokes: bool
     tikhonov: float
-    def __init__(self, amplitude_m: _Optional[float] = ..., frames_per_pattern: _Optional[int] = ..., hadamard: bool = ..., modes_kept: _Optional[int] = ..., max_condition: _Optional[float] = ..., tikhonov: _Optional[float] = ...) -> None: ...
+    def __init__(self, amplitude_m: _Optional[float] = ..., frames_per_pattern: _Optional[int] = ..., hadamard: bool = ..., modes_kept: _Optional[int] = ..., max_condition: _Optional[float] = ..., tikhonov: _Optional[float] = ..., single_pokes: bool = ...) -> None: ...
 
 class CalibrateResponse(_message.Message):
     __slots__ = ["done", "phase", "reconstructor", "total"]

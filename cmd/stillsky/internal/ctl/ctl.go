@@ -26,7 +26,7 @@ import (
 )
 
 // Usage lists the verbs.
-const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard] | save FILE | load FILE | " + RecordUsage
+const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard | --single-pokes] | save FILE | load FILE | " + RecordUsage
 
 // Run performs one verb against the Control API on conn and writes the result to out.
 func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out io.Writer) error {
@@ -132,10 +132,17 @@ func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out 
 	case "calibrate":
 		req := &stillskyv1.CalibrateRequest{}
 		for _, a := range rest {
-			if a != "--hadamard" {
-				return fmt.Errorf("calibrate: unknown option %q (only --hadamard)", a)
+			switch a {
+			case "--hadamard":
+				req.Hadamard = true
+			case "--single-pokes":
+				req.SinglePokes = true
+			default:
+				return fmt.Errorf("calibrate: unknown option %q (only --hadamard or --single-pokes)", a)
 			}
-			req.Hadamard = true
+		}
+		if req.Hadamard && req.SinglePokes {
+			return fmt.Errorf("calibrate: --hadamard and --single-pokes exclude each other")
 		}
 		return Calibrate(ctx, c, req, out)
 	case "save":

@@ -140,6 +140,9 @@ func TestControlRequests(t *testing.T) {
 	if _, err := run("gain", "abc"); err == nil {
 		t.Error("ctl gain abc accepted")
 	}
+	if _, err := run("calibrate", "--hadamard", "--single-pokes"); err == nil {
+		t.Error("ctl calibrate accepted both --hadamard and --single-pokes")
+	}
 	if _, err := run("frobnicate"); err == nil {
 		t.Error("ctl accepted an unknown verb")
 	}
