@@ -295,6 +295,9 @@ func wavefront() *dashboard.DashboardBuilder {
 		WithPanel(series(id, "Frame period: loop and bench", "Frame period the loop learned from the camera and the one the bench runs at.", units.Seconds, 12, 8).
 			WithTarget(target(q("stillsky_frame_period_seconds"), "loop {{instance}}")).
 			WithTarget(target(q("stillsky_bench_frame_period_seconds"), "bench {{instance}}"))).
+		WithPanel(series(id, "Raw contrast by separation", "Azimuthal mean of the bench's one-second science PSF at 2, 5, 10 and 20 λ/D over its peak (bench series only where the bench is scraped); the dark hole of a corrected PSF reaches to the control radius, (actuators across − 1)/2 · λ/D, beyond which the contrast rises to the uncorrected halo.", units.Short, 24, 8).
+			ScaleDistribution(common.NewScaleDistributionConfigBuilder().Type(common.ScaleDistributionLog).Log(10)).
+			WithTarget(target(q("stillsky_bench_raw_contrast_ratio"), "{{separation_lambda_over_d}} λ/D {{instance}}"))).
 		WithPanel(series(id, "Error budget by term", "Residual phase variance at the science wavelength that the loop predicts for each term (fitting, aliasing, servo lag, noise) and in total, from its own turbulence estimate and gain, in rad².", units.Short, 12, 8).
 			WithTarget(target(q("stillsky_budget_residual_square_radians"), "{{term}} {{instance}}"))).
 		WithPanel(series(id, "Strehl ratio: budget, estimate and bench truth", "Maréchal Strehl of the predicted total beside the loop's slope-based estimate and the bench's true Strehl (where the bench is scraped).", units.PercentUnit, 12, 8).
