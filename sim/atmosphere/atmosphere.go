@@ -10,9 +10,10 @@ import (
 
 // LayerConfig describes one frozen-flow layer.
 type LayerConfig struct {
-	// Altitude in metres above the telescope (>= 0). The bench looks at one on-axis
-	// star, so every layer is sampled over the same pupil footprint and the altitude
-	// is carried for the record only.
+	// Altitude in metres above the telescope (>= 0). OPD looks at one on-axis star
+	// at infinity, where every layer is sampled over the same pupil footprint;
+	// OPDView samples each layer where a beacon's cone or an offset direction
+	// crosses it.
 	Altitude float64
 	// Fraction of the integrated Cn² in this layer, in (0, 1]; the fractions of all
 	// layers sum to 1. The layer's own r0 is r0·Fraction^(−3/5).
@@ -105,6 +106,7 @@ type Atmosphere struct {
 	df     float64
 	stride int // row stride of the stored screens: size plus the periodic extension
 	layers []*layer
+	alt    []float64 // each layer's altitude along the line of sight (times sec z), metres
 	waves  *waveTable
 	coef   shCoef
 	rowBuf [2][]float32 // one row of a layer's vertically interpolated window, per column phase
@@ -174,6 +176,7 @@ func New(c Config, p *optics.Pupil) (*Atmosphere, error) {
 			l.running = true
 		}
 		a.layers = append(a.layers, l)
+		a.alt = append(a.alt, lc.Altitude/math.Cos(c.ZenithDeg*math.Pi/180))
 	}
 	return a, nil
 }
