@@ -6,6 +6,7 @@ import (
 	"github.com/prometheus/client_golang/prometheus"
 	"github.com/prometheus/client_golang/prometheus/promauto"
 
+	"stillsky/daemon/supervisor"
 	"stillsky/internal/buildinfo"
 )
 
@@ -52,6 +53,8 @@ type metrics struct {
 	budget                             [len(budgetTerms)]prometheus.Gauge
 	budgetStrehl, r0, tau0, outerScale prometheus.Gauge
 	wind, slopeNoise                   prometheus.Gauge
+	// The unattended-operation supervisor (daemon/supervisor); all 0 without it.
+	supervisor *supervisor.Metrics
 }
 
 func newMetrics() *metrics {
@@ -151,6 +154,7 @@ func newMetrics() *metrics {
 	if err := buildinfo.Register(m.reg); err != nil {
 		panic(err) // a fresh registry cannot hold a duplicate
 	}
+	m.supervisor = supervisor.NewMetrics(m.reg)
 	return m
 }
 

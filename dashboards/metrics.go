@@ -47,6 +47,8 @@ var KnownMetrics = []Metric{
 	{Name: "stillsky_estimated_outer_scale_meters", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_estimated_wind_speed_meters_per_second", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_estimated_slope_noise_radians", Type: "gauge", Exporter: "loop"},
+	{Name: "stillsky_supervisor_state", Type: "gauge", Labels: []string{"state"}, Exporter: "loop"},
+	{Name: "stillsky_supervisor_transitions_total", Type: "counter", Labels: []string{"from", "to"}, Exporter: "loop"},
 
 	{Name: "stillsky_build_info", Type: "gauge", Labels: []string{"version", "goversion"}, Exporter: "bench"},
 	{Name: "stillsky_bench_frames_total", Type: "counter", Exporter: "bench"},
