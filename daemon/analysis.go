@@ -20,11 +20,13 @@ import (
 )
 
 // The loop's analysis of itself runs beside it, never on the real-time
-// goroutine: every analysisPeriod the real-time goroutine copies a block of
-// consecutive frames (slopes and the command answering each) into a capture the
-// analysis goroutine armed (Config.AnalysisPeriod), and the analysis goroutine turns it into
-// pseudo-open-loop slopes, the turbulence estimate (r0, L0, wind, τ0) and the
-// error budget at the current gain, which the metrics export.
+// goroutine: every analysisPeriod the analysis goroutine reads a block of
+// consecutive frames (slopes, the command answering each and the lag of the
+// command the mirror held) from the telemetry ring, the same one the telemetry
+// stream and recordings read, and turns it into pseudo-open-loop slopes, the
+// turbulence estimate (r0, L0, wind, τ0) and the error budget at the current
+// gain, which the metrics export. The real-time goroutine does nothing for it
+// beyond filling the ring.
 const (
 	analysisPeriod = 10 * time.Second
 	analysisFrames = 2048
@@ -37,21 +39,19 @@ const (
 	gainSegment = 256
 )
 
-// capture is a block of consecutive frames. The analysis goroutine allocates it
-// and arms it; the real-time goroutine fills it (offer) and disarms it when full,
-// signalling done. The atomic armed flag and the channel order the two goroutines'
-// accesses, so the buffers need no lock.
+// capture is a block of consecutive frames, copied out of the telemetry ring by
+// the analysis goroutine alone.
 type capture struct {
-	armed        atomic.Bool
 	slopes, cmds [][]float32
 	lag          []int
 	count        int
-	next         uint64
-	done         chan struct{}
+	next         uint64 // the frame number the block needs next
+	seq          uint64 // the ring's sequence number to read next (0: start at the newest)
+	x            *telemetrySample
 }
 
 func newCapture(frames, slopes, actuators int) *capture {
-	c := &capture{slopes: make([][]float32, frames), cmds: make([][]float32, frames), lag: make([]int, frames), done: make(chan struct{}, 1)}
+	c := &capture{slopes: make([][]float32, frames), cmds: make([][]float32, frames), lag: make([]int, frames)}
 	for i := range frames {
 		c.slopes[i] = make([]float32, slopes)
 		c.cmds[i] = make([]float32, actuators)
@@ -59,43 +59,59 @@ func newCapture(frames, slopes, actuators int) *capture {
 	return c
 }
 
-// offer is called by the real-time goroutine for every delivered frame: while
-// the capture is armed it copies the frame and the command answering it. A gap
-// in frame numbers, or a state in which the mirror is not driven by the loop or
-// held flat, restarts the block. It allocates nothing.
-func (rt *realtime) offer(f *stillskyv1.StreamFramesResponse) {
-	c := rt.u.capture.Load()
-	if c == nil || !c.armed.Load() {
-		return
+// reset empties the block; it starts again from the ring's next frame.
+func (c *capture) reset() { c.count, c.seq = 0, 0 }
+
+// take copies the frames the ring b holds past the last one taken into the
+// block and says whether the block is full. A gap in frame numbers (a frame
+// dropped, or lost to the ring by a reader a whole ring behind), or a state in
+// which the mirror is neither driven by the loop nor held flat, restarts the
+// block.
+func (c *capture) take(b *telemetryBuffer) bool {
+	if c.x == nil || len(c.x.slopes) != len(b.slots[0].slopes) || len(c.x.cmd) != len(b.slots[0].cmd) {
+		c.x = b.sample()
 	}
-	num := f.GetFrameNumber()
-	if (rt.state != stateClosed && rt.state != stateOpen) || (c.count > 0 && num != c.next) {
-		c.count = 0
+	if len(c.slopes[0]) != len(c.x.slopes) || len(c.cmds[0]) != len(c.x.cmd) {
+		return false
 	}
-	if len(c.slopes[0]) != len(rt.slopes) || len(c.cmds[0]) != len(rt.cmd) {
-		return
+	if c.seq == 0 {
+		c.seq, c.count = b.written.Load()+1, 0
 	}
-	i := c.count
-	copy(c.slopes[i], rt.slopes)
-	copy(c.cmds[i], rt.cmd)
-	c.lag[i] = rt.applyLag(f, c, i)
-	c.count++
-	c.next = num + 1
-	if c.count == len(c.slopes) {
-		c.armed.Store(false)
-		select {
-		case c.done <- struct{}{}:
-		default:
+	for c.count < len(c.slopes) {
+		switch b.read(c.seq, c.x) {
+		case readNotYet:
+			return false
+		case readOverrun:
+			// Fell a ring behind: start again from the newest frame.
+			c.seq, c.count = b.written.Load(), 0
+			continue
 		}
+		c.seq++
+		x := c.x
+		if (x.state != stateClosed && x.state != stateOpen) || (c.count > 0 && x.frame != c.next) {
+			c.count = 0
+			if x.state != stateClosed && x.state != stateOpen {
+				continue
+			}
+		}
+		i := c.count
+		copy(c.slopes[i], x.slopes)
+		copy(c.cmds[i], x.cmd)
+		c.lag[i] = x.lag
+		c.count++
+		c.next = x.frame + 1
 	}
+	return true
 }
 
 // applyLag returns how many frames before f the command the mirror held during
 // f's exposure was computed. A lockstep camera says so (its delay). A
 // free-running one shows the command that had reached the mirror by the
 // exposure's start, a frame period before its readout: the newest acknowledged
-// by then, as the calibration counts it; if none is, the lag of the frame before.
-func (rt *realtime) applyLag(f *stillskyv1.StreamFramesResponse, c *capture, i int) int {
+// by then, as the calibration counts it; if none is, the lag of the frame
+// before. It runs on the real-time goroutine for every frame and allocates
+// nothing.
+func (rt *realtime) applyLag(f *stillskyv1.StreamFramesResponse) int {
 	if rt.g.lockstep {
 		return max(rt.g.delayFrames, 1)
 	}
@@ -110,10 +126,7 @@ func (rt *realtime) applyLag(f *stillskyv1.StreamFramesResponse, c *capture, i i
 			}
 		}
 	}
-	if i > 0 {
-		return c.lag[i-1]
-	}
-	return 2
+	return rt.lastLag
 }
 
 // series returns the pseudo-open-loop projections of a full capture: for each
@@ -247,35 +260,43 @@ func (d *Daemon) prepare() (*geometry, *describes, *controller.Reconstructor, er
 	return g, desc, r, nil
 }
 
-// record arms a capture of n frames and waits for it; the caller holds an.mu.
+// record reads n consecutive frames from the telemetry ring, from the next
+// one on; the caller holds an.mu.
 func (d *Daemon) record(ctx context.Context, g *geometry, n int) (*capture, error) {
 	c := d.an.buf
 	if c == nil || len(c.slopes) != n || len(c.slopes[0]) != g.slopes || len(c.cmds[0]) != g.actuators {
 		c = newCapture(n, g.slopes, g.actuators)
 		d.an.buf = c
 	}
-	c.count = 0
-	d.u.capture.Store(c)
-	defer d.u.capture.Store(nil)
-	c.armed.Store(true)
+	c.reset()
 	wait := time.Duration(float64(n)/g.frameRate*3*float64(time.Second)) + 2*time.Second
-	t := time.NewTimer(wait)
-	defer t.Stop()
-	select {
-	case <-c.done:
-		return c, nil
-	case <-t.C:
-		// The real-time goroutine may be copying a frame into it still: a
-		// capture given up is not reused.
-		c.armed.Store(false)
-		d.an.buf = nil
-		return nil, status.Errorf(codes.DeadlineExceeded, "analysis: %d consecutive frames did not come within %v", n, wait)
-	case <-ctx.Done():
-		c.armed.Store(false)
-		d.an.buf = nil
-		return nil, ctx.Err()
+	deadline := time.NewTimer(wait)
+	defer deadline.Stop()
+	tick := time.NewTicker(analysisPoll)
+	defer tick.Stop()
+	var b *telemetryBuffer
+	for {
+		if cur := d.u.telemetry.buf.Load(); cur != b {
+			// A new device session: its ring, from its next frame.
+			b = cur
+			c.reset()
+		}
+		if b != nil && c.take(b) {
+			return c, nil
+		}
+		select {
+		case <-tick.C:
+		case <-deadline.C:
+			return nil, status.Errorf(codes.DeadlineExceeded, "analysis: %d consecutive frames did not come within %v", n, wait)
+		case <-ctx.Done():
+			return nil, ctx.Err()
+		}
 	}
 }
+
+// analysisPoll is how often the analysis reads the telemetry ring while it
+// takes a block: well inside the ring's second of frames.
+const analysisPoll = 5 * time.Millisecond
 
 // loopModel returns the loop's temporal model at the gain in use.
 func (d *Daemon) loopModel(g *geometry, lag int) analysis.Loop {

@@ -9,7 +9,7 @@ import (
 )
 
 // TestCaptureGivesPseudoOpenLoop drives the unit frame by frame in closed loop
-// with a capture armed: the captured frames, less the interaction matrix times
+// and takes a capture from the telemetry ring: the captured frames, less the interaction matrix times
 // the command the capture says the mirror held, give back the turbulence's own
 // slopes (the pseudo-open-loop slopes) exactly; and for a free-running camera the
 // held command is found from the mirror's acknowledgements.
@@ -25,8 +25,10 @@ func TestCaptureGivesPseudoOpenLoop(t *testing.T) {
 	}
 	const n = 30
 	c := newCapture(n, 40, 12)
-	b.u.capture.Store(c)
-	c.armed.Store(true)
+	ring := b.u.telemetry.buf.Load()
+	if c.take(ring) {
+		t.Fatal("capture full before any frame")
+	}
 	var sky [][]float32
 	for range n {
 		for i := range b.sky {
@@ -35,9 +37,7 @@ func TestCaptureGivesPseudoOpenLoop(t *testing.T) {
 		sky = append(sky, append([]float32(nil), b.sky...))
 		b.step()
 	}
-	select {
-	case <-c.done:
-	default:
+	if !c.take(ring) {
 		t.Fatalf("capture of %d frames not done: %d taken", n, c.count)
 	}
 	pol := make([]float64, 40)
@@ -58,15 +58,64 @@ func TestCaptureGivesPseudoOpenLoop(t *testing.T) {
 	// the command of frame k − 2.
 	b.rt.g.lockstep = false
 	c = newCapture(10, 40, 12)
-	b.u.capture.Store(c)
-	c.armed.Store(true)
+	c.take(ring)
 	for range 10 {
 		b.step()
 		b.rt.acked[b.num%readoutRing].Store(b.now + 3e4)
 	}
-	for i := 1; i < 10; i++ {
+	if !c.take(ring) {
+		t.Fatalf("free-running capture of 10 frames not done: %d taken", c.count)
+	}
+	// Frames 0 and 1 look back to lockstep frames the mirror never
+	// acknowledged, so they keep the lag of the frame before.
+	for i := 2; i < 10; i++ {
 		if c.lag[i] != 2 {
 			t.Errorf("free-running frame %d: lag %d, want 2", i, c.lag[i])
 		}
+	}
+}
+
+// TestCaptureRestarts: a block the ring cannot give whole restarts — a frame
+// taken in hold (mirror neither driven by the loop nor held flat) is left
+// out, and one the ring lost to being read a whole ring late gives a
+// block of the newest frames only.
+func TestCaptureRestarts(t *testing.T) {
+	b := newBenchSim(t, 40, 12, Interlocks{})
+	if err := b.u.install(b.params(0.3)); err != nil {
+		t.Fatal(err)
+	}
+	ring := b.u.telemetry.buf.Load()
+	c := newCapture(5, 40, 12)
+	c.take(ring)
+	b.u.request(stateHold)
+	for range 3 { // held: not taken
+		b.step()
+	}
+	if st := b.u.current(); st != stateHold {
+		t.Fatalf("unit in state %s, want hold", stateNames[st])
+	}
+	if c.take(ring) || c.count != 0 {
+		t.Fatalf("frames in hold taken: %d", c.count)
+	}
+	b.u.request(stateClosed)
+	for range 4 {
+		b.step()
+	}
+	if c.take(ring) || c.count != 4 {
+		t.Fatalf("after 4 closed-loop frames: %d taken, want 4", c.count)
+	}
+	// More than a ring of frames before the next read: the frame after the 4
+	// taken is lost, so the block starts again at the newest frame.
+	for range len(ring.slots) + 10 {
+		b.step()
+	}
+	if c.take(ring) || c.count != 1 || c.next != b.num+1 {
+		t.Fatalf("after a ring of frames: %d taken up to frame %d, want 1 (the newest, %d)", c.count, c.next-1, b.num)
+	}
+	for range 4 {
+		b.step()
+	}
+	if !c.take(ring) || c.next != b.num+1 {
+		t.Fatalf("block of the newest 5 frames not full: %d taken up to frame %d (newest %d)", c.count, c.next-1, b.num)
 	}
 }

@@ -51,6 +51,8 @@ type realtime struct {
 	tags    [readoutRing]atomic.Uint64
 	acked   [readoutRing]atomic.Int64
 	period  int64 // ns
+	// lastLag is the previous frame's apply lag (applyLag), frames.
+	lastLag int
 	// ackBatch is how many commands the mirror may acknowledge at once outside
 	// a calibration (mirror protocol version 2).
 	ackBatch uint32
@@ -78,6 +80,7 @@ func newRealtime(u *unit, g *geometry) *realtime {
 		discard: make([]float32, g.actuators),
 		sent:    make([]float32, g.actuators),
 		state:   u.current(),
+		lastLag: 2,
 		guard:   guard{cfg: u.interlocks},
 		staleNs: int64(2e9 / g.frameRate),
 		period:  int64(1e9 / g.frameRate),
@@ -276,8 +279,8 @@ func (rt *realtime) delivered(f *stillskyv1.StreamFramesResponse, received, comp
 		rec.frame(received, received-f.GetReadoutEndNs(), computed-received, sent-received)
 	}
 	rt.publish(res)
-	u.telemetry.record(f.GetFrameNumber(), rt.state, rt.slopes, rt.cmd, res, frameTimes{f.GetReadoutEndNs(), received, computed, sent})
-	rt.offer(f)
+	rt.lastLag = rt.applyLag(f)
+	u.telemetry.record(f.GetFrameNumber(), rt.state, rt.slopes, rt.cmd, res, rt.lastLag, frameTimes{f.GetReadoutEndNs(), received, computed, sent})
 }
 
 // reject counts a refused frame.

@@ -41,6 +41,9 @@ type telemetrySample struct {
 	slopes, cmd             []float32
 	slopeRMS, wfRMS, strehl float64
 	saturated               int
+	// lag is how many frames before this one the command the mirror held
+	// during its exposure was computed (the pseudo-open-loop slopes need it).
+	lag int
 	frameTimes
 }
 
@@ -77,7 +80,7 @@ func (t *telemetryRing) init(slopes, actuators int, rate float64) {
 }
 
 // record copies one frame into the ring; it never blocks and allocates nothing.
-func (t *telemetryRing) record(num uint64, s loopState, slopes, cmd []float32, res controller.Result, times frameTimes) {
+func (t *telemetryRing) record(num uint64, s loopState, slopes, cmd []float32, res controller.Result, lag int, times frameTimes) {
 	b := t.buf.Load()
 	if b == nil {
 		return
@@ -89,7 +92,7 @@ func (t *telemetryRing) record(num uint64, s loopState, slopes, cmd []float32, r
 		if len(x.slopes) == len(slopes) && len(x.cmd) == len(cmd) {
 			copy(x.slopes, slopes)
 			copy(x.cmd, cmd)
-			x.frame, x.state = num, s
+			x.frame, x.state, x.lag = num, s, lag
 			x.slopeRMS, x.wfRMS, x.strehl, x.saturated = res.SlopeRMS, res.ResidualRMS, res.Strehl, res.Saturated
 			x.frameTimes = times
 			slot.seq = seq

@@ -20,7 +20,7 @@ func TestTelemetryRing(t *testing.T) {
 	slopes, cmd := make([]float32, 6), make([]float32, 4)
 	put := func(num uint64) {
 		slopes[0], cmd[3] = float32(num), -float32(num)
-		r.record(num, stateClosed, slopes, cmd, controller.Result{Saturated: int(num % 7)}, frameTimes{readout: int64(num), sent: int64(num) + 5})
+		r.record(num, stateClosed, slopes, cmd, controller.Result{Saturated: int(num % 7)}, 1, frameTimes{readout: int64(num), sent: int64(num) + 5})
 	}
 	for num := uint64(1); num <= n+10; num++ {
 		put(100 + num)

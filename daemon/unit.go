@@ -40,8 +40,6 @@ type unit struct {
 
 	stats     runStats
 	telemetry telemetryRing
-	// capture, while set and armed, takes consecutive frames for the analysis.
-	capture atomic.Pointer[capture]
 }
 
 func newUnit(m *metrics, log *slog.Logger, interlocks Interlocks, rec *Recorder) *unit {
