@@ -80,16 +80,26 @@ func (t *TipTilt) Step(mx, my float64) (cx, cy float64, saturated, ok bool) {
 	}
 	p := t.params.Load()
 	keep := 1 - p.Leak
-	for i, m := range [2]float64{mx, my} {
-		c := keep*t.cmd[i] + p.Gain*m
-		if c > p.Stroke {
-			c, saturated = p.Stroke, true
-		} else if c < -p.Stroke {
-			c, saturated = -p.Stroke, true
-		}
-		t.cmd[i] = c
+	var sx, sy bool
+	t.cmd[0], sx = clampStroke(keep*t.cmd[0]+p.Gain*mx, p.Stroke)
+	t.cmd[1], sy = clampStroke(keep*t.cmd[1]+p.Gain*my, p.Stroke)
+	return t.cmd[0], t.cmd[1], sx || sy, true
+}
+
+// Offload adds the tilt (tx, ty), radians, taken off the deformable mirror by
+// TiltOffload.Apply, to the command and the integrator's state, clamped at the
+// stroke; it reports whether either axis was clamped (the part beyond the
+// stroke is then left for the loops to take up again). A non-finite tilt is
+// ignored.
+func (t *TipTilt) Offload(tx, ty float64) (saturated bool) {
+	if math.IsNaN(tx) || math.IsInf(tx, 0) || math.IsNaN(ty) || math.IsInf(ty, 0) {
+		return false
 	}
-	return t.cmd[0], t.cmd[1], saturated, true
+	s := t.params.Load().Stroke
+	var sx, sy bool
+	t.cmd[0], sx = clampStroke(t.cmd[0]+tx, s)
+	t.cmd[1], sy = clampStroke(t.cmd[1]+ty, s)
+	return sx || sy
 }
 
 // Command returns the current mirror command, radians per axis.
@@ -97,3 +107,13 @@ func (t *TipTilt) Command() (cx, cy float64) { return t.cmd[0], t.cmd[1] }
 
 // Reset zeroes the command (opening the loop flattens the mirror).
 func (t *TipTilt) Reset() { t.cmd = [2]float64{} }
+
+func clampStroke(c, s float64) (float64, bool) {
+	switch {
+	case c > s:
+		return s, true
+	case c < -s:
+		return -s, true
+	}
+	return c, false
+}
