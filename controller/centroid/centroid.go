@@ -6,7 +6,8 @@
 //
 // The frame layout is that of sim/detector: (Subapertures·Pixels)² 16-bit
 // pixels row by row, subaperture (r, c) owning the Pixels×Pixels window at
-// (r·Pixels, c·Pixels). Slopes come out in pixels, x for every valid
+// (r·Pixels, c·Pixels). Slopes come out in pixels as float32 (the controller's
+// slope type), x for every valid
 // subaperture first, then y, measured from the window's centre (Pixels−1)/2.
 //
 // Process and ProcessRows allocate nothing; a Calibration is immutable once
@@ -58,14 +59,16 @@ type Calibration struct {
 	// dark is the mean frame with the source off, in ADU (bias + dark current
 	// + background as captured).
 	dark []float32
-	// gain is 1/flat per pixel.
-	gain []float32
+	// gain is 1/flat per pixel; offset is dark·gain, so that a calibrated
+	// pixel is raw·gain − offset.
+	gain, offset []float32
 	// weight per window pixel (1 for CoG).
 	weight    []float32
 	method    Method
 	threshold float64 // fraction of the window's peak subtracted (>= 0, < 1)
-	ref       []float64
+	ref       []float32
 	satADU    uint16
+	hotRatio  float32
 	// windows: first pixel of each valid window.
 	start []int
 	// xs are the window coordinates minus the centre.
@@ -90,6 +93,12 @@ type Options struct {
 	// Reference slopes in pixels subtracted from the result (len 2·len(Valid));
 	// nil means zero.
 	Reference []float64
+	// HotRatio (0 = off, else > 1) flags a window whose brightest pixel
+	// exceeds HotRatio times each of its four neighbours (Flags.Hot). A
+	// Gaussian spot of rms σ pixels has neighbours at exp(−1/(2σ²)) of its
+	// peak: 0.5 for σ = 0.85, so 4 is a safe common-practice choice for
+	// spots of one pixel rms or more.
+	HotRatio float64
 	// Saturation is the raw value at or above which a pixel counts as saturated
 	// (1..65535; 0 means 65535).
 	Saturation uint16
@@ -105,7 +114,7 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 	seen := make([]bool, l.Subapertures*l.Subapertures)
 	c := &Calibration{layout: Layout{l.Subapertures, l.Pixels, append([]int(nil), l.Valid...)},
 		dark: make([]float32, n2), gain: make([]float32, n2), weight: make([]float32, l.Pixels*l.Pixels),
-		method: o.Method, threshold: o.Threshold, ref: make([]float64, 2*len(l.Valid)),
+		method: o.Method, threshold: o.Threshold, ref: make([]float32, 2*len(l.Valid)),
 		satADU: o.Saturation, start: make([]int, len(l.Valid)), xs: make([]float32, l.Pixels)}
 	for i, v := range l.Valid {
 		if v < 0 || v >= len(seen) || seen[v] {
@@ -138,6 +147,10 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 			}
 			c.gain[i] = 1 / v
 		}
+	}
+	c.offset = make([]float32, n2)
+	for i := range c.offset {
+		c.offset[i] = c.dark[i] * c.gain[i]
 	}
 	if !(o.Threshold >= 0 && o.Threshold < 1) {
 		return nil, fmt.Errorf("%w: threshold %v, want [0, 1)", ErrConfig, o.Threshold)
@@ -173,8 +186,14 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 				return nil, fmt.Errorf("%w: reference slope %d = %v, want finite within ±%d pixels", ErrConfig, i, v, l.Pixels)
 			}
 		}
-		copy(c.ref, o.Reference)
+		for i, v := range o.Reference {
+			c.ref[i] = float32(v)
+		}
 	}
+	if o.HotRatio != 0 && !(o.HotRatio > 1 && o.HotRatio < 1e6) {
+		return nil, fmt.Errorf("%w: hot ratio %v, want 0 (off) or > 1", ErrConfig, o.HotRatio)
+	}
+	c.hotRatio = float32(o.HotRatio)
 	if c.satADU == 0 {
 		c.satADU = 65535
 	}
@@ -192,11 +211,38 @@ type Flags struct {
 	// Dark windows: valid subapertures with no positive signal after
 	// calibration; their slopes are set to zero (the reference).
 	Dark int
+	// DeadRows: rows of a valid window whose every pixel reads 0 (a dead
+	// readout line counts once per window it crosses).
+	DeadRows int
+	// Hot windows: the brightest calibrated pixel exceeds HotRatio times the
+	// brightest of its four neighbours, which a spot wider than a pixel never
+	// does but a hot pixel or a cosmic-ray hit does.
+	Hot int
+}
+
+// isHot reports whether the window's peak pixel k stands alone.
+func (c *Calibration) isHot(work []float32, k int, peak float32) bool {
+	p := c.layout.Pixels
+	x, y := k%p, k/p
+	n := float32(0)
+	if x > 0 {
+		n = max(n, work[k-1])
+	}
+	if x < p-1 {
+		n = max(n, work[k+1])
+	}
+	if y > 0 {
+		n = max(n, work[k-p])
+	}
+	if y < p-1 {
+		n = max(n, work[k+p])
+	}
+	return peak > c.hotRatio*n
 }
 
 // Process computes the slopes of a whole frame into slopes (len 2·len(Valid)),
 // using work (len Pixels²) as scratch. It allocates nothing.
-func (c *Calibration) Process(frame []uint16, slopes []float64, work []float32) (Flags, error) {
+func (c *Calibration) Process(frame []uint16, slopes, work []float32) (Flags, error) {
 	side := c.layout.Side()
 	if len(frame) != side*side {
 		return Flags{}, fmt.Errorf("%w: frame of %d pixels, want %d", ErrLength, len(frame), side*side)
@@ -224,7 +270,7 @@ func (c *Calibration) RowsReady(rows int) int {
 // (to−from)·Side), so a camera's row chunk can be handed in as it arrives.
 // from and to must fall on window boundaries. It writes slopes[i] and
 // slopes[n+i] of those subapertures only and allocates nothing.
-func (c *Calibration) ProcessRows(frame []uint16, from, to int, slopes []float64, work []float32) (Flags, error) {
+func (c *Calibration) ProcessRows(frame []uint16, from, to int, slopes, work []float32) (Flags, error) {
 	l := c.layout
 	side, p, nv := l.Side(), l.Pixels, len(l.Valid)
 	if from < 0 || to > side || from >= to || from%p != 0 || to%p != 0 {
@@ -246,55 +292,77 @@ func (c *Calibration) ProcessRows(frame []uint16, from, to int, slopes []float64
 		}
 		st := c.start[i]
 		peak := float32(0)
-		sat := false
+		pk := 0
+		var top uint16
 		for y := 0; y < p; y++ {
 			o := st + y*side
 			raw := frame[o-base : o-base+p]
-			dk := c.dark[o : o+p]
-			gn := c.gain[o : o+p]
-			wk := work[y*p : y*p+p]
+			gn := c.gain[o : o+len(raw)]
+			off := c.offset[o : o+len(raw)]
+			wk := work[y*p : y*p+len(raw)]
+			var rowTop uint16
 			for x, a := range raw {
-				if a >= c.satADU {
-					sat = true
+				if a > rowTop {
+					rowTop = a
 				}
-				v := (float32(a) - dk[x]) * gn[x]
+				v := float32(a)*gn[x] - off[x]
 				wk[x] = v
 				if v > peak {
-					peak = v
+					peak, pk = v, y*p+x
 				}
 			}
+			if rowTop == 0 {
+				f.DeadRows++
+			}
+			top = max(top, rowTop)
 		}
-		if sat {
+		if top >= c.satADU {
 			f.Saturated++
+		}
+		if c.hotRatio > 0 && peak > 0 && c.isHot(work, pk, peak) {
+			f.Hot++
 		}
 		thr := float32(c.threshold) * peak
 		var s, sx, sy float32
 		for y := 0; y < p; y++ {
 			wk := work[y*p : y*p+p]
-			wt := c.weight[y*p : y*p+p]
-			yy := c.xs[y]
+			xs := c.xs[:len(wk)]
 			var rs, rx float32
-			for x, v := range wk {
-				if thr > 0 {
-					if v -= thr; v <= 0 {
-						continue
+			switch {
+			case c.method == CoG && thr > 0:
+				for x, v := range wk {
+					if v -= thr; v > 0 {
+						rs += v
+						rx += v * xs[x]
 					}
 				}
-				v *= wt[x]
-				rs += v
-				rx += v * c.xs[x]
+			case c.method == CoG:
+				for x, v := range wk {
+					rs += v
+					rx += v * xs[x]
+				}
+			default:
+				wt := c.weight[y*p : y*p+len(wk)]
+				for x, v := range wk {
+					if thr > 0 {
+						v = max(v-thr, 0)
+					}
+					v *= wt[x]
+					rs += v
+					rx += v * xs[x]
+				}
 			}
 			s += rs
 			sx += rx
-			sy += rs * yy
+			sy += rs * c.xs[y]
 		}
 		if s <= 0 {
 			f.Dark++
 			slopes[i], slopes[nv+i] = 0, 0
 			continue
 		}
-		slopes[i] = float64(sx/s) - c.ref[i]
-		slopes[nv+i] = float64(sy/s) - c.ref[nv+i]
+		slopes[i] = sx/s - c.ref[i]
+		slopes[nv+i] = sy/s - c.ref[nv+i]
 	}
 	return f, nil
 }

@@ -64,13 +64,13 @@ func TestNoiseFreeOffsets(t *testing.T) {
 	if err := d.Render(frame, off, rand.New(rand.NewPCG(1, 2))); err != nil {
 		t.Fatal(err)
 	}
-	got := make([]float64, 2*n)
+	got := make([]float32, 2*n)
 	if _, err := c.Process(frame, got, make([]float32, 64)); err != nil {
 		t.Fatal(err)
 	}
 	for i := range got {
 		// Rounding to whole ADU adds at most 0.5 ADU per pixel on 2000 e⁻.
-		if math.Abs(got[i]-off[i]) > 0.01 {
+		if math.Abs(float64(got[i])-off[i]) > 0.01 {
 			t.Errorf("slope %d = %.4f, want %.4f", i, got[i], off[i])
 		}
 	}
@@ -178,7 +178,7 @@ func TestCentroidNoise(t *testing.T) {
 			}
 			rng := rand.New(rand.NewPCG(7, 11))
 			frame := make([]uint16, pix*pix)
-			s := make([]float64, 2)
+			s := make([]float32, 2)
 			work := make([]float32, pix*pix)
 			xs := make([]float64, 0, 2*n)
 			for range n {
@@ -188,7 +188,7 @@ func TestCentroidNoise(t *testing.T) {
 				if _, err := c.Process(frame, s, work); err != nil {
 					t.Fatal(err)
 				}
-				xs = append(xs, s[0], s[1])
+				xs = append(xs, float64(s[0]), float64(s[1]))
 			}
 			got := stat.Variance(xs, nil)
 			mc := monteCarlo(tc.photons, tc.readout, tc.photonNoise, sigma, pix, n, rng)
@@ -293,7 +293,7 @@ func TestCalibrationFrames(t *testing.T) {
 	if err := d.Render(frame, off, rng); err != nil {
 		t.Fatal(err)
 	}
-	got := make([]float64, 2*n)
+	got := make([]float32, 2*n)
 	work := make([]float32, 64)
 	worst := func(o Options) float64 {
 		c := mustCal(t, o)
@@ -302,7 +302,7 @@ func TestCalibrationFrames(t *testing.T) {
 		}
 		w := 0.0
 		for i := range got {
-			w = math.Max(w, math.Abs(got[i]-off[i]))
+			w = math.Max(w, math.Abs(float64(got[i])-off[i]))
 		}
 		return w
 	}
@@ -334,14 +334,14 @@ func TestReferenceAndWCoG(t *testing.T) {
 	for i := range ref {
 		ref[i] = 0.05
 	}
-	got := make([]float64, 2*n)
+	got := make([]float32, 2*n)
 	work := make([]float32, 64)
 	c := mustCal(t, Options{Dark: biasFrame(100), Reference: ref})
 	if _, err := c.Process(frame, got, work); err != nil {
 		t.Fatal(err)
 	}
 	for i := range got {
-		if math.Abs(got[i]-0.15) > 0.01 {
+		if math.Abs(float64(got[i])-0.15) > 0.01 {
 			t.Fatalf("slope %d = %.4f, want 0.15 (0.2 less the 0.05 reference)", i, got[i])
 		}
 	}
@@ -354,7 +354,7 @@ func TestReferenceAndWCoG(t *testing.T) {
 	// σ_w²/(σ²+σ_w²) = 9/10.44 (product of Gaussians).
 	want := 0.2 * 9 / (9 + 1.44)
 	for i := range got {
-		if math.Abs(got[i]-want) > 0.01 {
+		if math.Abs(float64(got[i])-want) > 0.01 {
 			t.Fatalf("WCoG slope %d = %.4f, want %.4f", i, got[i], want)
 		}
 	}
@@ -373,7 +373,7 @@ func TestProcessRowsMatchesFrame(t *testing.T) {
 	if err := d.Render(frame, off, rand.New(rand.NewPCG(9, 9))); err != nil {
 		t.Fatal(err)
 	}
-	whole, chunked := make([]float64, 2*n), make([]float64, 2*n)
+	whole, chunked := make([]float32, 2*n), make([]float32, 2*n)
 	work := make([]float32, 64)
 	if _, err := c.Process(frame, whole, work); err != nil {
 		t.Fatal(err)
@@ -397,7 +397,7 @@ func TestProcessRowsMatchesFrame(t *testing.T) {
 // (unlit) window are counted in Flags.
 func TestBadFrames(t *testing.T) {
 	c := mustCal(t, Options{Dark: biasFrame(100), Saturation: 60000})
-	s, w := make([]float64, 2*len(grid)), make([]float32, 64)
+	s, w := make([]float32, 2*len(grid)), make([]float32, 64)
 	for _, tc := range []struct {
 		name       string
 		frame      []uint16
@@ -440,8 +440,29 @@ func TestBadFrames(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if f.Saturated != len(grid)-1 || f.Dark != 1 {
+	if f.Saturated != len(grid)-1 || f.Dark != 1 || f.DeadRows != 0 || f.Hot != 0 {
 		t.Errorf("flags %+v, want %d saturated and 1 dark", f, len(grid)-1)
+	}
+
+	// A hot pixel and a dead readout line on an ordinary frame.
+	h := mustCal(t, Options{Dark: biasFrame(100), HotRatio: 4})
+	d = mustDet(t, detCfg())
+	if err := d.Render(frame, make([]float64, 2*len(grid)), rand.New(rand.NewPCG(1, 1))); err != nil {
+		t.Fatal(err)
+	}
+	if f, err := h.Process(frame, s, w); err != nil || f != (Flags{}) {
+		t.Fatalf("clean frame: flags %+v, err %v; want none", f, err)
+	}
+	frame[1*32+9] = 30000 // subaperture 1 (row 0, column 1), a corner pixel
+	for x := range 32 {
+		frame[20*32+x] = 0 // detector row 20 crosses grid row 2: four windows
+	}
+	f, err = h.Process(frame, s, w)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if f.Hot != 1 || f.DeadRows != 4 {
+		t.Errorf("flags %+v, want 1 hot window and 4 dead window rows", f)
 	}
 }
 
@@ -453,9 +474,9 @@ func TestFrameAllocatesNothing(t *testing.T) {
 	if err := d.SetElongation(make([]detector.Elongation, len(grid))); err != nil {
 		t.Fatal(err)
 	}
-	c := mustCal(t, Options{Dark: biasFrame(100), Method: WCoG, WeightSigma: 2, Threshold: 0.1})
+	c := mustCal(t, Options{Dark: biasFrame(100), Method: WCoG, WeightSigma: 2, Threshold: 0.1, HotRatio: 4})
 	frame := make([]uint16, 32*32)
-	off, s, w := make([]float64, 2*len(grid)), make([]float64, 2*len(grid)), make([]float32, 64)
+	off, s, w := make([]float64, 2*len(grid)), make([]float32, 2*len(grid)), make([]float32, 64)
 	rng := rand.New(rand.NewPCG(1, 1))
 	if a := testing.AllocsPerRun(50, func() {
 		if err := d.Render(frame, off, rng); err != nil {
@@ -496,7 +517,7 @@ func BenchmarkProcess(b *testing.B) {
 	for i := range frame {
 		frame[i] = uint16(100 + i%37)
 	}
-	s, w := make([]float64, 2*len(valid)), make([]float32, 64)
+	s, w := make([]float32, 2*len(valid)), make([]float32, 64)
 	b.ResetTimer()
 	for range b.N {
 		if _, err := c.Process(frame, s, w); err != nil {
