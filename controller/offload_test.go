@@ -2,12 +2,14 @@ package controller_test
 
 import (
 	"math"
+	"math/rand/v2"
 	"strings"
 	"testing"
 
 	"stillsky/controller"
 	"stillsky/sim/dm"
 	"stillsky/sim/optics"
+	"stillsky/sim/wfs"
 )
 
 // planeFit returns the least-squares slopes (a, b) of w over the lit samples
@@ -69,7 +71,7 @@ func TestTiltOffloadKeepsTheCorrection(t *testing.T) {
 	}
 	rho, _ := planeFit(p, before)
 	rho /= 1e-7
-	t.Logf("tilt response of the 17×17 mirror, coupling 0.15: %.3f rad per m/m (2 for a surface that follows the command)", rho)
+	t.Logf("tilt response of the 17×17 mirror (%d valid actuators), coupling 0.15: %.3f rad per m/m (2 for a surface that follows the command)", len(pos), rho)
 	off, err := controller.NewTiltOffload(pos, 1, rho)
 	if err != nil {
 		t.Fatal(err)
@@ -134,5 +136,43 @@ func TestTiltOffloadRefused(t *testing.T) {
 				t.Errorf("error %v: want one naming %q", err, tc.want)
 			}
 		})
+	}
+}
+
+// BenchmarkTipTiltFrame is one frame of the tip-tilt loop as the daemon would
+// run it: the quad cell's estimate, the integrator's step, and the offload of
+// a 17×17 deformable mirror's tip-tilt.
+func BenchmarkTipTiltFrame(b *testing.B) {
+	p, err := optics.NewPupil(optics.PupilConfig{Diameter: 8, Obstruction: 0.14, N: 64})
+	if err != nil {
+		b.Fatal(err)
+	}
+	m, err := dm.New(p, dm.Config{Actuators: 17, Coupling: 0.15, Stroke: 5e-6, Margin: 0.5})
+	if err != nil {
+		b.Fatal(err)
+	}
+	off, err := controller.NewTiltOffload(m.Positions(), 0.1, 3.22)
+	if err != nil {
+		b.Fatal(err)
+	}
+	qc, err := wfs.NewQuadCell(wfs.QuadCellConfig{SpotSigma: 2.4e-6, Photons: 150, ReadNoise: 3})
+	if err != nil {
+		b.Fatal(err)
+	}
+	tt, err := controller.NewTipTilt(controller.TipTiltParams{Gain: 0.3, Leak: 0.001, Stroke: 1e-5})
+	if err != nil {
+		b.Fatal(err)
+	}
+	cmd := make([]float32, m.NumValid())
+	for k, q := range m.Positions() {
+		cmd[k] = float32(1e-8 * q[0])
+	}
+	rng := rand.New(rand.NewPCG(1, 2))
+	b.ReportAllocs()
+	for b.Loop() {
+		cx, cy := tt.Command()
+		mx, my := qc.Sense(2e-7-cx, -1e-7-cy, rng)
+		tt.Step(mx, my)
+		tt.Offload(off.Apply(cmd))
 	}
 }
