@@ -7,8 +7,8 @@
 // The frame layout is that of sim/detector: (Subapertures·Pixels)² 16-bit
 // pixels row by row, subaperture (r, c) owning the Pixels×Pixels window at
 // (r·Pixels, c·Pixels). Slopes come out in pixels as float32 (the controller's
-// slope type), x for every valid
-// subaperture first, then y, measured from the window's centre (Pixels−1)/2.
+// slope type), x then y for each valid subaperture in turn (slopes[2i],
+// slopes[2i+1], the bench's order), measured from the window's centre (Pixels−1)/2.
 //
 // Process and ProcessRows allocate nothing; a Calibration is immutable once
 // made and is meant to be swapped whole between frames through an
@@ -268,8 +268,8 @@ func (c *Calibration) RowsReady(rows int) int {
 // ProcessRows processes the valid subapertures whose windows lie entirely in
 // rows [from, to) of the frame; frame holds rows [from, to) only (len
 // (to−from)·Side), so a camera's row chunk can be handed in as it arrives.
-// from and to must fall on window boundaries. It writes slopes[i] and
-// slopes[n+i] of those subapertures only and allocates nothing.
+// from and to must fall on window boundaries. It writes slopes[2i] and
+// slopes[2i+1] of those subapertures only and allocates nothing.
 func (c *Calibration) ProcessRows(frame []uint16, from, to int, slopes, work []float32) (Flags, error) {
 	l := c.layout
 	side, p, nv := l.Side(), l.Pixels, len(l.Valid)
@@ -358,11 +358,11 @@ func (c *Calibration) ProcessRows(frame []uint16, from, to int, slopes, work []f
 		}
 		if s <= 0 {
 			f.Dark++
-			slopes[i], slopes[nv+i] = 0, 0
+			slopes[2*i], slopes[2*i+1] = 0, 0
 			continue
 		}
-		slopes[i] = sx/s - c.ref[i]
-		slopes[nv+i] = sy/s - c.ref[nv+i]
+		slopes[2*i] = sx/s - c.ref[2*i]
+		slopes[2*i+1] = sy/s - c.ref[2*i+1]
 	}
 	return f, nil
 }

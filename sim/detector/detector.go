@@ -184,8 +184,8 @@ func (d *Detector) SetElongation(e []Elongation) error {
 }
 
 // Render writes one frame into dst (len Side²) with the spot of valid
-// subaperture i offset by (offsets[i], offsets[len(Valid)+i]) pixels from its
-// window's centre (x offsets first, then y, as slopes are ordered), drawing
+// subaperture i offset by (offsets[2i], offsets[2i+1]) pixels from its
+// window's centre (x then y per subaperture, as the bench orders slopes), drawing
 // noise from rng. Pixels of invalid subapertures get background, dark and bias
 // only. It allocates nothing.
 func (d *Detector) Render(dst []uint16, offsets []float64, rng *rand.Rand) error {
@@ -201,7 +201,7 @@ func (d *Detector) Render(dst []uint16, offsets []float64, rng *rand.Rand) error
 	k := 0
 	for s := 0; s < n*n; s++ {
 		if d.validSet[s] {
-			d.spot(offsets[k], offsets[nv+k], d.elong[k])
+			d.spot(offsets[2*k], offsets[2*k+1], d.elong[k])
 			k++
 		} else {
 			clear(d.expect)
