@@ -38,7 +38,8 @@
 //	Holding     → Clouded      held for HoldTimeout (action Open)
 //	Clouded     → Closed       flux ≥ ReturnFraction·reference for ReturnDwell (action Close)
 //	Clouded     → Acquiring    clouded for LongPause: the reference is stale, measure again
-//	any         → Tripped      the loop reports an interlock trip
+//	any but Manual → Tripped   the loop reports an interlock trip (under an operator
+//	                           the supervisor only watches, so Manual stays)
 //	Tripped     → Acquiring    the trip was reset by an operator (loop no longer tripped)
 //	any         → Manual       operator command open, close or hold
 //	Manual      → Acquiring    operator command resume
