@@ -30,6 +30,9 @@ func runBudget(args []string) error {
 	if err != nil {
 		return err
 	}
+	if s.Eye != nil {
+		return fmt.Errorf("--scenario %s: an eye scenario has no layered atmosphere, which the error budget models", *scn)
+	}
 	var list []int64
 	if *simulate {
 		for _, f := range strings.Split(*seeds, ",") {

@@ -6,6 +6,7 @@ import (
 
 	"stillsky/sim/atmosphere"
 	"stillsky/sim/dm"
+	"stillsky/sim/eye"
 	"stillsky/sim/optics"
 	"stillsky/sim/scenario"
 	"stillsky/sim/wfs"
@@ -19,6 +20,15 @@ const SciencePad = 2
 // uses the scenario seed directly.
 const noiseStream = 0x5eed_0f_5105
 
+// Aberration is the bench's source of wavefront error in front of the mirror:
+// the layered atmosphere (atmosphere.Atmosphere) or an eye (eye.Eye). Advance
+// moves it on by dt seconds; OPD writes its wavefront in metres on the pupil
+// grid (N*N values). Neither may allocate: they run once per frame.
+type Aberration interface {
+	Advance(dt float64)
+	OPD(out []float64)
+}
+
 // System is the optical bench of one scenario in lockstep: SetCommand sets the
 // mirror shape that the following Frame calls see, and each Frame advances the
 // turbulence by one frame period and senses the residual
@@ -27,7 +37,7 @@ const noiseStream = 0x5eed_0f_5105
 type System struct {
 	sc       *scenario.Scenario
 	pupil    *optics.Pupil
-	atm      *atmosphere.Atmosphere
+	atm      Aberration
 	mirror   *dm.Mirror
 	sensor   *wfs.ShackHartmann
 	imager   *optics.Imager
@@ -67,13 +77,7 @@ func NewSystem(s *scenario.Scenario) (*System, error) {
 	if err != nil {
 		return nil, fmt.Errorf("bench: scenario %s: %w", s.Name, err)
 	}
-	layers := make([]atmosphere.LayerConfig, len(s.Atmosphere.Layers))
-	for i, l := range s.Atmosphere.Layers {
-		layers[i] = atmosphere.LayerConfig{Altitude: l.Altitude, Fraction: l.Fraction,
-			WindSpeed: l.WindSpeed, WindDirectionDeg: l.WindDirectionDeg}
-	}
-	atm, err := atmosphere.New(atmosphere.Config{R0: s.Atmosphere.R0, L0: s.Atmosphere.L0,
-		ZenithDeg: s.Atmosphere.ZenithDeg, Layers: layers, Seed: s.Atmosphere.Seed}, p)
+	atm, err := newAberration(s, p)
 	if err != nil {
 		return nil, fmt.Errorf("bench: scenario %s: %w", s.Name, err)
 	}
@@ -102,7 +106,7 @@ func NewSystem(s *scenario.Scenario) (*System, error) {
 	n := p.N * p.N
 	sys := &System{
 		sc: s, pupil: p, atm: atm, mirror: m, sensor: sensor, imager: im,
-		noise:  rand.New(rand.NewPCG(uint64(s.Atmosphere.Seed), noiseStream)),
+		noise:  rand.New(rand.NewPCG(uint64(seed(s)), noiseStream)),
 		period: 1 / s.Loop.FrameRate,
 		cmd:    make([]float32, m.NumValid()),
 		turb:   true, noiseOn: w.Noise,
@@ -115,6 +119,26 @@ func NewSystem(s *scenario.Scenario) (*System, error) {
 		sys.response = newSparseResponse(m, sensor, n)
 	}
 	return sys, nil
+}
+
+// newAberration builds the scenario's aberration source: its eye when it has
+// one (refused if the beacon's exposure is above the configured limit),
+// otherwise its layered atmosphere.
+func newAberration(s *scenario.Scenario, p *optics.Pupil) (Aberration, error) {
+	if e := s.Eye; e != nil {
+		if err := e.CheckExposure(); err != nil {
+			return nil, err
+		}
+		return eye.New(eye.Config{Seed: e.Seed, AccommodationRMS: e.AccommodationRMS,
+			Low: e.AccommodationLow, High: e.AccommodationHigh, Step: 1 / s.Loop.FrameRate}, p)
+	}
+	layers := make([]atmosphere.LayerConfig, len(s.Atmosphere.Layers))
+	for i, l := range s.Atmosphere.Layers {
+		layers[i] = atmosphere.LayerConfig{Altitude: l.Altitude, Fraction: l.Fraction,
+			WindSpeed: l.WindSpeed, WindDirectionDeg: l.WindDirectionDeg}
+	}
+	return atmosphere.New(atmosphere.Config{R0: s.Atmosphere.R0, L0: s.Atmosphere.L0,
+		ZenithDeg: s.Atmosphere.ZenithDeg, Layers: layers, Seed: s.Atmosphere.Seed}, p)
 }
 
 // sparseResponse holds, per valid actuator, the slopes that a unit command
@@ -163,6 +187,14 @@ func (r *sparseResponse) addTo(m *dm.Mirror, cmd []float32, acc []float64) {
 			acc[i] += v * val[j]
 		}
 	}
+}
+
+// seed is the scenario's random seed: its eye's or its atmosphere's.
+func seed(s *scenario.Scenario) int64 {
+	if s.Eye != nil {
+		return s.Eye.Seed
+	}
+	return s.Atmosphere.Seed
 }
 
 // Scenario returns the scenario the system was built from.

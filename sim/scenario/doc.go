@@ -15,6 +15,19 @@
 // wfs.background_e_per_pixel (0), wfs.centroid_threshold (0), wfs.noise (true),
 // dm.margin_pitches (0.75). Scenario.YAML writes every key, defaults included.
 //
+// An eye scenario (retinal imaging) has an "eye" section in place of
+// "atmosphere": the eye's aberrations drawn from the population statistics of
+// normal eyes (eye.study: thibos2002, Thibos, Hong, Bradley & Cheng 2002,
+// JOSA A 19, 2329, 6 mm pupil, so telescope.diameter_m must be 0.006),
+// fluctuating with accommodation (eye.accommodation_rms_d, default 0.1 D;
+// eye.accommodation_band_hz, default [1, 2], below the loop's Nyquist
+// frequency), and the beacon's safety fields eye.beacon_power_w,
+// eye.beacon_exposure_s and eye.exposure_limit_j, all required: Parse (and the
+// bench) refuse a beacon whose power × exposure time exceeds the limit, with
+// ErrExposure and the values named. That check is indicative only: exposure
+// limits follow ANSI Z136.1 and ISO 15004-2, and local medical-device and
+// ethics rules and licensed practice govern any real use. eye.seed defaults to 1.
+//
 // All quantities are SI: metres, seconds, radians, hertz; YAML keys carry their unit
 // (diameter_m, r0_m, wind_speed_m_per_s, frame_rate_hz). Telescope and site names in
 // the built-ins are generic descriptive labels, not real telescopes or sites.

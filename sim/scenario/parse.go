@@ -309,7 +309,11 @@ func validate(r *rawScenario) (*Scenario, error) {
 			s.Telescope.SpiderWidth = c.float("telescope.spider_width_m", t.SpiderWidth, closed(0, d/10), " m (diameter_m/10)", 0)
 		}
 	}
-	if c.section("atmosphere", r.Atmosphere != nil) {
+	switch {
+	case r.Eye != nil && r.Atmosphere != nil:
+		c.fail("eye", "a scenario has either an atmosphere or an eye section, not both")
+	}
+	if r.Eye == nil && c.section("atmosphere", r.Atmosphere != nil) {
 		a := r.Atmosphere
 		s.Atmosphere = Atmosphere{
 			R0:        c.float("atmosphere.r0_m", a.R0, openLow(0, 5), " m at 500 nm"),
@@ -354,6 +358,9 @@ func validate(r *rawScenario) (*Scenario, error) {
 	}
 	if c.section("science", r.Science != nil) {
 		s.Science.Wavelength = c.float("science.wavelength_m", r.Science.Wavelength, closed(3e-7, 2.5e-5), " m")
+	}
+	if r.Eye != nil {
+		s.Eye = c.eye(r.Eye, s)
 	}
 	if len(c.errs) > 0 {
 		return nil, errors.Join(c.errs...)

@@ -7,12 +7,13 @@ type rawScenario struct {
 	Name        *string        `yaml:"name"`
 	Description *string        `yaml:"description"`
 	Telescope   *rawTelescope  `yaml:"telescope"`
-	Atmosphere  *rawAtmosphere `yaml:"atmosphere"`
+	Atmosphere  *rawAtmosphere `yaml:"atmosphere,omitempty"`
 	GuideStar   *rawGuideStar  `yaml:"guide_star"`
 	WFS         *rawWFS        `yaml:"wfs"`
 	DM          *rawDM         `yaml:"dm"`
 	Loop        *rawLoop       `yaml:"loop"`
 	Science     *rawScience    `yaml:"science"`
+	Eye         *rawEye        `yaml:"eye,omitempty"`
 }
 
 type rawTelescope struct {
@@ -83,7 +84,7 @@ func (s *Scenario) toRaw() *rawScenario {
 		layers[i] = &rawLayer{&x.Altitude, &x.Fraction, &x.WindSpeed, &x.WindDirectionDeg}
 	}
 	sci := s.Science.Wavelength
-	return &rawScenario{
+	raw := &rawScenario{
 		Name:        &s.Name,
 		Description: &s.Description,
 		Telescope:   &rawTelescope{&t.Name, &t.Site, &t.Diameter, &t.Obstruction, &t.Spiders, &t.SpiderWidth, &t.PupilSamples},
@@ -95,4 +96,8 @@ func (s *Scenario) toRaw() *rawScenario {
 		Loop:    &rawLoop{&l.FrameRate, &l.DelayFrames},
 		Science: &rawScience{&sci},
 	}
+	if s.Eye != nil {
+		raw.Atmosphere, raw.Eye = nil, s.Eye.toRaw()
+	}
+	return raw
 }

@@ -32,6 +32,9 @@ type Scenario struct {
 	DM          DM
 	Loop        Loop
 	Science     Science
+	// Eye, when not nil, is the aberration source in place of Atmosphere (whose
+	// fields are then zero): the retinal-imaging scenarios (see Eye).
+	Eye *Eye
 }
 
 // Telescope is the entrance pupil and its sampling (YAML section "telescope").

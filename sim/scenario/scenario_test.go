@@ -26,6 +26,7 @@ func TestBuiltinsLoad(t *testing.T) {
 		"default": {3.6, 24, 1000},
 		"large":   {8, 40, 1000},
 		"xao":     {8, 64, 2000},
+		"eye":     {0.006, 9, 30},
 	}
 	for _, name := range names {
 		t.Run(name, func(t *testing.T) {

@@ -31,7 +31,7 @@ type BudgetSummary struct {
 // reconstructor, or an unstable gain).
 func predictBudget(scn *scenario.Scenario, r *rig.Rig, gain, leak float64) *BudgetSummary {
 	rec := r.Loop.Reconstructor()
-	if rec == nil || !(gain > 0) {
+	if rec == nil || !(gain > 0) || scn.Eye != nil { // the budget models a layered atmosphere
 		return nil
 	}
 	sys, err := bench.NewSystem(scn)
