@@ -2,6 +2,7 @@ package bench
 
 import (
 	"fmt"
+	"math"
 	"math/rand/v2"
 
 	"stillsky/sim/atmosphere"
@@ -65,6 +66,10 @@ type System struct {
 	// Science exposure: the PSFs added by Expose.
 	psf []float64
 	exp exposure
+	// tilt is the tip-tilt mirror's correction, radians on the sky per axis:
+	// the residual is atmosphere − 2·surface − (tilt_x·x + tilt_y·y). Zero
+	// (the default) leaves every frame as it was without a tip-tilt mirror.
+	tilt [2]float64
 }
 
 // NewSystem builds the bench for scenario s. Errors name the part that refused
@@ -296,6 +301,13 @@ func (s *System) observe(slopes []float32) {
 	}
 	copy(s.acc, s.atmSlopes)
 	s.response.addTo(s.mirror, s.cmd, s.acc)
+	if s.tilt != [2]float64{} {
+		// A plane's mean gradient over any subaperture is the plane's slope.
+		for k := 0; k < len(s.acc); k += 2 {
+			s.acc[k] -= s.tilt[0]
+			s.acc[k+1] -= s.tilt[1]
+		}
+	}
 	for i, v := range s.acc {
 		slopes[i] = float32(v)
 	}
@@ -316,11 +328,65 @@ func (s *System) ensureResidual() {
 		for i, a := range s.atmOPD {
 			s.residual[i] = a - 2*s.surface[i]
 		}
+	} else {
+		for i, h := range s.surface {
+			s.residual[i] = -2 * h
+		}
+	}
+	if s.tilt == [2]float64{} {
 		return
 	}
-	for i, h := range s.surface {
-		s.residual[i] = -2 * h
+	n := s.pupil.N
+	for iy := range n {
+		y := s.pupil.Coord(iy)
+		for ix := range n {
+			s.residual[iy*n+ix] -= s.tilt[0]*s.pupil.Coord(ix) + s.tilt[1]*y
+		}
 	}
+}
+
+// SetTipTilt sets the tip-tilt mirror's correction (tx, ty), radians of tilt
+// on the sky per axis, seen from the next Observe or Frame on: the residual
+// becomes atmosphere − 2·surface − (tx·x + ty·y), and every subaperture's
+// slopes lose (tx, ty). It panics on a non-finite value.
+func (s *System) SetTipTilt(tx, ty float64) {
+	if math.IsNaN(tx) || math.IsInf(tx, 0) || math.IsNaN(ty) || math.IsInf(ty, 0) {
+		panic(fmt.Sprintf("bench: SetTipTilt(%g, %g): must be finite", tx, ty))
+	}
+	s.tilt = [2]float64{tx, ty}
+}
+
+// ResidualTilt returns the mean gradient (G-tilt) of the last frame's residual
+// OPD over the lit pupil, radians per axis: what a natural-star tilt sensor on
+// axis measures. It allocates nothing.
+func (s *System) ResidualTilt() (tx, ty float64) {
+	s.ensureResidual()
+	n, m := s.pupil.N, s.pupil.Mask
+	var gx, gy float64
+	var nx, ny int
+	for iy := range n {
+		for ix := range n {
+			i := iy*n + ix
+			if m[i] == 0 {
+				continue
+			}
+			if ix+1 < n && m[i+1] != 0 {
+				gx += s.residual[i+1] - s.residual[i]
+				nx++
+			}
+			if iy+1 < n && m[i+n] != 0 {
+				gy += s.residual[i+n] - s.residual[i]
+				ny++
+			}
+		}
+	}
+	if nx > 0 {
+		tx = gx / (float64(nx) * s.pupil.Scale)
+	}
+	if ny > 0 {
+		ty = gy / (float64(ny) * s.pupil.Scale)
+	}
+	return tx, ty
 }
 
 // ResidualRMS returns the rms over the pupil of the residual OPD of the last
