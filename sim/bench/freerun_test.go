@@ -90,9 +90,17 @@ func TestFreeRunDelay(t *testing.T) {
 			t.Fatalf("frame %d on the calibration source with a flat mirror has non-zero slopes", f.num)
 		}
 	}
-	// The camera stamps each frame with its readout tick: t0 + j·period.
-	t0 := got[0].readout - int64(got[0].num)*period
-	tick := func(num uint64) int64 { return t0 + int64(num)*period }
+	// The camera stamps each frame with its readout tick, one period after the
+	// one before, except where its clock, far behind on an overloaded machine,
+	// resynchronises (a jump of more than 10 periods; sim/bench/clock.go).
+	readout := func(num uint64) (int64, bool) {
+		for i := len(got) - 1; i >= 0; i-- {
+			if got[i].num == num {
+				return got[i].readout, true
+			}
+		}
+		return 0, false
+	}
 	// Poke the mirror, then flatten it, and so on: each time, the first frame
 	// to show the new shape must be the one whose previous tick came after the
 	// command arrived. A consumer slowed down (the race detector, a busy
@@ -135,22 +143,30 @@ func TestFreeRunDelay(t *testing.T) {
 				t.Fatalf("frame %d after frame %d showed the command, lit %v, no longer shows it", f.num, first.num, lit)
 			}
 		}
-		if prev.num+1 != first.num {
+		before, ok1 := readout(first.num - 1)
+		earlier, ok2 := readout(first.num - 2)
+		if prev.num+1 != first.num || !ok1 || !ok2 {
 			continue // frames lost at the transition
 		}
 		checked++
 		// Both times come from the bench's CLOCK_MONOTONIC: the rule is exact.
-		if !(arrived <= tick(first.num-1) && arrived > tick(first.num-2)) {
+		if !(arrived <= before && arrived > earlier) {
 			t.Errorf("command arrived %d µs after tick %d; first frame to show it: %d (want %d)",
-				(arrived-tick(first.num-2))/1000, first.num-2, first.num, first.num)
+				(arrived-earlier)/1000, first.num-2, first.num, first.num)
 		}
 	}
 	if checked == 0 {
 		t.Fatal("frames were lost around every transition")
 	}
-	for _, f := range got {
-		if d := f.readout - tick(f.num); d != 0 {
-			t.Fatalf("frame %d stamped %d ns off the camera clock's tick", f.num, d)
+	for i := 1; i < len(got); i++ {
+		a, b := got[i-1], got[i]
+		if b.num <= a.num {
+			t.Fatalf("frame %d came after frame %d", b.num, a.num)
+		}
+		gap, want := b.readout-a.readout, int64(b.num-a.num)*period
+		if gap != want && gap <= want+10*period {
+			t.Fatalf("frames %d and %d stamped %d ns apart, want %d (a whole number of periods, or a resynchronisation of more than 10 periods)",
+				a.num, b.num, gap, want)
 		}
 	}
 }
