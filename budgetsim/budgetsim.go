@@ -227,6 +227,9 @@ type Measured struct {
 	// Residual is the mean over frames of the residual phase variance (piston
 	// removed).
 	Residual float64
+	// HighOrder is the mean over frames of the residual phase variance with
+	// piston, tip and tilt removed.
+	HighOrder float64
 	// Strehl is the long-exposure Strehl ratio of the science PSF.
 	Strehl float64
 	// Fitting is the mean variance left by the best mirror fit (RunConfig.Fitting).
@@ -316,6 +319,7 @@ func (r *Rig) Run(c RunConfig) (Measured, error) {
 		}
 		m.Saturated += res.Saturated
 		m.Residual += toPhase(sys.ResidualRMS()) / float64(c.Frames)
+		m.HighOrder += toPhase(sys.ResidualRMSNoTilt()) / float64(c.Frames)
 		if c.StrehlEvery > 0 && (k-c.Warmup)%c.StrehlEvery == 0 {
 			sys.Expose()
 		}

@@ -30,6 +30,12 @@ type Aberration interface {
 	OPD(out []float64)
 }
 
+// viewer is an Aberration that can be seen along other lines of sight than the
+// on-axis star at infinity (the atmosphere's layers).
+type viewer interface {
+	OPDView(out []float64, v atmosphere.View) error
+}
+
 // System is the optical bench of one scenario in lockstep: SetCommand sets the
 // mirror shape that the following Frame calls see, and each Frame advances the
 // turbulence by one frame period and senses the residual
@@ -52,6 +58,20 @@ type System struct {
 	atmOPD   []float64
 	surface  []float64
 	residual []float64
+	// The views of the sensor (a laser beacon's cone, or the natural star on the
+	// axis) and of the science camera (its offset). With both on the axis
+	// sensOPD is atmOPD and sensResidual is residual, and nothing changes from a
+	// single line of sight; otherwise the sensor's OPD is taken along its own
+	// view, less the atmosphere's tip and tilt for a beacon (see removeTilt).
+	sensView, sciView atmosphere.View
+	viewer            viewer
+	split             bool
+	beacon            bool
+	sensOPD           []float64
+	sensResidual      []float64
+	tiltX, tiltY      []float64 // mask-weighted, piston-free x and y over the pupil
+	tiltNorm          [3]float64
+	noTilt            []float64 // scratch of ResidualRMSNoTilt
 	// frameTurb is whether the current frame sees the atmosphere; stale, that
 	// its residual has not been formed yet (see ensureResidual).
 	frameTurb, stale bool
@@ -118,6 +138,25 @@ func NewSystem(s *scenario.Scenario) (*System, error) {
 		atmOPD: make([]float64, n), surface: make([]float64, n), residual: make([]float64, n),
 		linear: w.Mode == wfs.Geometric,
 	}
+	sys.sensOPD, sys.sensResidual = sys.atmOPD, sys.residual
+	cz := math.Cos(s.Atmosphere.ZenithDeg * math.Pi / 180)
+	const arcsec = math.Pi / (180 * 3600)
+	sys.sciView = atmosphere.View{OffsetX: s.Science.OffsetX * arcsec, OffsetY: s.Science.OffsetY * arcsec}
+	if g := s.LaserGuideStar; g != nil {
+		sys.sensView = atmosphere.View{BeaconHeight: g.Height / cz}
+		sys.beacon = true
+	}
+	if sys.beacon || sys.sciView != (atmosphere.View{}) {
+		v, ok := atm.(viewer)
+		if !ok {
+			return nil, fmt.Errorf("bench: scenario %s: laser_guide_star and science offsets need the atmosphere as the aberration source", s.Name)
+		}
+		sys.viewer = v
+		sys.split = true
+		sys.sensOPD, sys.sensResidual = make([]float64, n), make([]float64, n)
+	}
+	sys.tiltX, sys.tiltY, sys.noTilt = make([]float64, n), make([]float64, n), make([]float64, n)
+	sys.tiltNorm = tiltModes(p, sys.tiltX, sys.tiltY)
 	if sys.linear {
 		sys.atmSlopes = make([]float64, sensor.NumSlopes())
 		sys.acc = make([]float64, sensor.NumSlopes())
@@ -256,7 +295,20 @@ func (s *System) Advance() {
 		if !s.frozen {
 			s.atm.Advance(s.period)
 		}
-		s.atm.OPD(s.atmOPD)
+		if !s.split {
+			s.atm.OPD(s.atmOPD)
+		} else {
+			// The views were validated by the scenario's ranges; an error here is a bug.
+			if err := s.viewer.OPDView(s.atmOPD, s.sciView); err != nil {
+				panic(err)
+			}
+			if err := s.viewer.OPDView(s.sensOPD, s.sensView); err != nil {
+				panic(err)
+			}
+			if s.beacon {
+				s.removeTilt(s.sensOPD)
+			}
+		}
 	}
 	if !s.linear {
 		return
@@ -266,9 +318,9 @@ func (s *System) Advance() {
 		rng = s.noise
 	}
 	if !s.frameTurb {
-		clear(s.atmOPD) // a calibration source: flat, but the sensor's noise stays
+		clear(s.sensOPD) // a calibration source: flat, but the sensor's noise stays
 	}
-	s.sensor.SenseGeometric(s.atmOPD, rng, s.atmSlopes)
+	s.sensor.SenseGeometric(s.sensOPD, rng, s.atmSlopes)
 }
 
 // Observe completes the frame Advance started with the mirror shaped by cmd
@@ -296,7 +348,7 @@ func (s *System) observe(slopes []float32) {
 		if s.noiseOn {
 			rng = s.noise
 		}
-		s.sensor.Sense(s.residual, rng, slopes)
+		s.sensor.Sense(s.sensResidual, rng, slopes)
 		return
 	}
 	copy(s.acc, s.atmSlopes)
@@ -328,9 +380,17 @@ func (s *System) ensureResidual() {
 		for i, a := range s.atmOPD {
 			s.residual[i] = a - 2*s.surface[i]
 		}
+		if s.split {
+			for i, a := range s.sensOPD {
+				s.sensResidual[i] = a - 2*s.surface[i]
+			}
+		}
 	} else {
 		for i, h := range s.surface {
 			s.residual[i] = -2 * h
+		}
+		if s.split {
+			copy(s.sensResidual, s.residual)
 		}
 	}
 	if s.tilt == [2]float64{} {
@@ -340,9 +400,76 @@ func (s *System) ensureResidual() {
 	for iy := range n {
 		y := s.pupil.Coord(iy)
 		for ix := range n {
-			s.residual[iy*n+ix] -= s.tilt[0]*s.pupil.Coord(ix) + s.tilt[1]*y
+			p := s.tilt[0]*s.pupil.Coord(ix) + s.tilt[1]*y
+			s.residual[iy*n+ix] -= p
+			if s.split {
+				s.sensResidual[iy*n+ix] -= p
+			}
 		}
 	}
+}
+
+// tiltModes writes into x and y the pupil coordinates of the lit samples, less
+// their mask-weighted means (0 outside the pupil), and returns Σm·x², Σm·y² and
+// Σm·x·y for the least-squares fit of removeTilt.
+func tiltModes(p *optics.Pupil, x, y []float64) [3]float64 {
+	n := p.N
+	var sw, sx, sy float64
+	for iy := 0; iy < n; iy++ {
+		for ix := 0; ix < n; ix++ {
+			m := p.Mask[iy*n+ix]
+			sw += m
+			sx += m * float64(ix)
+			sy += m * float64(iy)
+		}
+	}
+	mx, my := sx/sw, sy/sw
+	var nrm [3]float64
+	for iy := 0; iy < n; iy++ {
+		for ix := 0; ix < n; ix++ {
+			i := iy*n + ix
+			if m := p.Mask[i]; m != 0 {
+				x[i] = (float64(ix) - mx) * p.Scale
+				y[i] = (float64(iy) - my) * p.Scale
+				nrm[0] += m * x[i] * x[i]
+				nrm[1] += m * y[i] * y[i]
+				nrm[2] += m * x[i] * y[i]
+			}
+		}
+	}
+	return nrm
+}
+
+// removeTilt subtracts from opd its least-squares tip and tilt over the pupil
+// (weighted by the mask). A laser beacon's light goes up and comes back down
+// through the same air: the atmosphere's tilt moves the beacon on the sky by the
+// same angle as it moves the returning image, so the sensor never sees it
+// (common practice). The mirror's tilt, in the return path only, stays seen.
+func (s *System) removeTilt(opd []float64) {
+	var bx, by float64
+	for i, m := range s.pupil.Mask {
+		if m != 0 {
+			bx += m * s.tiltX[i] * opd[i]
+			by += m * s.tiltY[i] * opd[i]
+		}
+	}
+	xx, yy, xy := s.tiltNorm[0], s.tiltNorm[1], s.tiltNorm[2]
+	det := xx*yy - xy*xy
+	ax, ay := (bx*yy-by*xy)/det, (by*xx-bx*xy)/det
+	for i := range opd {
+		opd[i] -= ax*s.tiltX[i] + ay*s.tiltY[i]
+	}
+}
+
+// ResidualRMSNoTilt returns the rms over the pupil of the residual OPD of the
+// last frame with its piston, tip and tilt removed (least squares over the
+// pupil), in metres: the high-order part, which a laser beacon's sensor alone
+// must correct. It allocates nothing.
+func (s *System) ResidualRMSNoTilt() float64 {
+	s.ensureResidual()
+	copy(s.noTilt, s.residual)
+	s.removeTilt(s.noTilt)
+	return optics.ResidualRMS(s.pupil, s.noTilt)
 }
 
 // SetTipTilt sets the tip-tilt mirror's correction (tx, ty), radians of tilt
@@ -457,6 +584,12 @@ func (s *System) Residual() []float64 {
 	s.ensureResidual()
 	return s.residual
 }
+
+// SensorAtmosphere returns the turbulence OPD the wavefront sensor sees in the
+// current frame: Atmosphere itself for an on-axis natural star, otherwise the
+// OPD along the beacon's cone less its tip and tilt. Read-only, valid until the
+// next Advance.
+func (s *System) SensorAtmosphere() []float64 { return s.sensOPD }
 
 // Atmosphere returns the turbulence OPD of the current frame on the pupil grid
 // (metres) while the turbulence is on. The slice is the system's own:

@@ -335,6 +335,16 @@ func validate(r *rawScenario) (*Scenario, error) {
 			Throughput: c.float("guide_star.throughput", g.Throughput, openLow(0, 1), ""),
 		}
 	}
+	if g := r.LGS; g != nil {
+		s.LaserGuideStar = &LaserGuideStar{
+			Height:    c.float("laser_guide_star.height_m", g.Height, closed(20000, 200000), " m above the telescope"),
+			Thickness: c.float("laser_guide_star.thickness_m", g.Thickness, closed(0, 50000), " m"),
+		}
+		if d := s.Telescope.Diameter; d > 0 {
+			s.LaserGuideStar.LaunchX = c.float("laser_guide_star.launch_x_m", g.LaunchX, closed(-d, d), " m (± telescope.diameter_m)", 0)
+			s.LaserGuideStar.LaunchY = c.float("laser_guide_star.launch_y_m", g.LaunchY, closed(-d, d), " m (± telescope.diameter_m)", 0)
+		}
+	}
 	if c.section("wfs", r.WFS != nil) {
 		s.WFS = c.wfs(r.WFS, s)
 	}
@@ -358,6 +368,8 @@ func validate(r *rawScenario) (*Scenario, error) {
 	}
 	if c.section("science", r.Science != nil) {
 		s.Science.Wavelength = c.float("science.wavelength_m", r.Science.Wavelength, closed(3e-7, 2.5e-5), " m")
+		s.Science.OffsetX = c.float("science.offset_x_arcsec", r.Science.OffsetX, closed(-120, 120), " arcsec", 0)
+		s.Science.OffsetY = c.float("science.offset_y_arcsec", r.Science.OffsetY, closed(-120, 120), " arcsec", 0)
 	}
 	if r.Eye != nil {
 		s.Eye = c.eye(r.Eye, s)

@@ -9,6 +9,7 @@ type rawScenario struct {
 	Telescope   *rawTelescope  `yaml:"telescope"`
 	Atmosphere  *rawAtmosphere `yaml:"atmosphere,omitempty"`
 	GuideStar   *rawGuideStar  `yaml:"guide_star"`
+	LGS         *rawLGS        `yaml:"laser_guide_star,omitempty"`
 	WFS         *rawWFS        `yaml:"wfs"`
 	DM          *rawDM         `yaml:"dm"`
 	Loop        *rawLoop       `yaml:"loop"`
@@ -48,6 +49,13 @@ type rawGuideStar struct {
 	Throughput *float64 `yaml:"throughput"`
 }
 
+type rawLGS struct {
+	Height    *float64 `yaml:"height_m"`
+	Thickness *float64 `yaml:"thickness_m"`
+	LaunchX   *float64 `yaml:"launch_x_m"`
+	LaunchY   *float64 `yaml:"launch_y_m"`
+}
+
 type rawWFS struct {
 	Subapertures         *int     `yaml:"subapertures"`
 	Mode                 *string  `yaml:"mode"`
@@ -74,6 +82,8 @@ type rawLoop struct {
 
 type rawScience struct {
 	Wavelength *float64 `yaml:"wavelength_m"`
+	OffsetX    *float64 `yaml:"offset_x_arcsec"`
+	OffsetY    *float64 `yaml:"offset_y_arcsec"`
 }
 
 // toRaw is the inverse of validate: every field present, defaults written out.
@@ -83,8 +93,13 @@ func (s *Scenario) toRaw() *rawScenario {
 	for i, x := range a.Layers {
 		layers[i] = &rawLayer{&x.Altitude, &x.Fraction, &x.WindSpeed, &x.WindDirectionDeg}
 	}
-	sci := s.Science.Wavelength
+	sci := s.Science
+	var lgs *rawLGS
+	if g := s.LaserGuideStar; g != nil {
+		lgs = &rawLGS{&g.Height, &g.Thickness, &g.LaunchX, &g.LaunchY}
+	}
 	raw := &rawScenario{
+		LGS:         lgs,
 		Name:        &s.Name,
 		Description: &s.Description,
 		Telescope:   &rawTelescope{&t.Name, &t.Site, &t.Diameter, &t.Obstruction, &t.Spiders, &t.SpiderWidth, &t.PupilSamples},
@@ -94,7 +109,7 @@ func (s *Scenario) toRaw() *rawScenario {
 			&w.ReadNoise, &w.Background, &w.CentroidThreshold, &w.Noise},
 		DM:      &rawDM{&d.Actuators, &d.Coupling, &d.Stroke, &d.Margin},
 		Loop:    &rawLoop{&l.FrameRate, &l.DelayFrames},
-		Science: &rawScience{&sci},
+		Science: &rawScience{&sci.Wavelength, &sci.OffsetX, &sci.OffsetY},
 	}
 	if s.Eye != nil {
 		raw.Atmosphere, raw.Eye = nil, s.Eye.toRaw()

@@ -28,10 +28,14 @@ type Scenario struct {
 	Telescope   Telescope
 	Atmosphere  Atmosphere
 	GuideStar   GuideStar
-	WFS         WFS
-	DM          DM
-	Loop        Loop
-	Science     Science
+	// LaserGuideStar, when not nil, makes the wavefront sensor look at a laser
+	// beacon instead of the natural guide star (YAML section "laser_guide_star",
+	// optional; absent, the sensor looks at the natural star at infinity).
+	LaserGuideStar *LaserGuideStar
+	WFS            WFS
+	DM             DM
+	Loop           Loop
+	Science        Science
 	// Eye, when not nil, is the aberration source in place of Atmosphere (whose
 	// fields are then zero): the retinal-imaging scenarios (see Eye).
 	Eye *Eye
@@ -101,6 +105,29 @@ type GuideStar struct {
 	Throughput float64
 }
 
+// LaserGuideStar is a sodium laser beacon (YAML section "laser_guide_star"). The
+// sensor sees the layers through the beacon's cone (sim/atmosphere, View) and
+// none of the atmosphere's tip and tilt: the beam goes up and comes back down
+// through the same air, so its image does not move with the atmospheric tilt.
+// The guide_star section still sets the beacon's brightness in the sensing band.
+//
+// SAFETY: a laser pointed at the sky needs coordination with the aviation
+// authority and a laser-safety review before it is switched on (ANSI Z136.1 and
+// Z136.6, IEC 60825-1); local rules govern. The simulator emits no light.
+type LaserGuideStar struct {
+	// Height of the centre of the sodium layer above the telescope, vertical, in
+	// metres (height_m, required, [20000, 200000]; about 90 km, common practice).
+	Height float64
+	// Thickness of the sodium layer in metres (thickness_m, required, [0, 50000];
+	// about 10 km, common practice). It elongates the spots of subapertures away
+	// from the launch point; the slope modes carry it for the record.
+	Thickness float64
+	// LaunchX and LaunchY are the launch telescope's position in the pupil plane,
+	// metres from the pupil's centre (launch_x_m, launch_y_m, optional, default 0,
+	// behind the secondary; [-diameter_m, diameter_m]).
+	LaunchX, LaunchY float64
+}
+
 // WFS is the Shack–Hartmann sensor (YAML section "wfs").
 type WFS struct {
 	// Subapertures across the pupil (subapertures, required, [1, 256]).
@@ -159,6 +186,11 @@ type Science struct {
 	// Wavelength in metres at which Strehl ratios are computed (wavelength_m,
 	// required, [3e-7, 2.5e-5]).
 	Wavelength float64
+	// OffsetX and OffsetY are the direction the science camera looks at, in
+	// arcseconds from the guide star (offset_x_arcsec, offset_y_arcsec, optional,
+	// default 0, [-120, 120]): off the axis, each layer is seen shifted by θ·h
+	// and the true Strehl shows the anisoplanatism.
+	OffsetX, OffsetY float64
 }
 
 // PupilConfig returns the sampled-pupil description of the telescope.
