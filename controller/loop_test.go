@@ -105,33 +105,35 @@ func TestStabilityLimit(t *testing.T) {
 			factor float64
 			stable bool
 		}{{0.95, true}, {1.05, false}} {
-			g := c.factor * gmax
-			var step func(float32) float32
-			if g < MaxGain {
-				l, err := NewLoop(identityParams(t, 1, g, 0, 1e30))
-				if err != nil {
-					t.Fatal(err)
+			t.Run(fmt.Sprintf("d=%d/%.2f_gmax", d, c.factor), func(t *testing.T) {
+				g := c.factor * gmax
+				var step func(float32) float32
+				if g < MaxGain {
+					l, err := NewLoop(identityParams(t, 1, g, 0, 1e30))
+					if err != nil {
+						t.Fatal(err)
+					}
+					step = loopStep(t, l)
+				} else {
+					// Params refuse g >= 2, so drive the integrator Step uses directly.
+					state, lo, hi := []float32{0}, []float32{-1e30}, []float32{1e30}
+					step = func(e float32) float32 {
+						integrate(state, []float32{e}, lo, hi, 1, float32(g))
+						return state[0]
+					}
 				}
-				step = loopStep(t, l)
-			} else {
-				// Params refuse g >= 2, so drive the integrator Step uses directly.
-				state, lo, hi := []float32{0}, []float32{-1e30}, []float32{1e30}
-				step = func(e float32) float32 {
-					integrate(state, []float32{e}, lo, hi, 1, float32(g))
-					return state[0]
+				e := runScalar(d, constant(1, 3000), step)
+				peak := 0.0
+				for _, v := range e[len(e)-200:] {
+					peak = math.Max(peak, math.Abs(v))
 				}
-			}
-			e := runScalar(d, constant(1, 3000), step)
-			peak := 0.0
-			for _, v := range e[len(e)-200:] {
-				peak = math.Max(peak, math.Abs(v))
-			}
-			if c.stable && !(peak < 1e-3) {
-				t.Errorf("d=%d g=%.4f (%.2f g_max): |e| = %.3g at the end, want convergence", d, g, c.factor, peak)
-			}
-			if !c.stable && !(peak > 1e3) {
-				t.Errorf("d=%d g=%.4f (%.2f g_max): |e| = %.3g at the end, want divergence", d, g, c.factor, peak)
-			}
+				if c.stable && !(peak < 1e-3) {
+					t.Errorf("d=%d g=%.4f (%.2f g_max): |e| = %.3g at the end, want convergence", d, g, c.factor, peak)
+				}
+				if !c.stable && !(peak > 1e3) {
+					t.Errorf("d=%d g=%.4f (%.2f g_max): |e| = %.3g at the end, want divergence", d, g, c.factor, peak)
+				}
+			})
 		}
 	}
 }

@@ -1,6 +1,7 @@
 package daemon
 
 import (
+	"fmt"
 	"strings"
 	"testing"
 
@@ -27,15 +28,17 @@ func TestCalibrationPatternDefaults(t *testing.T) {
 		{3365, &stillskyv1.CalibrateRequest{SinglePokes: true, FramesPerPattern: 1}, false, 1},
 		{100, &stillskyv1.CalibrateRequest{SinglePokes: true}, false, 2},
 	} {
-		g := &geometry{slopes: 2 * c.actuators, actuators: c.actuators, frameRate: 1000, stroke: 1e-6, delayFrames: 2}
-		cc, _, err := calibrationSettings(c.req, g)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if cc.Hadamard != c.hadamard || cc.FramesPerPattern != c.frames {
-			t.Errorf("%d actuators, request %v: hadamard %v, %d frames per pattern; want %v, %d",
-				c.actuators, c.req, cc.Hadamard, cc.FramesPerPattern, c.hadamard, c.frames)
-		}
+		t.Run(fmt.Sprintf("%d-actuators-%v", c.actuators, c.req), func(t *testing.T) {
+			g := &geometry{slopes: 2 * c.actuators, actuators: c.actuators, frameRate: 1000, stroke: 1e-6, delayFrames: 2}
+			cc, _, err := calibrationSettings(c.req, g)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if cc.Hadamard != c.hadamard || cc.FramesPerPattern != c.frames {
+				t.Errorf("%d actuators, request %v: hadamard %v, %d frames per pattern; want %v, %d",
+					c.actuators, c.req, cc.Hadamard, cc.FramesPerPattern, c.hadamard, c.frames)
+			}
+		})
 	}
 }
 

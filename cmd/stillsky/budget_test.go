@@ -18,9 +18,11 @@ func TestBudgetBadInput(t *testing.T) {
 		{[]string{"budget", "--scenario", "small", "--simulate", "--seeds", "1,x"}, "--seeds"},
 		{[]string{"budget", "--scenario", "small", "--simulate", "--frames", "10"}, "frames 10"},
 	} {
-		stderr, code := runMain(t, c.args...)
-		if code != 1 || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, c.want) {
-			t.Errorf("%v: exit %d, stderr %q: want one line with %q and exit 1", c.args, code, stderr, c.want)
-		}
+		t.Run(strings.Join(c.args[1:], " "), func(t *testing.T) {
+			stderr, code := runMain(t, c.args...)
+			if code != 1 || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, c.want) {
+				t.Errorf("%v: exit %d, stderr %q: want one line with %q and exit 1", c.args, code, stderr, c.want)
+			}
+		})
 	}
 }

@@ -1,6 +1,7 @@
 package atmosphere
 
 import (
+	"fmt"
 	"math"
 	"math/cmplx"
 	"math/rand/v2"
@@ -100,37 +101,39 @@ func TestFrozenFlowTranslation(t *testing.T) {
 		dir    float64
 		dx, dy int
 	}{{0, 3, 0}, {90, 0, 3}, {180, -2, 0}, {270, 0, -5}} {
-		cfg := Config{R0: 0.1, L0: 20, Seed: 5, Layers: []LayerConfig{{Fraction: 1, WindSpeed: 10, WindDirectionDeg: c.dir}}}
-		a := newAtm(t, cfg, p)
-		freeze(a)
-		a.Advance(0.0123) // start from a sub-sample position
-		before, after := make([]float64, n*n), make([]float64, n*n)
-		a.OPD(before)
-		shift := math.Hypot(float64(c.dx), float64(c.dy))
-		a.Advance(shift * p.Scale / 10)
-		a.OPD(after)
-		rms := optics.ResidualRMS(p, before)
-		var diffs []float64
-		for y := 0; y < n; y++ {
-			for x := 0; x < n; x++ {
-				xs, ys := x-c.dx, y-c.dy
-				if xs < 0 || ys < 0 || xs >= n || ys >= n {
-					continue
+		t.Run(fmt.Sprintf("towards-%g-deg", c.dir), func(t *testing.T) {
+			cfg := Config{R0: 0.1, L0: 20, Seed: 5, Layers: []LayerConfig{{Fraction: 1, WindSpeed: 10, WindDirectionDeg: c.dir}}}
+			a := newAtm(t, cfg, p)
+			freeze(a)
+			a.Advance(0.0123) // start from a sub-sample position
+			before, after := make([]float64, n*n), make([]float64, n*n)
+			a.OPD(before)
+			shift := math.Hypot(float64(c.dx), float64(c.dy))
+			a.Advance(shift * p.Scale / 10)
+			a.OPD(after)
+			rms := optics.ResidualRMS(p, before)
+			var diffs []float64
+			for y := 0; y < n; y++ {
+				for x := 0; x < n; x++ {
+					xs, ys := x-c.dx, y-c.dy
+					if xs < 0 || ys < 0 || xs >= n || ys >= n {
+						continue
+					}
+					diffs = append(diffs, after[y*n+x]-before[ys*n+xs])
 				}
-				diffs = append(diffs, after[y*n+x]-before[ys*n+xs])
 			}
-		}
-		var piston float64
-		for _, d := range diffs {
-			piston += d / float64(len(diffs))
-		}
-		worst := 0.0
-		for _, d := range diffs {
-			worst = math.Max(worst, math.Abs(d-piston))
-		}
-		if worst > 1e-6*rms {
-			t.Errorf("wind towards %g°: translated OPD differs by %.3g m (rms %.3g m)", c.dir, worst, rms)
-		}
+			var piston float64
+			for _, d := range diffs {
+				piston += d / float64(len(diffs))
+			}
+			worst := 0.0
+			for _, d := range diffs {
+				worst = math.Max(worst, math.Abs(d-piston))
+			}
+			if worst > 1e-6*rms {
+				t.Errorf("wind towards %g°: translated OPD differs by %.3g m (rms %.3g m)", c.dir, worst, rms)
+			}
+		})
 	}
 }
 
@@ -262,12 +265,14 @@ func TestNewRejects(t *testing.T) {
 		"dir Inf":      func(c *Config) { c.Layers = []LayerConfig{{Fraction: 1, WindDirectionDeg: math.Inf(1)}} },
 	}
 	for name, f := range bad {
-		c := good
-		c.Layers = append([]LayerConfig(nil), good.Layers...)
-		f(&c)
-		if _, err := New(c, p); err == nil {
-			t.Errorf("%s: New accepted %+v", name, c)
-		}
+		t.Run(name, func(t *testing.T) {
+			c := good
+			c.Layers = append([]LayerConfig(nil), good.Layers...)
+			f(&c)
+			if _, err := New(c, p); err == nil {
+				t.Errorf("%s: New accepted %+v", name, c)
+			}
+		})
 	}
 }
 

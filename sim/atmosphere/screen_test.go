@@ -197,11 +197,13 @@ func TestNewScreenGeneratorRejects(t *testing.T) {
 		"L0 NaN":      func(c *ScreenConfig) { c.L0 = math.NaN() },
 		"L0 zero":     func(c *ScreenConfig) { c.L0 = 0 },
 	} {
-		c := good
-		f(&c)
-		if _, err := NewScreenGenerator(c); err == nil {
-			t.Errorf("%s: accepted %+v", name, c)
-		}
+		t.Run(name, func(t *testing.T) {
+			c := good
+			f(&c)
+			if _, err := NewScreenGenerator(c); err == nil {
+				t.Errorf("%s: accepted %+v", name, c)
+			}
+		})
 	}
 }
 

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"encoding/csv"
+	"fmt"
 	"image/png"
 	"math"
 	"os"
@@ -104,9 +105,11 @@ grid:
 // control).
 func TestStabilityLimit(t *testing.T) {
 	for d, want := range map[int]float64{1: 2, 2: 1, 3: 0.618} {
-		if got := StabilityLimit(d); math.Abs(got-want) > 5e-4 {
-			t.Errorf("d = %d: %v, want %v", d, got, want)
-		}
+		t.Run(fmt.Sprintf("delay-%d", d), func(t *testing.T) {
+			if got := StabilityLimit(d); math.Abs(got-want) > 5e-4 {
+				t.Errorf("d = %d: %v, want %v", d, got, want)
+			}
+		})
 	}
 	if !math.IsNaN(StabilityLimit(0)) {
 		t.Error("no limit for d = 0")
