@@ -56,6 +56,9 @@ type Config struct {
 	Recorder *Recorder
 	// Interlocks are the safety limits; see Interlocks.
 	Interlocks Interlocks
+	// Beacon, if set, is a retinal imager's beacon: New refuses it above its
+	// exposure limit (see Beacon).
+	Beacon *Beacon
 	// Security protects the Control API; see Security.
 	Security Security
 	// Logger receives the daemon's log; nil discards it.
@@ -91,6 +94,9 @@ func (c *Config) setDefaults() error {
 		c.Logger = slog.New(slog.DiscardHandler)
 	}
 	if err := c.Realtime.validate(); err != nil {
+		return err
+	}
+	if err := c.Beacon.validate(); err != nil {
 		return err
 	}
 	return c.Interlocks.setDefaults()

@@ -12,6 +12,11 @@ limits from the manufacturer's data sheet, never above it: a mirror driven past 
 stroke or inter-actuator limits can be damaged. A simulator proves software, not
 hardware or human safety; follow the manufacturer's limits, local codes and
 licensed practice (laser guide stars and retinal imaging have their own rules).
+Retinal imaging: give the beacon's power and exposure time and the limit for them
+(--beacon-power-w, --beacon-exposure-s, --exposure-limit-j) and the daemon refuses
+to start above the limit. The check is indicative only: exposure limits follow
+ANSI Z136.1 and ISO 15004-2, and local medical-device and ethics rules and licensed
+practice govern any real use.
 `
 
 func runLoop(args []string) error {
@@ -39,6 +44,9 @@ func runLoop(args []string) error {
 	fs.StringVar(&sec.KeyFile, "tls-key", "", "TLS key of the Control API (PEM)")
 	fs.StringVar(&sec.ClientCAFile, "client-ca", "", "CA that signs client certificates allowed to change the loop (mutual TLS)")
 	fs.StringVar(&sec.TokenFile, "token-file", "", "file holding the bearer token allowed to change the loop")
+	beaconPower := fs.Float64("beacon-power-w", 0, "retinal imaging: the beacon's power entering the eye, watts (with --beacon-exposure-s and --exposure-limit-j; 0: no beacon declared)")
+	beaconExposure := fs.Float64("beacon-exposure-s", 0, "retinal imaging: the beacon's exposure time, seconds")
+	exposureLimit := fs.Float64("exposure-limit-j", 0, "retinal imaging: the energy the beacon may put into the eye over its exposure time, joules; the daemon refuses to start above it (indicative check only)")
 	fs.Usage = func() {
 		fs.PrintDefaults()
 		fs.Output().Write([]byte(loopCaution))
@@ -58,6 +66,9 @@ func runLoop(args []string) error {
 		Kernel:   kernelOptions(*bf16),
 	}
 	cfg.Kernel.Workers = *workers
+	if *beaconPower != 0 || *beaconExposure != 0 || *exposureLimit != 0 {
+		cfg.Beacon = &daemon.Beacon{PowerW: *beaconPower, ExposureS: *beaconExposure, LimitJ: *exposureLimit}
+	}
 	d, err := daemon.New(cfg)
 	if err != nil {
 		return err

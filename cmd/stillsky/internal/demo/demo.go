@@ -160,6 +160,10 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 			// holds the loop, which still catches a device that is stuck.
 			locks.StalePeriods = int(math.Ceil(lockstepSilence.Seconds() * scn.Loop.FrameRate))
 		}
+		var beacon *daemon.Beacon
+		if e := scn.Eye; e != nil { // the loop checks the beacon's exposure too
+			beacon = &daemon.Beacon{PowerW: e.BeaconPower, ExposureS: e.BeaconExposure, LimitJ: e.ExposureLimit}
+		}
 		return rig.Start(context.Background(), rig.Config{
 			Scenario: scn,
 			// One science image every 20 frames is plenty for a long exposure of
@@ -167,7 +171,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 			Bench: bench.Options{Lockstep: lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
 			// The loop analyses itself every 4 s, so that its turbulence estimate
 			// and budget reach the summary of a run of a few seconds.
-			Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 4 * time.Second, Interlocks: locks, Logger: c.Logger.With("process", "loop")},
+			Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 4 * time.Second, Interlocks: locks, Beacon: beacon, Logger: c.Logger.With("process", "loop")},
 			BenchHTTP: true,
 		})
 	}
