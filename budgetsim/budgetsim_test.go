@@ -10,8 +10,9 @@ import (
 // TestTermsAgainstSimulation measures each term of the error budget on the bench
 // (noise off, the loop with no delay, the best mirror fit) and compares it with
 // the analytic model of package analysis (the Fourier model of Rigaut, Véran &
-// Lai 1998 with the bench's own pupil sampling). Tolerances: ±30 % per term,
-// ±0.03 on the Maréchal Strehl ratio of the total (Mahajan 1983).
+// Lai 1998 with the bench's own pupil sampling), averaged over three seeds.
+// Tolerances: ±30 % per term, ±0.03 on the Maréchal Strehl ratio of the total
+// (Mahajan 1983).
 func TestTermsAgainstSimulation(t *testing.T) {
 	if testing.Short() {
 		t.Skip("closed loop on the simulated bench: skipped in -short mode")
@@ -30,10 +31,14 @@ func TestTermsAgainstSimulation(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	m, err := rig.Decompose(DefaultGain, 0, 0, 200, 1000, 10)
+	// The target is on the mean of three seeds: one 1000-frame run's Strehl
+	// ratio varies by about ±0.01 from seed to seed.
+	seeds := []int64{1, 2, 3}
+	m, sd, _, err := rig.Measure(DefaultGain, 0, seeds, 1000)
 	if err != nil {
 		t.Fatal(err)
 	}
+	t.Logf("spread over seeds %v: total %.4f rad², Strehl %.3f", seeds, sd.Total, sd.Strehl)
 	for _, c := range []struct {
 		name               string
 		measured, analytic float64

@@ -25,9 +25,13 @@ type Report struct {
 	Simulated  analysis.Budget `json:"simulated"`
 	// Measured is the mean of the simulated decompositions (nil without
 	// Simulate), from Seeds × Frames frames.
-	Measured *Terms  `json:"measured,omitempty"`
-	Seeds    []int64 `json:"seeds,omitempty"`
-	Frames   int     `json:"frames,omitempty"`
+	Measured *Terms `json:"measured,omitempty"`
+	// PerSeed holds each seed's decomposition, in the order of Seeds; Spread
+	// is their sample standard deviation, term by term (zero for one seed).
+	PerSeed []Terms `json:"per_seed,omitempty"`
+	Spread  *Terms  `json:"spread,omitempty"`
+	Seeds   []int64 `json:"seeds,omitempty"`
+	Frames  int     `json:"frames,omitempty"`
 }
 
 // Evaluate calibrates the scenario's bench, computes both budgets at gain and leak and,
@@ -52,11 +56,22 @@ func Evaluate(scn *scenario.Scenario, gain, leak float64, seeds []int64, frames 
 		return rep, nil
 	}
 	rep.Seeds, rep.Frames = seeds, frames
-	var mean Terms
+	mean, sd, per, err := rig.Measure(gain, leak, seeds, frames)
+	if err != nil {
+		return nil, err
+	}
+	rep.Measured, rep.Spread, rep.PerSeed = &mean, &sd, per
+	return rep, nil
+}
+
+// Measure decomposes the loop at gain and leak on the bench for each seed
+// (frames frames after 200 to converge, Decompose) and returns the mean of the
+// terms, their sample standard deviation (zero for one seed) and each seed's.
+func (r *Rig) Measure(gain, leak float64, seeds []int64, frames int) (mean, spread Terms, per []Terms, err error) {
 	for _, seed := range seeds {
-		m, err := rig.Decompose(gain, leak, seed, 200, frames, 10)
+		m, err := r.Decompose(gain, leak, seed, 200, frames, 10)
 		if err != nil {
-			return nil, err
+			return Terms{}, Terms{}, nil, err
 		}
 		k := 1 / float64(len(seeds))
 		mean.Fitting += k * m.Fitting
@@ -66,9 +81,34 @@ func Evaluate(scn *scenario.Scenario, gain, leak float64, seeds []int64, frames 
 		mean.LowOrder += k * m.LowOrder
 		mean.Total += k * m.Total
 		mean.Strehl += k * m.Strehl
+		per = append(per, m)
 	}
-	rep.Measured = &mean
-	return rep, nil
+	if n := len(per); n > 1 {
+		for _, m := range per {
+			spread.add(m, mean, 1/float64(n-1))
+		}
+		spread.sqrt()
+	}
+	return mean, spread, per, nil
+}
+
+// add adds k (m − mean)² to each term of t.
+func (t *Terms) add(m, mean Terms, k float64) {
+	sq := func(a, b float64) float64 { return k * (a - b) * (a - b) }
+	t.Fitting += sq(m.Fitting, mean.Fitting)
+	t.Aliasing += sq(m.Aliasing, mean.Aliasing)
+	t.Servo += sq(m.Servo, mean.Servo)
+	t.Noise += sq(m.Noise, mean.Noise)
+	t.LowOrder += sq(m.LowOrder, mean.LowOrder)
+	t.Total += sq(m.Total, mean.Total)
+	t.Strehl += sq(m.Strehl, mean.Strehl)
+}
+
+// sqrt takes the square root of each term.
+func (t *Terms) sqrt() {
+	for _, p := range []*float64{&t.Fitting, &t.Aliasing, &t.Servo, &t.Noise, &t.LowOrder, &t.Total, &t.Strehl} {
+		*p = math.Sqrt(*p)
+	}
 }
 
 // WriteJSON writes the report as indented JSON.
@@ -127,6 +167,15 @@ func (r *Report) WriteText(w io.Writer) error {
 		line += fmt.Sprintf(" %20.3f", r.Measured.Strehl)
 	}
 	fmt.Fprintln(w, line)
+	if len(r.PerSeed) > 1 && r.Spread != nil {
+		sd := r.Spread
+		fmt.Fprintf(w, "  spread over seeds (sample standard deviation): fitting %.4f, alias+low %.4f, servo %.4f, noise %.4f, total %.4f rad²; Strehl %.3f\n",
+			sd.Fitting, sd.Aliasing, sd.Servo, sd.Noise, sd.Total, sd.Strehl)
+		for i, m := range r.PerSeed {
+			fmt.Fprintf(w, "  seed %d: fitting %.4f, alias+low %.4f, servo %.4f, noise %.4f, total %.4f rad², Strehl %.3f\n",
+				r.Seeds[i], m.Fitting, m.Aliasing, m.Servo, m.Noise, m.Total, m.Strehl)
+		}
+	}
 	fmt.Fprintln(w, "  (Strehl: Maréchal exp(−σ²) of the total; measured: long-exposure science PSF.")
 	fmt.Fprintln(w, "   design: a real atmosphere, gradients averaged over each subaperture; simulated: the bench's pupil sampling.)")
 	if r.Measured != nil {
