@@ -14,7 +14,7 @@ func init() {
 
 func runDemo(args []string) error {
 	fs := newFlagSet("demo")
-	scn := fs.String("scenario", "", "built-in scenario name or path to a scenario YAML file (default: the default scenario)"+"; "+scenario.EyeCaution)
+	scn := fs.String("scenario", "", "built-in scenario name or path to a scenario YAML file (default: the default scenario)"+"; "+scenario.EyeCaution+"; "+scenario.LGSCaution)
 	frames := fs.Int("frames", 0, "closed-loop frames (default 5000; the open-loop phase runs 2000; when the bench or the loop cannot keep real time the demo says so and runs lockstep, with the phases' defaults cut to about 15 s and 40 s of wall time)")
 	gain := fs.Float64("gain", -1, "integrator gain in closed loop, in [0, 2) (default: the daemon's 0.4)")
 	summary := fs.String("summary", "", "write the summary as JSON to this file")

@@ -18,7 +18,7 @@ func init() {
 
 func runSim(args []string) error {
 	fs := newFlagSet("sim")
-	scn := fs.String("scenario", scenario.Default, "built-in scenario name or path to a scenario YAML file"+"; "+scenario.EyeCaution)
+	scn := fs.String("scenario", scenario.Default, "built-in scenario name or path to a scenario YAML file"+"; "+scenario.EyeCaution+"; "+scenario.LGSCaution)
 	camera := fs.String("camera", "127.0.0.1:7401", "camera gRPC address (host:port or unix:/path)")
 	mirror := fs.String("mirror", "127.0.0.1:7402", "mirror gRPC address (may equal --camera)")
 	metrics := fs.String("metrics", "127.0.0.1:7403", "HTTP address of /metrics and /psf.png (\"\" to disable)")

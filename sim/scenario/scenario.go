@@ -105,6 +105,9 @@ type GuideStar struct {
 	Throughput float64
 }
 
+// LGSCaution is the caution that help texts show beside the lgs scenario.
+const LGSCaution = "the lgs scenario simulates a laser guide star: a real laser pointed at the sky needs coordination with the aviation authority and a laser-safety review (ANSI Z136.1, ANSI Z136.6, IEC 60825-1), and local rules govern"
+
 // LaserGuideStar is a sodium laser beacon (YAML section "laser_guide_star"). The
 // sensor sees the layers through the beacon's cone (sim/atmosphere, View) and
 // none of the atmosphere's tip and tilt: the beam goes up and comes back down

@@ -11,7 +11,7 @@ import (
 
 func TestBuiltinsLoad(t *testing.T) {
 	names := Builtin()
-	for _, want := range []string{"default", "small", "large", "xao"} {
+	for _, want := range []string{"default", "small", "large", "xao", "lgs"} {
 		if !strings.Contains(strings.Join(names, " "), want) {
 			t.Errorf("Builtin() = %v: missing %q", names, want)
 		}
@@ -206,5 +206,45 @@ func TestErrorsListEveryProblem(t *testing.T) {
 	_, err := Parse([]byte(doc))
 	if err == nil || !strings.Contains(err.Error(), "atmosphere.r0_m") || !strings.Contains(err.Error(), "guide_star.throughput") {
 		t.Errorf("err %v: want both atmosphere.r0_m and guide_star.throughput named", err)
+	}
+}
+
+// The laser_guide_star section and the science offsets: missing, unknown and
+// out-of-range values are refused by name, like every other field.
+func TestLaserGuideStarFields(t *testing.T) {
+	lgs := strings.Replace(minimal, "science: {wavelength_m: 1.65e-6}\n",
+		"science: {wavelength_m: 1.65e-6, offset_x_arcsec: 5}\nlaser_guide_star: {height_m: 90000, thickness_m: 10000, launch_x_m: 1}\n", 1)
+	s, err := Parse([]byte(lgs))
+	if err != nil {
+		t.Fatalf("a valid laser_guide_star section refused: %v", err)
+	}
+	if g := s.LaserGuideStar; g == nil || g.Height != 90000 || g.Thickness != 10000 || g.LaunchX != 1 || g.LaunchY != 0 || s.Science.OffsetX != 5 || s.Science.OffsetY != 0 {
+		t.Fatalf("parsed %+v, science %+v", s.LaserGuideStar, s.Science)
+	}
+	if s, err := Parse([]byte(minimal)); err != nil || s.LaserGuideStar != nil {
+		t.Fatalf("without the section the sensor must look at the natural star: %+v, %v", s.LaserGuideStar, err)
+	}
+	for _, c := range []struct{ name, old, new, want string }{
+		{"height missing", "height_m: 90000, ", "", "laser_guide_star.height_m: missing: required, must be in [20000, 200000] m"},
+		{"height too low", "height_m: 90000", "height_m: 5000", "laser_guide_star.height_m: 5000: must be in [20000, 200000] m"},
+		{"thickness missing", "thickness_m: 10000, ", "", "laser_guide_star.thickness_m: missing: required"},
+		{"thickness negative", "thickness_m: 10000", "thickness_m: -1", "laser_guide_star.thickness_m: -1: must be in [0, 50000] m"},
+		{"launch beyond the telescope", "launch_x_m: 1", "launch_x_m: 3", "laser_guide_star.launch_x_m: 3: must be in [-2, 2] m"},
+		{"unknown key", "launch_x_m: 1}", "launch_x_m: 1, power_w: 20}", "laser_guide_star.power_w: line"},
+		{"offset too large", "offset_x_arcsec: 5", "offset_x_arcsec: 500", "science.offset_x_arcsec: 500: must be in [-120, 120] arcsec"},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			doc := strings.Replace(lgs, c.old, c.new, 1)
+			if doc == lgs {
+				t.Fatalf("edit %q not applied", c.old)
+			}
+			s, err := Parse([]byte(doc))
+			if err == nil || s != nil {
+				t.Fatalf("accepted:\n%s", doc)
+			}
+			if !strings.Contains(err.Error(), c.want) {
+				t.Errorf("error\n  %v\nwant it to contain\n  %s", err, c.want)
+			}
+		})
 	}
 }
