@@ -73,6 +73,9 @@ type ReconstructorConfig struct {
 	// coefficients are a = (M·B)⁺·s, inverted with Method. Modal gains then apply
 	// to these modes. Nil uses the singular modes of M.
 	Basis *mat.Dense
+	// BasisName names Basis (for example "kl", from KLBasis) in the
+	// reconstructor and its file; empty with a nil Basis.
+	BasisName string
 	// UnseenCondition: singular modes of M with s_max/sᵢ above it (or sᵢ = 0) are
 	// unseen; they are never controlled and are projected out of every command.
 	// 0 means DefaultUnseenCondition.
@@ -146,6 +149,9 @@ type Reconstructor struct {
 	// Interaction is the interaction matrix it was built from (Slopes × Actuators),
 	// or nil.
 	Interaction *mat.Dense
+	// Basis names the modal basis of Modes: "" for the singular modes of the
+	// interaction matrix, else ReconstructorConfig.BasisName ("kl").
+	Basis string
 	// Created is the creation time given by the caller.
 	Created time.Time
 }
@@ -190,7 +196,18 @@ func BuildReconstructor(m *mat.Dense, c ReconstructorConfig) (*Reconstructor, er
 	case c.Method == MethodTikhonov && c.ModesKept != 0:
 		return nil, fmt.Errorf("controller: reconstructor modes kept %d: only for svd", c.ModesKept)
 	}
+	basisName := ""
+	if c.Basis == nil && c.BasisName != "" {
+		return nil, fmt.Errorf("controller: reconstructor basis name %q given without a basis", c.BasisName)
+	}
 	if c.Basis != nil {
+		basisName = c.BasisName
+		if basisName == "" {
+			basisName = "custom"
+		}
+		if len(basisName) > 60 {
+			return nil, fmt.Errorf("controller: reconstructor basis name of %d bytes: at most 60", len(basisName))
+		}
 		if r, _ := c.Basis.Dims(); r != na {
 			return nil, fmt.Errorf("controller: reconstructor basis has %d rows: want %d actuators", r, na)
 		}
@@ -293,7 +310,7 @@ func BuildReconstructor(m *mat.Dense, c ReconstructorConfig) (*Reconstructor, er
 		Method: c.Method, Slopes: ns, Actuators: na,
 		Control: control, Modes: modes, Inverse: inverse,
 		SingularValues: values, ModesKept: kept, Unseen: unseen,
-		Interaction: mat.DenseCopyOf(m), Created: c.Created,
+		Interaction: mat.DenseCopyOf(m), Created: c.Created, Basis: basisName,
 	}, nil
 }
 

@@ -24,12 +24,16 @@ import (
 //
 // FILEVERS is the format version, 2 today. Version 1 files have no FILEVERS and name
 // the slope and actuator counts NSLOPES and NACTU and the interaction matrix IMAT;
-// the reader accepts both versions, the writer writes the current one.
+// the reader accepts both versions, the writer writes the current one. The
+// optional keyword MODEBASE names the modal basis of MODES ("kl" for
+// Karhunen–Loève modes); files without it, all files before it, use the
+// singular modes of the interaction matrix.
 const (
 	extSingular = "SINGVAL"
 	extModes    = "MODES"
 	extInverse  = "MODALINV"
 	keyVersion  = "FILEVERS"
+	keyBasis    = "MODEBASE"
 	fileVersion = 2
 	fitsDate    = "2006-01-02T15:04:05.000000000" // FITS Standard 4.0 §4.4.2.1, UTC
 )
@@ -106,6 +110,9 @@ func reconstructorHDUs(r *Reconstructor) ([]*fits.HDU, error) {
 	h.Set("NMODES", r.NumModes(), "controllable modes (columns of MODES)")
 	h.Set("MODESKPT", r.ModesKept, "singular modes kept in the inversion")
 	h.Set("NUNSEEN", r.Unseen, "actuator dimensions projected out")
+	if r.Basis != "" {
+		h.Set(keyBasis, r.Basis, "modal basis of MODES (absent: singular modes)")
+	}
 	h.Set("BUNIT", "m/rad", "metres of surface per radian of slope")
 	if !r.Created.IsZero() {
 		h.Set("DATE", r.Created.UTC().Format(fitsDate), "creation time (UTC)")
@@ -204,6 +211,9 @@ func reconstructorFromHDUs(hdus []*fits.HDU) (*Reconstructor, error) {
 	}
 	if r.Unseen, err = headerInt(&p.Header, "NUNSEEN", 0); err != nil {
 		return nil, err
+	}
+	if b, ok := p.Header.String(keyBasis); ok {
+		r.Basis = b
 	}
 	ms, ok := p.Header.String("METHOD")
 	if !ok {

@@ -34,7 +34,11 @@ func sampleReconstructors(t *testing.T) map[string]*Reconstructor {
 	if err != nil {
 		t.Fatal(err)
 	}
-	return map[string]*Reconstructor{"svd": svd, "tikhonov": tik, "matrix": zonal}
+	modal, err := BuildReconstructor(m, ReconstructorConfig{Basis: randomDense(rng, 10, 10), BasisName: "kl", ModesKept: 8, Created: created})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return map[string]*Reconstructor{"svd": svd, "tikhonov": tik, "matrix": zonal, "modal basis": modal}
 }
 
 func sameDense(a, b *mat.Dense) bool {
@@ -56,10 +60,10 @@ func TestReconstructorRoundTrip(t *testing.T) {
 				t.Fatal(err)
 			}
 			if got.Method != r.Method || got.Slopes != r.Slopes || got.Actuators != r.Actuators ||
-				got.ModesKept != r.ModesKept || got.Unseen != r.Unseen || !got.Created.Equal(r.Created) {
-				t.Errorf("metadata %v %d×%d kept %d unseen %d %v, want %v %d×%d kept %d unseen %d %v",
-					got.Method, got.Slopes, got.Actuators, got.ModesKept, got.Unseen, got.Created,
-					r.Method, r.Slopes, r.Actuators, r.ModesKept, r.Unseen, r.Created)
+				got.ModesKept != r.ModesKept || got.Unseen != r.Unseen || !got.Created.Equal(r.Created) || got.Basis != r.Basis {
+				t.Errorf("metadata %v %d×%d kept %d unseen %d %v basis %q, want %v %d×%d kept %d unseen %d %v basis %q",
+					got.Method, got.Slopes, got.Actuators, got.ModesKept, got.Unseen, got.Created, got.Basis,
+					r.Method, r.Slopes, r.Actuators, r.ModesKept, r.Unseen, r.Created, r.Basis)
 			}
 			for field, pair := range map[string][2]*mat.Dense{
 				"control": {got.Control, r.Control}, "modes": {got.Modes, r.Modes},

@@ -7,6 +7,7 @@ import (
 	"sync/atomic"
 	"time"
 
+	"gonum.org/v1/gonum/mat"
 	"google.golang.org/grpc/codes"
 	"google.golang.org/grpc/status"
 
@@ -105,6 +106,17 @@ func (d *Daemon) calibrate(ctx context.Context, req *stillskyv1.CalibrateRequest
 	if err != nil {
 		return fail(codes.Internal, "interaction matrix: %v", err)
 	}
+	if rc.BasisName == "kl" && req.GetModesKept() == 0 {
+		cond := req.GetMaxCondition()
+		if cond == 0 {
+			cond = controller.DefaultMaxCondition
+		}
+		n, err := seenModes(im, cond)
+		if err != nil {
+			return fail(codes.Internal, "reconstructor: %v", err)
+		}
+		rc.Basis = mat.DenseCopyOf(rc.Basis.Slice(0, g.actuators, 0, min(n, g.actuators-1)))
+	}
 	rc.Created = time.Now().UTC()
 	rc.Progress = inversionProgress(send)
 	r, err := controller.BuildReconstructor(im, rc)
@@ -179,6 +191,23 @@ func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (control
 			return cc, rc, fmt.Errorf("tikhonov weight %g: must be finite and > 0", t)
 		}
 		rc.Method, rc.Regularization = controller.MethodTikhonov, t
+	}
+	switch b := req.GetBasis(); b {
+	case "", "svd":
+	case "kl":
+		if rc.Method != controller.MethodTruncatedSVD {
+			return cc, rc, fmt.Errorf("basis kl: only with truncated SVD, not tikhonov")
+		}
+		basis, err := klBasis(g, rc.ModesKept)
+		if err != nil {
+			return cc, rc, fmt.Errorf("basis kl: %w", err)
+		}
+		rc.Basis, rc.BasisName, rc.ModesKept = basis, "kl", 0
+		if rc.MaxCondition == 0 {
+			rc.MaxCondition = klMaxCondition
+		}
+	default:
+		return cc, rc, fmt.Errorf("basis %q: want \"svd\" (or empty) or \"kl\"", b)
 	}
 	if c := rc.MaxCondition; c != 0 && !(c >= 1 && !math.IsInf(c, 0)) {
 		return cc, rc, fmt.Errorf("max condition %g: must be finite and >= 1 (or 0 for the default)", c)
@@ -258,4 +287,54 @@ func (rt *realtime) showsBlock(cal *calibration, f *stillskyv1.StreamFramesRespo
 	}
 	cal.waited++
 	return cal.waited > maxCalibrationWait
+}
+
+// klBasis returns the first kept Karhunen–Loève modes of the mirror described
+// in g (controller.KLBasis; all but the piston-like last when kept is 0), on
+// a pupil of (actuators across − 1) pitches, the outer actuator rows on its
+// edge.
+func klBasis(g *geometry, kept int) (*mat.Dense, error) {
+	if len(g.positions) != 2*g.actuators || g.across < 2 || !(g.pitch > 0) {
+		return nil, fmt.Errorf("the mirror describes no actuator layout (%d position values for %d actuators, %d across, pitch %g m)",
+			len(g.positions), g.actuators, g.across, g.pitch)
+	}
+	pos := make([][2]float64, g.actuators)
+	for i := range pos {
+		pos[i] = [2]float64{g.positions[2*i], g.positions[2*i+1]}
+	}
+	b, _, err := controller.KLBasis(controller.KLConfig{
+		Positions: pos, Pitch: g.pitch, Coupling: g.coupling,
+		Diameter: float64(g.across-1) * g.pitch,
+	})
+	if err != nil {
+		return nil, err
+	}
+	if kept == 0 {
+		kept = g.actuators - 1
+	}
+	if kept > g.actuators-1 {
+		return nil, fmt.Errorf("modes kept %d: at most %d (actuators less piston)", kept, g.actuators-1)
+	}
+	return mat.DenseCopyOf(b.Slice(0, g.actuators, 0, kept)), nil
+}
+
+// klMaxCondition is the truncation of M·B, the interaction matrix in KL modes,
+// when the request sets no max_condition: the basis is already cut to the modes
+// the sensor sees, and tilt, seen weakest per unit rms, must not be cut.
+const klMaxCondition = 100
+
+// seenModes counts the singular values of m within cond of the largest: the
+// number of KL modes kept by default, as many as the zonal reconstructor
+// controls (TestKLControlClosedLoop in package controller compares the two).
+func seenModes(m *mat.Dense, cond float64) (int, error) {
+	var svd mat.SVD
+	if !svd.Factorize(m, mat.SVDNone) {
+		return 0, fmt.Errorf("singular values of the interaction matrix did not converge")
+	}
+	sv := svd.Values(nil)
+	n := 0
+	for n < len(sv) && sv[n] > 0 && sv[0]/sv[n] <= cond {
+		n++
+	}
+	return max(n, 1), nil
 }

@@ -109,6 +109,11 @@ type geometry struct {
 	stroke            float64
 	delayFrames       int
 	lockstep          bool
+	// The mirror's layout, for modal bases: positions (x0, y0, x1, …, metres),
+	// actuators across, pitch (metres) and neighbour coupling.
+	positions       []float64
+	across          int
+	pitch, coupling float64
 }
 
 // Daemon is the loop process: device links, the real-time goroutine, the Control

@@ -44,6 +44,10 @@ func (d *Daemon) session(ctx context.Context) error {
 		stroke:      mirDesc.GetStrokeM(),
 		delayFrames: int(camDesc.GetDelayFrames()),
 		lockstep:    camDesc.GetLockstep(),
+		positions:   mirDesc.GetPositionsM(),
+		across:      int(mirDesc.GetActuatorsAcross()),
+		pitch:       mirDesc.GetPitchM(),
+		coupling:    mirDesc.GetCoupling(),
 	}
 	if g.slopes < 1 || g.actuators < 1 || !(g.frameRate > 0) || !(g.stroke > 0) {
 		return fmt.Errorf("devices describe an unusable geometry: %d slopes, %d actuators, %g Hz, stroke %g m", g.slopes, g.actuators, g.frameRate, g.stroke)

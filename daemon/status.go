@@ -16,6 +16,14 @@ func reconstructorInfo(r *controller.Reconstructor) *stillskyv1.ReconstructorInf
 		ActuatorCount:  uint32(r.Actuators),
 		CreatedUnix:    r.Created.Unix(),
 		SingularValues: r.SingularValues,
+		Basis:          "svd",
+		ModeCount:      uint32(r.NumModes()),
+	}
+	if r.Basis != "" {
+		info.Basis = r.Basis
+	}
+	if r.Method == controller.MethodMatrix {
+		info.Basis = ""
 	}
 	if k := r.ModesKept; k > 0 && k <= len(r.SingularValues) && r.SingularValues[k-1] > 0 {
 		info.ConditionNumber = r.SingularValues[0] / r.SingularValues[k-1]

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"fmt"
 	"os"
 
 	"stillsky/cmd/stillsky/internal/demo"
@@ -19,6 +20,7 @@ func runDemo(args []string) error {
 	gain := fs.Float64("gain", -1, "integrator gain in closed loop, in [0, 2) (default: the daemon's 0.4)")
 	summary := fs.String("summary", "", "write the summary as JSON to this file")
 	lockstep := fs.Bool("lockstep", false, "run the bench in lockstep mode (reproducible) instead of free-running; without it the demo checks first that the machine keeps real time")
+	basis := fs.String("basis", "", "modal basis of the reconstructor and its modal gains: svd (the interaction matrix's singular modes, the default) or kl (Karhunen–Loève modes of Kolmogorov turbulence on the mirror)")
 	logLevel := fs.String("log-level", "warn", "log level of bench and loop: debug, info, warn, error")
 	if err := parseFlags(fs, args); err != nil {
 		return err
@@ -27,7 +29,10 @@ func runDemo(args []string) error {
 	if err != nil {
 		return err
 	}
-	cfg := demo.Config{Scenario: *scn, FramesClosed: *frames, Lockstep: *lockstep, Out: os.Stdout, Logger: log}
+	if *basis != "" && *basis != "svd" && *basis != "kl" {
+		return fmt.Errorf("demo: --basis %q: want svd or kl", *basis)
+	}
+	cfg := demo.Config{Scenario: *scn, FramesClosed: *frames, Lockstep: *lockstep, Basis: *basis, Out: os.Stdout, Logger: log}
 	if *gain != -1 {
 		cfg.Gain = gain
 	}

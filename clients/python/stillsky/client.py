@@ -207,6 +207,7 @@ class Client:
         max_condition: float = 0,
         tikhonov: float = 0,
         single_pokes: bool = False,
+        basis: str = "",
         progress: Optional[Callable[[str, int, int], None]] = None,
         timeout: Optional[float] = None,
     ) -> pb.ReconstructorInfo:
@@ -216,7 +217,9 @@ class Client:
         called for every progress message ("pokes", "inverting", "done"). Returns
         the new reconstructor's description. The loop must be open. hadamard or
         single_pokes (not both) choose the poke patterns at any size; neither
-        takes the daemon's default (Hadamard from 1000 actuators up)."""
+        takes the daemon's default (Hadamard from 1000 actuators up). basis is
+        "svd" (or empty: the interaction matrix's singular modes) or "kl"
+        (Karhunen–Loève modes; modes_kept then keeps that many of them)."""
         req = pb.CalibrateRequest(
             amplitude_m=amplitude_m,
             frames_per_pattern=frames_per_pattern,
@@ -225,6 +228,7 @@ class Client:
             max_condition=max_condition,
             tikhonov=tikhonov,
             single_pokes=single_pokes,
+            basis=basis,
         )
         info = None
         try:

@@ -433,8 +433,13 @@ type ReconstructorInfo struct {
 	CreatedUnix int64 `protobuf:"varint,6,opt,name=created_unix,json=createdUnix,proto3" json:"created_unix,omitempty"`
 	// Singular values of the interaction matrix, largest first.
 	SingularValues []float64 `protobuf:"fixed64,7,rep,packed,name=singular_values,json=singularValues,proto3" json:"singular_values,omitempty"`
-	unknownFields  protoimpl.UnknownFields
-	sizeCache      protoimpl.SizeCache
+	// Modal basis the modal gains apply in: "svd" (singular modes of the
+	// interaction matrix) or "kl" (Karhunen–Loève modes of the mirror).
+	Basis string `protobuf:"bytes,8,opt,name=basis,proto3" json:"basis,omitempty"`
+	// Number of modes the modal gains apply to (columns of the modal basis).
+	ModeCount     uint32 `protobuf:"varint,9,opt,name=mode_count,json=modeCount,proto3" json:"mode_count,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *ReconstructorInfo) Reset() {
@@ -514,6 +519,20 @@ func (x *ReconstructorInfo) GetSingularValues() []float64 {
 		return x.SingularValues
 	}
 	return nil
+}
+
+func (x *ReconstructorInfo) GetBasis() string {
+	if x != nil {
+		return x.Basis
+	}
+	return ""
+}
+
+func (x *ReconstructorInfo) GetModeCount() uint32 {
+	if x != nil {
+		return x.ModeCount
+	}
+	return 0
 }
 
 // OpenLoopRequest has no fields.
@@ -1050,7 +1069,13 @@ type CalibrateRequest struct {
 	Tikhonov float64 `protobuf:"fixed64,6,opt,name=tikhonov,proto3" json:"tikhonov,omitempty"`
 	// Use single-actuator pokes at any size, overriding the Hadamard default from
 	// 1000 actuators up; refused together with hadamard.
-	SinglePokes   bool `protobuf:"varint,7,opt,name=single_pokes,json=singlePokes,proto3" json:"single_pokes,omitempty"`
+	SinglePokes bool `protobuf:"varint,7,opt,name=single_pokes,json=singlePokes,proto3" json:"single_pokes,omitempty"`
+	// Modal basis of the reconstructor and of the modal gains: "" or "svd" for
+	// the singular modes of the interaction matrix, "kl" for Karhunen–Loève modes
+	// of Kolmogorov turbulence on the mirror's influence functions (modes_kept
+	// then keeps that many KL modes, largest variance first; 0 keeps all but
+	// piston).
+	Basis         string `protobuf:"bytes,8,opt,name=basis,proto3" json:"basis,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -1132,6 +1157,13 @@ func (x *CalibrateRequest) GetSinglePokes() bool {
 		return x.SinglePokes
 	}
 	return false
+}
+
+func (x *CalibrateRequest) GetBasis() string {
+	if x != nil {
+		return x.Basis
+	}
+	return ""
 }
 
 // CalibrateResponse reports progress; the last message has done == total and the
@@ -2101,7 +2133,7 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x03p99\x18\x02 \x01(\x01R\x03p99\x12\x12\n" +
 	"\x04p999\x18\x03 \x01(\x01R\x04p999\x12\x10\n" +
 	"\x03max\x18\x04 \x01(\x01R\x03max\x12\x14\n" +
-	"\x05count\x18\x05 \x01(\x04R\x05count\"\x89\x02\n" +
+	"\x05count\x18\x05 \x01(\x04R\x05count\"\xbe\x02\n" +
 	"\x11ReconstructorInfo\x12\x16\n" +
 	"\x06method\x18\x01 \x01(\tR\x06method\x12\x1d\n" +
 	"\n" +
@@ -2111,7 +2143,10 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x0eactuator_count\x18\x04 \x01(\rR\ractuatorCount\x12)\n" +
 	"\x10condition_number\x18\x05 \x01(\x01R\x0fconditionNumber\x12!\n" +
 	"\fcreated_unix\x18\x06 \x01(\x03R\vcreatedUnix\x12'\n" +
-	"\x0fsingular_values\x18\a \x03(\x01R\x0esingularValues\"\x11\n" +
+	"\x0fsingular_values\x18\a \x03(\x01R\x0esingularValues\x12\x14\n" +
+	"\x05basis\x18\b \x01(\tR\x05basis\x12\x1d\n" +
+	"\n" +
+	"mode_count\x18\t \x01(\rR\tmodeCount\"\x11\n" +
 	"\x0fOpenLoopRequest\"J\n" +
 	"\x10OpenLoopResponse\x126\n" +
 	"\x06status\x18\x01 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status\"\x12\n" +
@@ -2132,7 +2167,7 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x14SetModalGainsRequest\x12\x14\n" +
 	"\x05gains\x18\x01 \x03(\x01R\x05gains\"O\n" +
 	"\x15SetModalGainsResponse\x126\n" +
-	"\x06status\x18\x01 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status\"\x80\x02\n" +
+	"\x06status\x18\x01 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status\"\x96\x02\n" +
 	"\x10CalibrateRequest\x12\x1f\n" +
 	"\vamplitude_m\x18\x01 \x01(\x01R\n" +
 	"amplitudeM\x12,\n" +
@@ -2142,7 +2177,8 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"modes_kept\x18\x04 \x01(\rR\tmodesKept\x12#\n" +
 	"\rmax_condition\x18\x05 \x01(\x01R\fmaxCondition\x12\x1a\n" +
 	"\btikhonov\x18\x06 \x01(\x01R\btikhonov\x12!\n" +
-	"\fsingle_pokes\x18\a \x01(\bR\vsinglePokes\"\x99\x01\n" +
+	"\fsingle_pokes\x18\a \x01(\bR\vsinglePokes\x12\x14\n" +
+	"\x05basis\x18\b \x01(\tR\x05basis\"\x99\x01\n" +
 	"\x11CalibrateResponse\x12\x14\n" +
 	"\x05phase\x18\x01 \x01(\tR\x05phase\x12\x12\n" +
 	"\x04done\x18\x02 \x01(\rR\x04done\x12\x14\n" +

@@ -15,8 +15,9 @@ LOOP_STATE_TRIPPED: LoopState
 LOOP_STATE_UNSPECIFIED: LoopState
 
 class CalibrateRequest(_message.Message):
-    __slots__ = ["amplitude_m", "frames_per_pattern", "hadamard", "max_condition", "modes_kept", "single_pokes", "tikhonov"]
+    __slots__ = ["amplitude_m", "basis", "frames_per_pattern", "hadamard", "max_condition", "modes_kept", "single_pokes", "tikhonov"]
     AMPLITUDE_M_FIELD_NUMBER: _ClassVar[int]
+    BASIS_FIELD_NUMBER: _ClassVar[int]
     FRAMES_PER_PATTERN_FIELD_NUMBER: _ClassVar[int]
     HADAMARD_FIELD_NUMBER: _ClassVar[int]
     MAX_CONDITION_FIELD_NUMBER: _ClassVar[int]
@@ -24,13 +25,14 @@ class CalibrateRequest(_message.Message):
     SINGLE_POKES_FIELD_NUMBER: _ClassVar[int]
     TIKHONOV_FIELD_NUMBER: _ClassVar[int]
     amplitude_m: float
+    basis: str
     frames_per_pattern: int
     hadamard: bool
     max_condition: float
     modes_kept: int
     single_pokes: bool
     tikhonov: float
-    def __init__(self, amplitude_m: _Optional[float] = ..., frames_per_pattern: _Optional[int] = ..., hadamard: bool = ..., modes_kept: _Optional[int] = ..., max_condition: _Optional[float] = ..., tikhonov: _Optional[float] = ..., single_pokes: bool = ...) -> None: ...
+    def __init__(self, amplitude_m: _Optional[float] = ..., frames_per_pattern: _Optional[int] = ..., hadamard: bool = ..., modes_kept: _Optional[int] = ..., max_condition: _Optional[float] = ..., tikhonov: _Optional[float] = ..., single_pokes: bool = ..., basis: _Optional[str] = ...) -> None: ...
 
 class CalibrateResponse(_message.Message):
     __slots__ = ["done", "phase", "reconstructor", "total"]
@@ -173,22 +175,26 @@ class OptimiseModalGainsResponse(_message.Message):
     def __init__(self, gains: _Optional[_Iterable[float]] = ..., predicted_residual_before: _Optional[float] = ..., predicted_residual_after: _Optional[float] = ..., status: _Optional[_Union[GetStatusResponse, _Mapping]] = ...) -> None: ...
 
 class ReconstructorInfo(_message.Message):
-    __slots__ = ["actuator_count", "condition_number", "created_unix", "method", "modes_kept", "singular_values", "slope_count"]
+    __slots__ = ["actuator_count", "basis", "condition_number", "created_unix", "method", "mode_count", "modes_kept", "singular_values", "slope_count"]
     ACTUATOR_COUNT_FIELD_NUMBER: _ClassVar[int]
+    BASIS_FIELD_NUMBER: _ClassVar[int]
     CONDITION_NUMBER_FIELD_NUMBER: _ClassVar[int]
     CREATED_UNIX_FIELD_NUMBER: _ClassVar[int]
     METHOD_FIELD_NUMBER: _ClassVar[int]
     MODES_KEPT_FIELD_NUMBER: _ClassVar[int]
+    MODE_COUNT_FIELD_NUMBER: _ClassVar[int]
     SINGULAR_VALUES_FIELD_NUMBER: _ClassVar[int]
     SLOPE_COUNT_FIELD_NUMBER: _ClassVar[int]
     actuator_count: int
+    basis: str
     condition_number: float
     created_unix: int
     method: str
+    mode_count: int
     modes_kept: int
     singular_values: _containers.RepeatedScalarFieldContainer[float]
     slope_count: int
-    def __init__(self, method: _Optional[str] = ..., modes_kept: _Optional[int] = ..., slope_count: _Optional[int] = ..., actuator_count: _Optional[int] = ..., condition_number: _Optional[float] = ..., created_unix: _Optional[int] = ..., singular_values: _Optional[_Iterable[float]] = ...) -> None: ...
+    def __init__(self, method: _Optional[str] = ..., modes_kept: _Optional[int] = ..., slope_count: _Optional[int] = ..., actuator_count: _Optional[int] = ..., condition_number: _Optional[float] = ..., created_unix: _Optional[int] = ..., singular_values: _Optional[_Iterable[float]] = ..., basis: _Optional[str] = ..., mode_count: _Optional[int] = ...) -> None: ...
 
 class RecordTelemetryRequest(_message.Message):
     __slots__ = ["frame_count"]

@@ -26,7 +26,7 @@ import (
 )
 
 // Usage lists the verbs.
-const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard | --single-pokes] | save FILE | load FILE | " + RecordUsage
+const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard | --single-pokes] [--basis svd|kl] | save FILE | load FILE | " + RecordUsage
 
 // Run performs one verb against the Control API on conn and writes the result to out.
 func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out io.Writer) error {
@@ -131,14 +131,20 @@ func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out 
 		}
 	case "calibrate":
 		req := &stillskyv1.CalibrateRequest{}
-		for _, a := range rest {
-			switch a {
+		for i := 0; i < len(rest); i++ {
+			switch a := rest[i]; a {
+			case "--basis":
+				if i+1 >= len(rest) || (rest[i+1] != "svd" && rest[i+1] != "kl") {
+					return fmt.Errorf("calibrate: --basis wants svd or kl")
+				}
+				i++
+				req.Basis = rest[i]
 			case "--hadamard":
 				req.Hadamard = true
 			case "--single-pokes":
 				req.SinglePokes = true
 			default:
-				return fmt.Errorf("calibrate: unknown option %q (only --hadamard or --single-pokes)", a)
+				return fmt.Errorf("calibrate: unknown option %q (only --hadamard, --single-pokes or --basis svd|kl)", a)
 			}
 		}
 		if req.Hadamard && req.SinglePokes {
@@ -279,8 +285,12 @@ func describeReconstructor(r *stillskyv1.ReconstructorInfo) string {
 	if r == nil {
 		return "none"
 	}
-	return fmt.Sprintf("%s, %d modes kept, %d slopes × %d actuators, condition %.3g",
-		r.GetMethod(), r.GetModesKept(), r.GetSlopeCount(), r.GetActuatorCount(), r.GetConditionNumber())
+	basis := ""
+	if b := r.GetBasis(); b != "" {
+		basis = fmt.Sprintf(", %d %s modes", r.GetModeCount(), b)
+	}
+	return fmt.Sprintf("%s, %d modes kept, %d slopes × %d actuators, condition %.3g%s",
+		r.GetMethod(), r.GetModesKept(), r.GetSlopeCount(), r.GetActuatorCount(), r.GetConditionNumber(), basis)
 }
 
 func save(ctx context.Context, c stillskyv1.ControlServiceClient, path string) error {

@@ -37,6 +37,9 @@ type Config struct {
 	Gain *float64
 	// Lockstep runs the bench in lockstep mode instead of free-running.
 	Lockstep bool
+	// Basis is the calibration's modal basis ("", "svd" or "kl"; see
+	// CalibrateRequest.basis).
+	Basis string
 	// Out receives the progress bar, status lines and summary table.
 	Out io.Writer
 	// Logger receives the log of the bench and the daemon; nil discards it.
@@ -240,7 +243,7 @@ func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.G
 	if err := connected(ctx, r); err != nil {
 		return nil, err
 	}
-	if err := ctl.Calibrate(ctx, r.Client, &stillskyv1.CalibrateRequest{}, c.Out); err != nil {
+	if err := ctl.Calibrate(ctx, r.Client, &stillskyv1.CalibrateRequest{Basis: c.Basis}, c.Out); err != nil {
 		return nil, fmt.Errorf("demo: calibration: %w", err)
 	}
 

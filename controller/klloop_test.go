@@ -1,0 +1,112 @@
+package controller_test
+
+import (
+	"math"
+	"testing"
+
+	"gonum.org/v1/gonum/mat"
+
+	"stillsky/budgetsim"
+	"stillsky/controller"
+	"stillsky/sim/bench"
+	"stillsky/sim/scenario"
+)
+
+// TestKLControlClosedLoop closes the loop on the default scenario in lockstep
+// (delay line, same turbulence seed) twice: with the zonal reconstructor (the
+// singular modes of M, kept to condition 30) and with the one built in the
+// mirror's Karhunen–Loève modes (as many as the zonal one controls,
+// controller.KLBasis), unit gains, and checks that KL control is no worse than zonal control: Maréchal
+// Strehl at the science wavelength within 0.02 (a tolerance of our own: the
+// two control nearly the same space of modes). It also checks that a KL step allocates nothing.
+func TestKLControlClosedLoop(t *testing.T) {
+	if testing.Short() {
+		t.Skip("closed loop on the simulated bench: skipped in -short mode")
+	}
+	scn, err := scenario.Load(scenario.Default)
+	if err != nil {
+		t.Fatal(err)
+	}
+	d := scn.Loop.DelayFrames
+	sys, err := bench.NewSystem(scn)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sys.SetTurbulence(false)
+	ns, na := sys.NumSlopes(), sys.NumActuators()
+	cal, err := controller.NewCalibrator(controller.CalibrationConfig{
+		Actuators: na, Slopes: ns, Amplitude: 1e-6, FramesPerPattern: 1, SettleFrames: d, Hadamard: true,
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	slopes, cmd := make([]float32, ns), make([]float32, na)
+	line := budgetsim.NewDelayLine(sys, d)
+	for !cal.Done() {
+		line.Frame(slopes, func() []float32 {
+			if err := cal.Feed(slopes); err != nil {
+				t.Fatal(err)
+			}
+			cal.Command(cmd)
+			return cmd
+		})
+	}
+	m, err := cal.InteractionMatrix()
+	if err != nil {
+		t.Fatal(err)
+	}
+	mir := sys.Mirror()
+	kl, _, err := controller.KLBasis(controller.KLConfig{
+		Positions: mir.Positions(), Pitch: mir.Pitch(), Coupling: mir.Coupling(), Diameter: scn.Telescope.Diameter,
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+
+	lambda := scn.Science.Wavelength
+	const gain = 0.5
+	run := func(c controller.ReconstructorConfig) (float64, int) {
+		r, err := controller.BuildReconstructor(m, c)
+		if err != nil {
+			t.Fatal(err)
+		}
+		p, err := controller.NewParams(controller.ParamsConfig{Reconstructor: r, Gain: gain, Stroke: scn.DM.Stroke, StrehlWavelength: lambda})
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer p.Close()
+		loop, err := controller.NewLoop(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		closed, err := bench.NewSystem(scn)
+		if err != nil {
+			t.Fatal(err)
+		}
+		const warmup, frames = 200, 600
+		v := 0.0
+		line := budgetsim.NewDelayLine(closed, d)
+		for k := 0; k < warmup+frames; k++ {
+			line.Frame(slopes, func() []float32 {
+				loop.Step(slopes, cmd)
+				return cmd
+			})
+			if k >= warmup {
+				v += math.Pow(2*math.Pi*closed.ResidualRMS()/lambda, 2) / frames
+			}
+		}
+		if a := testing.AllocsPerRun(50, func() { loop.Step(slopes, cmd) }); a != 0 {
+			t.Errorf("basis %q: %v allocations per step, want 0", c.BasisName, a)
+		}
+		return v, r.NumModes()
+	}
+	zonal, nz := run(controller.ReconstructorConfig{MaxCondition: 30, UnseenCondition: 100})
+	// As many KL modes as zonal ones, M·B cut at condition 100 (the daemon's
+	// default for basis "kl": tilt, seen weakest per unit rms, must stay).
+	klVar, nk := run(controller.ReconstructorConfig{MaxCondition: 100, UnseenCondition: 100, Basis: mat.DenseCopyOf(kl.Slice(0, na, 0, nz)), BasisName: "kl"})
+	sz, sk := math.Exp(-zonal), math.Exp(-klVar)
+	t.Logf("zonal: %d modes, %.4f rad², Strehl %.3f; KL: %d modes, %.4f rad², Strehl %.3f", nz, zonal, sz, nk, klVar, sk)
+	if sk < sz-0.02 {
+		t.Errorf("KL control Strehl %.3f below zonal %.3f − 0.02", sk, sz)
+	}
+}
