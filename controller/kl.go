@@ -68,7 +68,7 @@ func KLBasis(c KLConfig) (*mat.Dense, []float64, error) {
 	xs, ys := KLPupilSamples(c.Diameter, c.Pitch, spp)
 	np := len(xs)
 	if np > MaxKLPupilSamples {
-		return nil, nil, fmt.Errorf("controller: KL basis: %d pupil samples (%d per pitch): at most %d; use fewer samples per pitch", np, spp, MaxKLPupilSamples)
+		return nil, nil, fmt.Errorf("controller: KL basis: %d pupil samples (%d per pitch): at most %d (for a mirror this large use the singular-mode basis)", np, spp, MaxKLPupilSamples)
 	}
 	f := KLInfluence(c, xs, ys)
 	// Piston-removed covariance P·C·P (P = I − 11ᵀ/n), r0 = D.
