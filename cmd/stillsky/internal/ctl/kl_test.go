@@ -17,7 +17,9 @@ import (
 // TestCalibrateKLBasis calibrates the small scenario in Karhunen–Loève modes
 // through `ctl calibrate --basis kl`, then checks that the reconstructor says
 // so, that modal gains of its mode count are accepted and one more is refused,
-// that the loop closes on it, and that the basis survives a save and a load.
+// that the loop closes on it, that optimise-gains finds one gain per KL mode
+// and predicts no worse a residual, and that the basis survives a save and a
+// load.
 func TestCalibrateKLBasis(t *testing.T) {
 	scn, err := scenario.Load("small")
 	if err != nil {
@@ -67,6 +69,13 @@ func TestCalibrateKLBasis(t *testing.T) {
 		t.Fatal(err)
 	}
 	loopCarriesOn(t, r, "closing on KL modes")
+	og, err := r.Client.OptimiseModalGains(ctx, &stillskyv1.OptimiseModalGainsRequest{Frames: 512, DryRun: true})
+	if err != nil {
+		t.Fatalf("optimise-gains on KL modes: %v", err)
+	}
+	if len(og.GetGains()) != n || !(og.GetPredictedResidualAfter() <= og.GetPredictedResidualBefore()) {
+		t.Errorf("optimise-gains: %d gains for %d KL modes, predicted residual %g → %g", len(og.GetGains()), n, og.GetPredictedResidualBefore(), og.GetPredictedResidualAfter())
+	}
 	if _, err := r.Client.OpenLoop(ctx, &stillskyv1.OpenLoopRequest{}); err != nil {
 		t.Fatal(err)
 	}
