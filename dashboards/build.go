@@ -219,16 +219,16 @@ func overview() *dashboard.DashboardBuilder {
 		WithPanel(statetimeline.NewPanelBuilder().
 			Id(id.next()).
 			Title("Unattended supervisor state over time").
-			Description("With stillsky loop --autonomous: which of starting, calibrating, acquiring, closed, holding, clouded, tripped and manual the supervisor was in (daemon/supervisor documents the states).").
+			Description("With stillsky loop --autonomous: which of starting, calibrating, acquiring, closed, holding, clouded, tripped and manual the supervisor was in (1 for the state it is in, 0 for the others; all 0 when the daemon runs without the supervisor; daemon/supervisor documents the states).").
 			Datasource(datasource()).
 			Span(12).
 			Height(8).
 			MergeValues(true).
 			ShowValue(common.VisibilityModeNever).
-			WithTarget(target(q("stillsky_supervisor_state")+" == 1", "{{instance}} {{state}}"))).
+			WithTarget(target(q("stillsky_supervisor_state"), "{{instance}} {{state}}"))).
 		WithPanel(series(id, "Unattended supervisor transitions", "Transitions of the supervisor in each interval, by state left and state entered: a flux loss is closed→holding, a cloud that lasts holding→clouded.", units.Short, 12, 8).
 			DrawStyle(common.GraphDrawStyleBars).
-			WithTarget(target("sum by (instance, from, to) (increase("+q("stillsky_supervisor_transitions_total")+"[$__rate_interval])) > 0", "{{from}}→{{to}} {{instance}}"))).
+			WithTarget(target("sum by (instance, from, to) (increase("+q("stillsky_supervisor_transitions_total")+"[$__rate_interval]))", "{{from}}→{{to}} {{instance}}"))).
 		WithPanel(single(id, "Running versions", "Version of each scraped stillsky process.", units.NoUnit, 24, 4).
 			TextMode(common.BigValueTextModeName).
 			WithTarget(target(q("stillsky_build_info"), "{{job}} {{instance}} {{version}}").Instant()))
