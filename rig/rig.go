@@ -293,6 +293,29 @@ func WaitFrames(ctx context.Context, c stillskyv1.ControlServiceClient, n uint64
 	return s, nil
 }
 
+// WaitConnected waits until the loop behind c has both devices connected, and
+// returns the status then; it needs no frame (a gated lockstep bench holds them).
+func WaitConnected(ctx context.Context, c stillskyv1.ControlServiceClient) (*stillskyv1.GetStatusResponse, error) {
+	t := time.NewTicker(pollInterval)
+	defer t.Stop()
+	for {
+		s, err := c.GetStatus(ctx, &stillskyv1.GetStatusRequest{})
+		if cerr := ended(ctx); cerr != nil {
+			return nil, fmt.Errorf("rig: camera connected %v, mirror connected %v: %w", s.GetCameraConnected(), s.GetMirrorConnected(), cerr)
+		}
+		if err != nil {
+			return nil, err
+		}
+		if s.GetCameraConnected() && s.GetMirrorConnected() {
+			return s, nil
+		}
+		select {
+		case <-ctx.Done():
+		case <-t.C:
+		}
+	}
+}
+
 // ended returns ctx's error, or context.DeadlineExceeded once its deadline has
 // passed: gRPC fails a call at the deadline, before the context's own timer
 // may have fired.

@@ -159,12 +159,15 @@ func (b *Server) SetSource(_ context.Context, req *stillskyv1.SetSourceRequest) 
 	default:
 		return nil, status.Errorf(codes.InvalidArgument, "camera: source %v: want SOURCE_SKY or SOURCE_CALIBRATION", req.GetSource())
 	}
+	b.gate.mu.Lock() // between two frames of a gated bench
 	b.mu.Lock()
 	b.sys.SetTurbulence(sky)
 	b.sys.SetNoise(sky && b.scn.WFS.Noise)
 	b.calibrationSource.Store(!sky)
 	b.mu.Unlock()
 	b.sky.Store(sky)
+	b.gate.mu.Unlock()
+	b.wakeGate()
 	b.log.Info("source selected", "source", req.GetSource().String())
 	return &stillskyv1.SetSourceResponse{Source: req.GetSource()}, nil
 }

@@ -25,7 +25,13 @@ func (b *Server) Run(ctx context.Context) error {
 		if err := b.awaitCommand(ctx, k); err != nil {
 			return err
 		}
-		b.produce(k)
+		if b.opt.Gated {
+			if err := b.gated(ctx, k); err != nil {
+				return err
+			}
+			continue
+		}
+		b.produce(k, k, true)
 	}
 	return nil
 }
@@ -84,7 +90,7 @@ func (b *Server) freeRun(ctx context.Context) {
 			b.cam.ready <- b.cam.written
 			b.cam.written++
 		}
-		b.figures(k)
+		b.figures(k, true)
 		b.mu.Lock()
 		b.sys.Advance()
 		b.mu.Unlock()
@@ -122,8 +128,10 @@ func (b *Server) awaitCommand(ctx context.Context, k uint64) error {
 }
 
 // produce simulates lockstep frame k with the command that answered frame
-// k−DelayFrames and hands it to the camera stream at once.
-func (b *Server) produce(k uint64) {
+// k−DelayFrames and hands it to the camera stream at once. The science camera
+// samples it when n, its index (on the sky, with a gated bench), is a multiple
+// of StrehlEvery and sample is set.
+func (b *Server) produce(k, n uint64, sample bool) {
 	slot, publish := b.nextSlot()
 	b.mu.Lock()
 	if d := uint64(b.opt.DelayFrames); k > d {
@@ -139,7 +147,7 @@ func (b *Server) produce(k uint64) {
 		b.cam.ready <- b.cam.written
 		b.cam.written++
 	}
-	b.figures(k)
+	b.figures(n, sample)
 }
 
 // waitUntil blocks until CLOCK_MONOTONIC reaches t: an absolute clock_nanosleep

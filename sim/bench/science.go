@@ -10,15 +10,16 @@ import (
 	"stillsky/sim/optics"
 )
 
-// figures updates the true figures of merit after frame k. Free-running, and
+// figures updates the true figures of merit after frame k (with maySample
+// unset, the science camera skips the frame). Free-running, and
 // in lockstep while the calibration source is on, the residual is formed on
 // the frames the science camera samples only: on the others the geometric
 // sensor never needs it, and the pokes of a calibration have no figure of
 // merit worth the mirror surface per frame (which costs several times the
 // frame itself on a mirror of thousands of actuators).
-func (b *Server) figures(k uint64) {
+func (b *Server) figures(k uint64, maySample bool) {
 	b.metrics.frames.Inc()
-	sample := k%uint64(b.opt.StrehlEvery) == 0
+	sample := maySample && k%uint64(b.opt.StrehlEvery) == 0
 	if !sample && (!b.opt.Lockstep || b.calibrationSource.Load()) {
 		return
 	}

@@ -30,6 +30,12 @@ type Options struct {
 	// ReadoutTime spreads the chunks of a chunked frame over this time, as a
 	// detector read out row by row would deliver them; 0 sends them back to back.
 	ReadoutTime time.Duration
+	// Gated, with Lockstep, holds the bench before its first sky frame until
+	// HoldAfter moves the limit: a driver then ends each phase on an exact sky
+	// frame (WaitHeld), and the science camera samples every StrehlEvery-th
+	// sky frame, so that a run is the same whatever the calibration source's
+	// frames and the machine's timing were.
+	Gated bool
 	// Logger receives the bench's log lines; nil discards them.
 	Logger *slog.Logger
 	// IdlePriority runs the free-running simulation and the science camera on
@@ -81,6 +87,7 @@ type Server struct {
 	sci     scienceCamera // the free-running science camera
 	stats   statsAccumulator
 	metrics *benchMetrics
+	gate    skyGate // with Options.Gated
 }
 
 // NewServer builds the bench for scenario s.
@@ -102,6 +109,9 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	}
 	if opt.Logger == nil {
 		opt.Logger = slog.New(slog.DiscardHandler)
+	}
+	if opt.Gated && !opt.Lockstep {
+		return nil, fmt.Errorf("bench: a gated bench must be lockstep")
 	}
 	if opt.Prerendered < 0 || opt.Prerendered > 0 && opt.Lockstep {
 		return nil, fmt.Errorf("bench: %d pre-rendered frames: want 0, or more for a free-running camera", opt.Prerendered)
@@ -144,6 +154,7 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 		b.cam.slots[i].slopes = make([]float32, sys.NumSlopes())
 	}
 	b.sky.Store(true)
+	b.gate.wake = make(chan struct{}, 1)
 	if opt.Prerendered > 0 {
 		b.frames = prerender(sys, opt.Prerendered)
 	}

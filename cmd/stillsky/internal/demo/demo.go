@@ -171,7 +171,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 			Scenario: scn,
 			// One science image every 20 frames is plenty for a long exposure of
 			// thousands of frames, and keeps the camera's FFTs off the loop's CPU time.
-			Bench: bench.Options{Lockstep: lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
+			Bench: bench.Options{Lockstep: lockstep, Gated: lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
 			// The loop analyses itself every 4 s, so that its turbulence estimate
 			// and budget reach the summary of a run of a few seconds.
 			Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 4 * time.Second, Interlocks: locks, Beacon: beacon, Logger: c.Logger.With("process", "loop")},
@@ -186,7 +186,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	fmt.Fprintf(c.Out, "stillsky demo: scenario %q — %s\n", scn.Name, scn.Description)
 	sum := &Summary{Scenario: scn.Name, ScienceWavelengthM: scn.Science.Wavelength, Lockstep: c.Lockstep}
 	if !c.Lockstep {
-		if err := connected(ctx, r); err != nil {
+		if err := connected(ctx, r, false); err != nil {
 			return nil, err
 		}
 		v, err := checkRealTime(ctx, r)
@@ -240,7 +240,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 // run connects, calibrates and runs the open and the closed phase, filling sum
 // as it goes; it returns the loop's status at the end of the closed phase.
 func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.GetStatusResponse, error) {
-	if err := connected(ctx, r); err != nil {
+	if err := connected(ctx, r, c.Lockstep); err != nil {
 		return nil, err
 	}
 	if err := ctl.Calibrate(ctx, r.Client, &stillskyv1.CalibrateRequest{Basis: c.Basis}, c.Out); err != nil {
@@ -248,6 +248,9 @@ func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.G
 	}
 
 	b := r.Bench
+	if c.Lockstep {
+		return runGated(ctx, c, r, sum)
+	}
 	if c.scaleFrames[0] {
 		n, err := framesFor(ctx, r, openBudget, 200, c.FramesOpen)
 		if err != nil {
@@ -313,6 +316,102 @@ func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.G
 	return st, err
 }
 
+// runGated runs the open and the closed phase of a lockstep run on the gated
+// bench, frame-exact: the bench holds after the last sky frame of each phase
+// until the loop has answered it, the statistics restart and the loop closes
+// between two known frames, so that two runs of the same scenario and seed give
+// the same true figures, bit for bit.
+func runGated(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.GetStatusResponse, error) {
+	b := r.Bench
+	// The bench holds before its first sky frame; the calibration's frames
+	// pass the gate.
+	_, sky, err := b.WaitHeld(ctx)
+	if err != nil {
+		return nil, err
+	}
+	// hold runs a phase of n sky frames from a held bench to the next hold.
+	hold := func(pctx context.Context, n int) (int, error) {
+		s0, err := r.Status(pctx)
+		if err != nil {
+			return 0, err
+		}
+		b.ResetStats()
+		b.HoldAfter(sky + uint64(n))
+		done := make(chan error, 1)
+		go func() { _, _, err := b.WaitHeld(pctx); done <- err }()
+		ran, _, err := runPhaseFrom(pctx, r.Client, b, s0, n, c.Out)
+		if werr := <-done; err == nil {
+			err = werr
+		}
+		if err != nil {
+			// Cut short (its lockstep budget): hold where the bench is, for
+			// the next phase.
+			b.HoldAfter(0)
+			if _, s, herr := b.WaitHeld(ctx); herr == nil {
+				sky = s
+			}
+			return ran, err
+		}
+		sky += uint64(n)
+		return n, nil
+	}
+	if c.scaleFrames[0] {
+		n, err := framesFor(ctx, r, openBudget, 200, c.FramesOpen)
+		if err != nil {
+			return nil, err
+		}
+		c.FramesOpen = n
+	}
+	fmt.Fprintf(c.Out, "open loop: %d frames\n", c.FramesOpen)
+	pctx, cancel := phaseContext(ctx, c.scaleFrames[0], openBudget)
+	n, err := hold(pctx, c.FramesOpen)
+	cancel()
+	if err = budgetEnded(ctx, err, c.Out); err != nil {
+		return nil, err
+	}
+	open := b.Stats()
+	sum.FramesOpen, sum.StrehlOpen, sum.ResidualRMSNmOpen = n, open.Strehl, open.ResidualRMS*1e9
+	sum.ContrastOpen = atSeparations(open.Contrast)
+	sum.StrehlOpenBlocks = spread(open.BlockStrehl)
+
+	if _, err := r.Client.CloseLoop(ctx, &stillskyv1.CloseLoopRequest{}); err != nil {
+		return nil, fmt.Errorf("demo: close loop: %w", err)
+	}
+	settle := 50
+	t0 := time.Now()
+	s0, err := r.Status(ctx)
+	if err != nil {
+		return nil, err
+	}
+	if _, err := hold(ctx, settle); err != nil {
+		return nil, err
+	}
+	if c.scaleFrames[1] {
+		s1, err := r.Status(ctx)
+		if err != nil {
+			return nil, err
+		}
+		c.FramesClosed = lockstepFrames(s0, s1, time.Since(t0), closedBudget, 500, c.FramesClosed)
+	}
+	fmt.Fprintf(c.Out, "closed loop: %d frames (after %d to converge)\n", c.FramesClosed, settle)
+	pctx, cancel = phaseContext(ctx, c.scaleFrames[1], closedBudget)
+	n, err = hold(pctx, c.FramesClosed)
+	cancel()
+	err = budgetEnded(ctx, err, c.Out)
+	closed := b.Stats()
+	sum.FramesClosed, sum.StrehlClosed, sum.ResidualRMSNmClosed = n, closed.Strehl, closed.ResidualRMS*1e9
+	sum.ContrastClosed = atSeparations(closed.Contrast)
+	sum.StrehlClosedBlocks = spread(closed.BlockStrehl)
+	st, serr := r.Status(context.Background())
+	if serr != nil && err == nil {
+		err = serr
+	}
+	if c := st.GetStrehlEstimate(); st.GetState() == stillskyv1.LoopState_LOOP_STATE_CLOSED {
+		sum.StrehlEstimateClosed = c
+	}
+	return st, err
+}
+
 // WriteJSON writes the summary to path atomically.
 func (s *Summary) WriteJSON(path string) error {
 	b, err := json.MarshalIndent(s, "", "  ")
@@ -333,6 +432,11 @@ func runPhase(ctx context.Context, c stillskyv1.ControlServiceClient, b *bench.S
 	if err != nil {
 		return 0, nil, err
 	}
+	return runPhaseFrom(ctx, c, b, s, n, out, observe...)
+}
+
+// runPhaseFrom is runPhase counting from the status s.
+func runPhaseFrom(ctx context.Context, c stillskyv1.ControlServiceClient, b *bench.Server, s *stillskyv1.GetStatusResponse, n int, out io.Writer, observe ...func(*stillskyv1.GetStatusResponse)) (int, *stillskyv1.GetStatusResponse, error) {
 	start := s.GetFrames()
 	target := start + uint64(n)
 	lastLine, lastFrames, lastT := time.Now(), s.GetFrames(), time.Now()

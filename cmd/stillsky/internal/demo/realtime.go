@@ -120,9 +120,16 @@ func lockstepFrames(s0, s1 *stillskyv1.GetStatusResponse, el, budget time.Durati
 }
 
 // connected waits up to 30 s for the loop's first frame from the bench.
-func connected(ctx context.Context, r *rig.Rig) error {
+func connected(ctx context.Context, r *rig.Rig, gated bool) error {
 	wait, cancel := context.WithTimeout(ctx, 30*time.Second)
 	defer cancel()
+	if gated {
+		// A gated bench sends no sky frame before the run asks for it.
+		if _, err := rig.WaitConnected(wait, r.Client); err != nil {
+			return fmt.Errorf("demo: the loop did not connect to the bench: %w", err)
+		}
+		return nil
+	}
 	if _, err := r.WaitFrames(wait, 1); err != nil {
 		return fmt.Errorf("demo: the loop did not connect to the bench: %w", err)
 	}

@@ -6,9 +6,11 @@ import (
 	"encoding/csv"
 	"fmt"
 	"image/png"
+	"io"
 	"math"
 	"os"
 	"path/filepath"
+	"reflect"
 	"strings"
 	"testing"
 
@@ -339,5 +341,57 @@ func TestStrehlPeaksBelowStabilityLimit(t *testing.T) {
 	}
 	if above := results[3].Summary.StrehlClosed; above > peak/2 {
 		t.Errorf("gain 1.2, above the limit %.3f: Strehl %.3f, want a collapse below half the peak %.3f", limit, above, peak)
+	}
+}
+
+// TestSweepIsReproducible runs the same 2-point sweep twice, the second time
+// with the points in parallel: every point is a frame-exact lockstep run, so
+// the CSV's Strehl columns are the same, character for character.
+func TestSweepIsReproducible(t *testing.T) {
+	s, err := Parse([]byte("scenario: small\nframes_open: 60\nframes_closed: 200\ngrid:\n  gain: [0.3, 0.6]\n"), "pair", ".")
+	if err != nil {
+		t.Fatal(err)
+	}
+	columns := func(jobs int) [][]string {
+		t.Helper()
+		dir := t.TempDir()
+		if _, err := RunLocal(context.Background(), s, dir, jobs, io.Discard); err != nil {
+			t.Fatal(err)
+		}
+		c, err := Collect(dir)
+		if err != nil {
+			t.Fatal(err)
+		}
+		files, err := c.WriteFiles(dir)
+		if err != nil {
+			t.Fatal(err)
+		}
+		f, err := os.Open(files[0])
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer f.Close()
+		rows, err := csv.NewReader(f).ReadAll()
+		if err != nil {
+			t.Fatal(err)
+		}
+		var out [][]string
+		for i, h := range rows[0] {
+			if strings.HasPrefix(h, "strehl_open") || strings.HasPrefix(h, "strehl_closed") {
+				col := []string{h}
+				for _, r := range rows[1:] {
+					col = append(col, r[i])
+				}
+				out = append(out, col)
+			}
+		}
+		if len(out) < 2 || len(rows) != 3 {
+			t.Fatalf("%d rows, Strehl columns %v: want 3 rows and the open and closed Strehl ratios", len(rows), out)
+		}
+		return out
+	}
+	a, b := columns(1), columns(2)
+	if !reflect.DeepEqual(a, b) {
+		t.Errorf("Strehl columns differ:\n%v\n%v", a, b)
 	}
 }
