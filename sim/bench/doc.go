@@ -13,7 +13,8 @@
 //
 // Server's parts, one file each: camera.go (the frame ring and the camera
 // stream), mirror.go (the command log and the mirror stream), clock.go (the
-// free-running and lockstep clocks), science.go (the science camera), stats.go
+// free-running and lockstep clocks), gate.go (the gated lockstep bench's hold
+// before a requested sky frame), science.go (the science camera), stats.go
 // (true figures of merit), metrics.go (the bench's own Prometheus registry);
 // serve.go listens and serves them.
 package bench
