@@ -21,6 +21,9 @@ func (b *Server) figures(k uint64, maySample bool) {
 	b.metrics.frames.Inc()
 	sample := maySample && k%uint64(b.opt.StrehlEvery) == 0
 	if !sample && (!b.opt.Lockstep || b.calibrationSource.Load()) {
+		if !b.opt.Lockstep {
+			b.stats.tick() // the frame still counts towards its one-second block
+		}
 		return
 	}
 	b.mu.Lock()
@@ -37,6 +40,7 @@ func (b *Server) figures(k uint64, maySample bool) {
 		b.sys.PSF(b.psf)
 	}
 	b.mu.Unlock()
+	b.stats.tick()
 	b.stats.add(rms)
 	b.metrics.residual.Set(rms)
 	if sample && b.opt.Lockstep {

@@ -29,7 +29,8 @@ type Stats struct {
 
 type statsAccumulator struct {
 	mu           sync.Mutex
-	frames       int
+	frames       int // frames seen (tick)
+	residualN    int // frames whose residual was formed (add)
 	sumResidual  float64
 	lastResidual float64
 	exp          exposure
@@ -40,15 +41,25 @@ type statsAccumulator struct {
 	blocks      []float64
 }
 
-func (a *statsAccumulator) add(rms float64) {
+// tick counts a frame and closes the one-second block at every blockFrames
+// frames, whether or not the frame's residual was formed (free-running, only
+// the science camera's samples form it).
+func (a *statsAccumulator) tick() {
 	a.mu.Lock()
 	a.frames++
-	a.sumResidual += rms
-	a.lastResidual = rms
 	if a.frames%a.blockFrames == 0 && a.block.n > 0 {
 		a.blocks = append(a.blocks, a.block.strehl())
 		a.block.reset()
 	}
+	a.mu.Unlock()
+}
+
+// add adds a frame's true residual rms to the mean.
+func (a *statsAccumulator) add(rms float64) {
+	a.mu.Lock()
+	a.residualN++
+	a.sumResidual += rms
+	a.lastResidual = rms
 	a.mu.Unlock()
 }
 
@@ -75,8 +86,8 @@ func (b *Server) Stats() Stats {
 	defer a.mu.Unlock()
 	s := Stats{Frames: a.frames, StrehlSamples: a.exp.n, Strehl: a.exp.strehl(), BlockStrehl: append([]float64(nil), a.blocks...),
 		Contrast: a.exp.contrastCurve(b.sys.PSFSize())}
-	if a.frames > 0 {
-		s.ResidualRMS = a.sumResidual / float64(a.frames)
+	if a.residualN > 0 {
+		s.ResidualRMS = a.sumResidual / float64(a.residualN)
 	}
 	return s
 }
@@ -86,7 +97,7 @@ func (b *Server) ResetStats() { b.stats.reset() }
 
 func (a *statsAccumulator) reset() {
 	a.mu.Lock()
-	a.frames, a.sumResidual = 0, 0
+	a.frames, a.residualN, a.sumResidual = 0, 0, 0
 	a.exp.reset()
 	a.block.reset()
 	a.blocks = a.blocks[:0]

@@ -14,6 +14,7 @@ func TestBlockStrehl(t *testing.T) {
 	// mean of its own PSFs does.
 	psfs := [][]float64{{0.9, 0.1}, {0.7, 0.2}, {0.1, 0.5}, {0.2, 0.6}, {0.3, 0.3}}
 	for k := 0; k < 10; k++ {
+		a.tick()
 		a.add(1e-7)
 		if k%2 == 0 {
 			a.expose(psfs[k/2])
@@ -34,10 +35,34 @@ func TestBlockStrehl(t *testing.T) {
 	}
 	a.reset()
 	for k := 0; k < 4; k++ {
+		a.tick()
 		a.add(1e-7)
 		a.expose(psfs[2])
 	}
 	if len(a.blocks) != 1 || math.Abs(a.blocks[0]-0.5) > 1e-15 {
 		t.Errorf("after a reset, blocks %v, want [0.5]", a.blocks)
+	}
+}
+
+// Free-running, the residual is formed only on the frames the science camera
+// samples, but every frame counts towards its one-second block: blocks close on
+// the frame count, and the mean residual is over the frames that formed one.
+func TestBlocksCountEveryFrame(t *testing.T) {
+	a := statsAccumulator{exp: exposure{sum: make([]float64, 2)}, block: exposure{sum: make([]float64, 2)}, blockFrames: 10}
+	for k := 1; k <= 25; k++ {
+		a.tick()
+		if k%5 == 0 { // a sample every 5th frame
+			a.add(float64(k) * 1e-9)
+			a.expose([]float64{0.6, 0.1})
+		}
+	}
+	if len(a.blocks) != 2 {
+		t.Fatalf("%d blocks after 25 frames of 10-frame blocks, want 2", len(a.blocks))
+	}
+	if a.frames != 25 || a.residualN != 5 {
+		t.Errorf("frames %d, residuals %d: want 25 and 5", a.frames, a.residualN)
+	}
+	if mean := a.sumResidual / float64(a.residualN); math.Abs(mean-15e-9) > 1e-18 {
+		t.Errorf("mean residual %g, want 15e-9 (5, 10, 15, 20, 25 nm)", mean)
 	}
 }
