@@ -188,3 +188,7 @@ func budgetEnded(ctx context.Context, err error, out io.Writer) error {
 	}
 	return err
 }
+
+// freeRunSilence is how long the stale-camera interlock of a free-running demo
+// waits for a frame (at least the daemon's default of 20 frame periods).
+const freeRunSilence = 100 * time.Millisecond
