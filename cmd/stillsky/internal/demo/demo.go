@@ -294,12 +294,8 @@ func run(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillskyv1.G
 	if _, _, err := runPhase(ctx, r.Client, b, settle, io.Discard); err != nil {
 		return nil, err
 	}
-	if c.scaleFrames[1] {
-		s1, err := r.Status(ctx)
-		if err != nil {
-			return nil, err
-		}
-		c.FramesClosed = lockstepFrames(s0, s1, time.Since(t0), closedBudget, 500, c.FramesClosed)
+	if err := c.fitClosedFrames(ctx, r, s0, t0); err != nil {
+		return nil, err
 	}
 	fmt.Fprintf(c.Out, "closed loop: %d frames (after %d to converge)\n", c.FramesClosed, settle)
 	b.ResetStats()
@@ -394,12 +390,8 @@ func runGated(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillsk
 	if _, err := hold(ctx, settle); err != nil {
 		return nil, err
 	}
-	if c.scaleFrames[1] {
-		s1, err := r.Status(ctx)
-		if err != nil {
-			return nil, err
-		}
-		c.FramesClosed = lockstepFrames(s0, s1, time.Since(t0), closedBudget, 500, c.FramesClosed)
+	if err := c.fitClosedFrames(ctx, r, s0, t0); err != nil {
+		return nil, err
 	}
 	fmt.Fprintf(c.Out, "closed loop: %d frames (after %d to converge)\n", c.FramesClosed, settle)
 	pctx, cancel = phaseContext(ctx, c.scaleFrames[1], closedBudget)

@@ -192,3 +192,18 @@ func budgetEnded(ctx context.Context, err error, out io.Writer) error {
 // freeRunSilence is how long the stale-camera interlock of a free-running demo
 // waits for a frame (at least the daemon's default of 20 frame periods).
 const freeRunSilence = 100 * time.Millisecond
+
+// fitClosedFrames sizes the closed phase to closedBudget at the pace of the
+// settling frames run since status s0 (taken at t0), when its frames were not
+// given (between 500 and the frames it had).
+func (c *Config) fitClosedFrames(ctx context.Context, r *rig.Rig, s0 *stillskyv1.GetStatusResponse, t0 time.Time) error {
+	if !c.scaleFrames[1] {
+		return nil
+	}
+	s1, err := r.Status(ctx)
+	if err != nil {
+		return err
+	}
+	c.FramesClosed = lockstepFrames(s0, s1, time.Since(t0), closedBudget, 500, c.FramesClosed)
+	return nil
+}
