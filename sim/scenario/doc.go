@@ -28,6 +28,12 @@
 // limits follow ANSI Z136.1 and ISO 15004-2, and local medical-device and
 // ethics rules and licensed practice govern any real use. eye.seed defaults to 1.
 //
+// An optional "tip_tilt" section adds a natural-star tip-tilt sensor (a quad
+// cell) and a tip-tilt mirror, and sets the daemon's tip-tilt loop:
+// tip_tilt.magnitude, frame_rate_hz (loop.frame_rate_hz over a whole number),
+// gain, offload_gain and stroke_rad are required; wavelength_m (8e-7) and
+// read_noise_e (0) are optional.
+//
 // All quantities are SI: metres, seconds, radians, hertz; YAML keys carry their unit
 // (diameter_m, r0_m, wind_speed_m_per_s, frame_rate_hz). Telescope and site names in
 // the built-ins are generic descriptive labels, not real telescopes or sites.

@@ -374,10 +374,42 @@ func validate(r *rawScenario) (*Scenario, error) {
 	if r.Eye != nil {
 		s.Eye = c.eye(r.Eye, s)
 	}
+	if r.TipTilt != nil {
+		s.TipTilt = c.tipTilt(r.TipTilt, r, s)
+	}
 	if len(c.errs) > 0 {
 		return nil, errors.Join(c.errs...)
 	}
 	return s, nil
+}
+
+// tipTilt checks the tip_tilt section: the natural-star sensor's frame rate
+// must divide the wavefront sensor's, so that a lockstep bench produces one
+// tip-tilt frame every loop.frame_rate_hz/frame_rate_hz frames.
+func (c *checker) tipTilt(t *rawTipTilt, r *rawScenario, s *Scenario) *TipTilt {
+	out := &TipTilt{
+		Magnitude:   c.float("tip_tilt.magnitude", t.Magnitude, closed(-2, 22), ""),
+		Wavelength:  c.float("tip_tilt.wavelength_m", t.Wavelength, closed(3e-7, 5e-6), " m", 8e-7),
+		ReadNoise:   c.float("tip_tilt.read_noise_e", t.ReadNoise, closed(0, 100), " electrons rms per quadrant", 0),
+		Gain:        c.float("tip_tilt.gain", t.Gain, openHigh(0, 2), ""),
+		OffloadGain: c.float("tip_tilt.offload_gain", t.OffloadGain, openLow(0, 1), " (fraction of the deformable mirror's tip-tilt moved per frame)"),
+		Stroke:      c.float("tip_tilt.stroke_rad", t.Stroke, openLow(0, 1e-3), " rad of tilt on the sky"),
+	}
+	if r.Eye != nil {
+		c.fail("tip_tilt", "needs the atmosphere: a scenario with an eye section has no natural star")
+	}
+	fr := s.Loop.FrameRate
+	if !(fr > 0) {
+		out.FrameRate = c.float("tip_tilt.frame_rate_hz", t.FrameRate, openLow(0, 1e5), " Hz")
+		return out
+	}
+	out.FrameRate = c.float("tip_tilt.frame_rate_hz", t.FrameRate, openLow(0, fr), " Hz (at most loop.frame_rate_hz)")
+	if t.FrameRate != nil && out.FrameRate > 0 && out.FrameRate <= fr {
+		if n := math.Round(fr / out.FrameRate); math.Abs(fr/out.FrameRate-n) > 1e-9*n {
+			c.fail("tip_tilt.frame_rate_hz", "%g: must be loop.frame_rate_hz (%g Hz) divided by a whole number", out.FrameRate, fr)
+		}
+	}
+	return out
 }
 
 func (c *checker) layers(raw []*rawLayer) []Layer {

@@ -10,6 +10,7 @@ type rawScenario struct {
 	Atmosphere  *rawAtmosphere `yaml:"atmosphere,omitempty"`
 	GuideStar   *rawGuideStar  `yaml:"guide_star"`
 	LGS         *rawLGS        `yaml:"laser_guide_star,omitempty"`
+	TipTilt     *rawTipTilt    `yaml:"tip_tilt,omitempty"`
 	WFS         *rawWFS        `yaml:"wfs"`
 	DM          *rawDM         `yaml:"dm"`
 	Loop        *rawLoop       `yaml:"loop"`
@@ -56,6 +57,16 @@ type rawLGS struct {
 	LaunchY   *float64 `yaml:"launch_y_m"`
 }
 
+type rawTipTilt struct {
+	Magnitude   *float64 `yaml:"magnitude"`
+	Wavelength  *float64 `yaml:"wavelength_m"`
+	FrameRate   *float64 `yaml:"frame_rate_hz"`
+	ReadNoise   *float64 `yaml:"read_noise_e"`
+	Gain        *float64 `yaml:"gain"`
+	OffloadGain *float64 `yaml:"offload_gain"`
+	Stroke      *float64 `yaml:"stroke_rad"`
+}
+
 type rawWFS struct {
 	Subapertures         *int     `yaml:"subapertures"`
 	Mode                 *string  `yaml:"mode"`
@@ -98,8 +109,13 @@ func (s *Scenario) toRaw() *rawScenario {
 	if g := s.LaserGuideStar; g != nil {
 		lgs = &rawLGS{&g.Height, &g.Thickness, &g.LaunchX, &g.LaunchY}
 	}
+	var tt *rawTipTilt
+	if x := s.TipTilt; x != nil {
+		tt = &rawTipTilt{&x.Magnitude, &x.Wavelength, &x.FrameRate, &x.ReadNoise, &x.Gain, &x.OffloadGain, &x.Stroke}
+	}
 	raw := &rawScenario{
 		LGS:         lgs,
+		TipTilt:     tt,
 		Name:        &s.Name,
 		Description: &s.Description,
 		Telescope:   &rawTelescope{&t.Name, &t.Site, &t.Diameter, &t.Obstruction, &t.Spiders, &t.SpiderWidth, &t.PupilSamples},

@@ -32,10 +32,14 @@ type Scenario struct {
 	// beacon instead of the natural guide star (YAML section "laser_guide_star",
 	// optional; absent, the sensor looks at the natural star at infinity).
 	LaserGuideStar *LaserGuideStar
-	WFS            WFS
-	DM             DM
-	Loop           Loop
-	Science        Science
+	// TipTilt, when not nil, adds a natural-star tip-tilt sensor (a quad cell)
+	// and a tip-tilt mirror to the bench, and sets the daemon's tip-tilt loop
+	// (YAML section "tip_tilt", optional).
+	TipTilt *TipTilt
+	WFS     WFS
+	DM      DM
+	Loop    Loop
+	Science Science
 	// Eye, when not nil, is the aberration source in place of Atmosphere (whose
 	// fields are then zero): the retinal-imaging scenarios (see Eye).
 	Eye *Eye
@@ -129,6 +133,59 @@ type LaserGuideStar struct {
 	// metres from the pupil's centre (launch_x_m, launch_y_m, optional, default 0,
 	// behind the secondary; [-diameter_m, diameter_m]).
 	LaunchX, LaunchY float64
+}
+
+// TipTilt is the natural-star tip-tilt sensor, the tip-tilt mirror and their
+// loop (YAML section "tip_tilt"). The sensor is a quad cell on a natural star
+// in the science direction; it counts photons with the guide_star section's
+// zero point and throughput over the whole pupil, and its spot is the seeing
+// disc at its wavelength (FWHM 0.98 λ/r0, common practice). The tip-tilt
+// mirror is in the common path: the laser sensor sees its tilt, the natural
+// star sees the residual of both mirrors.
+type TipTilt struct {
+	// Magnitude of the natural star in the tip-tilt sensor's band (magnitude,
+	// required, [-2, 22]).
+	Magnitude float64
+	// Wavelength of the tip-tilt sensor's band in metres (wavelength_m,
+	// optional, default 8e-7, [3e-7, 5e-6]).
+	Wavelength float64
+	// FrameRate of the tip-tilt sensor in hertz (frame_rate_hz, required,
+	// loop.frame_rate_hz divided by a whole number).
+	FrameRate float64
+	// ReadNoise per quadrant, electrons rms (read_noise_e, optional, default 0,
+	// [0, 100]).
+	ReadNoise float64
+	// Gain of the tip-tilt loop's integrator (gain, required, [0, 2)).
+	Gain float64
+	// OffloadGain is the fraction of the deformable mirror's tip-tilt moved to
+	// the tip-tilt mirror each frame (offload_gain, required, (0, 1]).
+	OffloadGain float64
+	// Stroke of the tip-tilt mirror, radians of tilt on the sky per axis, ±
+	// (stroke_rad, required, (0, 1e-3]).
+	Stroke float64
+}
+
+// TipTiltPhotons returns the natural star's detected photo-electrons per
+// tip-tilt frame over the whole pupil: N = ZP·10^(−0.4 m)·throughput·A/rate,
+// A = π/4·D²·(1 − ε²) for the central obstruction ε.
+func (s *Scenario) TipTiltPhotons() float64 {
+	t, g, d := s.TipTilt, s.GuideStar, s.Telescope.Diameter
+	area := math.Pi / 4 * d * d * (1 - s.Telescope.Obstruction*s.Telescope.Obstruction)
+	return g.ZeroPoint * math.Pow(10, -0.4*t.Magnitude) * g.Throughput * area / t.FrameRate
+}
+
+// TipTiltSpotSigma returns the rms width, radians per axis, of the natural
+// star's seeing disc on the quad cell: FWHM = 0.98 λ/r0(λ) with
+// r0(λ) = r0·(λ/500 nm)^(6/5)·cos(z)^(3/5) (common practice), σ = FWHM/2.355.
+func (s *Scenario) TipTiltSpotSigma() float64 {
+	l := s.TipTilt.Wavelength
+	r0 := s.Atmosphere.R0 * math.Pow(l/500e-9, 1.2) * math.Pow(math.Cos(s.Atmosphere.ZenithDeg*math.Pi/180), 0.6)
+	return 0.98 * l / r0 / (2 * math.Sqrt(2*math.Ln2))
+}
+
+// TipTiltRatio returns the wavefront-sensor frames per tip-tilt frame.
+func (s *Scenario) TipTiltRatio() int {
+	return int(math.Round(s.Loop.FrameRate / s.TipTilt.FrameRate))
 }
 
 // WFS is the Shack–Hartmann sensor (YAML section "wfs").

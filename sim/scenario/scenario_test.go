@@ -248,3 +248,73 @@ func TestLaserGuideStarFields(t *testing.T) {
 		})
 	}
 }
+
+// The tip_tilt section: every field is range-checked and named, the frame
+// rate must divide the wavefront sensor's, and a refused section loads
+// nothing.
+func TestTipTiltFields(t *testing.T) {
+	tt := minimal + "tip_tilt: {magnitude: 12, frame_rate_hz: 250, gain: 0.4, offload_gain: 0.05, stroke_rad: 1e-5}\n"
+	s, err := Parse([]byte(tt))
+	if err != nil {
+		t.Fatalf("a valid tip_tilt section refused: %v", err)
+	}
+	want := TipTilt{Magnitude: 12, Wavelength: 8e-7, FrameRate: 250, Gain: 0.4, OffloadGain: 0.05, Stroke: 1e-5}
+	if s.TipTilt == nil || *s.TipTilt != want || s.TipTiltRatio() != 4 {
+		t.Fatalf("parsed %+v, want %+v (ratio 4)", s.TipTilt, want)
+	}
+	if s, err := Parse([]byte(minimal)); err != nil || s.TipTilt != nil {
+		t.Fatalf("without the section there is no tip-tilt loop: %+v, %v", s.TipTilt, err)
+	}
+	for _, c := range []struct{ name, old, new, want string }{
+		{"magnitude missing", "magnitude: 12, ", "", "tip_tilt.magnitude: missing: required, must be in [-2, 22]"},
+		{"magnitude too faint", "magnitude: 12", "magnitude: 30", "tip_tilt.magnitude: 30: must be in [-2, 22]"},
+		{"rate missing", "frame_rate_hz: 250, ", "", "tip_tilt.frame_rate_hz: missing: required, must be in (0, 1000] Hz"},
+		{"rate above the sensor's", "frame_rate_hz: 250", "frame_rate_hz: 2000", "tip_tilt.frame_rate_hz: 2000: must be in (0, 1000] Hz (at most loop.frame_rate_hz)"},
+		{"rate not a divisor", "frame_rate_hz: 250", "frame_rate_hz: 300", "tip_tilt.frame_rate_hz: 300: must be loop.frame_rate_hz (1000 Hz) divided by a whole number"},
+		{"gain missing", "gain: 0.4, ", "", "tip_tilt.gain: missing: required, must be in [0, 2)"},
+		{"gain unstable", "gain: 0.4", "gain: 2", "tip_tilt.gain: 2: must be in [0, 2)"},
+		{"offload missing", "offload_gain: 0.05, ", "", "tip_tilt.offload_gain: missing: required, must be in (0, 1]"},
+		{"offload zero", "offload_gain: 0.05", "offload_gain: 0", "tip_tilt.offload_gain: 0: must be in (0, 1]"},
+		{"stroke missing", ", stroke_rad: 1e-5", "", "tip_tilt.stroke_rad: missing: required, must be in (0, 0.001] rad"},
+		{"stroke negative", "stroke_rad: 1e-5", "stroke_rad: -1e-5", "tip_tilt.stroke_rad: -1e-05: must be in (0, 0.001] rad"},
+		{"wavelength out of range", "magnitude: 12", "magnitude: 12, wavelength_m: 1e-8", "tip_tilt.wavelength_m: 1e-08: must be in [3e-07, 5e-06] m"},
+		{"read noise negative", "magnitude: 12", "magnitude: 12, read_noise_e: -1", "tip_tilt.read_noise_e: -1: must be in [0, 100]"},
+		{"unknown key", "stroke_rad: 1e-5}", "stroke_rad: 1e-5, integration_s: 1}", "tip_tilt.integration_s: line"},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			doc := strings.Replace(tt, c.old, c.new, 1)
+			if doc == tt {
+				t.Fatalf("edit %q not applied", c.old)
+			}
+			s, err := Parse([]byte(doc))
+			if err == nil || s != nil {
+				t.Fatalf("accepted:\n%s", doc)
+			}
+			if !strings.Contains(err.Error(), c.want) {
+				t.Errorf("error\n  %v\nwant it to contain\n  %s", err, c.want)
+			}
+		})
+	}
+}
+
+// The lgs scenario runs the tip-tilt loop: its photon count and seeing disc
+// follow the formulas of TipTiltPhotons and TipTiltSpotSigma, checked here
+// by hand (magnitude 13: 10^(−5.2) of the zero point).
+func TestLGSTipTilt(t *testing.T) {
+	s, err := Load("lgs")
+	if err != nil {
+		t.Fatal(err)
+	}
+	tt := s.TipTilt
+	if tt == nil || s.TipTiltRatio() != 2 {
+		t.Fatalf("lgs tip_tilt %+v: want a section at half the laser sensor's rate", tt)
+	}
+	area := math.Pi / 4 * 64 * (1 - 0.14*0.14)
+	if n, want := s.TipTiltPhotons(), 1e10*math.Pow(10, -5.2)*0.3*area/250; math.Abs(n-want) > 1e-9*want {
+		t.Errorf("photons %g, want %g", n, want)
+	}
+	// r0 at 800 nm: 0.15·1.6^1.2 = 0.264 m; FWHM 0.98·800 nm/r0 = 2.97 µrad.
+	if sg := s.TipTiltSpotSigma(); math.Abs(sg*2.3548-2.97e-6) > 0.01e-6 {
+		t.Errorf("spot sigma %g rad: FWHM %g, want 2.97e-6", sg, sg*2.3548)
+	}
+}
