@@ -44,6 +44,9 @@ type assembly struct {
 // metrics, no allocation; the caller counts its verdicts.
 type assembler struct {
 	slopes []float32 // the frame, as far as it is assembled
+	// flux is the guide-star flux of the frame, summed over its chunks so far
+	// (photo-electrons; 0 from a camera that does not report it).
+	flux float64
 	// next is the slope index the next chunk must start at: 0 between frames,
 	// -1 for the rest of a refused frame.
 	next int
@@ -101,6 +104,10 @@ func (a *assembler) add(f *stillskyv1.StreamFramesResponse) assembly {
 		}
 	}
 	copy(a.slopes[off:], s)
+	if off == 0 {
+		a.flux = 0
+	}
+	a.flux += float64(f.GetFluxElectrons())
 	a.next = off + len(s)
 	r.from, r.to = off, a.next
 	if a.next < len(a.slopes) {

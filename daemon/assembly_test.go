@@ -105,3 +105,26 @@ func TestAssembler(t *testing.T) {
 		})
 	}
 }
+
+// TestAssemblerSumsFlux checks that a frame's guide-star flux is the sum of
+// its chunks' and starts again with each frame.
+func TestAssemblerSumsFlux(t *testing.T) {
+	a := newAssembler(6)
+	chunk := func(num uint64, index uint32, flux float32) verdict {
+		m := msg{num: num, index: index, count: 3, offset: 2 * int(index), n: 2}.frame()
+		m.FluxElectrons = flux
+		return a.add(m).verdict
+	}
+	for num := uint64(1); num <= 2; num++ {
+		base := float32(100 * num)
+		for i := range uint32(3) {
+			v := chunk(num, i, base+float32(i))
+			if want := (i == 2); (v == frameComplete) != want {
+				t.Fatalf("frame %d chunk %d: verdict %v", num, i, v)
+			}
+		}
+		if want := 3*float64(base) + 3; a.flux != want {
+			t.Errorf("frame %d: flux %g, want %g (the sum of its chunks)", num, a.flux, want)
+		}
+	}
+}

@@ -44,7 +44,7 @@ type metrics struct {
 	compute, rtc, endToEnd                    prometheus.Observer
 	framePeriod, slopeRMS, wavefrontRMS       prometheus.Gauge
 	strehl, wavelength, saturated, actuators  prometheus.Gauge
-	strokeUsed, gain, leak                    prometheus.Gauge
+	strokeUsed, gain, leak, flux              prometheus.Gauge
 	state                                     [len(stateNames)]prometheus.Gauge
 	tripDiv, tripSat, tripStale, tripMirror   prometheus.Counter
 	calibrationsOK, calibrationsFailed        prometheus.Counter
@@ -95,6 +95,7 @@ func newMetrics() *metrics {
 	m.wavelength = gauge("stillsky_science_wavelength_meters", "Wavelength of the Strehl estimate.")
 	m.saturated = gauge("stillsky_saturated_actuators", "Actuators at their stroke limit in the last command.")
 	m.actuators = gauge("stillsky_actuators", "Valid actuators driven.")
+	m.flux = gauge("stillsky_guide_star_flux_electrons", "Guide-star flux of the last frame as the camera reports it: photo-electrons summed over the valid subapertures (0 from a camera that does not report it).")
 	m.strokeUsed = gauge("stillsky_stroke_used_ratio", "Largest |command| over the stroke limit in the last command.")
 	budget := prometheus.NewGaugeVec(prometheus.GaugeOpts{
 		Name: "stillsky_budget_residual_square_radians",

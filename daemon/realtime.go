@@ -240,6 +240,8 @@ func (rt *realtime) receive(f *stillskyv1.StreamFramesResponse, received int64) 
 	m.frames.Inc()
 	u.stats.frames.Add(1)
 	u.stats.lastFrame.Store(num)
+	u.stats.flux.Store(rt.asm.flux)
+	m.flux.Set(rt.asm.flux)
 	if a.dropped > 0 {
 		m.dropped.Add(float64(a.dropped))
 		u.stats.dropped.Add(a.dropped)

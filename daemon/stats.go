@@ -21,6 +21,7 @@ func rms32(v []float32) float64 {
 type runStats struct {
 	frames, dropped, rejected, lastFrame atomic.Uint64
 	slopeRMS, wavefrontRMS, strehl       atomicFloat
+	flux                                 atomicFloat // guide-star flux of the newest frame, photo-electrons
 	saturated                            atomic.Int64
 	lastArrival                          atomic.Int64 // CLOCK_MONOTONIC ns of the newest frame
 	rtc, e2e                             latencyWindow

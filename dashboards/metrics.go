@@ -35,6 +35,7 @@ var KnownMetrics = []Metric{
 	{Name: "stillsky_saturated_actuators", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_actuators", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_stroke_used_ratio", Type: "gauge", Exporter: "loop"},
+	{Name: "stillsky_guide_star_flux_electrons", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_loop_gain", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_loop_leak", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_interlock_trips_total", Type: "counter", Labels: []string{"reason"}, Exporter: "loop"},

@@ -5,8 +5,9 @@
 // and measures the reference flux again after a long pause.
 //
 // The supervisor is off the hot path. It is fed one [Input] per frame (or per batch of
-// frames) from a goroutine of its own, with the frame's total flux, which the frames
-// already carry; it answers with an [Action] for the loop (calibrate, close, hold,
+// frames) from a goroutine of its own, with the frame's guide-star flux, which the
+// camera reports in every frame (flux_electrons in camera.proto: the sum of the
+// subapertures' pixels that a centre-of-gravity centroider forms anyway); it answers with an [Action] for the loop (calibrate, close, hold,
 // open) and never touches mirror commands itself. Time is an input, so the machine is
 // driven in lockstep by its tests and by the demo, and is independent of the load.
 //

@@ -34,6 +34,7 @@ type frameSlot struct {
 	number uint64
 	due    int64 // free-run: the readout tick, when the frame may leave
 	slopes []float32
+	flux   []float32 // photo-electrons per valid subaperture
 }
 
 // RegisterCamera adds the Camera service to g. Camera and mirror may share one
@@ -133,6 +134,7 @@ func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 				msg.ChunkIndex = uint32(c)
 				msg.Offset = uint32(r[0])
 				msg.Slopes = slot.slopes[r[0]:r[1]]
+				msg.FluxElectrons = sum32(slot.flux[r[0]/2 : r[1]/2])
 				msg.ReadoutEndNs = start + int64(b.opt.ReadoutTime)*int64(c)/int64(len(rows))
 				if c > 0 && b.opt.ReadoutTime > 0 {
 					waitUntil(msg.ReadoutEndNs)
@@ -210,4 +212,13 @@ func (b *Server) chunkRows(n uint32) ([][2]int, error) {
 		out = append(out, [2]int{rowStart[r0], rowStart[r1]})
 	}
 	return out, nil
+}
+
+// sum32 returns the sum of v, accumulated in float64.
+func sum32(v []float32) float32 {
+	var s float64
+	for _, x := range v {
+		s += float64(x)
+	}
+	return float32(s)
 }

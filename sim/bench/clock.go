@@ -72,6 +72,7 @@ func (b *Server) freeRun(ctx context.Context) {
 		if b.frames != nil && b.sky.Load() {
 			if slot, publish := b.nextSlot(); publish {
 				copy(slot.slopes, b.frames.Frame(k))
+				copy(slot.flux, b.frames.flux)
 				slot.number, slot.due = k, tick
 				b.cam.ready <- b.cam.written
 				b.cam.written++
@@ -84,6 +85,7 @@ func (b *Server) freeRun(ctx context.Context) {
 		slot, publish := b.nextSlot()
 		b.mu.Lock()
 		b.sys.Observe(cmd, slot.slopes)
+		copy(slot.flux, b.sys.Flux())
 		b.mu.Unlock()
 		if publish {
 			slot.number, slot.due = k, tick
@@ -141,6 +143,7 @@ func (b *Server) produce(k, n uint64, sample bool) {
 		}
 	}
 	b.sys.Frame(slot.slopes)
+	copy(slot.flux, b.sys.Flux())
 	b.mu.Unlock()
 	if publish {
 		slot.number, slot.due = k, 0

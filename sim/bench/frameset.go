@@ -13,6 +13,10 @@ import "fmt"
 type FrameSet struct {
 	slopes []float32 // Len frames of n slopes each, frame after frame
 	n      int
+	// flux is the photo-electrons per valid subaperture that every frame of
+	// the set reports: the sensor's as it rendered the set, nil (reported as
+	// 0, not measured) for a set made from slopes alone.
+	flux []float32
 }
 
 // NewFrameSet makes a set of len(slopes)/perFrame frames of perFrame slopes
@@ -56,5 +60,6 @@ func prerender(sys *System, n int) *FrameSet {
 	}
 	sys.SetTurbulence(true)
 	set, _ := NewFrameSet(slopes, ns) // n ≥ 1 whole frames by construction
+	set.flux = append([]float32(nil), sys.Flux()...)
 	return set
 }

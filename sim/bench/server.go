@@ -131,6 +131,7 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	b.mir.arrived = make(chan struct{}, 1)
 	b.cam.ready = make(chan uint64, ringSize-2)
 	b.cam.scratch.slopes = make([]float32, sys.NumSlopes())
+	b.cam.scratch.flux = make([]float32, sys.Sensor().NumValid())
 	n := sys.PSFSize() * sys.PSFSize()
 	b.psf = make([]float64, n)
 	b.sci.psf = make([]float64, n)
@@ -152,6 +153,7 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	}
 	for i := range b.cam.slots {
 		b.cam.slots[i].slopes = make([]float32, sys.NumSlopes())
+		b.cam.slots[i].flux = make([]float32, sys.Sensor().NumValid())
 	}
 	b.sky.Store(true)
 	b.gate.wake = make(chan struct{}, 1)

@@ -21,6 +21,10 @@ const SciencePad = 2
 // uses the scenario seed directly.
 const noiseStream = 0x5eed_0f_5105
 
+// fluxStream is the stream of the geometric sensor's flux noise, apart from the
+// slopes' so that reporting the flux changes no slope of any earlier run.
+const fluxStream = 0xf1_0c_5105
+
 // Aberration is the bench's source of wavefront error in front of the mirror:
 // the layered atmosphere (atmosphere.Atmosphere) or an eye (eye.Eye). Advance
 // moves it on by dt seconds; OPD writes its wavefront in metres on the pupil
@@ -90,6 +94,11 @@ type System struct {
 	// the residual is atmosphere − 2·surface − (tilt_x·x + tilt_y·y). Zero
 	// (the default) leaves every frame as it was without a tip-tilt mirror.
 	tilt [2]float64
+	// flux is the detected photo-electrons of each valid subaperture in the
+	// last frame, as the camera reports them; fluxNoise draws the geometric
+	// sensor's photon noise on them.
+	flux      []float32
+	fluxNoise *rand.Rand
 }
 
 // NewSystem builds the bench for scenario s. Errors name the part that refused
@@ -136,7 +145,9 @@ func NewSystem(s *scenario.Scenario) (*System, error) {
 		cmd:    make([]float32, m.NumValid()),
 		turb:   true, noiseOn: w.Noise,
 		atmOPD: make([]float64, n), surface: make([]float64, n), residual: make([]float64, n),
-		linear: w.Mode == wfs.Geometric,
+		linear:    w.Mode == wfs.Geometric,
+		flux:      make([]float32, sensor.NumValid()),
+		fluxNoise: rand.New(rand.NewPCG(uint64(seed(s)), fluxStream)),
 	}
 	sys.sensOPD, sys.sensResidual = sys.atmOPD, sys.residual
 	cz := math.Cos(s.Atmosphere.ZenithDeg * math.Pi / 180)
@@ -321,6 +332,14 @@ func (s *System) Advance() {
 		clear(s.sensOPD) // a calibration source: flat, but the sensor's noise stays
 	}
 	s.sensor.SenseGeometric(s.sensOPD, rng, s.atmSlopes)
+	// A geometric sensor has no pixels: its flux is the mean count with the
+	// photon noise of a Poisson count, √N (normal approximation).
+	for k, n := range s.sensor.Flux() {
+		if s.noiseOn {
+			n += math.Sqrt(n) * s.fluxNoise.NormFloat64()
+		}
+		s.flux[k] = float32(n)
+	}
 }
 
 // Observe completes the frame Advance started with the mirror shaped by cmd
@@ -349,6 +368,9 @@ func (s *System) observe(slopes []float32) {
 			rng = s.noise
 		}
 		s.sensor.Sense(s.sensResidual, rng, slopes)
+		for k, n := range s.sensor.Flux() {
+			s.flux[k] = float32(n)
+		}
 		return
 	}
 	copy(s.acc, s.atmSlopes)
@@ -595,6 +617,13 @@ func (s *System) SensorAtmosphere() []float64 { return s.sensOPD }
 // (metres) while the turbulence is on. The slice is the system's own:
 // copy it to keep it.
 func (s *System) Atmosphere() []float64 { return s.atmOPD }
+
+// Flux returns the detected photo-electrons of each valid subaperture in the
+// last frame (background subtracted; in diffractive mode its pixels' sum after
+// noise, in geometric mode the mean count with Poisson noise), in the order of
+// the slopes' subapertures. The slice is the system's own, valid until the next
+// frame.
+func (s *System) Flux() []float32 { return s.flux }
 
 // Sensor returns the wavefront sensor.
 func (s *System) Sensor() *wfs.ShackHartmann { return s.sensor }

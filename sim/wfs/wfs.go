@@ -79,6 +79,13 @@ type ShackHartmann struct {
 	wX, wY         []float64
 	sigma          []float64 // slope noise rms per valid subaperture, rad
 
+	// trans is the sky's transmission in (0, 1] (clouds), which scales every
+	// subaperture's photon count; noiseScale is 1/√trans, the growth of the
+	// photon-noise-limited slope noise. flux holds the detected photo-electrons
+	// of each valid subaperture in the last frame sensed.
+	trans, noiseScale float64
+	flux              []float64
+
 	diff *spotMaker
 }
 
@@ -141,6 +148,8 @@ func New(p *optics.Pupil, c Config) (*ShackHartmann, error) {
 	if len(s.origin) == 0 {
 		return nil, fmt.Errorf("wfs: valid threshold %g: no subaperture is illuminated enough", c.ValidThreshold)
 	}
+	s.trans, s.noiseScale = 1, 1
+	s.flux = make([]float64, len(s.origin))
 	s.buildPairs()
 	if c.Mode == Diffractive {
 		sm, err := newSpotMaker(s)
@@ -217,8 +226,31 @@ func (s *ShackHartmann) SubapertureSize() float64 { return s.d }
 func (s *ShackHartmann) Photons(k int) float64 { return s.photons[k] }
 
 // SlopeNoise returns the geometric-mode slope noise rms (radians, each axis) on
-// valid subaperture k when noise is on.
-func (s *ShackHartmann) SlopeNoise(k int) float64 { return s.sigma[k] }
+// valid subaperture k when noise is on, at the transmission SetTransmission set.
+func (s *ShackHartmann) SlopeNoise(k int) float64 { return s.sigma[k] * s.noiseScale }
+
+// SetTransmission sets the fraction t of the guide star's light that reaches the
+// sensor from the next Sense on (a cloud: t < 1; clear sky: 1). Every
+// subaperture's photon count becomes t·N: in geometric mode the slope noise,
+// photon-noise limited, grows as σ/√t (σ² ∝ 1/N, Rousset 1999, from memory); in
+// diffractive mode the spots are fainter and their Poisson, read and background
+// noise follow from the pixels. It panics unless t is in (0, 1].
+func (s *ShackHartmann) SetTransmission(t float64) {
+	if !(t > 0 && t <= 1) {
+		panic(fmt.Sprintf("wfs: SetTransmission(%g): must be in (0, 1]", t))
+	}
+	s.trans, s.noiseScale = t, 1/math.Sqrt(t)
+}
+
+// Transmission returns the transmission SetTransmission set (1 by default).
+func (s *ShackHartmann) Transmission() float64 { return s.trans }
+
+// Flux returns the detected photo-electrons of each valid subaperture in the
+// last frame sensed, background subtracted: in diffractive mode the sum of the
+// subaperture's pixels after noise (the denominator of its centre of gravity);
+// in geometric mode, which has no pixels, the mean count t·N. The slice is the
+// sensor's own, valid until the next Sense.
+func (s *ShackHartmann) Flux() []float64 { return s.flux }
 
 // Sense writes the slopes of the wavefront opd (metres, on the pupil grid) into
 // slopes: for valid subaperture k in row-major order, slopes[2k] is the x slope
@@ -273,14 +305,17 @@ func geometric[T float32 | float64](s *ShackHartmann, opd []float64, rng *rand.R
 		gx *= s.wX[k]
 		gy *= s.wY[k]
 		if rng != nil {
-			gx += s.sigma[k] * rng.NormFloat64()
-			gy += s.sigma[k] * rng.NormFloat64()
+			sigma := s.sigma[k] * s.noiseScale
+			gx += sigma * rng.NormFloat64()
+			gy += sigma * rng.NormFloat64()
 		}
+		s.flux[k] = s.photons[k] * s.trans
 		slopes[2*k], slopes[2*k+1] = T(gx), T(gy)
 	}
 }
 
-// Image writes the noiseless detector image of valid subaperture k, in
+// Image writes the noiseless detector image of valid subaperture k (at the
+// transmission SetTransmission set), in
 // photo-electrons per pixel (row-major, PixelsPerSubaperture² values, background
 // excluded), for the wavefront opd. It is available in diffractive mode only and
 // returns an error otherwise or when out has the wrong length.
@@ -437,7 +472,7 @@ func (sm *spotMaker) form(k int, opd []float64) {
 		}
 	}
 	clear(sm.img)
-	norm := sm.norm[k]
+	norm := sm.norm[k] * s.trans
 	for jy := range q {
 		w := sm.tw[jy*per : (jy+1)*per]
 		row := sm.img[(jy/sm.over)*sm.npix : (jy/sm.over+1)*sm.npix]
@@ -467,10 +502,12 @@ func (sm *spotMaker) centroid(k int, opd []float64, rng *rand.Rand) (float64, fl
 			sm.img[i] = e + c.ReadNoise*rng.NormFloat64() - c.Background
 		}
 	}
-	peak := math.Inf(-1)
+	peak, total := math.Inf(-1), 0.0
 	for _, v := range sm.img {
 		peak = max(peak, v)
+		total += v
 	}
+	sm.s.flux[k] = total
 	t := sm.threshold * peak
 	sum, sx, sy := 0.0, 0.0, 0.0
 	for iy := 0; iy < sm.npix; iy++ {

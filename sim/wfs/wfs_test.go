@@ -289,6 +289,106 @@ func TestGeometricNoise(t *testing.T) {
 	}
 }
 
+// TestTransmission dims the star (a cloud letting a quarter of the light
+// through) and checks the slope noise against the centre-of-gravity photon
+// noise of the dimmer star, σ² = (π²/2)/N·(λ/(2πd))² (Rousset 1999, from memory,
+// N_T/N_D = 1 in geometric mode), and the reported flux against the mean
+// photon count t·N (in diffractive mode, the noiseless spot's pixel sum: a
+// Poisson count's mean).
+func TestTransmission(t *testing.T) {
+	const trans = 0.25
+	for _, mode := range []string{Geometric, Diffractive} {
+		t.Run(mode, func(t *testing.T) {
+			p := pupil(t, 96, 0.15, 0)
+			cfg := config(mode)
+			cfg.PixelsPerSubaperture = 4
+			cfg.CentroidThreshold = 0
+			cfg.ValidThreshold = 1
+			cfg.Noise = true
+			s, err := New(p, cfg)
+			if err != nil {
+				t.Fatal(err)
+			}
+			opd := make([]float64, p.N*p.N)
+			slopes := make([]float32, s.NumSlopes())
+			frames := 400
+			if mode == Diffractive {
+				frames = 60
+			}
+			variance := func(seed uint64) (v, flux float64) {
+				rng := rand.New(rand.NewPCG(seed, 17))
+				var sum2, f float64
+				for range frames {
+					s.Sense(opd, rng, slopes)
+					for _, x := range slopes {
+						sum2 += float64(x) * float64(x)
+					}
+					for _, x := range s.Flux() {
+						f += x
+					}
+				}
+				return sum2 / float64(frames*len(slopes)), f / float64(frames*s.NumValid())
+			}
+			clear1, _ := variance(1)
+			s.SetTransmission(trans)
+			if got := s.Transmission(); got != trans {
+				t.Fatalf("Transmission() = %g, want %g", got, trans)
+			}
+			dim, flux := variance(2)
+			nph := s.Photons(0)
+			want := math.Pi * math.Pi / 2 / (trans * nph) * math.Pow(lambdaGS/(2*math.Pi*s.SubapertureSize()), 2)
+			ratio := dim / clear1
+			t.Logf("%s: variance clear %.4g, dim %.4g rad² (ratio %.3f, want 1/t = %g); Rousset at t·N %.4g; flux %.1f e- (t·N = %.1f)",
+				mode, clear1, dim, ratio, 1/trans, want, flux, trans*nph)
+			switch mode {
+			case Geometric:
+				// 400 frames × 2·NumValid samples: the variance is known to well under 1 %.
+				if math.Abs(dim/want-1) > 0.05 || math.Abs(ratio*trans-1) > 0.05 {
+					t.Errorf("dim variance %.4g rad², Rousset %.4g; clear/dim ratio %.3f, want %g", dim, want, ratio, 1/trans)
+				}
+				if math.Abs(flux/(trans*nph)-1) > 1e-9 { // summation rounding
+					t.Errorf("flux %g e-, want t·N = %g", flux, trans*nph)
+				}
+			case Diffractive:
+				if math.Abs(ratio*trans-1) > 0.2 {
+					t.Errorf("clear/dim variance ratio %.3f, want 1/t = %g within 20 %%", ratio, 1/trans)
+				}
+				img := make([]float64, 16)
+				if err := s.Image(0, opd, img); err != nil {
+					t.Fatal(err)
+				}
+				mean := 0.0
+				for _, v := range img {
+					mean += v
+				}
+				// Poisson: the mean of frames·NumValid counts of mean m is known to √(m/samples).
+				tol := 4 * math.Sqrt(mean/float64(frames*s.NumValid()))
+				if math.Abs(flux-mean) > tol || mean > trans*nph || mean < 0.5*trans*nph {
+					t.Errorf("mean flux %.2f e-, want the dimmed spot's %.2f ± %.2f (t·N = %.1f)", flux, mean, tol, trans*nph)
+				}
+			}
+		})
+	}
+}
+
+func TestSetTransmissionRefuses(t *testing.T) {
+	p := pupil(t, 96, 0.15, 0)
+	s, err := New(p, config(Geometric))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, v := range []float64{0, -0.1, 1.01, math.NaN(), math.Inf(1)} {
+		t.Run(fmt.Sprint(v), func(t *testing.T) {
+			defer func() {
+				if recover() == nil {
+					t.Errorf("SetTransmission(%g) did not panic", v)
+				}
+			}()
+			s.SetTransmission(v)
+		})
+	}
+}
+
 func TestValidCount(t *testing.T) {
 	for _, c := range []struct {
 		obstruction float64

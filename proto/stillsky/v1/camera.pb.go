@@ -509,7 +509,15 @@ type StreamFramesResponse struct {
 	ChunkIndex uint32 `protobuf:"varint,4,opt,name=chunk_index,json=chunkIndex,proto3" json:"chunk_index,omitempty"`
 	ChunkCount uint32 `protobuf:"varint,5,opt,name=chunk_count,json=chunkCount,proto3" json:"chunk_count,omitempty"`
 	// Slopes in radians, interleaved x, y per valid subaperture.
-	Slopes        []float32 `protobuf:"fixed32,6,rep,packed,name=slopes,proto3" json:"slopes,omitempty"`
+	Slopes []float32 `protobuf:"fixed32,6,rep,packed,name=slopes,proto3" json:"slopes,omitempty"`
+	// Guide-star flux of the frame's subapertures in this message (the whole frame,
+	// or this chunk's rows), photo-electrons per frame summed over the valid
+	// subapertures, background subtracted: the sum over each subaperture's pixels
+	// that a centre-of-gravity centroider forms anyway as its denominator. A loop
+	// supervisor watches it for clouds and a lost star; slopes alone cannot tell a
+	// faint star from a bright one. 0 when the device does not measure it (an older
+	// device, a replayed recording).
+	FluxElectrons float32 `protobuf:"fixed32,7,opt,name=flux_electrons,json=fluxElectrons,proto3" json:"flux_electrons,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -586,6 +594,13 @@ func (x *StreamFramesResponse) GetSlopes() []float32 {
 	return nil
 }
 
+func (x *StreamFramesResponse) GetFluxElectrons() float32 {
+	if x != nil {
+		return x.FluxElectrons
+	}
+	return 0
+}
+
 var File_stillsky_v1_camera_proto protoreflect.FileDescriptor
 
 const file_stillsky_v1_camera_proto_rawDesc = "" +
@@ -619,7 +634,7 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"zenith_deg\x18\f \x01(\x01R\tzenithDeg\x12 \n" +
 	"\vobstruction\x18\r \x01(\x01R\vobstruction\"-\n" +
 	"\x13StreamFramesRequest\x12\x16\n" +
-	"\x06chunks\x18\x01 \x01(\rR\x06chunks\"\xd1\x01\n" +
+	"\x06chunks\x18\x01 \x01(\rR\x06chunks\"\xf8\x01\n" +
 	"\x14StreamFramesResponse\x12!\n" +
 	"\fframe_number\x18\x01 \x01(\x04R\vframeNumber\x12$\n" +
 	"\x0ereadout_end_ns\x18\x02 \x01(\x03R\freadoutEndNs\x12\x16\n" +
@@ -628,7 +643,8 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"chunkIndex\x12\x1f\n" +
 	"\vchunk_count\x18\x05 \x01(\rR\n" +
 	"chunkCount\x12\x16\n" +
-	"\x06slopes\x18\x06 \x03(\x02R\x06slopes*H\n" +
+	"\x06slopes\x18\x06 \x03(\x02R\x06slopes\x12%\n" +
+	"\x0eflux_electrons\x18\a \x01(\x02R\rfluxElectrons*H\n" +
 	"\x06Source\x12\x16\n" +
 	"\x12SOURCE_UNSPECIFIED\x10\x00\x12\x0e\n" +
 	"\n" +

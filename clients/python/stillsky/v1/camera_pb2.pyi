@@ -74,20 +74,22 @@ class StreamFramesRequest(_message.Message):
     def __init__(self, chunks: _Optional[int] = ...) -> None: ...
 
 class StreamFramesResponse(_message.Message):
-    __slots__ = ["chunk_count", "chunk_index", "frame_number", "offset", "readout_end_ns", "slopes"]
+    __slots__ = ["chunk_count", "chunk_index", "flux_electrons", "frame_number", "offset", "readout_end_ns", "slopes"]
     CHUNK_COUNT_FIELD_NUMBER: _ClassVar[int]
     CHUNK_INDEX_FIELD_NUMBER: _ClassVar[int]
+    FLUX_ELECTRONS_FIELD_NUMBER: _ClassVar[int]
     FRAME_NUMBER_FIELD_NUMBER: _ClassVar[int]
     OFFSET_FIELD_NUMBER: _ClassVar[int]
     READOUT_END_NS_FIELD_NUMBER: _ClassVar[int]
     SLOPES_FIELD_NUMBER: _ClassVar[int]
     chunk_count: int
     chunk_index: int
+    flux_electrons: float
     frame_number: int
     offset: int
     readout_end_ns: int
     slopes: _containers.RepeatedScalarFieldContainer[float]
-    def __init__(self, frame_number: _Optional[int] = ..., readout_end_ns: _Optional[int] = ..., offset: _Optional[int] = ..., chunk_index: _Optional[int] = ..., chunk_count: _Optional[int] = ..., slopes: _Optional[_Iterable[float]] = ...) -> None: ...
+    def __init__(self, frame_number: _Optional[int] = ..., readout_end_ns: _Optional[int] = ..., offset: _Optional[int] = ..., chunk_index: _Optional[int] = ..., chunk_count: _Optional[int] = ..., slopes: _Optional[_Iterable[float]] = ..., flux_electrons: _Optional[float] = ...) -> None: ...
 
 class Source(int, metaclass=_enum_type_wrapper.EnumTypeWrapper):
     __slots__ = []
