@@ -56,9 +56,10 @@ type Config struct {
 }
 
 // Devices are the dial addresses (host:port or unix:/path) of a camera and a
-// mirror.
+// mirror, and of the tip-tilt sensor and mirror ("" without them).
 type Devices struct {
 	Camera, Mirror string
+	TipTilt        string
 }
 
 // Rig is a running bench and loop.
@@ -150,6 +151,9 @@ func (r *Rig) startBench(ctx context.Context, c Config) error {
 		return err
 	}
 	addrs := bench.Addrs{Camera: r.addr("camera"), Mirror: r.addr("mirror")}
+	if c.Scenario.TipTilt != nil {
+		addrs.TipTilt = r.addr("tiptilt")
+	}
 	if c.BenchHTTP {
 		addrs.Metrics = "127.0.0.1:0"
 	}
@@ -159,6 +163,9 @@ func (r *Rig) startBench(ctx context.Context, c Config) error {
 	}
 	r.Bench = b
 	r.Devices = Devices{Camera: dialAddr(addrs.Camera, l.Camera.Addr().String()), Mirror: dialAddr(addrs.Mirror, l.Mirror.Addr().String())}
+	if l.TipTilt != nil {
+		r.Devices.TipTilt = dialAddr(addrs.TipTilt, l.TipTilt.Addr().String())
+	}
 	var extra []func(*http.ServeMux)
 	if l.Metrics != nil {
 		r.BenchHTTPAddr = l.Metrics.Addr().String()

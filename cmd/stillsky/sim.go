@@ -21,6 +21,7 @@ func runSim(args []string) error {
 	scn := fs.String("scenario", scenario.Default, "built-in scenario name or path to a scenario YAML file"+"; "+scenario.EyeCaution+"; "+scenario.LGSCaution)
 	camera := fs.String("camera", "127.0.0.1:7401", "camera gRPC address (host:port or unix:/path)")
 	mirror := fs.String("mirror", "127.0.0.1:7402", "mirror gRPC address (may equal --camera)")
+	tipTilt := fs.String("tip-tilt", "127.0.0.1:7404", "gRPC address of the natural-star tip-tilt sensor (a Camera) and the tip-tilt mirror (a Mirror), served when the scenario has a tip_tilt section")
 	metrics := fs.String("metrics", "127.0.0.1:7403", "HTTP address of /metrics and /psf.png (\"\" to disable)")
 	lockstep := fs.Bool("lockstep", false, "produce frame k only after the command for frame k−delay (reproducible)")
 	delay := fs.Int("delay-frames", 0, "loop delay in frames modelled in lockstep mode (0: the scenario's)")
@@ -75,6 +76,11 @@ func runSim(args []string) error {
 		return err
 	}
 	addrs := bench.Addrs{Camera: *camera, Mirror: *mirror, Metrics: *metrics}
+	if s.TipTilt != nil {
+		addrs.TipTilt = *tipTilt
+	} else if flagSet(fs, "tip-tilt") {
+		return fmt.Errorf("--tip-tilt: scenario %s has no tip_tilt section", s.Name)
+	}
 	if addrs.Mirror == addrs.Camera {
 		addrs.Mirror = ""
 	}
@@ -85,4 +91,11 @@ func runSim(args []string) error {
 	ctx, stop := signalContext()
 	defer stop()
 	return srv.Serve(ctx, l, srv.RegisterLiveView)
+}
+
+// flagSet reports whether the flag name was given on the command line.
+func flagSet(fs *flag.FlagSet, name string) bool {
+	set := false
+	fs.Visit(func(f *flag.Flag) { set = set || f.Name == name })
+	return set
 }

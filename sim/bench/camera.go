@@ -84,7 +84,17 @@ func (b *Server) Describe(context.Context, *stillskyv1.CameraServiceDescribeRequ
 		Description:       b.description(),
 		ZenithDeg:         b.scn.Atmosphere.ZenithDeg,
 		Obstruction:       b.scn.Telescope.Obstruction,
+		SensorKind:        stillskyv1.SensorKind_SENSOR_KIND_SHACK_HARTMANN,
+		StarMagnitude:     b.starMagnitude(),
 	}, nil
+}
+
+// starMagnitude is the guide star's magnitude, 0 for a laser beacon.
+func (b *Server) starMagnitude() float64 {
+	if b.scn.LaserGuideStar != nil {
+		return 0
+	}
+	return b.scn.GuideStar.Magnitude
 }
 
 // description names the scenario, and the pre-rendered camera when there is one.

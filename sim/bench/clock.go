@@ -86,6 +86,9 @@ func (b *Server) freeRun(ctx context.Context) {
 		b.mu.Lock()
 		b.sys.Observe(cmd, slot.slopes)
 		copy(slot.flux, b.sys.Flux())
+		if b.tt != nil {
+			b.tt.integrate(b, k)
+		}
 		b.mu.Unlock()
 		if publish {
 			slot.number, slot.due = k, tick
@@ -116,6 +119,16 @@ func (b *Server) awaitCommand(ctx context.Context, k uint64) error {
 	}
 	deadline := time.NewTimer(b.opt.LockstepTimeout)
 	defer deadline.Stop()
+	if b.tt != nil {
+		timedOut, err := b.tt.awaitCommand(ctx, k, d, deadline.C)
+		if err != nil {
+			return err
+		}
+		if timedOut {
+			b.metrics.lockstepTimeouts.Inc()
+			return nil
+		}
+	}
 	for b.mir.lastFrame.Load() < k-d {
 		select {
 		case <-ctx.Done():
@@ -142,8 +155,14 @@ func (b *Server) produce(k, n uint64, sample bool) {
 			b.sys.SetCommand(b.cmd)
 		}
 	}
+	if b.tt != nil {
+		b.tt.applyPending(b, k, uint64(b.opt.DelayFrames))
+	}
 	b.sys.Frame(slot.slopes)
 	copy(slot.flux, b.sys.Flux())
+	if b.tt != nil {
+		b.tt.integrate(b, k)
+	}
 	b.mu.Unlock()
 	if publish {
 		slot.number, slot.due = k, 0

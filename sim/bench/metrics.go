@@ -13,7 +13,7 @@ func (b *Server) Registry() *prometheus.Registry { return b.metrics.reg }
 
 type benchMetrics struct {
 	reg                                          *prometheus.Registry
-	frames, framesLost, commands                 prometheus.Counter
+	frames, framesLost, commands, ttCommands     prometheus.Counter
 	commandsRejected, lockstepTimeouts           prometheus.Counter
 	residual, strehl, wavelength, framePeriodGau prometheus.Gauge
 	contrast                                     *prometheus.GaugeVec
@@ -31,6 +31,7 @@ func newBenchMetrics(wavelength, period float64) *benchMetrics {
 	m.frames = counter("stillsky_bench_frames_total", "Frames simulated by the bench.")
 	m.framesLost = counter("stillsky_bench_frames_lost_total", "Frames discarded because the camera consumer fell behind.")
 	m.commands = counter("stillsky_bench_commands_total", "Mirror commands applied.")
+	m.ttCommands = counter("stillsky_bench_tip_tilt_commands_total", "Tip-tilt mirror commands applied.")
 	m.commandsRejected = counter("stillsky_bench_commands_rejected_total", "Mirror commands refused (wrong length or non-finite).")
 	m.lockstepTimeouts = counter("stillsky_bench_lockstep_timeouts_total", "Lockstep frames produced without the awaited command.")
 	m.residual = gauge("stillsky_bench_residual_wavefront_rms_meters", "True residual optical path rms over the pupil, piston removed.")

@@ -122,6 +122,7 @@ func (b *Server) describeMirror() *stillskyv1.MirrorServiceDescribeResponse {
 		CommandUnit:     "m",
 		Coupling:        b.scn.DM.Coupling,
 		ProtocolVersion: mirrorProtocol,
+		MirrorKind:      stillskyv1.MirrorKind_MIRROR_KIND_DEFORMABLE,
 	}
 }
 

@@ -18,14 +18,20 @@ import (
 // Addrs are where the bench serves its devices. Mirror "" serves the mirror on the
 // camera's server (one gRPC server with both services); Metrics "" disables the
 // HTTP endpoint.
+//
+// TipTilt, if set, serves the tip-tilt sensor's Camera and the tip-tilt
+// mirror's Mirror on a server of their own (scenarios with a tip_tilt
+// section; Listen cannot know, Serve refuses it for a scenario without one).
 type Addrs struct {
 	Camera, Mirror, Metrics string
+	TipTilt                 string
 }
 
 // Listeners are the bench's open sockets, so callers can learn ports chosen by the
 // system (":0").
 type Listeners struct {
 	Camera, Mirror, Metrics net.Listener
+	TipTilt                 net.Listener
 }
 
 // Listen opens the bench's sockets.
@@ -33,7 +39,7 @@ func Listen(a Addrs) (*Listeners, error) {
 	var l Listeners
 	var err error
 	closeAll := func() {
-		for _, x := range []net.Listener{l.Camera, l.Mirror, l.Metrics} {
+		for _, x := range []net.Listener{l.Camera, l.Mirror, l.Metrics, l.TipTilt} {
 			if x != nil {
 				x.Close()
 			}
@@ -46,6 +52,12 @@ func Listen(a Addrs) (*Listeners, error) {
 		if l.Mirror, err = rpc.Listen(a.Mirror); err != nil {
 			closeAll()
 			return nil, fmt.Errorf("bench: mirror listener: %w", err)
+		}
+	}
+	if a.TipTilt != "" {
+		if l.TipTilt, err = rpc.Listen(a.TipTilt); err != nil {
+			closeAll()
+			return nil, fmt.Errorf("bench: tip-tilt listener: %w", err)
 		}
 	}
 	if a.Metrics != "" {
@@ -64,7 +76,15 @@ func (b *Server) Serve(ctx context.Context, l *Listeners, extra ...func(*http.Se
 	mirSvc := stillskyv1.MirrorService_ServiceDesc.ServiceName
 	probeSvc := stillskyv1.TransportProbeService_ServiceDesc.ServiceName
 	var servers []*grpc.Server
-	errc := make(chan error, 4)
+	errc := make(chan error, 5)
+	if l.TipTilt != nil {
+		gt, _ := rpc.NewServer([]string{camSvc, mirSvc}, rpc.DeviceServerOptions()...)
+		if !b.RegisterTipTilt(gt) {
+			return fmt.Errorf("bench: scenario %s has no tip_tilt section: nothing to serve at the tip-tilt address", b.scn.Name)
+		}
+		servers = append(servers, gt)
+		go func() { errc <- gt.Serve(l.TipTilt) }()
+	}
 	if l.Mirror == nil {
 		g, _ := rpc.NewServer([]string{camSvc, mirSvc, probeSvc}, rpc.DeviceServerOptions()...)
 		b.RegisterCamera(g)

@@ -88,6 +88,9 @@ type Server struct {
 	stats   statsAccumulator
 	metrics *benchMetrics
 	gate    skyGate // with Options.Gated
+	// tt is the natural-star tip-tilt sensor and the tip-tilt mirror, nil
+	// when the scenario has no tip_tilt section.
+	tt *tipTiltDevices
 }
 
 // NewServer builds the bench for scenario s.
@@ -159,6 +162,11 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	b.gate.wake = make(chan struct{}, 1)
 	if opt.Prerendered > 0 {
 		b.frames = prerender(sys, opt.Prerendered)
+	}
+	if s.TipTilt != nil {
+		if b.tt, err = newTipTiltDevices(b); err != nil {
+			return nil, err
+		}
 	}
 	return b, nil
 }

@@ -73,6 +73,59 @@ func (Source) EnumDescriptor() ([]byte, []int) {
 	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{0}
 }
 
+// SensorKind is the kind of wavefront sensor behind a camera.
+type SensorKind int32
+
+const (
+	// A camera that predates the field: a Shack–Hartmann sensor.
+	SensorKind_SENSOR_KIND_UNSPECIFIED SensorKind = 0
+	// A Shack–Hartmann sensor: two slopes per valid subaperture.
+	SensorKind_SENSOR_KIND_SHACK_HARTMANN SensorKind = 1
+	// A quad cell (or 2×2 sensor) on a natural star: one tilt (x, y) per frame.
+	SensorKind_SENSOR_KIND_QUAD_CELL SensorKind = 2
+)
+
+// Enum value maps for SensorKind.
+var (
+	SensorKind_name = map[int32]string{
+		0: "SENSOR_KIND_UNSPECIFIED",
+		1: "SENSOR_KIND_SHACK_HARTMANN",
+		2: "SENSOR_KIND_QUAD_CELL",
+	}
+	SensorKind_value = map[string]int32{
+		"SENSOR_KIND_UNSPECIFIED":    0,
+		"SENSOR_KIND_SHACK_HARTMANN": 1,
+		"SENSOR_KIND_QUAD_CELL":      2,
+	}
+)
+
+func (x SensorKind) Enum() *SensorKind {
+	p := new(SensorKind)
+	*p = x
+	return p
+}
+
+func (x SensorKind) String() string {
+	return protoimpl.X.EnumStringOf(x.Descriptor(), protoreflect.EnumNumber(x))
+}
+
+func (SensorKind) Descriptor() protoreflect.EnumDescriptor {
+	return file_stillsky_v1_camera_proto_enumTypes[1].Descriptor()
+}
+
+func (SensorKind) Type() protoreflect.EnumType {
+	return &file_stillsky_v1_camera_proto_enumTypes[1]
+}
+
+func (x SensorKind) Number() protoreflect.EnumNumber {
+	return protoreflect.EnumNumber(x)
+}
+
+// Deprecated: Use SensorKind.Descriptor instead.
+func (SensorKind) EnumDescriptor() ([]byte, []int) {
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{1}
+}
+
 // SetAcquisitionRequest pauses or resumes the frame stream.
 type SetAcquisitionRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
@@ -322,7 +375,18 @@ type CameraServiceDescribeResponse struct {
 	// unknown): the loop's r0 estimate is scaled to the zenith with it.
 	ZenithDeg float64 `protobuf:"fixed64,12,opt,name=zenith_deg,json=zenithDeg,proto3" json:"zenith_deg,omitempty"`
 	// Central obstruction of the pupil as a fraction of its diameter (0 for none).
-	Obstruction   float64 `protobuf:"fixed64,13,opt,name=obstruction,proto3" json:"obstruction,omitempty"`
+	Obstruction float64 `protobuf:"fixed64,13,opt,name=obstruction,proto3" json:"obstruction,omitempty"`
+	// Fields 14 and 15 came with the tip-tilt sensor; a camera that predates them
+	// leaves them zero, which reads as a Shack–Hartmann sensor of unknown star.
+	//
+	// What the sensor is. A quad cell (SENSOR_KIND_QUAD_CELL) measures the tilt of
+	// the whole pupil: subapertures 1, valid_subapertures [0], slope_count 2, and
+	// each frame is (x, y), the mean wavefront gradient over the pupil in radians
+	// on the sky, at its own frame_rate_hz.
+	SensorKind SensorKind `protobuf:"varint,14,opt,name=sensor_kind,json=sensorKind,proto3,enum=stillsky.v1.SensorKind" json:"sensor_kind,omitempty"`
+	// Magnitude of the natural star the sensor looks at, in its band (0 when
+	// unknown or for a laser beacon).
+	StarMagnitude float64 `protobuf:"fixed64,15,opt,name=star_magnitude,json=starMagnitude,proto3" json:"star_magnitude,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -444,6 +508,20 @@ func (x *CameraServiceDescribeResponse) GetZenithDeg() float64 {
 func (x *CameraServiceDescribeResponse) GetObstruction() float64 {
 	if x != nil {
 		return x.Obstruction
+	}
+	return 0
+}
+
+func (x *CameraServiceDescribeResponse) GetSensorKind() SensorKind {
+	if x != nil {
+		return x.SensorKind
+	}
+	return SensorKind_SENSOR_KIND_UNSPECIFIED
+}
+
+func (x *CameraServiceDescribeResponse) GetStarMagnitude() float64 {
+	if x != nil {
+		return x.StarMagnitude
 	}
 	return 0
 }
@@ -614,7 +692,7 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"@\n" +
 	"\x11SetSourceResponse\x12+\n" +
 	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"\x1e\n" +
-	"\x1cCameraServiceDescribeRequest\"\xf3\x03\n" +
+	"\x1cCameraServiceDescribeRequest\"\xd4\x04\n" +
 	"\x1dCameraServiceDescribeResponse\x12\"\n" +
 	"\fsubapertures\x18\x01 \x01(\rR\fsubapertures\x12-\n" +
 	"\x12valid_subapertures\x18\x02 \x03(\rR\x11validSubapertures\x12\x1f\n" +
@@ -632,7 +710,10 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\vdescription\x18\v \x01(\tR\vdescription\x12\x1d\n" +
 	"\n" +
 	"zenith_deg\x18\f \x01(\x01R\tzenithDeg\x12 \n" +
-	"\vobstruction\x18\r \x01(\x01R\vobstruction\"-\n" +
+	"\vobstruction\x18\r \x01(\x01R\vobstruction\x128\n" +
+	"\vsensor_kind\x18\x0e \x01(\x0e2\x17.stillsky.v1.SensorKindR\n" +
+	"sensorKind\x12%\n" +
+	"\x0estar_magnitude\x18\x0f \x01(\x01R\rstarMagnitude\"-\n" +
 	"\x13StreamFramesRequest\x12\x16\n" +
 	"\x06chunks\x18\x01 \x01(\rR\x06chunks\"\xf8\x01\n" +
 	"\x14StreamFramesResponse\x12!\n" +
@@ -649,7 +730,12 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\x12SOURCE_UNSPECIFIED\x10\x00\x12\x0e\n" +
 	"\n" +
 	"SOURCE_SKY\x10\x01\x12\x16\n" +
-	"\x12SOURCE_CALIBRATION\x10\x022\xf0\x02\n" +
+	"\x12SOURCE_CALIBRATION\x10\x02*d\n" +
+	"\n" +
+	"SensorKind\x12\x1b\n" +
+	"\x17SENSOR_KIND_UNSPECIFIED\x10\x00\x12\x1e\n" +
+	"\x1aSENSOR_KIND_SHACK_HARTMANN\x10\x01\x12\x19\n" +
+	"\x15SENSOR_KIND_QUAD_CELL\x10\x022\xf0\x02\n" +
 	"\rCameraService\x12a\n" +
 	"\bDescribe\x12).stillsky.v1.CameraServiceDescribeRequest\x1a*.stillsky.v1.CameraServiceDescribeResponse\x12U\n" +
 	"\fStreamFrames\x12 .stillsky.v1.StreamFramesRequest\x1a!.stillsky.v1.StreamFramesResponse0\x01\x12J\n" +
@@ -668,35 +754,37 @@ func file_stillsky_v1_camera_proto_rawDescGZIP() []byte {
 	return file_stillsky_v1_camera_proto_rawDescData
 }
 
-var file_stillsky_v1_camera_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
+var file_stillsky_v1_camera_proto_enumTypes = make([]protoimpl.EnumInfo, 2)
 var file_stillsky_v1_camera_proto_msgTypes = make([]protoimpl.MessageInfo, 8)
 var file_stillsky_v1_camera_proto_goTypes = []any{
 	(Source)(0),                           // 0: stillsky.v1.Source
-	(*SetAcquisitionRequest)(nil),         // 1: stillsky.v1.SetAcquisitionRequest
-	(*SetAcquisitionResponse)(nil),        // 2: stillsky.v1.SetAcquisitionResponse
-	(*SetSourceRequest)(nil),              // 3: stillsky.v1.SetSourceRequest
-	(*SetSourceResponse)(nil),             // 4: stillsky.v1.SetSourceResponse
-	(*CameraServiceDescribeRequest)(nil),  // 5: stillsky.v1.CameraServiceDescribeRequest
-	(*CameraServiceDescribeResponse)(nil), // 6: stillsky.v1.CameraServiceDescribeResponse
-	(*StreamFramesRequest)(nil),           // 7: stillsky.v1.StreamFramesRequest
-	(*StreamFramesResponse)(nil),          // 8: stillsky.v1.StreamFramesResponse
+	(SensorKind)(0),                       // 1: stillsky.v1.SensorKind
+	(*SetAcquisitionRequest)(nil),         // 2: stillsky.v1.SetAcquisitionRequest
+	(*SetAcquisitionResponse)(nil),        // 3: stillsky.v1.SetAcquisitionResponse
+	(*SetSourceRequest)(nil),              // 4: stillsky.v1.SetSourceRequest
+	(*SetSourceResponse)(nil),             // 5: stillsky.v1.SetSourceResponse
+	(*CameraServiceDescribeRequest)(nil),  // 6: stillsky.v1.CameraServiceDescribeRequest
+	(*CameraServiceDescribeResponse)(nil), // 7: stillsky.v1.CameraServiceDescribeResponse
+	(*StreamFramesRequest)(nil),           // 8: stillsky.v1.StreamFramesRequest
+	(*StreamFramesResponse)(nil),          // 9: stillsky.v1.StreamFramesResponse
 }
 var file_stillsky_v1_camera_proto_depIdxs = []int32{
 	0, // 0: stillsky.v1.SetSourceRequest.source:type_name -> stillsky.v1.Source
 	0, // 1: stillsky.v1.SetSourceResponse.source:type_name -> stillsky.v1.Source
-	5, // 2: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
-	7, // 3: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
-	3, // 4: stillsky.v1.CameraService.SetSource:input_type -> stillsky.v1.SetSourceRequest
-	1, // 5: stillsky.v1.CameraService.SetAcquisition:input_type -> stillsky.v1.SetAcquisitionRequest
-	6, // 6: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
-	8, // 7: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
-	4, // 8: stillsky.v1.CameraService.SetSource:output_type -> stillsky.v1.SetSourceResponse
-	2, // 9: stillsky.v1.CameraService.SetAcquisition:output_type -> stillsky.v1.SetAcquisitionResponse
-	6, // [6:10] is the sub-list for method output_type
-	2, // [2:6] is the sub-list for method input_type
-	2, // [2:2] is the sub-list for extension type_name
-	2, // [2:2] is the sub-list for extension extendee
-	0, // [0:2] is the sub-list for field type_name
+	1, // 2: stillsky.v1.CameraServiceDescribeResponse.sensor_kind:type_name -> stillsky.v1.SensorKind
+	6, // 3: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
+	8, // 4: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
+	4, // 5: stillsky.v1.CameraService.SetSource:input_type -> stillsky.v1.SetSourceRequest
+	2, // 6: stillsky.v1.CameraService.SetAcquisition:input_type -> stillsky.v1.SetAcquisitionRequest
+	7, // 7: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
+	9, // 8: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
+	5, // 9: stillsky.v1.CameraService.SetSource:output_type -> stillsky.v1.SetSourceResponse
+	3, // 10: stillsky.v1.CameraService.SetAcquisition:output_type -> stillsky.v1.SetAcquisitionResponse
+	7, // [7:11] is the sub-list for method output_type
+	3, // [3:7] is the sub-list for method input_type
+	3, // [3:3] is the sub-list for extension type_name
+	3, // [3:3] is the sub-list for extension extendee
+	0, // [0:3] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_camera_proto_init() }
@@ -709,7 +797,7 @@ func file_stillsky_v1_camera_proto_init() {
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_camera_proto_rawDesc), len(file_stillsky_v1_camera_proto_rawDesc)),
-			NumEnums:      1,
+			NumEnums:      2,
 			NumMessages:   8,
 			NumExtensions: 0,
 			NumServices:   1,

@@ -21,6 +21,59 @@ const (
 	_ = protoimpl.EnforceVersion(protoimpl.MaxVersion - 20)
 )
 
+// MirrorKind is the kind of corrector behind a mirror.
+type MirrorKind int32
+
+const (
+	// A mirror that predates the field: a deformable mirror.
+	MirrorKind_MIRROR_KIND_UNSPECIFIED MirrorKind = 0
+	// A deformable mirror: one command value per actuator, metres of surface.
+	MirrorKind_MIRROR_KIND_DEFORMABLE MirrorKind = 1
+	// A tip-tilt mirror: two command values, radians of tilt on the sky.
+	MirrorKind_MIRROR_KIND_TIP_TILT MirrorKind = 2
+)
+
+// Enum value maps for MirrorKind.
+var (
+	MirrorKind_name = map[int32]string{
+		0: "MIRROR_KIND_UNSPECIFIED",
+		1: "MIRROR_KIND_DEFORMABLE",
+		2: "MIRROR_KIND_TIP_TILT",
+	}
+	MirrorKind_value = map[string]int32{
+		"MIRROR_KIND_UNSPECIFIED": 0,
+		"MIRROR_KIND_DEFORMABLE":  1,
+		"MIRROR_KIND_TIP_TILT":    2,
+	}
+)
+
+func (x MirrorKind) Enum() *MirrorKind {
+	p := new(MirrorKind)
+	*p = x
+	return p
+}
+
+func (x MirrorKind) String() string {
+	return protoimpl.X.EnumStringOf(x.Descriptor(), protoreflect.EnumNumber(x))
+}
+
+func (MirrorKind) Descriptor() protoreflect.EnumDescriptor {
+	return file_stillsky_v1_mirror_proto_enumTypes[0].Descriptor()
+}
+
+func (MirrorKind) Type() protoreflect.EnumType {
+	return &file_stillsky_v1_mirror_proto_enumTypes[0]
+}
+
+func (x MirrorKind) Number() protoreflect.EnumNumber {
+	return protoreflect.EnumNumber(x)
+}
+
+// Deprecated: Use MirrorKind.Descriptor instead.
+func (MirrorKind) EnumDescriptor() ([]byte, []int) {
+	return file_stillsky_v1_mirror_proto_rawDescGZIP(), []int{0}
+}
+
 // MirrorServiceDescribeRequest has no fields.
 type MirrorServiceDescribeRequest struct {
 	state         protoimpl.MessageState `protogen:"open.v1"`
@@ -78,8 +131,19 @@ type MirrorServiceDescribeResponse struct {
 	// The StreamCommands protocol the mirror speaks: 2 honours ack_batch; 0 (a
 	// mirror that predates the field) or 1 acknowledges every command.
 	ProtocolVersion uint32 `protobuf:"varint,8,opt,name=protocol_version,json=protocolVersion,proto3" json:"protocol_version,omitempty"`
-	unknownFields   protoimpl.UnknownFields
-	sizeCache       protoimpl.SizeCache
+	// Fields 9 and 10 came with the tip-tilt mirror; a mirror that predates them
+	// leaves them zero, which reads as a deformable mirror.
+	//
+	// What the mirror is. A tip-tilt mirror (MIRROR_KIND_TIP_TILT) takes commands
+	// of two values, the tilt (x, y) it takes off the wavefront in radians on the
+	// sky (command_unit "rad"), each clipped to ±stroke_rad; actuators_across,
+	// positions_m, pitch_m, stroke_m and coupling are then zero. It speaks the
+	// same StreamCommands protocol as a deformable mirror.
+	MirrorKind MirrorKind `protobuf:"varint,9,opt,name=mirror_kind,json=mirrorKind,proto3,enum=stillsky.v1.MirrorKind" json:"mirror_kind,omitempty"`
+	// Tip-tilt mirrors: the stroke per axis, radians of tilt on the sky.
+	StrokeRad     float64 `protobuf:"fixed64,10,opt,name=stroke_rad,json=strokeRad,proto3" json:"stroke_rad,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *MirrorServiceDescribeResponse) Reset() {
@@ -164,6 +228,20 @@ func (x *MirrorServiceDescribeResponse) GetCoupling() float64 {
 func (x *MirrorServiceDescribeResponse) GetProtocolVersion() uint32 {
 	if x != nil {
 		return x.ProtocolVersion
+	}
+	return 0
+}
+
+func (x *MirrorServiceDescribeResponse) GetMirrorKind() MirrorKind {
+	if x != nil {
+		return x.MirrorKind
+	}
+	return MirrorKind_MIRROR_KIND_UNSPECIFIED
+}
+
+func (x *MirrorServiceDescribeResponse) GetStrokeRad() float64 {
+	if x != nil {
+		return x.StrokeRad
 	}
 	return 0
 }
@@ -337,7 +415,7 @@ var File_stillsky_v1_mirror_proto protoreflect.FileDescriptor
 const file_stillsky_v1_mirror_proto_rawDesc = "" +
 	"\n" +
 	"\x18stillsky/v1/mirror.proto\x12\vstillsky.v1\"\x1e\n" +
-	"\x1cMirrorServiceDescribeRequest\"\xb0\x02\n" +
+	"\x1cMirrorServiceDescribeRequest\"\x89\x03\n" +
 	"\x1dMirrorServiceDescribeResponse\x12%\n" +
 	"\x0eactuator_count\x18\x01 \x01(\rR\ractuatorCount\x12)\n" +
 	"\x10actuators_across\x18\x02 \x01(\rR\x0factuatorsAcross\x12\x1f\n" +
@@ -347,7 +425,12 @@ const file_stillsky_v1_mirror_proto_rawDesc = "" +
 	"\bstroke_m\x18\x05 \x01(\x01R\astrokeM\x12!\n" +
 	"\fcommand_unit\x18\x06 \x01(\tR\vcommandUnit\x12\x1a\n" +
 	"\bcoupling\x18\a \x01(\x01R\bcoupling\x12)\n" +
-	"\x10protocol_version\x18\b \x01(\rR\x0fprotocolVersion\"o\n" +
+	"\x10protocol_version\x18\b \x01(\rR\x0fprotocolVersion\x128\n" +
+	"\vmirror_kind\x18\t \x01(\x0e2\x17.stillsky.v1.MirrorKindR\n" +
+	"mirrorKind\x12\x1d\n" +
+	"\n" +
+	"stroke_rad\x18\n" +
+	" \x01(\x01R\tstrokeRad\"o\n" +
 	"\x15StreamCommandsRequest\x12!\n" +
 	"\fframe_number\x18\x01 \x01(\x04R\vframeNumber\x12\x16\n" +
 	"\x06values\x18\x02 \x03(\x02R\x06values\x12\x1b\n" +
@@ -359,7 +442,12 @@ const file_stillsky_v1_mirror_proto_rawDesc = "" +
 	"\aclipped\x18\x03 \x01(\rR\aclipped\x122\n" +
 	"\x15earlier_frame_numbers\x18\x04 \x03(\x04R\x13earlierFrameNumbers\x12.\n" +
 	"\x13earlier_received_ns\x18\x05 \x03(\x03R\x11earlierReceivedNs\x12'\n" +
-	"\x0fearlier_clipped\x18\x06 \x03(\rR\x0eearlierClipped2\xd1\x01\n" +
+	"\x0fearlier_clipped\x18\x06 \x03(\rR\x0eearlierClipped*_\n" +
+	"\n" +
+	"MirrorKind\x12\x1b\n" +
+	"\x17MIRROR_KIND_UNSPECIFIED\x10\x00\x12\x1a\n" +
+	"\x16MIRROR_KIND_DEFORMABLE\x10\x01\x12\x18\n" +
+	"\x14MIRROR_KIND_TIP_TILT\x10\x022\xd1\x01\n" +
 	"\rMirrorService\x12a\n" +
 	"\bDescribe\x12).stillsky.v1.MirrorServiceDescribeRequest\x1a*.stillsky.v1.MirrorServiceDescribeResponse\x12]\n" +
 	"\x0eStreamCommands\x12\".stillsky.v1.StreamCommandsRequest\x1a#.stillsky.v1.StreamCommandsResponse(\x010\x01B'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
@@ -376,23 +464,26 @@ func file_stillsky_v1_mirror_proto_rawDescGZIP() []byte {
 	return file_stillsky_v1_mirror_proto_rawDescData
 }
 
+var file_stillsky_v1_mirror_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
 var file_stillsky_v1_mirror_proto_msgTypes = make([]protoimpl.MessageInfo, 4)
 var file_stillsky_v1_mirror_proto_goTypes = []any{
-	(*MirrorServiceDescribeRequest)(nil),  // 0: stillsky.v1.MirrorServiceDescribeRequest
-	(*MirrorServiceDescribeResponse)(nil), // 1: stillsky.v1.MirrorServiceDescribeResponse
-	(*StreamCommandsRequest)(nil),         // 2: stillsky.v1.StreamCommandsRequest
-	(*StreamCommandsResponse)(nil),        // 3: stillsky.v1.StreamCommandsResponse
+	(MirrorKind)(0),                       // 0: stillsky.v1.MirrorKind
+	(*MirrorServiceDescribeRequest)(nil),  // 1: stillsky.v1.MirrorServiceDescribeRequest
+	(*MirrorServiceDescribeResponse)(nil), // 2: stillsky.v1.MirrorServiceDescribeResponse
+	(*StreamCommandsRequest)(nil),         // 3: stillsky.v1.StreamCommandsRequest
+	(*StreamCommandsResponse)(nil),        // 4: stillsky.v1.StreamCommandsResponse
 }
 var file_stillsky_v1_mirror_proto_depIdxs = []int32{
-	0, // 0: stillsky.v1.MirrorService.Describe:input_type -> stillsky.v1.MirrorServiceDescribeRequest
-	2, // 1: stillsky.v1.MirrorService.StreamCommands:input_type -> stillsky.v1.StreamCommandsRequest
-	1, // 2: stillsky.v1.MirrorService.Describe:output_type -> stillsky.v1.MirrorServiceDescribeResponse
-	3, // 3: stillsky.v1.MirrorService.StreamCommands:output_type -> stillsky.v1.StreamCommandsResponse
-	2, // [2:4] is the sub-list for method output_type
-	0, // [0:2] is the sub-list for method input_type
-	0, // [0:0] is the sub-list for extension type_name
-	0, // [0:0] is the sub-list for extension extendee
-	0, // [0:0] is the sub-list for field type_name
+	0, // 0: stillsky.v1.MirrorServiceDescribeResponse.mirror_kind:type_name -> stillsky.v1.MirrorKind
+	1, // 1: stillsky.v1.MirrorService.Describe:input_type -> stillsky.v1.MirrorServiceDescribeRequest
+	3, // 2: stillsky.v1.MirrorService.StreamCommands:input_type -> stillsky.v1.StreamCommandsRequest
+	2, // 3: stillsky.v1.MirrorService.Describe:output_type -> stillsky.v1.MirrorServiceDescribeResponse
+	4, // 4: stillsky.v1.MirrorService.StreamCommands:output_type -> stillsky.v1.StreamCommandsResponse
+	3, // [3:5] is the sub-list for method output_type
+	1, // [1:3] is the sub-list for method input_type
+	1, // [1:1] is the sub-list for extension type_name
+	1, // [1:1] is the sub-list for extension extendee
+	0, // [0:1] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_mirror_proto_init() }
@@ -405,13 +496,14 @@ func file_stillsky_v1_mirror_proto_init() {
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_mirror_proto_rawDesc), len(file_stillsky_v1_mirror_proto_rawDesc)),
-			NumEnums:      0,
+			NumEnums:      1,
 			NumMessages:   4,
 			NumExtensions: 0,
 			NumServices:   1,
 		},
 		GoTypes:           file_stillsky_v1_mirror_proto_goTypes,
 		DependencyIndexes: file_stillsky_v1_mirror_proto_depIdxs,
+		EnumInfos:         file_stillsky_v1_mirror_proto_enumTypes,
 		MessageInfos:      file_stillsky_v1_mirror_proto_msgTypes,
 	}.Build()
 	File_stillsky_v1_mirror_proto = out.File

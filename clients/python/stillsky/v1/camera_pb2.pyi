@@ -5,6 +5,9 @@ from google.protobuf import message as _message
 from typing import ClassVar as _ClassVar, Iterable as _Iterable, Optional as _Optional, Union as _Union
 
 DESCRIPTOR: _descriptor.FileDescriptor
+SENSOR_KIND_QUAD_CELL: SensorKind
+SENSOR_KIND_SHACK_HARTMANN: SensorKind
+SENSOR_KIND_UNSPECIFIED: SensorKind
 SOURCE_CALIBRATION: Source
 SOURCE_SKY: Source
 SOURCE_UNSPECIFIED: Source
@@ -14,15 +17,17 @@ class CameraServiceDescribeRequest(_message.Message):
     def __init__(self) -> None: ...
 
 class CameraServiceDescribeResponse(_message.Message):
-    __slots__ = ["delay_frames", "description", "frame_rate_hz", "lockstep", "obstruction", "pupil_diameter_m", "slope_count", "slope_unit", "subaperture_size_m", "subapertures", "valid_subapertures", "wavelength_m", "zenith_deg"]
+    __slots__ = ["delay_frames", "description", "frame_rate_hz", "lockstep", "obstruction", "pupil_diameter_m", "sensor_kind", "slope_count", "slope_unit", "star_magnitude", "subaperture_size_m", "subapertures", "valid_subapertures", "wavelength_m", "zenith_deg"]
     DELAY_FRAMES_FIELD_NUMBER: _ClassVar[int]
     DESCRIPTION_FIELD_NUMBER: _ClassVar[int]
     FRAME_RATE_HZ_FIELD_NUMBER: _ClassVar[int]
     LOCKSTEP_FIELD_NUMBER: _ClassVar[int]
     OBSTRUCTION_FIELD_NUMBER: _ClassVar[int]
     PUPIL_DIAMETER_M_FIELD_NUMBER: _ClassVar[int]
+    SENSOR_KIND_FIELD_NUMBER: _ClassVar[int]
     SLOPE_COUNT_FIELD_NUMBER: _ClassVar[int]
     SLOPE_UNIT_FIELD_NUMBER: _ClassVar[int]
+    STAR_MAGNITUDE_FIELD_NUMBER: _ClassVar[int]
     SUBAPERTURES_FIELD_NUMBER: _ClassVar[int]
     SUBAPERTURE_SIZE_M_FIELD_NUMBER: _ClassVar[int]
     VALID_SUBAPERTURES_FIELD_NUMBER: _ClassVar[int]
@@ -34,14 +39,16 @@ class CameraServiceDescribeResponse(_message.Message):
     lockstep: bool
     obstruction: float
     pupil_diameter_m: float
+    sensor_kind: SensorKind
     slope_count: int
     slope_unit: str
+    star_magnitude: float
     subaperture_size_m: float
     subapertures: int
     valid_subapertures: _containers.RepeatedScalarFieldContainer[int]
     wavelength_m: float
     zenith_deg: float
-    def __init__(self, subapertures: _Optional[int] = ..., valid_subapertures: _Optional[_Iterable[int]] = ..., slope_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., subaperture_size_m: _Optional[float] = ..., pupil_diameter_m: _Optional[float] = ..., wavelength_m: _Optional[float] = ..., slope_unit: _Optional[str] = ..., lockstep: bool = ..., delay_frames: _Optional[int] = ..., description: _Optional[str] = ..., zenith_deg: _Optional[float] = ..., obstruction: _Optional[float] = ...) -> None: ...
+    def __init__(self, subapertures: _Optional[int] = ..., valid_subapertures: _Optional[_Iterable[int]] = ..., slope_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., subaperture_size_m: _Optional[float] = ..., pupil_diameter_m: _Optional[float] = ..., wavelength_m: _Optional[float] = ..., slope_unit: _Optional[str] = ..., lockstep: bool = ..., delay_frames: _Optional[int] = ..., description: _Optional[str] = ..., zenith_deg: _Optional[float] = ..., obstruction: _Optional[float] = ..., sensor_kind: _Optional[_Union[SensorKind, str]] = ..., star_magnitude: _Optional[float] = ...) -> None: ...
 
 class SetAcquisitionRequest(_message.Message):
     __slots__ = ["paused"]
@@ -92,4 +99,7 @@ class StreamFramesResponse(_message.Message):
     def __init__(self, frame_number: _Optional[int] = ..., readout_end_ns: _Optional[int] = ..., offset: _Optional[int] = ..., chunk_index: _Optional[int] = ..., chunk_count: _Optional[int] = ..., slopes: _Optional[_Iterable[float]] = ..., flux_electrons: _Optional[float] = ...) -> None: ...
 
 class Source(int, metaclass=_enum_type_wrapper.EnumTypeWrapper):
+    __slots__ = []
+
+class SensorKind(int, metaclass=_enum_type_wrapper.EnumTypeWrapper):
     __slots__ = []

@@ -13,7 +13,7 @@ _sym_db = _symbol_database.Default()
 
 
 
-DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x18stillsky/v1/mirror.proto\x12\x0bstillsky.v1\"\x1e\n\x1cMirrorServiceDescribeRequest\"\xcb\x01\n\x1dMirrorServiceDescribeResponse\x12\x16\n\x0e\x61\x63tuator_count\x18\x01 \x01(\r\x12\x18\n\x10\x61\x63tuators_across\x18\x02 \x01(\r\x12\x13\n\x0bpositions_m\x18\x03 \x03(\x01\x12\x0f\n\x07pitch_m\x18\x04 \x01(\x01\x12\x10\n\x08stroke_m\x18\x05 \x01(\x01\x12\x14\n\x0c\x63ommand_unit\x18\x06 \x01(\t\x12\x10\n\x08\x63oupling\x18\x07 \x01(\x01\x12\x18\n\x10protocol_version\x18\x08 \x01(\r\"P\n\x15StreamCommandsRequest\x12\x14\n\x0c\x66rame_number\x18\x01 \x01(\x04\x12\x0e\n\x06values\x18\x02 \x03(\x02\x12\x11\n\tack_batch\x18\x03 \x01(\r\"\xa9\x01\n\x16StreamCommandsResponse\x12\x14\n\x0c\x66rame_number\x18\x01 \x01(\x04\x12\x13\n\x0breceived_ns\x18\x02 \x01(\x03\x12\x0f\n\x07\x63lipped\x18\x03 \x01(\r\x12\x1d\n\x15\x65\x61rlier_frame_numbers\x18\x04 \x03(\x04\x12\x1b\n\x13\x65\x61rlier_received_ns\x18\x05 \x03(\x03\x12\x17\n\x0f\x65\x61rlier_clipped\x18\x06 \x03(\r2\xd1\x01\n\rMirrorService\x12\x61\n\x08\x44\x65scribe\x12).stillsky.v1.MirrorServiceDescribeRequest\x1a*.stillsky.v1.MirrorServiceDescribeResponse\x12]\n\x0eStreamCommands\x12\".stillsky.v1.StreamCommandsRequest\x1a#.stillsky.v1.StreamCommandsResponse(\x01\x30\x01\x42\'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3')
+DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x18stillsky/v1/mirror.proto\x12\x0bstillsky.v1\"\x1e\n\x1cMirrorServiceDescribeRequest\"\x8d\x02\n\x1dMirrorServiceDescribeResponse\x12\x16\n\x0e\x61\x63tuator_count\x18\x01 \x01(\r\x12\x18\n\x10\x61\x63tuators_across\x18\x02 \x01(\r\x12\x13\n\x0bpositions_m\x18\x03 \x03(\x01\x12\x0f\n\x07pitch_m\x18\x04 \x01(\x01\x12\x10\n\x08stroke_m\x18\x05 \x01(\x01\x12\x14\n\x0c\x63ommand_unit\x18\x06 \x01(\t\x12\x10\n\x08\x63oupling\x18\x07 \x01(\x01\x12\x18\n\x10protocol_version\x18\x08 \x01(\r\x12,\n\x0bmirror_kind\x18\t \x01(\x0e\x32\x17.stillsky.v1.MirrorKind\x12\x12\n\nstroke_rad\x18\n \x01(\x01\"P\n\x15StreamCommandsRequest\x12\x14\n\x0c\x66rame_number\x18\x01 \x01(\x04\x12\x0e\n\x06values\x18\x02 \x03(\x02\x12\x11\n\tack_batch\x18\x03 \x01(\r\"\xa9\x01\n\x16StreamCommandsResponse\x12\x14\n\x0c\x66rame_number\x18\x01 \x01(\x04\x12\x13\n\x0breceived_ns\x18\x02 \x01(\x03\x12\x0f\n\x07\x63lipped\x18\x03 \x01(\r\x12\x1d\n\x15\x65\x61rlier_frame_numbers\x18\x04 \x03(\x04\x12\x1b\n\x13\x65\x61rlier_received_ns\x18\x05 \x03(\x03\x12\x17\n\x0f\x65\x61rlier_clipped\x18\x06 \x03(\r*_\n\nMirrorKind\x12\x1b\n\x17MIRROR_KIND_UNSPECIFIED\x10\x00\x12\x1a\n\x16MIRROR_KIND_DEFORMABLE\x10\x01\x12\x18\n\x14MIRROR_KIND_TIP_TILT\x10\x02\x32\xd1\x01\n\rMirrorService\x12\x61\n\x08\x44\x65scribe\x12).stillsky.v1.MirrorServiceDescribeRequest\x1a*.stillsky.v1.MirrorServiceDescribeResponse\x12]\n\x0eStreamCommands\x12\".stillsky.v1.StreamCommandsRequest\x1a#.stillsky.v1.StreamCommandsResponse(\x01\x30\x01\x42\'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3')
 
 _builder.BuildMessageAndEnumDescriptors(DESCRIPTOR, globals())
 _builder.BuildTopDescriptorsAndMessages(DESCRIPTOR, 'stillsky.v1.mirror_pb2', globals())
@@ -21,14 +21,16 @@ if _descriptor._USE_C_DESCRIPTORS == False:
 
   DESCRIPTOR._options = None
   DESCRIPTOR._serialized_options = b'Z%stillsky/proto/stillsky/v1;stillskyv1'
+  _MIRRORKIND._serialized_start=599
+  _MIRRORKIND._serialized_end=694
   _MIRRORSERVICEDESCRIBEREQUEST._serialized_start=41
   _MIRRORSERVICEDESCRIBEREQUEST._serialized_end=71
   _MIRRORSERVICEDESCRIBERESPONSE._serialized_start=74
-  _MIRRORSERVICEDESCRIBERESPONSE._serialized_end=277
-  _STREAMCOMMANDSREQUEST._serialized_start=279
-  _STREAMCOMMANDSREQUEST._serialized_end=359
-  _STREAMCOMMANDSRESPONSE._serialized_start=362
-  _STREAMCOMMANDSRESPONSE._serialized_end=531
-  _MIRRORSERVICE._serialized_start=534
-  _MIRRORSERVICE._serialized_end=743
+  _MIRRORSERVICEDESCRIBERESPONSE._serialized_end=343
+  _STREAMCOMMANDSREQUEST._serialized_start=345
+  _STREAMCOMMANDSREQUEST._serialized_end=425
+  _STREAMCOMMANDSRESPONSE._serialized_start=428
+  _STREAMCOMMANDSRESPONSE._serialized_end=597
+  _MIRRORSERVICE._serialized_start=697
+  _MIRRORSERVICE._serialized_end=906
 # @@protoc_insertion_point(module_scope)
