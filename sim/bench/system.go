@@ -99,6 +99,11 @@ type System struct {
 	// sensor's photon noise on them.
 	flux      []float32
 	fluxNoise *rand.Rand
+	// advanced counts the frames begun: frame k (from 0) is at frame time
+	// k·period, when the scenario's clouds pass; trans is the current frame's
+	// transmission of the sky.
+	advanced uint64
+	trans    float64
 }
 
 // NewSystem builds the bench for scenario s. Errors name the part that refused
@@ -143,7 +148,7 @@ func NewSystem(s *scenario.Scenario) (*System, error) {
 		noise:  rand.New(rand.NewPCG(uint64(seed(s)), noiseStream)),
 		period: 1 / s.Loop.FrameRate,
 		cmd:    make([]float32, m.NumValid()),
-		turb:   true, noiseOn: w.Noise,
+		turb:   true, noiseOn: w.Noise, trans: 1,
 		atmOPD: make([]float64, n), surface: make([]float64, n), residual: make([]float64, n),
 		linear:    w.Mode == wfs.Geometric,
 		flux:      make([]float32, sensor.NumValid()),
@@ -261,6 +266,17 @@ func (s *System) NumSlopes() int { return s.sensor.NumSlopes() }
 // NumActuators returns the length of a command (valid actuators).
 func (s *System) NumActuators() int { return s.mirror.NumValid() }
 
+// FrameTime returns the frame time of the current frame, seconds: frames begun
+// before it × the frame period (the clock of the scenario's clouds).
+func (s *System) FrameTime() float64 {
+	return float64(max(s.advanced, 1)-1) * s.period
+}
+
+// Transmission returns the fraction of the guide star's light the scenario's
+// clouds let through in the current frame (1 on a clear sky and on the
+// calibration source).
+func (s *System) Transmission() float64 { return s.trans }
+
 // FramePeriod returns the time between frames in seconds, 1/frame rate.
 func (s *System) FramePeriod() float64 { return s.period }
 
@@ -302,6 +318,13 @@ func (s *System) Frame(slopes []float32) {
 // free-running bench does it ahead of the command the frame will see.
 func (s *System) Advance() {
 	s.frameTurb = s.turb
+	// Clouds dim the star on the sky, not the instrument's calibration source.
+	s.trans = 1
+	if s.turb && len(s.sc.Clouds) > 0 {
+		s.trans = s.sc.Clouds.Transmission(float64(s.advanced) * s.period)
+	}
+	s.advanced++
+	s.sensor.SetTransmission(s.trans)
 	if s.turb {
 		if !s.frozen {
 			s.atm.Advance(s.period)

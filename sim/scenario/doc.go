@@ -34,6 +34,12 @@
 // gain, offload_gain and stroke_rad are required; wavelength_m (8e-7) and
 // read_noise_e (0) are optional.
 //
+// An optional "clouds" list schedules cloud passages in front of the guide star,
+// each {start_s, duration_s, depth, ramp_s} in seconds of the bench's frame time
+// (ramp_s optional, default 0): the transmission falls linearly to 1 − depth over
+// ramp_s and rises back at the end; passages come in time order without overlap,
+// and an eye scenario has none (Cloud, Clouds.Transmission).
+//
 // All quantities are SI: metres, seconds, radians, hertz; YAML keys carry their unit
 // (diameter_m, r0_m, wind_speed_m_per_s, frame_rate_hz). Telescope and site names in
 // the built-ins are generic descriptive labels, not real telescopes or sites.

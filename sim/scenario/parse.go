@@ -377,6 +377,7 @@ func validate(r *rawScenario) (*Scenario, error) {
 	if r.TipTilt != nil {
 		s.TipTilt = c.tipTilt(r.TipTilt, r, s)
 	}
+	s.Clouds = c.clouds(r.Clouds, r)
 	if len(c.errs) > 0 {
 		return nil, errors.Join(c.errs...)
 	}

@@ -11,6 +11,7 @@ type rawScenario struct {
 	GuideStar   *rawGuideStar  `yaml:"guide_star"`
 	LGS         *rawLGS        `yaml:"laser_guide_star,omitempty"`
 	TipTilt     *rawTipTilt    `yaml:"tip_tilt,omitempty"`
+	Clouds      []*rawCloud    `yaml:"clouds,omitempty"`
 	WFS         *rawWFS        `yaml:"wfs"`
 	DM          *rawDM         `yaml:"dm"`
 	Loop        *rawLoop       `yaml:"loop"`
@@ -116,6 +117,7 @@ func (s *Scenario) toRaw() *rawScenario {
 	raw := &rawScenario{
 		LGS:         lgs,
 		TipTilt:     tt,
+		Clouds:      s.Clouds.toRaw(),
 		Name:        &s.Name,
 		Description: &s.Description,
 		Telescope:   &rawTelescope{&t.Name, &t.Site, &t.Diameter, &t.Obstruction, &t.Spiders, &t.SpiderWidth, &t.PupilSamples},

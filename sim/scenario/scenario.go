@@ -43,6 +43,9 @@ type Scenario struct {
 	// Eye, when not nil, is the aberration source in place of Atmosphere (whose
 	// fields are then zero): the retinal-imaging scenarios (see Eye).
 	Eye *Eye
+	// Clouds are the cloud passages in front of the guide star (YAML list
+	// "clouds", optional; absent, a clear night). See Cloud.
+	Clouds Clouds
 }
 
 // Telescope is the entrance pupil and its sampling (YAML section "telescope").
