@@ -197,6 +197,11 @@ func checkMetrics(t *testing.T, addr string) {
 	if v := value("stillsky_frames_total"); v < 1000 {
 		t.Errorf("stillsky_frames_total = %g, want >= 1000", v)
 	}
+	// The bench reports the guide star's photo-electrons with every frame; the
+	// daemon's decoder must carry them to the gauge.
+	if v := value("stillsky_guide_star_flux_electrons"); !(v > 0) {
+		t.Errorf("stillsky_guide_star_flux_electrons = %g, want the camera's flux, > 0", v)
+	}
 	for _, h := range []string{"stillsky_rtc_latency_seconds", "stillsky_compute_latency_seconds", "stillsky_end_to_end_latency_seconds"} {
 		f := get(h)
 		if f == nil {

@@ -222,7 +222,7 @@ func DecodeAck(b []byte, a *stillskyv1.StreamCommandsResponse) error {
 // frame no larger than the previous one allocates nothing. Unknown fields are
 // skipped, as the standard decoder would.
 func DecodeFrame(b []byte, f *stillskyv1.StreamFramesResponse) error {
-	f.FrameNumber, f.ReadoutEndNs, f.Offset, f.ChunkIndex, f.ChunkCount = 0, 0, 0, 0, 0
+	f.FrameNumber, f.ReadoutEndNs, f.Offset, f.ChunkIndex, f.ChunkCount, f.FluxElectrons = 0, 0, 0, 0, 0, 0
 	slopes := f.Slopes[:0]
 	for len(b) > 0 {
 		num, typ, n := protowire.ConsumeTag(b)
@@ -249,6 +249,14 @@ func DecodeFrame(b []byte, f *stillskyv1.StreamFramesResponse) error {
 			}
 			b = b[n:]
 			slopes = append(slopes, math.Float32frombits(v))
+			continue
+		case num == 7 && typ == protowire.Fixed32Type:
+			v, n := protowire.ConsumeFixed32(b)
+			if n < 0 {
+				return fmt.Errorf("slope frame: bad flux: %w", protowire.ParseError(n))
+			}
+			b = b[n:]
+			f.FluxElectrons = math.Float32frombits(v)
 			continue
 		case num >= 1 && num <= 5 && typ == protowire.VarintType:
 			v, n := protowire.ConsumeVarint(b)

@@ -23,6 +23,9 @@ func TestDecodeFrameMatchesProto(t *testing.T) {
 			ChunkIndex:   rng.Uint32() % 8,
 			ChunkCount:   rng.Uint32() % 9,
 		}
+		if trial%2 == 0 {
+			in.FluxElectrons = float32(rng.ExpFloat64() * 2000)
+		}
 		for range rng.IntN(50) {
 			in.Slopes = append(in.Slopes, float32(rng.NormFloat64()))
 		}
@@ -38,7 +41,7 @@ func TestDecodeFrameMatchesProto(t *testing.T) {
 		if err := proto.Unmarshal(b, want); err != nil {
 			t.Fatal(err)
 		}
-		got := &stillskyv1.StreamFramesResponse{FrameNumber: 7, ChunkIndex: 3, Slopes: make([]float32, 64)}
+		got := &stillskyv1.StreamFramesResponse{FrameNumber: 7, ChunkIndex: 3, FluxElectrons: 5, Slopes: make([]float32, 64)}
 		if err := DecodeFrame(b, got); err != nil {
 			t.Fatal(err)
 		}
