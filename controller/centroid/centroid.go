@@ -56,12 +56,12 @@ const (
 // NewCalibration; do not change it after.
 type Calibration struct {
 	layout Layout
-	// dark is the mean frame with the source off, in ADU (bias + dark current
-	// + background as captured).
-	dark []float32
-	// gain is 1/flat per pixel; offset is dark·gain, so that a calibrated
-	// pixel is raw·gain − offset.
-	gain, offset []float32
+	// cal holds, per valid window in slope order, Pixels rows of Pixels gains
+	// (1/flat) then Pixels offsets (dark·gain), so that a calibrated pixel is
+	// raw·gain − offset: 2·Pixels² float32 per window, read in one sequential
+	// stream beside the frame (the dark and flat of invalid pixels are never
+	// read, so they are not kept).
+	cal []float32
 	// weight per window pixel (1 for CoG).
 	weight    []float32
 	method    Method
@@ -69,10 +69,17 @@ type Calibration struct {
 	ref       []float32
 	satADU    uint16
 	hotRatio  float32
-	// windows: first pixel of each valid window.
-	start []int
+	// start: first pixel of each valid window in the frame.
+	start []int32
+	// byRow lists the valid windows grid row by grid row (slope order within a
+	// row); those of grid rows [a, b) are byRow[rowFirst[a]:rowFirst[b]].
+	byRow    []int32
+	rowFirst []int32
 	// xs are the window coordinates minus the centre.
 	xs []float32
+	// kern is the window kernel in use; par8 its constants when Pixels is 8.
+	kern kernel
+	par8 *params8
 }
 
 // Options of a Calibration.
@@ -102,6 +109,11 @@ type Options struct {
 	// Saturation is the raw value at or above which a pixel counts as saturated
 	// (1..65535; 0 means 65535).
 	Saturation uint16
+	// Kernel forces the window loop: "plain" (pure Go, any window size) or
+	// "avx2" (AVX2 assembly, 8×8-pixel windows). "" picks the fastest one the
+	// CPU and the window size allow (see Available). Both give the same
+	// slopes and flags, bit for bit.
+	Kernel string
 }
 
 // NewCalibration validates and builds a calibration.
@@ -110,18 +122,23 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 		return nil, fmt.Errorf("%w: layout %d subapertures × %d pixels, %d valid; want >= 1, 2..64, >= 1",
 			ErrConfig, l.Subapertures, l.Pixels, len(l.Valid))
 	}
-	n2 := l.Side() * l.Side()
+	if side := l.Side(); side > 1<<15 {
+		return nil, fmt.Errorf("%w: layout %d subapertures × %d pixels = %d pixels across, want <= %d",
+			ErrConfig, l.Subapertures, l.Pixels, side, 1<<15)
+	}
+	side, p, nv := l.Side(), l.Pixels, len(l.Valid)
+	n2 := side * side
 	seen := make([]bool, l.Subapertures*l.Subapertures)
 	c := &Calibration{layout: Layout{l.Subapertures, l.Pixels, append([]int(nil), l.Valid...)},
-		dark: make([]float32, n2), gain: make([]float32, n2), weight: make([]float32, l.Pixels*l.Pixels),
-		method: o.Method, threshold: o.Threshold, ref: make([]float32, 2*len(l.Valid)),
-		satADU: o.Saturation, start: make([]int, len(l.Valid)), xs: make([]float32, l.Pixels)}
+		cal: make([]float32, 2*p*p*nv), weight: make([]float32, p*p),
+		method: o.Method, threshold: o.Threshold, ref: make([]float32, 2*nv),
+		satADU: o.Saturation, start: make([]int32, nv), xs: make([]float32, p)}
 	for i, v := range l.Valid {
 		if v < 0 || v >= len(seen) || seen[v] {
 			return nil, fmt.Errorf("%w: Valid[%d] = %d, want a distinct index in [0, %d)", ErrConfig, i, v, len(seen))
 		}
 		seen[v] = true
-		c.start[i] = (v/l.Subapertures)*l.Pixels*l.Side() + (v%l.Subapertures)*l.Pixels
+		c.start[i] = int32((v/l.Subapertures)*p*side + (v%l.Subapertures)*p)
 	}
 	if o.Dark != nil {
 		if len(o.Dark) != n2 {
@@ -132,10 +149,6 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 				return nil, fmt.Errorf("%w: dark pixel %d = %v, want 0..65535 ADU", ErrConfig, i, v)
 			}
 		}
-		copy(c.dark, o.Dark)
-	}
-	for i := range c.gain {
-		c.gain[i] = 1
 	}
 	if o.Flat != nil {
 		if len(o.Flat) != n2 {
@@ -145,17 +158,28 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 			if !(v > 0.05 && v < 20) {
 				return nil, fmt.Errorf("%w: flat pixel %d = %v, want (0.05, 20)", ErrConfig, i, v)
 			}
-			c.gain[i] = 1 / v
 		}
 	}
-	c.offset = make([]float32, n2)
-	for i := range c.offset {
-		c.offset[i] = c.dark[i] * c.gain[i]
+	for i := range nv {
+		blk := c.cal[2*p*p*i : 2*p*p*(i+1)]
+		for y := range p {
+			g, off := blk[2*p*y:2*p*y+p], blk[2*p*y+p:2*p*(y+1)]
+			for x := range p {
+				k := int(c.start[i]) + y*side + x
+				g[x] = 1
+				if o.Flat != nil {
+					g[x] = 1 / o.Flat[k]
+				}
+				if o.Dark != nil {
+					off[x] = o.Dark[k] * g[x]
+				}
+			}
+		}
 	}
 	if !(o.Threshold >= 0 && o.Threshold < 1) {
 		return nil, fmt.Errorf("%w: threshold %v, want [0, 1)", ErrConfig, o.Threshold)
 	}
-	ctr := float64(l.Pixels-1) / 2
+	ctr := float64(p-1) / 2
 	for x := range c.xs {
 		c.xs[x] = float32(float64(x) - ctr)
 	}
@@ -168,10 +192,10 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 		if !(o.WeightSigma > 0 && o.WeightSigma < 1e3) {
 			return nil, fmt.Errorf("%w: weight sigma %v pixels, want > 0", ErrConfig, o.WeightSigma)
 		}
-		for y := 0; y < l.Pixels; y++ {
-			for x := 0; x < l.Pixels; x++ {
+		for y := 0; y < p; y++ {
+			for x := 0; x < p; x++ {
 				r2 := float64(c.xs[x])*float64(c.xs[x]) + float64(c.xs[y])*float64(c.xs[y])
-				c.weight[y*l.Pixels+x] = float32(math.Exp(-r2 / (2 * o.WeightSigma * o.WeightSigma)))
+				c.weight[y*p+x] = float32(math.Exp(-r2 / (2 * o.WeightSigma * o.WeightSigma)))
 			}
 		}
 	default:
@@ -182,8 +206,8 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 			return nil, fmt.Errorf("%w: %d reference slopes, want %d", ErrConfig, len(o.Reference), len(c.ref))
 		}
 		for i, v := range o.Reference {
-			if math.IsNaN(v) || math.IsInf(v, 0) || math.Abs(v) > float64(l.Pixels) {
-				return nil, fmt.Errorf("%w: reference slope %d = %v, want finite within ±%d pixels", ErrConfig, i, v, l.Pixels)
+			if math.IsNaN(v) || math.IsInf(v, 0) || math.Abs(v) > float64(p) {
+				return nil, fmt.Errorf("%w: reference slope %d = %v, want finite within ±%d pixels", ErrConfig, i, v, p)
 			}
 		}
 		for i, v := range o.Reference {
@@ -196,6 +220,28 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 	c.hotRatio = float32(o.HotRatio)
 	if c.satADU == 0 {
 		c.satADU = 65535
+	}
+	c.rowFirst = make([]int32, l.Subapertures+1)
+	for _, v := range l.Valid {
+		c.rowFirst[v/l.Subapertures+1]++
+	}
+	for r := range l.Subapertures {
+		c.rowFirst[r+1] += c.rowFirst[r]
+	}
+	c.byRow = make([]int32, nv)
+	next := append([]int32(nil), c.rowFirst[:l.Subapertures]...)
+	for i, v := range l.Valid {
+		r := v / l.Subapertures
+		c.byRow[next[r]] = int32(i)
+		next[r]++
+	}
+	k, err := pickKernel(o.Kernel, p)
+	if err != nil {
+		return nil, err
+	}
+	c.kern = k
+	if p == 8 {
+		c.par8 = newParams8(c)
 	}
 	return c, nil
 }
@@ -218,26 +264,6 @@ type Flags struct {
 	// brightest of its four neighbours, which a spot wider than a pixel never
 	// does but a hot pixel or a cosmic-ray hit does.
 	Hot int
-}
-
-// isHot reports whether the window's peak pixel k stands alone.
-func (c *Calibration) isHot(work []float32, k int, peak float32) bool {
-	p := c.layout.Pixels
-	x, y := k%p, k/p
-	n := float32(0)
-	if x > 0 {
-		n = max(n, work[k-1])
-	}
-	if x < p-1 {
-		n = max(n, work[k+1])
-	}
-	if y > 0 {
-		n = max(n, work[k-p])
-	}
-	if y < p-1 {
-		n = max(n, work[k+p])
-	}
-	return peak > c.hotRatio*n
 }
 
 // Process computes the slopes of a whole frame into slopes (len 2·len(Valid)),
@@ -284,85 +310,8 @@ func (c *Calibration) ProcessRows(frame []uint16, from, to int, slopes, work []f
 		return Flags{}, fmt.Errorf("%w: %d slopes and %d work, want %d and %d", ErrLength, len(slopes), len(work), 2*nv, p*p)
 	}
 	var f Flags
-	base := from * side
-	for i, v := range l.Valid {
-		r := v / l.Subapertures
-		if r*p < from || (r+1)*p > to {
-			continue
-		}
-		st := c.start[i]
-		peak := float32(0)
-		pk := 0
-		var top uint16
-		for y := 0; y < p; y++ {
-			o := st + y*side
-			raw := frame[o-base : o-base+p]
-			gn := c.gain[o : o+len(raw)]
-			off := c.offset[o : o+len(raw)]
-			wk := work[y*p : y*p+len(raw)]
-			var rowTop uint16
-			for x, a := range raw {
-				if a > rowTop {
-					rowTop = a
-				}
-				v := float32(a)*gn[x] - off[x]
-				wk[x] = v
-				if v > peak {
-					peak, pk = v, y*p+x
-				}
-			}
-			if rowTop == 0 {
-				f.DeadRows++
-			}
-			top = max(top, rowTop)
-		}
-		if top >= c.satADU {
-			f.Saturated++
-		}
-		if c.hotRatio > 0 && peak > 0 && c.isHot(work, pk, peak) {
-			f.Hot++
-		}
-		thr := float32(c.threshold) * peak
-		var s, sx, sy float32
-		for y := 0; y < p; y++ {
-			wk := work[y*p : y*p+p]
-			xs := c.xs[:len(wk)]
-			var rs, rx float32
-			switch {
-			case c.method == CoG && thr > 0:
-				for x, v := range wk {
-					if v -= thr; v > 0 {
-						rs += v
-						rx += v * xs[x]
-					}
-				}
-			case c.method == CoG:
-				for x, v := range wk {
-					rs += v
-					rx += v * xs[x]
-				}
-			default:
-				wt := c.weight[y*p : y*p+len(wk)]
-				for x, v := range wk {
-					if thr > 0 {
-						v = max(v-thr, 0)
-					}
-					v *= wt[x]
-					rs += v
-					rx += v * xs[x]
-				}
-			}
-			s += rs
-			sx += rx
-			sy += rs * c.xs[y]
-		}
-		if s <= 0 {
-			f.Dark++
-			slopes[2*i], slopes[2*i+1] = 0, 0
-			continue
-		}
-		slopes[2*i] = sx/s - c.ref[2*i]
-		slopes[2*i+1] = sy/s - c.ref[2*i+1]
+	if rf, rt := from/p, to/p; c.rowFirst[rt] > c.rowFirst[rf] {
+		c.kern.windows(c, frame, from*side, c.byRow[c.rowFirst[rf]:c.rowFirst[rt]], slopes, work, &f)
 	}
 	return f, nil
 }

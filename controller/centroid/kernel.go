@@ -1,0 +1,207 @@
+package centroid
+
+import (
+	"fmt"
+	"slices"
+)
+
+// A kernel turns the windows idx (valid-subaperture indices, all inside the
+// rows held by frame, whose first pixel is frame pixel base) into slopes and
+// adds what it saw to f. The caller has checked every length.
+//
+// Every kernel computes the same thing in the same order, so that their
+// results agree bit for bit:
+//
+//  1. calibrate: v = float32(raw·gain) − offset, the product rounded to
+//     float32 before the subtraction (no fused multiply–add);
+//  2. peak = max(0, max v), k its first position in row-major order; a dead
+//     row is one whose raw pixels are all 0, a saturated window has a raw
+//     pixel >= the saturation level, a hot window has peak > 0 and
+//     peak > HotRatio × the largest of k's four neighbours;
+//  3. thr = Threshold·peak; where thr > 0, v = max(v − thr, 0); then v
+//     times the window weight (WCoG);
+//  4. per column x: S[x] = Σ_y v (y = 0, 1, …) and Y[x] = Σ_y float32(v·ys[y]),
+//     starting from 0; X[x] = float32(S[x]·xs[x]);
+//  5. s, sx, sy are S, X, Y folded in halves (fold), so 8 columns sum as
+//     ((c0+c4)+(c2+c6)) + ((c1+c5)+(c3+c7)), the order of a 256-bit
+//     register's horizontal sum;
+//  6. s <= 0: a dark window, slopes 0; else sx/s − ref and sy/s − ref.
+type kernel struct {
+	name   string
+	pixels int // window size the kernel handles; 0 for any
+	avx2   bool
+}
+
+var plainKernel = kernel{name: "plain"}
+
+// windows runs the kernel. It is a switch rather than a func value so that
+// the flags and scratch of the caller stay on its stack (an indirect call
+// would make them escape).
+func (k kernel) windows(c *Calibration, frame []uint16, base int, idx []int32, slopes, work []float32, f *Flags) {
+	if k.avx2 {
+		windowsAVX2(c, frame, base, idx, slopes, f)
+		return
+	}
+	windowsGo(c, frame, base, idx, slopes, work, f)
+}
+
+// kernelNames lists every kernel this package knows, whether or not the CPU,
+// the build and the window size allow it.
+var kernelNames = []string{"plain", "avx2"}
+
+// Available returns the kernels usable on this CPU and build for windows of
+// pixels×pixels, fastest first; "plain" is always last.
+func Available(pixels int) []string {
+	var names []string
+	for _, k := range kernels(pixels) {
+		names = append(names, k.name)
+	}
+	return names
+}
+
+func kernels(pixels int) []kernel {
+	var ks []kernel
+	for _, k := range archKernels() {
+		if k.pixels == 0 || k.pixels == pixels {
+			ks = append(ks, k)
+		}
+	}
+	return append(ks, plainKernel)
+}
+
+func pickKernel(name string, pixels int) (kernel, error) {
+	ks := kernels(pixels)
+	if name == "" {
+		return ks[0], nil
+	}
+	for _, k := range ks {
+		if k.name == name {
+			return k, nil
+		}
+	}
+	if slices.Contains(kernelNames, name) {
+		return kernel{}, fmt.Errorf("%w: options kernel %q: not supported by this CPU, build or %d-pixel window (available: %v)",
+			ErrConfig, name, pixels, Available(pixels))
+	}
+	return kernel{}, fmt.Errorf("%w: options kernel %q: unknown (known: %v)", ErrConfig, name, kernelNames)
+}
+
+// Kernel returns the name of the window loop in use: "plain" or "avx2".
+func (c *Calibration) Kernel() string { return c.kern.name }
+
+// fold sums a in halves: a[i] += a[i+h] with h = ⌈n/2⌉ until one is left.
+// It overwrites a.
+func fold(a []float32) float32 {
+	for n := len(a); n > 1; {
+		h := (n + 1) / 2
+		for i := 0; i < n-h; i++ {
+			a[i] += a[i+h]
+		}
+		n = h
+	}
+	return a[0]
+}
+
+// windowsGo is the pure-Go kernel, for any window size; work (Pixels²) holds
+// one calibrated window.
+func windowsGo(c *Calibration, frame []uint16, base int, idx []int32, slopes, work []float32, f *Flags) {
+	p, side := c.layout.Pixels, c.layout.Side()
+	xs := c.xs[:p]
+	var sumS, sumX, sumY [64]float32
+	for _, i := range idx {
+		st := int(c.start[i]) - base
+		blk := c.cal[2*p*p*int(i) : 2*p*p*(int(i)+1)]
+		peak := float32(0)
+		pk := 0
+		var top uint16
+		for y := range p {
+			raw := frame[st+y*side : st+y*side+p]
+			g := blk[2*p*y : 2*p*y+len(raw)]
+			off := blk[2*p*y+p : 2*p*y+p+len(raw)]
+			wk := work[y*p : y*p+len(raw)]
+			var rowTop uint16
+			for x, a := range raw {
+				rowTop = max(rowTop, a)
+				v := float32(float32(a)*g[x]) - off[x]
+				wk[x] = v
+				if v > peak {
+					peak, pk = v, y*p+x
+				}
+			}
+			if rowTop == 0 {
+				f.DeadRows++
+			}
+			top = max(top, rowTop)
+		}
+		if top >= c.satADU {
+			f.Saturated++
+		}
+		if c.hotRatio > 0 && peak > 0 && c.isHot(work, pk, peak) {
+			f.Hot++
+		}
+		thr := float32(c.threshold) * peak
+		s, x, yy := sumS[:p], sumX[:p], sumY[:p]
+		clear(s)
+		clear(yy)
+		for y := range p {
+			wk := work[y*p : y*p+p]
+			wt := c.weight[y*p : y*p+p]
+			ys := xs[y]
+			s, yy := s[:len(wk)], yy[:len(wk)]
+			switch {
+			case c.method == CoG && thr > 0:
+				for j, v := range wk {
+					v = max(v-thr, 0)
+					s[j] += v
+					yy[j] += float32(v * ys)
+				}
+			case c.method == CoG:
+				for j, v := range wk {
+					s[j] += v
+					yy[j] += float32(v * ys)
+				}
+			default:
+				wt = wt[:len(wk)]
+				for j, v := range wk {
+					if thr > 0 {
+						v = max(v-thr, 0)
+					}
+					v *= wt[j]
+					s[j] += v
+					yy[j] += float32(v * ys)
+				}
+			}
+		}
+		for j := range x {
+			x[j] = float32(s[j] * xs[j])
+		}
+		ss, sx, sy := fold(s), fold(x), fold(yy)
+		if !(ss > 0) {
+			f.Dark++
+			slopes[2*i], slopes[2*i+1] = 0, 0
+			continue
+		}
+		slopes[2*i] = sx/ss - c.ref[2*i]
+		slopes[2*i+1] = sy/ss - c.ref[2*i+1]
+	}
+}
+
+// isHot reports whether the window's peak pixel k stands alone.
+func (c *Calibration) isHot(work []float32, k int, peak float32) bool {
+	p := c.layout.Pixels
+	x, y := k%p, k/p
+	n := float32(0)
+	if x > 0 {
+		n = max(n, work[k-1])
+	}
+	if x < p-1 {
+		n = max(n, work[k+1])
+	}
+	if y > 0 {
+		n = max(n, work[k-p])
+	}
+	if y < p-1 {
+		n = max(n, work[k+p])
+	}
+	return peak > c.hotRatio*n
+}
