@@ -12,6 +12,7 @@ import (
 	"google.golang.org/grpc/status"
 
 	"stillsky/controller"
+	"stillsky/daemon/supervisor"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
 
@@ -36,6 +37,7 @@ func (s *controlServer) OpenLoop(ctx context.Context, _ *stillskyv1.OpenLoopRequ
 	if err := s.d.requestState(ctx, stateOpen); err != nil {
 		return nil, err
 	}
+	s.d.operator(supervisor.CmdOpen)
 	return &stillskyv1.OpenLoopResponse{Status: s.d.status()}, nil
 }
 
@@ -43,6 +45,7 @@ func (s *controlServer) CloseLoop(ctx context.Context, _ *stillskyv1.CloseLoopRe
 	if err := s.d.requestState(ctx, stateClosed); err != nil {
 		return nil, err
 	}
+	s.d.operator(supervisor.CmdClose)
 	return &stillskyv1.CloseLoopResponse{Status: s.d.status()}, nil
 }
 
@@ -50,6 +53,7 @@ func (s *controlServer) HoldLoop(ctx context.Context, _ *stillskyv1.HoldLoopRequ
 	if err := s.d.requestState(ctx, stateHold); err != nil {
 		return nil, err
 	}
+	s.d.operator(supervisor.CmdHold)
 	return &stillskyv1.HoldLoopResponse{Status: s.d.status()}, nil
 }
 

@@ -69,6 +69,9 @@ type Config struct {
 	// BenchURL is the HTTP base URL of the simulated bench, whose PSF the live view
 	// shows; "" for none.
 	BenchURL string
+	// Autonomous, if set, runs the unattended-operation supervisor; see
+	// Autonomous.
+	Autonomous *Autonomous
 }
 
 func (c *Config) setDefaults() error {
@@ -140,6 +143,8 @@ type Daemon struct {
 
 	// an is the loop's analysis of itself (analysis.go).
 	an analyser
+	// auto is the unattended-operation supervisor, nil without Config.Autonomous.
+	auto *autonomy
 
 	// describes holds the devices' Describe answers, for the live view.
 	describes atomic.Pointer[describes]
@@ -167,6 +172,13 @@ func New(cfg Config) (*Daemon, error) {
 		return nil, err
 	}
 	d.u = newUnit(d.m, d.log, cfg.Interlocks, cfg.Recorder)
+	if cfg.Autonomous != nil {
+		var err error
+		if d.auto, err = newAutonomy(*cfg.Autonomous); err != nil {
+			return nil, fmt.Errorf("daemon: autonomous: %w", err)
+		}
+		d.u.auto = d.auto
+	}
 	d.m.gain.Set(d.gain)
 	d.m.leak.Set(d.leak)
 	d.m.wavelength.Set(cfg.ScienceWavelength)
@@ -235,6 +247,9 @@ func (d *Daemon) Run(ctx context.Context) error {
 	go d.devices(ctx)
 	if d.cfg.AnalysisPeriod >= 0 {
 		go d.analyse(ctx)
+	}
+	if d.auto != nil {
+		go d.supervise(ctx)
 	}
 
 	var err error

@@ -8,6 +8,7 @@ import (
 	"gonum.org/v1/gonum/mat"
 
 	"stillsky/controller"
+	"stillsky/daemon/supervisor"
 	"stillsky/internal/monoclock"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
@@ -17,7 +18,9 @@ import (
 // (docs/hot-path.md). gRPC's transport is measured separately in
 // TestHotPathAllocations.
 func TestFrameCodeAllocatesNothing(t *testing.T) {
-	d, err := New(Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:2", ListenAddr: "127.0.0.1:0", MetricsAddr: "-"})
+	// With the supervisor on, each frame's flux also goes into its ring.
+	d, err := New(Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:2", ListenAddr: "127.0.0.1:0", MetricsAddr: "-",
+		Autonomous: &Autonomous{}})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -61,5 +64,10 @@ func TestFrameCodeAllocatesNothing(t *testing.T) {
 		if a := testing.AllocsPerRun(200, step); a != 0 {
 			t.Errorf("%s: %v allocations per frame, want 0", stateNames[s], a)
 		}
+	}
+	// The supervisor saw the frames: with a reconstructor it acquires, and
+	// with no flux in these frames it does not close.
+	if s, _ := d.SupervisorState(); s != supervisor.Acquiring {
+		t.Errorf("supervisor %v after %d frames, want acquiring", s, frame.FrameNumber)
 	}
 }

@@ -255,7 +255,13 @@ func (rt *realtime) receive(f *stillskyv1.StreamFramesResponse, received int64) 
 	rt.acked[slot].Store(0)
 	rt.readout[slot].Store(f.GetReadoutEndNs())
 	rt.tags[slot].Store(num)
-	rt.res = rt.compute(f)
+	if a := u.auto; a != nil {
+		a.step(u, num, rt.g.frameRate, rt.asm.flux, rt.state)
+		rt.res = rt.compute(f)
+		a.settle(num, rt.g.frameRate, rt.state)
+	} else {
+		rt.res = rt.compute(f)
+	}
 	rt.out.FrameNumber = num
 	rt.out.AckBatch = rt.ackBatch
 	if rt.state == stateCalibrating {

@@ -40,6 +40,8 @@ type unit struct {
 
 	stats     runStats
 	telemetry telemetryRing
+	// auto, with the supervisor on, is fed every frame; set before the first.
+	auto *autonomy
 }
 
 func newUnit(m *metrics, log *slog.Logger, interlocks Interlocks, rec *Recorder) *unit {

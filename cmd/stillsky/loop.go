@@ -1,6 +1,9 @@
 package main
 
-import "stillsky/daemon"
+import (
+	"stillsky/daemon"
+	"stillsky/daemon/supervisor"
+)
 
 func init() {
 	register("loop", "run the loop daemon against a camera and a mirror", runLoop)
@@ -17,6 +20,11 @@ Retinal imaging: give the beacon's power and exposure time and the limit for the
 to start above the limit. The check is indicative only: exposure limits follow
 ANSI Z136.1 and ISO 15004-2, and local medical-device and ethics rules and licensed
 practice govern any real use.
+Unattended operation (--autonomous): the daemon calibrates, closes, holds, opens and
+closes the loop again on the guide star's flux with nobody at the controls. It is not
+a safety system: the dome, weather and personnel interlocks of the site govern, and
+an operator's open, close or hold through the Control API always takes over (the
+supervisor then only watches; stillsky_supervisor_state shows "manual").
 `
 
 func runLoop(args []string) error {
@@ -47,6 +55,17 @@ func runLoop(args []string) error {
 	beaconPower := fs.Float64("beacon-power-w", 0, "retinal imaging: the beacon's power entering the eye, watts (with --beacon-exposure-s and --exposure-limit-j; 0: no beacon declared)")
 	beaconExposure := fs.Float64("beacon-exposure-s", 0, "retinal imaging: the beacon's exposure time, seconds")
 	exposureLimit := fs.Float64("exposure-limit-j", 0, "retinal imaging: the energy the beacon may put into the eye over its exposure time, joules; the daemon refuses to start above it (indicative check only)")
+	autonomous := fs.Bool("autonomous", false, "run the unattended-operation supervisor: calibrate if there is no reconstructor, close on enough flux, hold through a cloud, open (no trip) when it lasts, close again when the flux returns")
+	sup := supervisor.DefaultConfig()
+	fs.Float64Var(&sup.MinFlux, "min-flux", sup.MinFlux, "--autonomous: least mean guide-star flux per frame to close, photo-electrons (> 0)")
+	fs.Float64Var(&sup.LossFraction, "loss-fraction", sup.LossFraction, "--autonomous: flux below this fraction of the reference is lost, in (0, --return-fraction)")
+	fs.Float64Var(&sup.ReturnFraction, "return-fraction", sup.ReturnFraction, "--autonomous: flux at or above this fraction of the reference is back, in (--loss-fraction, 1]")
+	fs.DurationVar(&sup.LossDwell, "loss-dwell", sup.LossDwell, "--autonomous: how long the flux must stay lost before holding, [0, --hold-timeout)")
+	fs.DurationVar(&sup.ReturnDwell, "return-dwell", sup.ReturnDwell, "--autonomous: how long the flux must stay back before closing, [0, 2s)")
+	fs.DurationVar(&sup.HoldTimeout, "hold-timeout", sup.HoldTimeout, "--autonomous: longest hold before opening the loop (> 0)")
+	fs.DurationVar(&sup.LongPause, "long-pause", sup.LongPause, "--autonomous: open this long, measure the reference flux again (> --hold-timeout)")
+	fs.DurationVar(&sup.MeasureWindow, "measure-window", sup.MeasureWindow, "--autonomous: window over which the reference flux is measured (> 0)")
+	fs.DurationVar(&sup.RetryDelay, "retry-delay", sup.RetryDelay, "--autonomous: wait after a failed calibration before the next (> 0)")
 	fs.Usage = func() {
 		fs.PrintDefaults()
 		fs.Output().Write([]byte(loopCaution))
@@ -68,6 +87,9 @@ func runLoop(args []string) error {
 	cfg.Kernel.Workers = *workers
 	if *beaconPower != 0 || *beaconExposure != 0 || *exposureLimit != 0 {
 		cfg.Beacon = &daemon.Beacon{PowerW: *beaconPower, ExposureS: *beaconExposure, LimitJ: *exposureLimit}
+	}
+	if *autonomous {
+		cfg.Autonomous = &daemon.Autonomous{Supervisor: sup}
 	}
 	d, err := daemon.New(cfg)
 	if err != nil {

@@ -4,12 +4,16 @@
 // opens it without tripping when the loss lasts, closes again when the light returns,
 // and measures the reference flux again after a long pause.
 //
-// The supervisor is off the hot path. It is fed one [Input] per frame (or per batch of
-// frames) from a goroutine of its own, with the frame's guide-star flux, which the
-// camera reports in every frame (flux_electrons in camera.proto: the sum of the
-// subapertures' pixels that a centre-of-gravity centroider forms anyway); it answers with an [Action] for the loop (calibrate, close, hold,
-// open) and never touches mirror commands itself. Time is an input, so the machine is
-// driven in lockstep by its tests and by the demo, and is independent of the load.
+// It is fed one [Input] per frame with the frame's guide-star flux, which the camera
+// reports in every frame (flux_electrons in camera.proto: the sum of the
+// subapertures' pixels that a centre-of-gravity centroider forms anyway), and
+// answers with an [Action] for the loop (calibrate, close, hold, open); it never
+// touches mirror commands itself. Observe allocates nothing and costs a few
+// comparisons, so the daemon calls it from its real-time goroutine before each
+// frame's command (daemon/autonomous.go) and the action takes effect at the frame
+// that caused it; the OnTransition hook must not block. Time is an input, so the
+// machine is driven in lockstep by its tests and by the demo, and is independent of
+// the load.
 //
 // # States
 //
