@@ -62,8 +62,11 @@ const readoutRing = 1024
 
 // ackWindow is the time one batch of mirror acknowledgements spans at most,
 // seconds: end-to-end latency reaches the metrics this much later, and the
-// daemon's transport allocates per acknowledgement message, not per command.
-const ackWindow = 0.1
+// daemon's transport allocates per acknowledgement message, not per command —
+// one object for a batch of 1 KiB or more (gRPC reads it into a pooled
+// buffer), four for a shorter one; a quarter second at 1 kHz is 250 commands,
+// about 3.7 kB.
+const ackWindow = 0.25
 
 // maxAckBatch bounds a batch of acknowledgements, well inside readoutRing so
 // that a command's readout time is still known when its acknowledgement comes.
@@ -84,7 +87,7 @@ func newRealtime(u *unit, g *geometry) *realtime {
 		guard:   guard{cfg: u.interlocks},
 		staleNs: int64(2e9 / g.frameRate),
 		period:  int64(1e9 / g.frameRate),
-		// A batch spans ackWindow; at 1 kHz that is 100 commands.
+		// A batch spans ackWindow; at 1 kHz that is 250 commands.
 		ackBatch: uint32(max(1, min(maxAckBatch, int(math.Round(g.frameRate*ackWindow))))),
 	}
 	rt.slopes = rt.asm.slopes

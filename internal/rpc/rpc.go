@@ -108,14 +108,19 @@ func NewHealthOnlyServer(services []string) *grpc.Server {
 
 // realTimeWindow is the fixed HTTP/2 flow-control window of each real-time
 // stream. A fixed window turns off gRPC's bandwidth-delay probing, whose ping
-// frames cost allocations and wake-ups every few messages. It is the smallest
-// gRPC allows: a camera link should hold a few frames, not hundreds, so that a
-// loop that falls behind meets back-pressure (the camera drops frames) instead
-// of working through a backlog of stale ones. The price is a WINDOW_UPDATE frame
-// per quarter window read (gRPC's threshold), a heap object or two each: about
-// one every 5 default-scenario frames on the camera link. It is the window of
-// what the loop receives: frames, and the mirror's acknowledgements.
-const realTimeWindow = 64 << 10
+// frames cost allocations and wake-ups every few messages. It is small enough
+// that a camera link holds tens of frames, not thousands, so that a loop that
+// falls behind meets back-pressure (the camera drops frames) instead of
+// working through a long backlog of stale ones: 256 KiB is about 80
+// default-scenario frames (80 ms at 1 kHz; a loop that skips every other late
+// frame works through them at its compute time, a few milliseconds by
+// estimate), 25 of the 40×40 scenario.
+// The price is a WINDOW_UPDATE frame per quarter window read (gRPC's
+// threshold), a heap object each: about one every 20 default-scenario frames,
+// where the 64 KiB window before sent one every 5 (0.14–0.19 objects per frame,
+// TestHotPathAllocations). It is the window of what the loop receives: frames,
+// and the mirror's acknowledgements.
+const realTimeWindow = 256 << 10
 
 // commandWindow is the window of what the devices receive: the loop's
 // commands (and the transport probe's pings). A mirror applies a command as it
