@@ -35,6 +35,7 @@ type frameSlot struct {
 	due    int64 // free-run: the readout tick, when the frame may leave
 	slopes []float32
 	flux   []float32 // photo-electrons per valid subaperture
+	pixels []byte    // pixel mode: the detector frame, 16-bit little-endian
 }
 
 // RegisterCamera adds the Camera service to g. Camera and mirror may share one
@@ -86,6 +87,7 @@ func (b *Server) Describe(context.Context, *stillskyv1.CameraServiceDescribeRequ
 		Obstruction:       b.scn.Telescope.Obstruction,
 		SensorKind:        stillskyv1.SensorKind_SENSOR_KIND_SHACK_HARTMANN,
 		StarMagnitude:     b.starMagnitude(),
+		Pixels:            b.pixelGeometry(),
 	}, nil
 }
 
@@ -95,6 +97,14 @@ func (b *Server) starMagnitude() float64 {
 		return 0
 	}
 	return b.scn.GuideStar.Magnitude
+}
+
+// pixelGeometry is Describe's pixels field: nil for a slope camera.
+func (b *Server) pixelGeometry() *stillskyv1.PixelGeometry {
+	if b.px == nil {
+		return nil
+	}
+	return b.px.geometry(b.scn.WFS.Pixels, b.px.sky.Config().Sigma)
 }
 
 // description names the scenario, and the pre-rendered camera when there is one.
@@ -142,9 +152,15 @@ func (b *Server) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.S
 			msg.ChunkCount = uint32(len(rows))
 			for c, r := range rows {
 				msg.ChunkIndex = uint32(c)
-				msg.Offset = uint32(r[0])
-				msg.Slopes = slot.slopes[r[0]:r[1]]
-				msg.FluxElectrons = sum32(slot.flux[r[0]/2 : r[1]/2])
+				msg.Offset = uint32(r.slopes[0])
+				if b.px != nil {
+					w := 2 * b.px.side
+					msg.FirstRow, msg.RowCount = uint32(r.rows[0]), uint32(r.rows[1]-r.rows[0])
+					msg.Pixels = slot.pixels[r.rows[0]*w : r.rows[1]*w]
+				} else {
+					msg.Slopes = slot.slopes[r.slopes[0]:r.slopes[1]]
+				}
+				msg.FluxElectrons = sum32(slot.flux[r.slopes[0]/2 : r.slopes[1]/2])
 				msg.ReadoutEndNs = start + int64(b.opt.ReadoutTime)*int64(c)/int64(len(rows))
 				if c > 0 && b.opt.ReadoutTime > 0 {
 					waitUntil(msg.ReadoutEndNs)
@@ -174,7 +190,7 @@ func (b *Server) SetSource(_ context.Context, req *stillskyv1.SetSourceRequest) 
 	b.gate.mu.Lock() // between two frames of a gated bench
 	b.mu.Lock()
 	b.sys.SetTurbulence(sky)
-	b.sys.SetNoise(sky && b.scn.WFS.Noise)
+	b.sys.SetNoise(sky && b.scn.WFS.Noise && b.px == nil) // pixels: the detector's noise
 	b.calibrationSource.Store(!sky)
 	b.mu.Unlock()
 	b.sky.Store(sky)
@@ -191,12 +207,20 @@ func (b *Server) SetAcquisition(_ context.Context, req *stillskyv1.SetAcquisitio
 	return &stillskyv1.SetAcquisitionResponse{Paused: req.GetPaused()}, nil
 }
 
-// chunkRows splits the slope vector into n groups of whole subaperture rows, as
-// [start, end) slope index ranges in readout order.
-func (b *Server) chunkRows(n uint32) ([][2]int, error) {
+// chunkRange is one chunk: the slope indices [start, end) and, for pixel
+// frames, the detector rows [start, end) it covers.
+type chunkRange struct{ slopes, rows [2]int }
+
+// chunkRows splits the frame into n groups of whole subaperture rows, in
+// readout order.
+func (b *Server) chunkRows(n uint32) ([]chunkRange, error) {
 	nsub := b.scn.WFS.Subapertures
+	p := 0
+	if b.px != nil {
+		p = b.px.pixels
+	}
 	if n <= 1 {
-		return [][2]int{{0, b.sys.NumSlopes()}}, nil
+		return []chunkRange{{[2]int{0, b.sys.NumSlopes()}, [2]int{0, nsub * p}}}, nil
 	}
 	if int(n) > nsub {
 		return nil, status.Errorf(codes.InvalidArgument, "camera: %d chunks: must be at most the %d subaperture rows", n, nsub)
@@ -213,13 +237,13 @@ func (b *Server) chunkRows(n uint32) ([][2]int, error) {
 		}
 		rowStart[r+1] = rowStart[r] + cnt
 	}
-	out := make([][2]int, 0, n)
+	out := make([]chunkRange, 0, n)
 	for c := 0; c < int(n); c++ {
 		r0, r1 := c*nsub/int(n), (c+1)*nsub/int(n)
 		if rowStart[r1] == rowStart[r0] {
 			return nil, status.Errorf(codes.InvalidArgument, "camera: %d chunks: chunk %d has no valid subaperture", n, c)
 		}
-		out = append(out, [2]int{rowStart[r0], rowStart[r1]})
+		out = append(out, chunkRange{[2]int{rowStart[r0], rowStart[r1]}, [2]int{r0 * p, r1 * p}})
 	}
 	return out, nil
 }

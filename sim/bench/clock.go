@@ -91,6 +91,7 @@ func (b *Server) freeRun(ctx context.Context) {
 		}
 		b.mu.Unlock()
 		if publish {
+			b.renderPixels(slot)
 			slot.number, slot.due = k, tick
 			b.cam.ready <- b.cam.written
 			b.cam.written++
@@ -165,11 +166,20 @@ func (b *Server) produce(k, n uint64, sample bool) {
 	}
 	b.mu.Unlock()
 	if publish {
+		b.renderPixels(slot)
 		slot.number, slot.due = k, 0
 		b.cam.ready <- b.cam.written
 		b.cam.written++
 	}
 	b.figures(n, sample)
+}
+
+// renderPixels renders a published slot's detector frame in pixel mode, from
+// its noise-free slopes; a slope camera's slot is left as it is.
+func (b *Server) renderPixels(slot *frameSlot) {
+	if b.px != nil {
+		b.px.render(slot.pixels, slot.slopes, b.calibrationSource.Load())
+	}
 }
 
 // waitUntil blocks until CLOCK_MONOTONIC reaches t: an absolute clock_nanosleep

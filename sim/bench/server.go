@@ -91,6 +91,7 @@ type Server struct {
 	// tt is the natural-star tip-tilt sensor and the tip-tilt mirror, nil
 	// when the scenario has no tip_tilt section.
 	tt *tipTiltDevices
+	px *pixelCamera // pixel mode (wfs.pixels), nil for a slope camera
 }
 
 // NewServer builds the bench for scenario s.
@@ -123,7 +124,18 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	if err != nil {
 		return nil, err
 	}
+	px, err := newPixelCamera(s, sys)
+	if err != nil {
+		return nil, err
+	}
+	if px != nil {
+		if opt.Prerendered > 0 {
+			return nil, fmt.Errorf("bench: scenario %s: pre-rendered frames are slopes: not with wfs.pixels", s.Name)
+		}
+		sys.SetNoise(false) // the detector draws the noise
+	}
 	b := &Server{
+		px:      px,
 		scn:     s,
 		opt:     opt,
 		log:     opt.Logger,
@@ -157,6 +169,9 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	for i := range b.cam.slots {
 		b.cam.slots[i].slopes = make([]float32, sys.NumSlopes())
 		b.cam.slots[i].flux = make([]float32, sys.Sensor().NumValid())
+		if px != nil {
+			b.cam.slots[i].pixels = make([]byte, px.bytes())
+		}
 	}
 	b.sky.Store(true)
 	b.gate.wake = make(chan struct{}, 1)

@@ -40,6 +40,14 @@
 // ramp_s and rises back at the end; passages come in time order without overlap,
 // and an eye scenario has none (Cloud, Clouds.Transmission).
 //
+// An optional "wfs.pixels" subsection puts the camera in pixel mode: it streams
+// raw 16-bit detector frames (sim/detector) and the loop daemon centroids them.
+// pixels_per_subaperture, pixel_scale_rad, read_noise_e, full_well_e and
+// centroid ("cog" or "wcog") are required; background_e_per_pixel (0), bias_adu
+// (100), dark_e_per_pixel (0), flat_rms (0), flat_seed (1), gain_e_per_adu (1),
+// threshold (0) and weight_sigma_px (wcog only; default the spot's rms width)
+// are optional. Without it the camera streams slopes.
+//
 // All quantities are SI: metres, seconds, radians, hertz; YAML keys carry their unit
 // (diameter_m, r0_m, wind_speed_m_per_s, frame_rate_hz). Telescope and site names in
 // the built-ins are generic descriptive labels, not real telescopes or sites.

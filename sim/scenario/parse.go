@@ -455,6 +455,9 @@ func (c *checker) wfs(w *rawWFS, s *Scenario) WFS {
 	case out.Mode != ModeGeometric && out.Mode != ModeDiffractive:
 		c.fail("wfs.mode", "%q: must be %q or %q", out.Mode, ModeGeometric, ModeDiffractive)
 	}
+	if w.Pixels != nil {
+		out.Pixels = c.pixels(w.Pixels)
+	}
 	n, samples := out.Subapertures, s.Telescope.PupilSamples
 	if n < 1 || samples < 1 || w.Subapertures == nil {
 		return out
@@ -476,6 +479,46 @@ func (c *checker) wfs(w *rawWFS, s *Scenario) WFS {
 	if out.Mode == ModeDiffractive && float64(out.PixelsPerSubaperture)*out.PixelScale > field*(1+1e-9) {
 		c.fail("wfs.pixels_per_subaperture", "%d pixels of %g rad: detector field must be <= λ/δ = %g rad (increase telescope.pupil_samples)",
 			out.PixelsPerSubaperture, out.PixelScale, field)
+	}
+	return out
+}
+
+// pixels checks the wfs.pixels subsection (pixel mode). The full well, in
+// ADU above the bias, must fit the 16-bit converter.
+func (c *checker) pixels(p *rawPixels) *Pixels {
+	const at = "wfs.pixels."
+	out := &Pixels{
+		PixelsPerSubaperture: c.int(at+"pixels_per_subaperture", p.PixelsPerSubaperture, 2, 64),
+		PixelScale:           c.float(at+"pixel_scale_rad", p.PixelScale, openLow(0, 1e-3), " rad per pixel"),
+		ReadNoise:            c.float(at+"read_noise_e", p.ReadNoise, closed(0, 100), " electrons rms"),
+		Background:           c.float(at+"background_e_per_pixel", p.Background, closed(0, 1e5), " electrons per pixel per frame", 0),
+		Bias:                 c.float(at+"bias_adu", p.Bias, closed(0, 60000), " ADU", 100),
+		Dark:                 c.float(at+"dark_e_per_pixel", p.Dark, closed(0, 1e4), " electrons per pixel per frame", 0),
+		FlatRMS:              c.float(at+"flat_rms", p.FlatRMS, closed(0, 0.3), " (rms fraction)", 0),
+		FlatSeed:             1,
+		FullWell:             c.float(at+"full_well_e", p.FullWell, closed(100, 1e7), " electrons"),
+		Gain:                 c.float(at+"gain_e_per_adu", p.Gain, openLow(0, 1000), " electrons per ADU", 1),
+		Centroid:             str(p.Centroid, ""),
+		Threshold:            c.float(at+"threshold", p.Threshold, openHigh(0, 1), " (fraction of the brightest pixel)", 0),
+	}
+	if p.FlatSeed != nil {
+		out.FlatSeed = *p.FlatSeed
+	}
+	switch {
+	case p.Centroid == nil:
+		c.fail(at+"centroid", "missing: required, must be %q or %q", CentroidCoG, CentroidWCoG)
+	case out.Centroid != CentroidCoG && out.Centroid != CentroidWCoG:
+		c.fail(at+"centroid", "%q: must be %q or %q", out.Centroid, CentroidCoG, CentroidWCoG)
+	}
+	if p.WeightSigma != nil {
+		if out.Centroid != CentroidWCoG {
+			c.fail(at+"weight_sigma_px", "set with centroid %q: only centroid %q has a weight", out.Centroid, CentroidWCoG)
+		}
+		out.WeightSigma = c.float(at+"weight_sigma_px", p.WeightSigma, openLow(0, 64), " pixels")
+	}
+	if g := out.Gain; g > 0 && out.FullWell > 0 && out.Bias+out.FullWell/g > 65535 {
+		c.fail(at+"full_well_e", "%g electrons at %g e/ADU above a bias of %g ADU: must fit 16 bits (bias_adu + full_well_e/gain_e_per_adu <= 65535)",
+			out.FullWell, g, out.Bias)
 	}
 	return out
 }

@@ -69,15 +69,32 @@ type rawTipTilt struct {
 }
 
 type rawWFS struct {
-	Subapertures         *int     `yaml:"subapertures"`
-	Mode                 *string  `yaml:"mode"`
-	ValidThreshold       *float64 `yaml:"valid_threshold"`
+	Subapertures         *int       `yaml:"subapertures"`
+	Mode                 *string    `yaml:"mode"`
+	ValidThreshold       *float64   `yaml:"valid_threshold"`
+	PixelsPerSubaperture *int       `yaml:"pixels_per_subaperture"`
+	PixelScale           *float64   `yaml:"pixel_scale_rad"`
+	ReadNoise            *float64   `yaml:"read_noise_e"`
+	Background           *float64   `yaml:"background_e_per_pixel"`
+	CentroidThreshold    *float64   `yaml:"centroid_threshold"`
+	Noise                *bool      `yaml:"noise"`
+	Pixels               *rawPixels `yaml:"pixels,omitempty"`
+}
+
+type rawPixels struct {
 	PixelsPerSubaperture *int     `yaml:"pixels_per_subaperture"`
 	PixelScale           *float64 `yaml:"pixel_scale_rad"`
 	ReadNoise            *float64 `yaml:"read_noise_e"`
 	Background           *float64 `yaml:"background_e_per_pixel"`
-	CentroidThreshold    *float64 `yaml:"centroid_threshold"`
-	Noise                *bool    `yaml:"noise"`
+	Bias                 *float64 `yaml:"bias_adu"`
+	Dark                 *float64 `yaml:"dark_e_per_pixel"`
+	FlatRMS              *float64 `yaml:"flat_rms"`
+	FlatSeed             *int64   `yaml:"flat_seed"`
+	FullWell             *float64 `yaml:"full_well_e"`
+	Gain                 *float64 `yaml:"gain_e_per_adu"`
+	Centroid             *string  `yaml:"centroid"`
+	Threshold            *float64 `yaml:"threshold"`
+	WeightSigma          *float64 `yaml:"weight_sigma_px,omitempty"`
 }
 
 type rawDM struct {
@@ -124,10 +141,17 @@ func (s *Scenario) toRaw() *rawScenario {
 		Atmosphere:  &rawAtmosphere{&a.R0, &a.L0, &a.ZenithDeg, &a.Seed, layers},
 		GuideStar:   &rawGuideStar{&g.Magnitude, &g.Wavelength, &g.ZeroPoint, &g.Throughput},
 		WFS: &rawWFS{&w.Subapertures, &w.Mode, &w.ValidThreshold, &w.PixelsPerSubaperture, &w.PixelScale,
-			&w.ReadNoise, &w.Background, &w.CentroidThreshold, &w.Noise},
+			&w.ReadNoise, &w.Background, &w.CentroidThreshold, &w.Noise, nil},
 		DM:      &rawDM{&d.Actuators, &d.Coupling, &d.Stroke, &d.Margin},
 		Loop:    &rawLoop{&l.FrameRate, &l.DelayFrames},
 		Science: &rawScience{&sci.Wavelength, &sci.OffsetX, &sci.OffsetY},
+	}
+	if p := w.Pixels; p != nil {
+		raw.WFS.Pixels = &rawPixels{&p.PixelsPerSubaperture, &p.PixelScale, &p.ReadNoise, &p.Background,
+			&p.Bias, &p.Dark, &p.FlatRMS, &p.FlatSeed, &p.FullWell, &p.Gain, &p.Centroid, &p.Threshold, nil}
+		if p.WeightSigma != 0 {
+			raw.WFS.Pixels.WeightSigma = &p.WeightSigma
+		}
 	}
 	if s.Eye != nil {
 		raw.Atmosphere, raw.Eye = nil, s.Eye.toRaw()

@@ -186,6 +186,20 @@ func (s *Scenario) TipTiltSpotSigma() float64 {
 	return 0.98 * l / r0 / (2 * math.Sqrt(2*math.Ln2))
 }
 
+// SpotSigmaPixels returns the rms width in pixels of a pixel-mode spot
+// (wfs.pixels present): FWHM λ/d for a subaperture of width d smaller than
+// r0(λ) = r0·(λ/500 nm)^(6/5)·cos(z)^(3/5), else the seeing disc 0.98 λ/r0(λ)
+// (common practice), σ = FWHM/2.355, over the pixel scale.
+func (s *Scenario) SpotSigmaPixels() float64 {
+	l := s.GuideStar.Wavelength
+	fwhm := l / s.SubapertureSize()
+	if a := s.Atmosphere; a.R0 > 0 {
+		r0 := a.R0 * math.Pow(l/500e-9, 1.2) * math.Pow(math.Cos(a.ZenithDeg*math.Pi/180), 0.6)
+		fwhm = max(fwhm, 0.98*l/r0)
+	}
+	return fwhm / (2 * math.Sqrt(2*math.Ln2)) / s.WFS.Pixels.PixelScale
+}
+
 // TipTiltRatio returns the wavefront-sensor frames per tip-tilt frame.
 func (s *Scenario) TipTiltRatio() int {
 	return int(math.Round(s.Loop.FrameRate / s.TipTilt.FrameRate))
@@ -218,6 +232,57 @@ type WFS struct {
 	CentroidThreshold float64
 	// Noise turns photon, read and background noise on (noise, optional, default true).
 	Noise bool
+	// Pixels, when present (subsection pixels, optional), puts the camera in
+	// pixel mode: it streams raw detector frames rendered by sim/detector, and
+	// the loop daemon centroids them. Absent (nil), the camera streams slopes.
+	Pixels *Pixels
+}
+
+// Centroid methods of wfs.pixels.centroid.
+const (
+	CentroidCoG  = "cog"
+	CentroidWCoG = "wcog"
+)
+
+// Pixels is the wavefront sensor's detector in pixel mode (YAML subsection
+// "wfs.pixels"). The spots are Gaussians of the subaperture's diffraction
+// width λ/d or, when the subaperture is larger than r0 at the sensing
+// wavelength, of the seeing disc 0.98 λ/r0 (FWHM; common practice), elongated
+// along the line to the launch point when the scenario has a laser_guide_star.
+type Pixels struct {
+	// PixelsPerSubaperture across each subaperture window
+	// (pixels_per_subaperture, required, [2, 64]).
+	PixelsPerSubaperture int
+	// PixelScale in radians per pixel (pixel_scale_rad, required, (0, 1e-3]).
+	PixelScale float64
+	// ReadNoise in electrons rms per pixel (read_noise_e, required, [0, 100]).
+	ReadNoise float64
+	// Background in electrons per pixel per frame (background_e_per_pixel,
+	// optional, default 0, [0, 1e5]).
+	Background float64
+	// Bias in ADU added to every pixel (bias_adu, optional, default 100, [0, 60000]).
+	Bias float64
+	// Dark current in electrons per pixel per frame (dark_e_per_pixel,
+	// optional, default 0, [0, 1e4]).
+	Dark float64
+	// FlatRMS is the rms of the fixed pixel-to-pixel response (flat_rms,
+	// optional, default 0, [0, 0.3]); FlatSeed draws its pattern (flat_seed,
+	// optional, default 1).
+	FlatRMS  float64
+	FlatSeed int64
+	// FullWell in electrons (full_well_e, required, [100, 1e7]); pixels clip there.
+	FullWell float64
+	// Gain in electrons per ADU (gain_e_per_adu, optional, default 1, (0, 1000]).
+	Gain float64
+	// Centroid is CentroidCoG or CentroidWCoG (centroid, required).
+	Centroid string
+	// Threshold, a fraction of each window's brightest pixel subtracted before
+	// the centroid (threshold, optional, default 0, [0, 1)).
+	Threshold float64
+	// WeightSigma is the rms width in pixels of the weighted centre of
+	// gravity's Gaussian (weight_sigma_px, optional, default the spot's rms
+	// width, (0, 64]; only with centroid wcog).
+	WeightSigma float64
 }
 
 // DM is the deformable mirror (YAML section "dm").

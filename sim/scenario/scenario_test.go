@@ -318,3 +318,75 @@ func TestLGSTipTilt(t *testing.T) {
 		t.Errorf("spot sigma %g rad: FWHM %g, want 2.97e-6", sg, sg*2.3548)
 	}
 }
+
+// The wfs.pixels subsection (pixel mode): every field range-checked and
+// named, the defaults filled in, a refused subsection loads nothing.
+func TestPixelFields(t *testing.T) {
+	px := strings.Replace(minimal, "wfs: {subapertures: 10, mode: geometric}",
+		"wfs: {subapertures: 10, mode: geometric, pixels: {pixels_per_subaperture: 8, pixel_scale_rad: 1e-6, read_noise_e: 0.5, full_well_e: 60000, centroid: cog}}", 1)
+	s, err := Parse([]byte(px))
+	if err != nil {
+		t.Fatalf("a valid wfs.pixels subsection refused: %v", err)
+	}
+	want := Pixels{PixelsPerSubaperture: 8, PixelScale: 1e-6, ReadNoise: 0.5, Bias: 100, FlatSeed: 1,
+		FullWell: 60000, Gain: 1, Centroid: CentroidCoG}
+	if s.WFS.Pixels == nil || *s.WFS.Pixels != want {
+		t.Fatalf("parsed %+v, want %+v", s.WFS.Pixels, want)
+	}
+	if s, err := Parse([]byte(minimal)); err != nil || s.WFS.Pixels != nil {
+		t.Fatalf("without the subsection the camera streams slopes: %+v, %v", s.WFS.Pixels, err)
+	}
+	const at = "wfs.pixels."
+	for _, c := range []struct{ name, old, new, want string }{
+		{"pixels missing", "pixels_per_subaperture: 8, ", "", at + "pixels_per_subaperture: missing: required, must be an integer in [2, 64]"},
+		{"pixels too many", "pixels_per_subaperture: 8", "pixels_per_subaperture: 65", at + "pixels_per_subaperture: 65: must be an integer in [2, 64]"},
+		{"scale missing", "pixel_scale_rad: 1e-6, ", "", at + "pixel_scale_rad: missing: required, must be in (0, 0.001] rad per pixel"},
+		{"scale zero", "pixel_scale_rad: 1e-6", "pixel_scale_rad: 0", at + "pixel_scale_rad: 0: must be in (0, 0.001]"},
+		{"read noise missing", "read_noise_e: 0.5, ", "", at + "read_noise_e: missing: required, must be in [0, 100]"},
+		{"read noise negative", "read_noise_e: 0.5", "read_noise_e: -1", at + "read_noise_e: -1: must be in [0, 100]"},
+		{"full well missing", "full_well_e: 60000, ", "", at + "full_well_e: missing: required, must be in [100, 1e+07]"},
+		{"full well past 16 bits", "full_well_e: 60000", "full_well_e: 70000", at + "full_well_e: 70000 electrons at 1 e/ADU above a bias of 100 ADU: must fit 16 bits"},
+		{"centroid missing", ", centroid: cog", "", at + `centroid: missing: required, must be "cog" or "wcog"`},
+		{"centroid unknown", "centroid: cog", "centroid: quad", at + `centroid: "quad": must be "cog" or "wcog"`},
+		{"weight without wcog", "centroid: cog", "centroid: cog, weight_sigma_px: 1", at + `weight_sigma_px: set with centroid "cog"`},
+		{"weight zero", "centroid: cog", "centroid: wcog, weight_sigma_px: 0", at + "weight_sigma_px: 0: must be in (0, 64] pixels"},
+		{"threshold one", "centroid: cog", "centroid: cog, threshold: 1", at + "threshold: 1: must be in [0, 1)"},
+		{"background negative", "centroid: cog", "centroid: cog, background_e_per_pixel: -1", at + "background_e_per_pixel: -1: must be in [0, 100000]"},
+		{"bias too high", "centroid: cog", "centroid: cog, bias_adu: 70000", at + "bias_adu: 70000: must be in [0, 60000] ADU"},
+		{"dark negative", "centroid: cog", "centroid: cog, dark_e_per_pixel: -1", at + "dark_e_per_pixel: -1: must be in [0, 10000]"},
+		{"flat too rough", "centroid: cog", "centroid: cog, flat_rms: 0.5", at + "flat_rms: 0.5: must be in [0, 0.3]"},
+		{"gain zero", "centroid: cog", "centroid: cog, gain_e_per_adu: 0", at + "gain_e_per_adu: 0: must be in (0, 1000]"},
+		{"unknown key", "centroid: cog", "centroid: cog, exposure_s: 1", at + "exposure_s: line"},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			doc := strings.Replace(px, c.old, c.new, 1)
+			if doc == px {
+				t.Fatalf("edit %q not applied", c.old)
+			}
+			s, err := Parse([]byte(doc))
+			if err == nil || s != nil {
+				t.Fatalf("accepted:\n%s", doc)
+			}
+			if !strings.Contains(err.Error(), c.want) {
+				t.Errorf("error\n  %v\nwant it to contain\n  %s", err, c.want)
+			}
+		})
+	}
+	// Round trip with the defaults written out, and with every field set.
+	for _, wcog := range []bool{false, true} {
+		if wcog {
+			s.WFS.Pixels.Centroid, s.WFS.Pixels.WeightSigma, s.WFS.Pixels.FlatRMS = CentroidWCoG, 1.2, 0.02
+		}
+		data, err := s.YAML()
+		if err != nil {
+			t.Fatal(err)
+		}
+		back, err := Parse(data)
+		if err != nil {
+			t.Fatalf("reparse: %v\n%s", err, data)
+		}
+		if !reflect.DeepEqual(s, back) {
+			t.Errorf("round trip differs:\n%+v\n%+v", s.WFS.Pixels, back.WFS.Pixels)
+		}
+	}
+}

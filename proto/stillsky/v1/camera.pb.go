@@ -73,6 +73,58 @@ func (Source) EnumDescriptor() ([]byte, []int) {
 	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{0}
 }
 
+// CentroidMethod is how a window of pixels becomes a slope.
+type CentroidMethod int32
+
+const (
+	CentroidMethod_CENTROID_METHOD_UNSPECIFIED CentroidMethod = 0
+	// The centre of gravity.
+	CentroidMethod_CENTROID_METHOD_COG CentroidMethod = 1
+	// The weighted centre of gravity (a Gaussian weight centred on the window).
+	CentroidMethod_CENTROID_METHOD_WEIGHTED CentroidMethod = 2
+)
+
+// Enum value maps for CentroidMethod.
+var (
+	CentroidMethod_name = map[int32]string{
+		0: "CENTROID_METHOD_UNSPECIFIED",
+		1: "CENTROID_METHOD_COG",
+		2: "CENTROID_METHOD_WEIGHTED",
+	}
+	CentroidMethod_value = map[string]int32{
+		"CENTROID_METHOD_UNSPECIFIED": 0,
+		"CENTROID_METHOD_COG":         1,
+		"CENTROID_METHOD_WEIGHTED":    2,
+	}
+)
+
+func (x CentroidMethod) Enum() *CentroidMethod {
+	p := new(CentroidMethod)
+	*p = x
+	return p
+}
+
+func (x CentroidMethod) String() string {
+	return protoimpl.X.EnumStringOf(x.Descriptor(), protoreflect.EnumNumber(x))
+}
+
+func (CentroidMethod) Descriptor() protoreflect.EnumDescriptor {
+	return file_stillsky_v1_camera_proto_enumTypes[1].Descriptor()
+}
+
+func (CentroidMethod) Type() protoreflect.EnumType {
+	return &file_stillsky_v1_camera_proto_enumTypes[1]
+}
+
+func (x CentroidMethod) Number() protoreflect.EnumNumber {
+	return protoreflect.EnumNumber(x)
+}
+
+// Deprecated: Use CentroidMethod.Descriptor instead.
+func (CentroidMethod) EnumDescriptor() ([]byte, []int) {
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{1}
+}
+
 // SensorKind is the kind of wavefront sensor behind a camera.
 type SensorKind int32
 
@@ -110,11 +162,11 @@ func (x SensorKind) String() string {
 }
 
 func (SensorKind) Descriptor() protoreflect.EnumDescriptor {
-	return file_stillsky_v1_camera_proto_enumTypes[1].Descriptor()
+	return file_stillsky_v1_camera_proto_enumTypes[2].Descriptor()
 }
 
 func (SensorKind) Type() protoreflect.EnumType {
-	return &file_stillsky_v1_camera_proto_enumTypes[1]
+	return &file_stillsky_v1_camera_proto_enumTypes[2]
 }
 
 func (x SensorKind) Number() protoreflect.EnumNumber {
@@ -123,7 +175,7 @@ func (x SensorKind) Number() protoreflect.EnumNumber {
 
 // Deprecated: Use SensorKind.Descriptor instead.
 func (SensorKind) EnumDescriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{1}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{2}
 }
 
 // SetAcquisitionRequest pauses or resumes the frame stream.
@@ -387,6 +439,11 @@ type CameraServiceDescribeResponse struct {
 	// Magnitude of the natural star the sensor looks at, in its band (0 when
 	// unknown or for a laser beacon).
 	StarMagnitude float64 `protobuf:"fixed64,15,opt,name=star_magnitude,json=starMagnitude,proto3" json:"star_magnitude,omitempty"`
+	// Pixel frames (frame format 2, added with field 16): present when the camera
+	// streams raw detector pixels instead of slopes (see StreamFramesResponse.pixels);
+	// absent for a slope camera (frame format 1). A consumer that does not know the
+	// field sees a slope camera whose frames carry no slopes, and refuses them.
+	Pixels        *PixelGeometry `protobuf:"bytes,16,opt,name=pixels,proto3" json:"pixels,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -526,11 +583,150 @@ func (x *CameraServiceDescribeResponse) GetStarMagnitude() float64 {
 	return 0
 }
 
+func (x *CameraServiceDescribeResponse) GetPixels() *PixelGeometry {
+	if x != nil {
+		return x.Pixels
+	}
+	return nil
+}
+
+// PixelGeometry describes the raw frames of a Shack–Hartmann detector: one square
+// window of pixels_per_subaperture² pixels per subaperture of the grid, the window of
+// the subaperture at grid row r and column c starting at pixel (r·p, c·p), so that
+// width = height = subapertures · pixels_per_subaperture. A spot centred in its window
+// (at (p−1)/2 in both axes) means zero slope. It also carries the processing the
+// scenario asks of the consumer, which may override it.
+type PixelGeometry struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Pixels across each subaperture window (2..64).
+	PixelsPerSubaperture uint32 `protobuf:"varint,1,opt,name=pixels_per_subaperture,json=pixelsPerSubaperture,proto3" json:"pixels_per_subaperture,omitempty"`
+	// Detector width and height in pixels.
+	Width  uint32 `protobuf:"varint,2,opt,name=width,proto3" json:"width,omitempty"`
+	Height uint32 `protobuf:"varint,3,opt,name=height,proto3" json:"height,omitempty"`
+	// Angle on the sky of one pixel, radians: a centroid in pixels times this is a
+	// slope in radians (slope_unit).
+	PixelScaleRad float64 `protobuf:"fixed64,4,opt,name=pixel_scale_rad,json=pixelScaleRad,proto3" json:"pixel_scale_rad,omitempty"`
+	// Bias of every pixel in ADU, subtracted until a dark frame is measured.
+	BiasAdu float64 `protobuf:"fixed64,5,opt,name=bias_adu,json=biasAdu,proto3" json:"bias_adu,omitempty"`
+	// Raw value at or above which a pixel is saturated (full well or the converter's top).
+	SaturationAdu uint32 `protobuf:"varint,6,opt,name=saturation_adu,json=saturationAdu,proto3" json:"saturation_adu,omitempty"`
+	// Electrons per ADU.
+	GainEPerAdu float64 `protobuf:"fixed64,7,opt,name=gain_e_per_adu,json=gainEPerAdu,proto3" json:"gain_e_per_adu,omitempty"`
+	// The centroid the scenario asks for, with its threshold (a fraction of each
+	// window's brightest pixel, in [0, 1)) and, for CENTROID_METHOD_WEIGHTED, the rms
+	// width in pixels of the Gaussian weight.
+	Centroid      CentroidMethod `protobuf:"varint,8,opt,name=centroid,proto3,enum=stillsky.v1.CentroidMethod" json:"centroid,omitempty"`
+	Threshold     float64        `protobuf:"fixed64,9,opt,name=threshold,proto3" json:"threshold,omitempty"`
+	WeightSigmaPx float64        `protobuf:"fixed64,10,opt,name=weight_sigma_px,json=weightSigmaPx,proto3" json:"weight_sigma_px,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *PixelGeometry) Reset() {
+	*x = PixelGeometry{}
+	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *PixelGeometry) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*PixelGeometry) ProtoMessage() {}
+
+func (x *PixelGeometry) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use PixelGeometry.ProtoReflect.Descriptor instead.
+func (*PixelGeometry) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{6}
+}
+
+func (x *PixelGeometry) GetPixelsPerSubaperture() uint32 {
+	if x != nil {
+		return x.PixelsPerSubaperture
+	}
+	return 0
+}
+
+func (x *PixelGeometry) GetWidth() uint32 {
+	if x != nil {
+		return x.Width
+	}
+	return 0
+}
+
+func (x *PixelGeometry) GetHeight() uint32 {
+	if x != nil {
+		return x.Height
+	}
+	return 0
+}
+
+func (x *PixelGeometry) GetPixelScaleRad() float64 {
+	if x != nil {
+		return x.PixelScaleRad
+	}
+	return 0
+}
+
+func (x *PixelGeometry) GetBiasAdu() float64 {
+	if x != nil {
+		return x.BiasAdu
+	}
+	return 0
+}
+
+func (x *PixelGeometry) GetSaturationAdu() uint32 {
+	if x != nil {
+		return x.SaturationAdu
+	}
+	return 0
+}
+
+func (x *PixelGeometry) GetGainEPerAdu() float64 {
+	if x != nil {
+		return x.GainEPerAdu
+	}
+	return 0
+}
+
+func (x *PixelGeometry) GetCentroid() CentroidMethod {
+	if x != nil {
+		return x.Centroid
+	}
+	return CentroidMethod_CENTROID_METHOD_UNSPECIFIED
+}
+
+func (x *PixelGeometry) GetThreshold() float64 {
+	if x != nil {
+		return x.Threshold
+	}
+	return 0
+}
+
+func (x *PixelGeometry) GetWeightSigmaPx() float64 {
+	if x != nil {
+		return x.WeightSigmaPx
+	}
+	return 0
+}
+
 // StreamFramesRequest asks for the frame stream.
 type StreamFramesRequest struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// Send each frame as this many chunks of whole subaperture rows, in readout order
-	// (0 or 1: whole frames).
+	// (0 or 1: whole frames). Slope and pixel frames are cut at the same rows.
 	Chunks        uint32 `protobuf:"varint,1,opt,name=chunks,proto3" json:"chunks,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
@@ -538,7 +734,7 @@ type StreamFramesRequest struct {
 
 func (x *StreamFramesRequest) Reset() {
 	*x = StreamFramesRequest{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -550,7 +746,7 @@ func (x *StreamFramesRequest) String() string {
 func (*StreamFramesRequest) ProtoMessage() {}
 
 func (x *StreamFramesRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -563,7 +759,7 @@ func (x *StreamFramesRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamFramesRequest.ProtoReflect.Descriptor instead.
 func (*StreamFramesRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{6}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{7}
 }
 
 func (x *StreamFramesRequest) GetChunks() uint32 {
@@ -573,7 +769,9 @@ func (x *StreamFramesRequest) GetChunks() uint32 {
 	return 0
 }
 
-// StreamFramesResponse is one slope frame, or one chunk of it.
+// StreamFramesResponse is one frame, or one chunk of it: slopes from a slope camera
+// (frame format 1), raw pixels from a pixel camera (frame format 2, Describe's
+// pixels present).
 type StreamFramesResponse struct {
 	state protoimpl.MessageState `protogen:"open.v1"`
 	// Frame number, increasing by one per frame from the start of the stream.
@@ -581,12 +779,13 @@ type StreamFramesResponse struct {
 	// Readout-end time of the frame (or of this chunk), CLOCK_MONOTONIC nanoseconds of
 	// the device's host.
 	ReadoutEndNs int64 `protobuf:"varint,2,opt,name=readout_end_ns,json=readoutEndNs,proto3" json:"readout_end_ns,omitempty"`
-	// Index of the first slope of this message within the frame.
+	// Index of the first slope of this message within the frame. In a pixel frame,
+	// the index of the first slope whose window lies in this chunk's rows.
 	Offset uint32 `protobuf:"varint,3,opt,name=offset,proto3" json:"offset,omitempty"`
 	// Index of this chunk and the number of chunks in the frame (0 and 1 for whole frames).
 	ChunkIndex uint32 `protobuf:"varint,4,opt,name=chunk_index,json=chunkIndex,proto3" json:"chunk_index,omitempty"`
 	ChunkCount uint32 `protobuf:"varint,5,opt,name=chunk_count,json=chunkCount,proto3" json:"chunk_count,omitempty"`
-	// Slopes in radians, interleaved x, y per valid subaperture.
+	// Slopes in radians, interleaved x, y per valid subaperture (empty in a pixel frame).
 	Slopes []float32 `protobuf:"fixed32,6,rep,packed,name=slopes,proto3" json:"slopes,omitempty"`
 	// Guide-star flux of the frame's subapertures in this message (the whole frame,
 	// or this chunk's rows), photo-electrons per frame summed over the valid
@@ -596,13 +795,21 @@ type StreamFramesResponse struct {
 	// faint star from a bright one. 0 when the device does not measure it (an older
 	// device, a replayed recording).
 	FluxElectrons float32 `protobuf:"fixed32,7,opt,name=flux_electrons,json=fluxElectrons,proto3" json:"flux_electrons,omitempty"`
+	// Pixel frames (format 2, fields 8 to 10): the detector rows [first_row,
+	// first_row + row_count) in readout order, row by row and x fastest, each pixel an
+	// unsigned 16-bit ADU value in two bytes, little-endian (len = 2 · row_count ·
+	// width). A chunk holds whole rows of subaperture windows (row_count a multiple of
+	// pixels_per_subaperture); a whole frame is one chunk of every row.
+	Pixels        []byte `protobuf:"bytes,8,opt,name=pixels,proto3" json:"pixels,omitempty"`
+	FirstRow      uint32 `protobuf:"varint,9,opt,name=first_row,json=firstRow,proto3" json:"first_row,omitempty"`
+	RowCount      uint32 `protobuf:"varint,10,opt,name=row_count,json=rowCount,proto3" json:"row_count,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
 
 func (x *StreamFramesResponse) Reset() {
 	*x = StreamFramesResponse{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[8]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -614,7 +821,7 @@ func (x *StreamFramesResponse) String() string {
 func (*StreamFramesResponse) ProtoMessage() {}
 
 func (x *StreamFramesResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[8]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -627,7 +834,7 @@ func (x *StreamFramesResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamFramesResponse.ProtoReflect.Descriptor instead.
 func (*StreamFramesResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{7}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{8}
 }
 
 func (x *StreamFramesResponse) GetFrameNumber() uint64 {
@@ -679,6 +886,27 @@ func (x *StreamFramesResponse) GetFluxElectrons() float32 {
 	return 0
 }
 
+func (x *StreamFramesResponse) GetPixels() []byte {
+	if x != nil {
+		return x.Pixels
+	}
+	return nil
+}
+
+func (x *StreamFramesResponse) GetFirstRow() uint32 {
+	if x != nil {
+		return x.FirstRow
+	}
+	return 0
+}
+
+func (x *StreamFramesResponse) GetRowCount() uint32 {
+	if x != nil {
+		return x.RowCount
+	}
+	return 0
+}
+
 var File_stillsky_v1_camera_proto protoreflect.FileDescriptor
 
 const file_stillsky_v1_camera_proto_rawDesc = "" +
@@ -692,7 +920,7 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"@\n" +
 	"\x11SetSourceResponse\x12+\n" +
 	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"\x1e\n" +
-	"\x1cCameraServiceDescribeRequest\"\xd4\x04\n" +
+	"\x1cCameraServiceDescribeRequest\"\x88\x05\n" +
 	"\x1dCameraServiceDescribeResponse\x12\"\n" +
 	"\fsubapertures\x18\x01 \x01(\rR\fsubapertures\x12-\n" +
 	"\x12valid_subapertures\x18\x02 \x03(\rR\x11validSubapertures\x12\x1f\n" +
@@ -713,9 +941,22 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\vobstruction\x18\r \x01(\x01R\vobstruction\x128\n" +
 	"\vsensor_kind\x18\x0e \x01(\x0e2\x17.stillsky.v1.SensorKindR\n" +
 	"sensorKind\x12%\n" +
-	"\x0estar_magnitude\x18\x0f \x01(\x01R\rstarMagnitude\"-\n" +
+	"\x0estar_magnitude\x18\x0f \x01(\x01R\rstarMagnitude\x122\n" +
+	"\x06pixels\x18\x10 \x01(\v2\x1a.stillsky.v1.PixelGeometryR\x06pixels\"\x81\x03\n" +
+	"\rPixelGeometry\x124\n" +
+	"\x16pixels_per_subaperture\x18\x01 \x01(\rR\x14pixelsPerSubaperture\x12\x14\n" +
+	"\x05width\x18\x02 \x01(\rR\x05width\x12\x16\n" +
+	"\x06height\x18\x03 \x01(\rR\x06height\x12&\n" +
+	"\x0fpixel_scale_rad\x18\x04 \x01(\x01R\rpixelScaleRad\x12\x19\n" +
+	"\bbias_adu\x18\x05 \x01(\x01R\abiasAdu\x12%\n" +
+	"\x0esaturation_adu\x18\x06 \x01(\rR\rsaturationAdu\x12#\n" +
+	"\x0egain_e_per_adu\x18\a \x01(\x01R\vgainEPerAdu\x127\n" +
+	"\bcentroid\x18\b \x01(\x0e2\x1b.stillsky.v1.CentroidMethodR\bcentroid\x12\x1c\n" +
+	"\tthreshold\x18\t \x01(\x01R\tthreshold\x12&\n" +
+	"\x0fweight_sigma_px\x18\n" +
+	" \x01(\x01R\rweightSigmaPx\"-\n" +
 	"\x13StreamFramesRequest\x12\x16\n" +
-	"\x06chunks\x18\x01 \x01(\rR\x06chunks\"\xf8\x01\n" +
+	"\x06chunks\x18\x01 \x01(\rR\x06chunks\"\xca\x02\n" +
 	"\x14StreamFramesResponse\x12!\n" +
 	"\fframe_number\x18\x01 \x01(\x04R\vframeNumber\x12$\n" +
 	"\x0ereadout_end_ns\x18\x02 \x01(\x03R\freadoutEndNs\x12\x16\n" +
@@ -725,12 +966,20 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\vchunk_count\x18\x05 \x01(\rR\n" +
 	"chunkCount\x12\x16\n" +
 	"\x06slopes\x18\x06 \x03(\x02R\x06slopes\x12%\n" +
-	"\x0eflux_electrons\x18\a \x01(\x02R\rfluxElectrons*H\n" +
+	"\x0eflux_electrons\x18\a \x01(\x02R\rfluxElectrons\x12\x16\n" +
+	"\x06pixels\x18\b \x01(\fR\x06pixels\x12\x1b\n" +
+	"\tfirst_row\x18\t \x01(\rR\bfirstRow\x12\x1b\n" +
+	"\trow_count\x18\n" +
+	" \x01(\rR\browCount*H\n" +
 	"\x06Source\x12\x16\n" +
 	"\x12SOURCE_UNSPECIFIED\x10\x00\x12\x0e\n" +
 	"\n" +
 	"SOURCE_SKY\x10\x01\x12\x16\n" +
-	"\x12SOURCE_CALIBRATION\x10\x02*d\n" +
+	"\x12SOURCE_CALIBRATION\x10\x02*h\n" +
+	"\x0eCentroidMethod\x12\x1f\n" +
+	"\x1bCENTROID_METHOD_UNSPECIFIED\x10\x00\x12\x17\n" +
+	"\x13CENTROID_METHOD_COG\x10\x01\x12\x1c\n" +
+	"\x18CENTROID_METHOD_WEIGHTED\x10\x02*d\n" +
 	"\n" +
 	"SensorKind\x12\x1b\n" +
 	"\x17SENSOR_KIND_UNSPECIFIED\x10\x00\x12\x1e\n" +
@@ -754,37 +1003,41 @@ func file_stillsky_v1_camera_proto_rawDescGZIP() []byte {
 	return file_stillsky_v1_camera_proto_rawDescData
 }
 
-var file_stillsky_v1_camera_proto_enumTypes = make([]protoimpl.EnumInfo, 2)
-var file_stillsky_v1_camera_proto_msgTypes = make([]protoimpl.MessageInfo, 8)
+var file_stillsky_v1_camera_proto_enumTypes = make([]protoimpl.EnumInfo, 3)
+var file_stillsky_v1_camera_proto_msgTypes = make([]protoimpl.MessageInfo, 9)
 var file_stillsky_v1_camera_proto_goTypes = []any{
 	(Source)(0),                           // 0: stillsky.v1.Source
-	(SensorKind)(0),                       // 1: stillsky.v1.SensorKind
-	(*SetAcquisitionRequest)(nil),         // 2: stillsky.v1.SetAcquisitionRequest
-	(*SetAcquisitionResponse)(nil),        // 3: stillsky.v1.SetAcquisitionResponse
-	(*SetSourceRequest)(nil),              // 4: stillsky.v1.SetSourceRequest
-	(*SetSourceResponse)(nil),             // 5: stillsky.v1.SetSourceResponse
-	(*CameraServiceDescribeRequest)(nil),  // 6: stillsky.v1.CameraServiceDescribeRequest
-	(*CameraServiceDescribeResponse)(nil), // 7: stillsky.v1.CameraServiceDescribeResponse
-	(*StreamFramesRequest)(nil),           // 8: stillsky.v1.StreamFramesRequest
-	(*StreamFramesResponse)(nil),          // 9: stillsky.v1.StreamFramesResponse
+	(CentroidMethod)(0),                   // 1: stillsky.v1.CentroidMethod
+	(SensorKind)(0),                       // 2: stillsky.v1.SensorKind
+	(*SetAcquisitionRequest)(nil),         // 3: stillsky.v1.SetAcquisitionRequest
+	(*SetAcquisitionResponse)(nil),        // 4: stillsky.v1.SetAcquisitionResponse
+	(*SetSourceRequest)(nil),              // 5: stillsky.v1.SetSourceRequest
+	(*SetSourceResponse)(nil),             // 6: stillsky.v1.SetSourceResponse
+	(*CameraServiceDescribeRequest)(nil),  // 7: stillsky.v1.CameraServiceDescribeRequest
+	(*CameraServiceDescribeResponse)(nil), // 8: stillsky.v1.CameraServiceDescribeResponse
+	(*PixelGeometry)(nil),                 // 9: stillsky.v1.PixelGeometry
+	(*StreamFramesRequest)(nil),           // 10: stillsky.v1.StreamFramesRequest
+	(*StreamFramesResponse)(nil),          // 11: stillsky.v1.StreamFramesResponse
 }
 var file_stillsky_v1_camera_proto_depIdxs = []int32{
-	0, // 0: stillsky.v1.SetSourceRequest.source:type_name -> stillsky.v1.Source
-	0, // 1: stillsky.v1.SetSourceResponse.source:type_name -> stillsky.v1.Source
-	1, // 2: stillsky.v1.CameraServiceDescribeResponse.sensor_kind:type_name -> stillsky.v1.SensorKind
-	6, // 3: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
-	8, // 4: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
-	4, // 5: stillsky.v1.CameraService.SetSource:input_type -> stillsky.v1.SetSourceRequest
-	2, // 6: stillsky.v1.CameraService.SetAcquisition:input_type -> stillsky.v1.SetAcquisitionRequest
-	7, // 7: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
-	9, // 8: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
-	5, // 9: stillsky.v1.CameraService.SetSource:output_type -> stillsky.v1.SetSourceResponse
-	3, // 10: stillsky.v1.CameraService.SetAcquisition:output_type -> stillsky.v1.SetAcquisitionResponse
-	7, // [7:11] is the sub-list for method output_type
-	3, // [3:7] is the sub-list for method input_type
-	3, // [3:3] is the sub-list for extension type_name
-	3, // [3:3] is the sub-list for extension extendee
-	0, // [0:3] is the sub-list for field type_name
+	0,  // 0: stillsky.v1.SetSourceRequest.source:type_name -> stillsky.v1.Source
+	0,  // 1: stillsky.v1.SetSourceResponse.source:type_name -> stillsky.v1.Source
+	2,  // 2: stillsky.v1.CameraServiceDescribeResponse.sensor_kind:type_name -> stillsky.v1.SensorKind
+	9,  // 3: stillsky.v1.CameraServiceDescribeResponse.pixels:type_name -> stillsky.v1.PixelGeometry
+	1,  // 4: stillsky.v1.PixelGeometry.centroid:type_name -> stillsky.v1.CentroidMethod
+	7,  // 5: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
+	10, // 6: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
+	5,  // 7: stillsky.v1.CameraService.SetSource:input_type -> stillsky.v1.SetSourceRequest
+	3,  // 8: stillsky.v1.CameraService.SetAcquisition:input_type -> stillsky.v1.SetAcquisitionRequest
+	8,  // 9: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
+	11, // 10: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
+	6,  // 11: stillsky.v1.CameraService.SetSource:output_type -> stillsky.v1.SetSourceResponse
+	4,  // 12: stillsky.v1.CameraService.SetAcquisition:output_type -> stillsky.v1.SetAcquisitionResponse
+	9,  // [9:13] is the sub-list for method output_type
+	5,  // [5:9] is the sub-list for method input_type
+	5,  // [5:5] is the sub-list for extension type_name
+	5,  // [5:5] is the sub-list for extension extendee
+	0,  // [0:5] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_camera_proto_init() }
@@ -797,8 +1050,8 @@ func file_stillsky_v1_camera_proto_init() {
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_camera_proto_rawDesc), len(file_stillsky_v1_camera_proto_rawDesc)),
-			NumEnums:      2,
-			NumMessages:   8,
+			NumEnums:      3,
+			NumMessages:   9,
 			NumExtensions: 0,
 			NumServices:   1,
 		},
