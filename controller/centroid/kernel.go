@@ -20,12 +20,20 @@ import (
 //     peak > HotRatio × the largest of k's four neighbours;
 //  3. thr = Threshold·peak; where thr > 0, v = max(v − thr, 0); then v
 //     times the window weight (WCoG);
-//  4. per column x: S[x] = Σ_y v (y = 0, 1, …) and Y[x] = Σ_y float32(v·ys[y]),
-//     starting from 0; X[x] = float32(S[x]·xs[x]);
-//  5. s, sx, sy are S, X, Y folded in halves (fold), so 8 columns sum as
-//     ((c0+c4)+(c2+c6)) + ((c1+c5)+(c3+c7)), the order of a 256-bit
-//     register's horizontal sum;
+//  4. rows y and p−1−y (y < h = ⌊p/2⌋) pair up, xs[p−1−y] being −xs[y]:
+//     their sum a_y = v_y + v_{p−1−y} and their moment
+//     d_y = float32(xs[y]·(v_y − v_{p−1−y})), per column; S = pairs of
+//     a_0, …, a_{h−1} (then the middle row when p is odd), D = pairs of
+//     d_{h−1}, …, d_0, X = float32(S·xs) per column;
+//  5. s, sx, sy are S, X, D summed in adjacent pairs across the columns (pairs),
+//     so 8 columns sum as ((c0+c1)+(c2+c3)) + ((c4+c5)+(c6+c7)), the order of
+//     a 256-bit register's horizontal add;
 //  6. s <= 0: a dark window, slopes 0; else sx/s − ref and sy/s − ref.
+//
+// "Pairs of" a list is its sum in adjacent pairs, level by level, an odd last
+// element carried up (pairs and pairRows); for 8 columns and 4 row pairs it
+// is the tree the assembly's registers add in (addition commutes, so the
+// reversed order of D gives the same bits there).
 type kernel struct {
 	name   string
 	pixels int // window size the kernel handles; 0 for any
@@ -89,17 +97,35 @@ func pickKernel(name string, pixels int) (kernel, error) {
 // Kernel returns the name of the window loop in use: "plain" or "avx2".
 func (c *Calibration) Kernel() string { return c.kern.name }
 
-// fold sums a in halves: a[i] += a[i+h] with h = ⌈n/2⌉ until one is left.
-// It overwrites a.
-func fold(a []float32) float32 {
-	for n := len(a); n > 1; {
-		h := (n + 1) / 2
-		for i := 0; i < n-h; i++ {
-			a[i] += a[i+h]
+// pairs sums a in adjacent pairs, level by level: a[i] = a[2i] + a[2i+1],
+// an odd last element carried up, until one is left. It overwrites a.
+func pairs(a []float32) float32 {
+	for n := len(a); n > 1; n = (n + 1) / 2 {
+		for i := range n / 2 {
+			a[i] = a[2*i] + a[2*i+1]
 		}
-		n = h
+		if n%2 == 1 {
+			a[n/2] = a[n-1]
+		}
 	}
 	return a[0]
+}
+
+// pairRows is pairs on the n rows of p columns that start at w: column by
+// column, in place; it returns the first row, which holds the sums.
+func pairRows(w []float32, p, n int) []float32 {
+	for ; n > 1; n = (n + 1) / 2 {
+		for i := range n / 2 {
+			dst, a, b := w[i*p:i*p+p], w[2*i*p:2*i*p+p], w[(2*i+1)*p:(2*i+1)*p+p]
+			for j := range dst {
+				dst[j] = a[j] + b[j]
+			}
+		}
+		if n%2 == 1 {
+			copy(w[n/2*p:n/2*p+p], w[(n-1)*p:n*p])
+		}
+	}
+	return w[:p]
 }
 
 // windowsGo is the pure-Go kernel, for any window size; work (Pixels²) holds
@@ -107,7 +133,7 @@ func fold(a []float32) float32 {
 func windowsGo(c *Calibration, frame []uint16, base int, idx []int32, slopes, work []float32, f *Flags) {
 	p, side := c.layout.Pixels, c.layout.Side()
 	xs := c.xs[:p]
-	var sumS, sumX, sumY [64]float32
+	var sumX [64]float32
 	for _, i := range idx {
 		st := int(c.start[i]) - base
 		blk := c.cal[2*p*p*int(i) : 2*p*p*(int(i)+1)]
@@ -140,42 +166,35 @@ func windowsGo(c *Calibration, frame []uint16, base int, idx []int32, slopes, wo
 			f.Hot++
 		}
 		thr := float32(c.threshold) * peak
-		s, x, yy := sumS[:p], sumX[:p], sumY[:p]
-		clear(s)
-		clear(yy)
-		for y := range p {
-			wk := work[y*p : y*p+p]
-			wt := c.weight[y*p : y*p+p]
-			ys := xs[y]
-			s, yy := s[:len(wk)], yy[:len(wk)]
-			switch {
-			case c.method == CoG && thr > 0:
-				for j, v := range wk {
-					v = max(v-thr, 0)
-					s[j] += v
-					yy[j] += float32(v * ys)
-				}
-			case c.method == CoG:
-				for j, v := range wk {
-					s[j] += v
-					yy[j] += float32(v * ys)
-				}
-			default:
-				wt = wt[:len(wk)]
-				for j, v := range wk {
-					if thr > 0 {
-						v = max(v-thr, 0)
-					}
-					v *= wt[j]
-					s[j] += v
-					yy[j] += float32(v * ys)
-				}
+		switch {
+		case c.method == WCoG && thr > 0:
+			for j, v := range work {
+				work[j] = max(v-thr, 0) * c.weight[j]
+			}
+		case c.method == WCoG:
+			for j, v := range work {
+				work[j] = v * c.weight[j]
+			}
+		case thr > 0:
+			for j, v := range work {
+				work[j] = max(v-thr, 0)
 			}
 		}
-		for j := range x {
-			x[j] = float32(s[j] * xs[j])
+		h := p / 2
+		for y := range h {
+			a, b := work[y*p:y*p+p], work[(p-1-y)*p:(p-y)*p]
+			ys := xs[y]
+			for j := range a {
+				a[j], b[j] = a[j]+b[j], float32(ys*(a[j]-b[j]))
+			}
 		}
-		ss, sx, sy := fold(s), fold(x), fold(yy)
+		sum := pairRows(work, p, h+p%2)
+		mom := pairRows(work[(p-h)*p:], p, h)
+		x := sumX[:p]
+		for j := range x {
+			x[j] = float32(sum[j] * xs[j])
+		}
+		sx, sy, ss := pairs(x), pairs(mom), pairs(sum)
 		if !(ss > 0) {
 			f.Dark++
 			slopes[2*i], slopes[2*i+1] = 0, 0

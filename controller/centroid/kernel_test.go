@@ -395,8 +395,8 @@ func TestParams8Layout(t *testing.T) {
 	}
 }
 
-// fold sums in halves, the order of a register's horizontal sum.
-func TestFold(t *testing.T) {
+// pairs sums in adjacent pairs, the order of a register's horizontal add.
+func TestPairs(t *testing.T) {
 	for _, tc := range []struct {
 		in   []float32
 		want float32
@@ -404,14 +404,20 @@ func TestFold(t *testing.T) {
 		{[]float32{1}, 1},
 		{[]float32{1, 2, 3}, 6},
 		{[]float32{1, 2, 3, 4, 5, 6, 7, 8}, 36},
-		// (1e8+0) + (−1e8+0) and (1+0) + (1+0): exact, where a running sum
-		// gives 1 (1e8+1 rounds to 1e8 in float32).
-		{[]float32{1e8, 1, -1e8, 1, 0, 0, 0, 0}, 2},
+		// (1e8+(−1e8)) + (1+1): exact, where a running sum gives 1
+		// (1e8+1 rounds to 1e8 in float32).
+		{[]float32{1e8, -1e8, 1, 1, 0, 0, 0, 0}, 2},
 		// Here each 1 meets a 1e8 first and is lost.
-		{[]float32{1e8, 1, 0, 0, 1, -1e8, 0, 0}, 0},
+		{[]float32{1e8, 1, -1e8, 1, 0, 0, 0, 0}, 0},
 	} {
-		if got := fold(slices.Clone(tc.in)); got != tc.want {
-			t.Errorf("fold(%v) = %v, want %v", tc.in, got, tc.want)
+		if got := pairs(slices.Clone(tc.in)); got != tc.want {
+			t.Errorf("pairs(%v) = %v, want %v", tc.in, got, tc.want)
 		}
+	}
+	// pairRows adds column by column in the same order: column 0 is the
+	// last case above (a running sum would give 1).
+	w := []float32{1e8, 1, 1, 2, -1e8, 3, 1, 4}
+	if got := pairRows(w, 2, 4); !slices.Equal(got, []float32{0, 10}) {
+		t.Errorf("pairRows = %v, want [0 10]", got)
 	}
 }

@@ -15,63 +15,57 @@
 // 3·stride; SI next entry of idx; CX windows left; R8 par; R9 cal; R10
 // start; R11 ref; R12 slopes; AX window index i; DX row pointer, then
 // scratch; R13 the window's 512-byte calibration block, then scratch.
-// Y8 peak; Y9 largest raw value; Y10 column sums S; Y11 column sums Y;
-// Y12 threshold; Y13 clip floor; Y14, Y15 scratch.
+// Y8 peak; Y9 largest raw value; Y10 smallest raw value, then the column
+// sums S; Y11 the column moments D; Y12 threshold; Y13 clip floor; Y14, Y15
+// scratch.
 //
-// Stack: 0–255 the calibrated window (hot-pixel test only); 256, 264, 272,
-// 280 the counters saturated, dark, dead rows, hot; 288 a spill of CX.
+// Stack: 0–479 the calibrated window for the hot-pixel test, ten rows of 12
+// floats (48 bytes): row y at 48·(y+1), its pixels in the first 8 floats; the
+// rows −1 and 8 and the last 4 floats of every row stay 0 from the start, so
+// the four neighbours of any pixel can be read without a test at the edges
+// (an outside neighbour reads 0, which is where the largest one starts).
+// 480, 488, 496, 504: the counters saturated, dark, dead rows, hot.
 
 // P1ROW widens and calibrates one raw row at mem into v; g is the byte
 // offset of its gains in the block (offsets follow at g+32).
 #define P1ROW(mem, g, v) \
 	VPMOVZXWD mem, Y14 \
-	VPTEST Y14, Y14 \
-	JNZ 2(PC) \
-	INCQ 272(SP) \
+	VPMINUD Y14, Y10, Y10 \
 	VPMAXSD Y14, Y9, Y9 \
 	VCVTDQ2PS Y14, v \
 	VMULPS g(R13), v, v \
 	VSUBPS g+32(R13), v, v \
 	VMAXPS v, Y8, Y8
 
-// P2COG clips row v at the threshold and adds it to the column sums; yo is
-// the offset of ys[y] in par.
-#define P2COG(v, yo) \
+// CLIP applies the threshold to row v.
+#define CLIP(v) \
 	VSUBPS Y12, v, v \
-	VMAXPS Y13, v, v \
-	VADDPS v, Y10, Y10 \
-	VMULPS yo(R8), v, v \
-	VADDPS v, Y11, Y11
+	VMAXPS Y13, v, v
 
-// P2WCOG is P2COG with the window weight row at wo applied after the clip.
-#define P2WCOG(v, wo, yo) \
-	VSUBPS Y12, v, v \
-	VMAXPS Y13, v, v \
-	VMULPS wo(R8), v, v \
-	VADDPS v, Y10, Y10 \
-	VMULPS yo(R8), v, v \
-	VADDPS v, Y11, Y11
+// DEADROW counts a row as dead if its 16 bytes, at lo and hi = lo+8, are
+// all zero.
+#define DEADROW(lo, hi) \
+	MOVQ lo, R13 \
+	ORQ  hi, R13 \
+	JNZ  2(PC) \
+	INCQ 496(SP)
 
-// HSUM folds the 8 lanes of y in halves into lane 0 of x (the low half of
-// y), in fold's order; t is scratch.
-#define HSUM(y, x, t) \
-	VEXTRACTF128 $1, y, t \
-	VADDPS t, x, x \
-	VPERMILPS $0x4e, x, t \
-	VADDPS t, x, x \
-	VPERMILPS $0xb1, x, t \
-	VADDSS t, x, x
+// PAIR sets a = a + b (the row sum) and b = ys·(a − b) (the row moment,
+// ys at yo in par), for rows y and 7−y.
+#define PAIR(a, b, yo) \
+	VSUBPS b, a, Y14 \
+	VADDPS b, a, a \
+	VMULPS yo(R8), Y14, b
 
-// PEAKROW jumps to hotfound with R13 = 8·y and DX the lanes of row v equal
-// to the peak, if any.
-#define PEAKROW(v, y8) \
-	MOVQ $y8, R13 \
+// PEAKMASK shifts the peak mask in R13 up by a row and adds row v's lanes
+// equal to the peak.
+#define PEAKMASK(v) \
+	SHLQ $8, R13 \
 	VCMPPS $0, Y8, v, Y15 \
 	VMOVMSKPS Y15, DX \
-	TESTL DX, DX \
-	JNZ hotfound
+	ORQ  DX, R13
 
-TEXT ·windows8AVX2(SB), NOSPLIT, $296-88
+TEXT ·windows8AVX2(SB), NOSPLIT, $512-88
 	MOVQ frame+0(FP), DI
 	MOVQ base+8(FP), AX
 	SHLQ $1, AX
@@ -85,10 +79,26 @@ TEXT ·windows8AVX2(SB), NOSPLIT, $296-88
 	MOVQ start+56(FP), R10
 	MOVQ ref+64(FP), R11
 	MOVQ slopes+72(FP), R12
-	MOVQ $0, 256(SP)
-	MOVQ $0, 264(SP)
-	MOVQ $0, 272(SP)
-	MOVQ $0, 280(SP)
+	MOVQ $0, 480(SP)
+	MOVQ $0, 488(SP)
+	MOVQ $0, 496(SP)
+	MOVQ $0, 504(SP)
+	VXORPS Y15, Y15, Y15
+	VMOVUPS Y15, 0(SP)
+	VMOVUPS Y15, 32(SP)
+	VMOVUPS Y15, 64(SP)
+	VMOVUPS Y15, 96(SP)
+	VMOVUPS Y15, 128(SP)
+	VMOVUPS Y15, 160(SP)
+	VMOVUPS Y15, 192(SP)
+	VMOVUPS Y15, 224(SP)
+	VMOVUPS Y15, 256(SP)
+	VMOVUPS Y15, 288(SP)
+	VMOVUPS Y15, 320(SP)
+	VMOVUPS Y15, 352(SP)
+	VMOVUPS Y15, 384(SP)
+	VMOVUPS Y15, 416(SP)
+	VMOVUPS Y15, 448(SP)
 	TESTQ CX, CX
 	JZ   done
 
@@ -101,6 +111,7 @@ window:
 	ADDQ R9, R13
 	VXORPS Y8, Y8, Y8
 	VPXOR Y9, Y9, Y9
+	VPCMPEQD Y10, Y10, Y10
 	P1ROW((DX), 0, Y0)
 	P1ROW((DX)(BX*1), 64, Y1)
 	P1ROW((DX)(BX*2), 128, Y2)
@@ -111,11 +122,19 @@ window:
 	P1ROW((DX)(BX*2), 384, Y6)
 	P1ROW((DX)(R14*1), 448, Y7)
 
+	// A raw 0 somewhere: count the rows that are 0 throughout (rare, so out
+	// of line).
+	VPXOR Y14, Y14, Y14
+	VPCMPEQD Y14, Y10, Y14
+	VPTEST Y14, Y14
+	JNZ  deadrows
+
+saturation:
 	// Saturated: a raw value above saturation − 1.
 	VPCMPGTD 544(R8), Y9, Y14
 	VPTEST Y14, Y14
 	JZ   2(PC)
-	INCQ 256(SP)
+	INCQ 480(SP)
 
 	// The peak into every lane of Y8 (max is exact: any order gives it).
 	VPERM2F128 $1, Y8, Y8, Y15
@@ -133,50 +152,42 @@ window:
 	VMOVMSKPS Y15, DX
 	TESTL DX, DX
 	JZ   threshold
-	VMOVUPS Y0, 0(SP)
-	VMOVUPS Y1, 32(SP)
-	VMOVUPS Y2, 64(SP)
-	VMOVUPS Y3, 96(SP)
-	VMOVUPS Y4, 128(SP)
-	VMOVUPS Y5, 160(SP)
-	VMOVUPS Y6, 192(SP)
-	VMOVUPS Y7, 224(SP)
-	PEAKROW(Y0, 0)
-	PEAKROW(Y1, 8)
-	PEAKROW(Y2, 16)
-	PEAKROW(Y3, 24)
-	PEAKROW(Y4, 32)
-	PEAKROW(Y5, 40)
-	PEAKROW(Y6, 48)
-	PEAKROW(Y7, 56)
-
-hotfound:
-	// k = R13 + x, the first pixel at the peak; n = the largest of its
-	// neighbours (0 to start with); hot if peak > HotRatio·n.
-	BSFL DX, DX
-	MOVQ CX, 288(SP)
-	LEAQ (R13)(DX*1), CX
-	LEAQ (SP)(CX*4), CX
+	VMOVUPS Y0, 48(SP)
+	VMOVUPS Y1, 96(SP)
+	VMOVUPS Y2, 144(SP)
+	VMOVUPS Y3, 192(SP)
+	VMOVUPS Y4, 240(SP)
+	VMOVUPS Y5, 288(SP)
+	VMOVUPS Y6, 336(SP)
+	VMOVUPS Y7, 384(SP)
+	// R13 bit 8y+x: pixel (x, y) is at the peak; its lowest bit is k, the
+	// first in row-major order (no branch on where the spot is).
+	VCMPPS $0, Y8, Y7, Y15
+	VMOVMSKPS Y15, R13
+	PEAKMASK(Y6)
+	PEAKMASK(Y5)
+	PEAKMASK(Y4)
+	PEAKMASK(Y3)
+	PEAKMASK(Y2)
+	PEAKMASK(Y1)
+	PEAKMASK(Y0)
+	// n = the largest of k's four neighbours, at 12y+x of the padded rows
+	// (k + 4y = 12y + x); hot if peak > HotRatio·n.
+	BSFQ R13, R13
+	MOVQ R13, DX
+	SHRQ $3, DX
+	LEAQ (R13)(DX*4), R13
 	VXORPS X14, X14, X14
-	TESTQ DX, DX
-	JZ   2(PC)
-	VMAXSS -4(CX), X14, X14
-	CMPQ DX, $7
-	JEQ  2(PC)
-	VMAXSS 4(CX), X14, X14
-	TESTQ R13, R13
-	JZ   2(PC)
-	VMAXSS -32(CX), X14, X14
-	CMPQ R13, $56
-	JEQ  2(PC)
-	VMAXSS 32(CX), X14, X14
-	MOVQ 288(SP), CX
+	VMAXSS 44(SP)(R13*4), X14, X14
+	VMAXSS 52(SP)(R13*4), X14, X14
+	VMAXSS 0(SP)(R13*4), X14, X14
+	VMAXSS 96(SP)(R13*4), X14, X14
 	VMULSS 640(R8), X14, X14
 	VCMPSS $0x0e, X14, X8, X15
 	VMOVMSKPS X15, DX
 	TESTL $1, DX
 	JZ   2(PC)
-	INCQ 280(SP)
+	INCQ 504(SP)
 
 threshold:
 	// thr = Threshold·peak; clipping (thr > 0) subtracts thr and floors at
@@ -186,66 +197,94 @@ threshold:
 	VCMPPS $0x0e, Y14, Y12, Y15
 	VANDPS Y15, Y12, Y12
 	VANDNPS 608(R8), Y15, Y13
-	VXORPS Y10, Y10, Y10
-	VXORPS Y11, Y11, Y11
+	CLIP(Y0)
+	CLIP(Y1)
+	CLIP(Y2)
+	CLIP(Y3)
+	CLIP(Y4)
+	CLIP(Y5)
+	CLIP(Y6)
+	CLIP(Y7)
 	CMPL 648(R8), $0
-	JNE  wcog
-	P2COG(Y0, 32)
-	P2COG(Y1, 64)
-	P2COG(Y2, 96)
-	P2COG(Y3, 128)
-	P2COG(Y4, 160)
-	P2COG(Y5, 192)
-	P2COG(Y6, 224)
-	P2COG(Y7, 256)
-	JMP  sums
+	JEQ  moments
+	VMULPS 288(R8), Y0, Y0
+	VMULPS 320(R8), Y1, Y1
+	VMULPS 352(R8), Y2, Y2
+	VMULPS 384(R8), Y3, Y3
+	VMULPS 416(R8), Y4, Y4
+	VMULPS 448(R8), Y5, Y5
+	VMULPS 480(R8), Y6, Y6
+	VMULPS 512(R8), Y7, Y7
 
-wcog:
-	P2WCOG(Y0, 288, 32)
-	P2WCOG(Y1, 320, 64)
-	P2WCOG(Y2, 352, 96)
-	P2WCOG(Y3, 384, 128)
-	P2WCOG(Y4, 416, 160)
-	P2WCOG(Y5, 448, 192)
-	P2WCOG(Y6, 480, 224)
-	P2WCOG(Y7, 512, 256)
-
-sums:
+moments:
+	// Row pairs: Y0–Y3 the sums a_0..a_3, Y7–Y4 the moments d_0..d_3.
+	PAIR(Y0, Y7, 32)
+	PAIR(Y1, Y6, 64)
+	PAIR(Y2, Y5, 96)
+	PAIR(Y3, Y4, 128)
+	// S = (a0+a1) + (a2+a3), D = (d3+d2) + (d1+d0).
+	VADDPS Y1, Y0, Y0
+	VADDPS Y3, Y2, Y2
+	VADDPS Y2, Y0, Y10
+	VADDPS Y5, Y4, Y4
+	VADDPS Y7, Y6, Y6
+	VADDPS Y6, Y4, Y11
+	// Across the columns in adjacent pairs, with X = S·xs:
+	// Y14 = [X01 X23 D01 D23 | X45 X67 D45 D67], Y13 = [S01 S23 S01 S23 | …],
+	// Y14 = [X0123 D0123 S0123 S0123 | X4567 …], X14 = [sx sy s s].
 	VMULPS 0(R8), Y10, Y15
-	HSUM(Y10, X10, X14)
-	HSUM(Y15, X15, X14)
-	HSUM(Y11, X11, X14)
-	VXORPS X14, X14, X14
-	VCMPSS $0x0e, X14, X10, X13
+	VHADDPS Y11, Y15, Y14
+	VHADDPS Y10, Y10, Y13
+	VHADDPS Y13, Y14, Y14
+	VEXTRACTF128 $1, Y14, X13
+	VADDPS X13, X14, X14
+	VPERMILPS $0xaa, X14, X10
+	VXORPS X13, X13, X13
+	VCMPSS $0x0e, X13, X10, X13
 	VMOVMSKPS X13, DX
 	TESTL $1, DX
 	JZ   dark
-	VDIVSS X10, X15, X15
-	VDIVSS X10, X11, X11
-	VSUBSS (R11)(AX*8), X15, X15
-	VSUBSS 4(R11)(AX*8), X11, X11
-	VMOVSS X15, (R12)(AX*8)
-	VMOVSS X11, 4(R12)(AX*8)
+	// [sx/s − rx, sy/s − ry] into slopes[2i:2i+2].
+	VDIVPS X10, X14, X14
+	VMOVSD (R11)(AX*8), X13
+	VSUBPS X13, X14, X14
+	VMOVSD X14, (R12)(AX*8)
 	JMP  next
 
 dark:
-	INCQ 264(SP)
+	INCQ 488(SP)
 	MOVQ $0, (R12)(AX*8)
 
 next:
 	ADDQ $4, SI
 	DECQ CX
 	JNZ  window
+	JMP  done
+
+deadrows:
+	// Window i's rows again from start[i], R13 as scratch.
+	MOVLQSX (R10)(AX*4), DX
+	LEAQ (DI)(DX*2), DX
+	DEADROW((DX), 8(DX))
+	DEADROW((DX)(BX*1), 8(DX)(BX*1))
+	DEADROW((DX)(BX*2), 8(DX)(BX*2))
+	DEADROW((DX)(R14*1), 8(DX)(R14*1))
+	LEAQ (DX)(BX*4), DX
+	DEADROW((DX), 8(DX))
+	DEADROW((DX)(BX*1), 8(DX)(BX*1))
+	DEADROW((DX)(BX*2), 8(DX)(BX*2))
+	DEADROW((DX)(R14*1), 8(DX)(R14*1))
+	JMP  saturation
 
 done:
 	MOVQ flags+80(FP), DX
-	MOVQ 256(SP), AX
+	MOVQ 480(SP), AX
 	MOVQ AX, 0(DX)
-	MOVQ 264(SP), AX
+	MOVQ 488(SP), AX
 	MOVQ AX, 8(DX)
-	MOVQ 272(SP), AX
+	MOVQ 496(SP), AX
 	MOVQ AX, 16(DX)
-	MOVQ 280(SP), AX
+	MOVQ 504(SP), AX
 	MOVQ AX, 24(DX)
 	VZEROUPPER
 	RET
