@@ -17,6 +17,9 @@ const (
 	refusedNonFinite // a NaN or an Inf
 	refusedDuplicate // the number of the previous frame again
 	refusedOrder     // a number below the previous frame's, or a chunk of a frame whose start never came
+	// Pixel frames (pixels.go):
+	refusedPixelCount  // a chunk's pixel bytes are not 2 × its rows × the detector's width
+	refusedChunkLayout // rows not continuing the last chunk, not whole windows, past the detector, or a frame ending short
 )
 
 // refused reports whether v refuses its message.
@@ -54,6 +57,9 @@ type assembler struct {
 	// reference for duplicates, order and gaps. frame is the number of the
 	// frame being assembled.
 	last, frame uint64
+	// px, for a pixel camera, centroids its chunks into slopes; nil for a
+	// slope camera.
+	px *pixelFrames
 }
 
 func newAssembler(slopes int) assembler { return assembler{slopes: make([]float32, slopes)} }
@@ -92,6 +98,9 @@ func (a *assembler) add(f *stillskyv1.StreamFramesResponse) assembly {
 		a.frame = num
 		r.verdict = refusedOrder
 		return r
+	}
+	if a.px != nil {
+		return a.addPixels(f, r, num)
 	}
 	s := f.GetSlopes()
 	off := int(f.GetOffset())

@@ -117,6 +117,8 @@ type geometry struct {
 	positions       []float64
 	across          int
 	pitch, coupling float64
+	// pixels is a pixel camera's geometry, nil for a slope camera.
+	pixels *pixelGeometry
 }
 
 // Daemon is the loop process: device links, the real-time goroutine, the Control

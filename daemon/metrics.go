@@ -23,6 +23,10 @@ const (
 	rejectNonFinite  = "nonfinite"
 	rejectDuplicate  = "duplicate"
 	rejectOutOfOrder = "out_of_order"
+	// Pixel frames: a chunk of the wrong pixel count, or chunks off the
+	// detector's rows of windows.
+	rejectPixelCount  = "pixel_count"
+	rejectChunkLayout = "chunk_layout"
 )
 
 // Interlock reasons (label values of stillsky_interlock_trips_total).
@@ -41,6 +45,7 @@ type metrics struct {
 
 	frames, dropped, commands                 prometheus.Counter
 	rejLength, rejNonFinite, rejDup, rejOrder prometheus.Counter
+	rejPixelCount, rejChunkLayout             prometheus.Counter
 	compute, rtc, endToEnd                    prometheus.Observer
 	framePeriod, slopeRMS, wavefrontRMS       prometheus.Gauge
 	strehl, wavelength, saturated, actuators  prometheus.Gauge
@@ -83,6 +88,8 @@ func newMetrics() *metrics {
 	m.rejNonFinite = rejected.WithLabelValues(rejectNonFinite)
 	m.rejDup = rejected.WithLabelValues(rejectDuplicate)
 	m.rejOrder = rejected.WithLabelValues(rejectOutOfOrder)
+	m.rejPixelCount = rejected.WithLabelValues(rejectPixelCount)
+	m.rejChunkLayout = rejected.WithLabelValues(rejectChunkLayout)
 
 	m.compute = histogram("stillsky_compute_latency_seconds", "Time from frame received to command computed.")
 	m.rtc = histogram("stillsky_rtc_latency_seconds", "Time from frame received to command sent: the controller's own latency.")

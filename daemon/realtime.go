@@ -90,6 +90,10 @@ func newRealtime(u *unit, g *geometry) *realtime {
 		// A batch spans ackWindow; at 1 kHz that is 250 commands.
 		ackBatch: uint32(max(1, min(maxAckBatch, int(math.Round(g.frameRate*ackWindow))))),
 	}
+	if g.pixels != nil {
+		rt.asm.px = newPixelFrames(g.pixels, u.pixCal.Load)
+		rt.frame.Pixels = make([]byte, 0, 2*g.pixels.width*g.pixels.height)
+	}
 	rt.slopes = rt.asm.slopes
 	rt.out.Values = rt.cmd
 	u.telemetry.init(g.slopes, g.actuators, g.frameRate)
@@ -304,6 +308,10 @@ func (rt *realtime) reject(v verdict) {
 		m.rejDup.Inc()
 	case refusedOrder:
 		m.rejOrder.Inc()
+	case refusedPixelCount:
+		m.rejPixelCount.Inc()
+	case refusedChunkLayout:
+		m.rejChunkLayout.Inc()
 	default:
 		m.rejLength.Inc()
 	}

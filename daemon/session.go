@@ -49,6 +49,9 @@ func (d *Daemon) session(ctx context.Context) error {
 		pitch:       mirDesc.GetPitchM(),
 		coupling:    mirDesc.GetCoupling(),
 	}
+	if g.pixels, err = newPixelGeometry(camDesc); err != nil {
+		return err
+	}
 	if g.slopes < 1 || g.actuators < 1 || !(g.frameRate > 0) || !(g.stroke > 0) {
 		return fmt.Errorf("devices describe an unusable geometry: %d slopes, %d actuators, %g Hz, stroke %g m", g.slopes, g.actuators, g.frameRate, g.stroke)
 	}
@@ -64,6 +67,15 @@ func (d *Daemon) session(ctx context.Context) error {
 	d.log.Info("devices described", "slopes", g.slopes, "actuators", g.actuators, "frame_rate_hz", g.frameRate,
 		"stroke_m", g.stroke, "lockstep", g.lockstep, "camera", camDesc.GetDescription(), "mirror_protocol", mirDesc.GetProtocolVersion())
 	d.restoreOnce(g)
+	if pg := g.pixels; pg != nil {
+		if c := d.u.pixCal.Load(); c == nil || !sameLayout(c.Layout(), pg.layout) {
+			c, err := pg.defaultCalibration()
+			if err != nil {
+				return err
+			}
+			d.u.pixCal.Store(c)
+		}
+	}
 
 	sctx, cancel := context.WithCancel(ctx)
 	defer cancel()

@@ -10,6 +10,7 @@ import (
 	"google.golang.org/grpc/status"
 
 	"stillsky/controller"
+	"stillsky/controller/centroid"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
 
@@ -37,6 +38,9 @@ type unit struct {
 	loop      atomic.Pointer[controller.Loop]
 	estimator atomic.Pointer[controller.Loop]
 	cal       atomic.Pointer[calibration]
+	// pixCal is the centroid calibration of a pixel camera (dark, flat,
+	// reference), swapped whole between frames; nil for a slope camera.
+	pixCal atomic.Pointer[centroid.Calibration]
 
 	stats     runStats
 	telemetry telemetryRing

@@ -218,12 +218,14 @@ func DecodeAck(b []byte, a *stillskyv1.StreamCommandsResponse) error {
 }
 
 // DecodeFrame decodes the protobuf encoding of a StreamFramesResponse into f,
-// overwriting every field and appending the slopes into f.Slopes[:0], so that a
-// frame no larger than the previous one allocates nothing. Unknown fields are
+// overwriting every field and appending the slopes into f.Slopes[:0] (a pixel
+// frame's bytes into f.Pixels[:0]), so that a frame no larger than the
+// previous one allocates nothing. Unknown fields are
 // skipped, as the standard decoder would.
 func DecodeFrame(b []byte, f *stillskyv1.StreamFramesResponse) error {
 	f.FrameNumber, f.ReadoutEndNs, f.Offset, f.ChunkIndex, f.ChunkCount, f.FluxElectrons = 0, 0, 0, 0, 0, 0
-	slopes := f.Slopes[:0]
+	f.FirstRow, f.RowCount = 0, 0
+	slopes, pixels := f.Slopes[:0], f.Pixels[:0]
 	for len(b) > 0 {
 		num, typ, n := protowire.ConsumeTag(b)
 		if n < 0 {
@@ -249,6 +251,26 @@ func DecodeFrame(b []byte, f *stillskyv1.StreamFramesResponse) error {
 			}
 			b = b[n:]
 			slopes = append(slopes, math.Float32frombits(v))
+			continue
+		case num == 8 && typ == protowire.BytesType:
+			p, n := protowire.ConsumeBytes(b)
+			if n < 0 {
+				return fmt.Errorf("pixel frame: bad pixels: %w", protowire.ParseError(n))
+			}
+			b = b[n:]
+			pixels = append(pixels, p...) // copied: the transport's buffer is freed after the decode
+			continue
+		case (num == 9 || num == 10) && typ == protowire.VarintType:
+			v, n := protowire.ConsumeVarint(b)
+			if n < 0 {
+				return fmt.Errorf("pixel frame: bad field %d: %w", num, protowire.ParseError(n))
+			}
+			b = b[n:]
+			if num == 9 {
+				f.FirstRow = uint32(v)
+			} else {
+				f.RowCount = uint32(v)
+			}
 			continue
 		case num == 7 && typ == protowire.Fixed32Type:
 			v, n := protowire.ConsumeFixed32(b)
@@ -284,6 +306,6 @@ func DecodeFrame(b []byte, f *stillskyv1.StreamFramesResponse) error {
 		}
 		b = b[n:]
 	}
-	f.Slopes = slopes
+	f.Slopes, f.Pixels = slopes, pixels
 	return nil
 }

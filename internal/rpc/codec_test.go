@@ -29,6 +29,13 @@ func TestDecodeFrameMatchesProto(t *testing.T) {
 		for range rng.IntN(50) {
 			in.Slopes = append(in.Slopes, float32(rng.NormFloat64()))
 		}
+		if trial%4 == 1 { // a pixel chunk (frame format 2)
+			in.FirstRow, in.RowCount = rng.Uint32()%512, 1+rng.Uint32()%64
+			in.Pixels = make([]byte, 2*rng.IntN(300))
+			for i := range in.Pixels {
+				in.Pixels[i] = byte(rng.Uint32())
+			}
+		}
 		b, err := proto.Marshal(in)
 		if err != nil {
 			t.Fatal(err)
@@ -41,7 +48,8 @@ func TestDecodeFrameMatchesProto(t *testing.T) {
 		if err := proto.Unmarshal(b, want); err != nil {
 			t.Fatal(err)
 		}
-		got := &stillskyv1.StreamFramesResponse{FrameNumber: 7, ChunkIndex: 3, FluxElectrons: 5, Slopes: make([]float32, 64)}
+		got := &stillskyv1.StreamFramesResponse{FrameNumber: 7, ChunkIndex: 3, FluxElectrons: 5, Slopes: make([]float32, 64),
+			FirstRow: 9, RowCount: 9, Pixels: []byte{1, 2, 3}}
 		if err := DecodeFrame(b, got); err != nil {
 			t.Fatal(err)
 		}
