@@ -76,6 +76,19 @@ type ReconstructorConfig struct {
 	// BasisName names Basis (for example "kl", from KLBasis) in the
 	// reconstructor and its file; empty with a nil Basis.
 	BasisName string
+	// Metric, if set (and Basis nil), builds the reconstructor in the mirror's
+	// own modes, MirrorBasisName: the generalised eigenvectors of MᵀM·b = λ·G·b
+	// with G = Metric (MirrorMetric: the influence functions' geometric
+	// covariance), orthonormal in surface over the pupil, ordered by the
+	// sensor's sensitivity λ; modes with √(λ₀/λ) above UnseenCondition (piston,
+	// waffle) are cut, and the truncation rule applies to each mode's slope per
+	// unit command ‖M·b‖/‖b‖ (see buildMirror), which cuts actuators the pupil
+	// hardly sees and keeps tip and tilt.
+	// The cut modes are projected out of every command (piston among them
+	// when the sensor cannot see it; KeepPiston has no effect). Modal gains
+	// then apply per mirror mode. Truncated SVD only; the eigen route serves
+	// every size (Solver must be SolverAuto or SolverNormal).
+	Metric *mat.SymBandDense
 	// UnseenCondition: singular modes of M with s_max/sᵢ above it (or sᵢ = 0) are
 	// unseen; they are never controlled and are projected out of every command.
 	// 0 means DefaultUnseenCondition.
@@ -150,7 +163,8 @@ type Reconstructor struct {
 	// or nil.
 	Interaction *mat.Dense
 	// Basis names the modal basis of Modes: "" for the singular modes of the
-	// interaction matrix, else ReconstructorConfig.BasisName ("kl").
+	// interaction matrix, else ReconstructorConfig.BasisName ("kl", or
+	// MirrorBasisName for mirror modes).
 	Basis string
 	// Created is the creation time given by the caller.
 	Created time.Time
@@ -197,7 +211,7 @@ func BuildReconstructor(m *mat.Dense, c ReconstructorConfig) (*Reconstructor, er
 		return nil, fmt.Errorf("controller: reconstructor modes kept %d: only for svd", c.ModesKept)
 	}
 	basisName := ""
-	if c.Basis == nil && c.BasisName != "" {
+	if c.Basis == nil && c.Metric == nil && c.BasisName != "" {
 		return nil, fmt.Errorf("controller: reconstructor basis name %q given without a basis", c.BasisName)
 	}
 	if c.Basis != nil {
@@ -216,6 +230,21 @@ func BuildReconstructor(m *mat.Dense, c ReconstructorConfig) (*Reconstructor, er
 		}
 	}
 
+	if c.Metric != nil {
+		switch {
+		case c.Basis != nil:
+			return nil, fmt.Errorf("controller: reconstructor basis and metric: give one (the metric's mirror modes are the basis)")
+		case c.BasisName != "" && c.BasisName != MirrorBasisName:
+			return nil, fmt.Errorf("controller: reconstructor basis name %q with a metric: want %q or empty", c.BasisName, MirrorBasisName)
+		case c.Method != MethodTruncatedSVD:
+			return nil, fmt.Errorf("controller: reconstructor method %v with mirror modes: only svd", c.Method)
+		case c.Solver != SolverAuto && c.Solver != SolverNormal:
+			return nil, fmt.Errorf("controller: reconstructor solver %d with mirror modes: only the normal-matrix route", c.Solver)
+		case unseenCond > MaxNormalCondition || c.MaxCondition > MaxNormalCondition:
+			return nil, fmt.Errorf("controller: reconstructor condition %g: mirror modes take at most %g", max(unseenCond, c.MaxCondition), float64(MaxNormalCondition))
+		}
+		return buildMirror(m, c, unseenCond)
+	}
 	solver := c.Solver
 	if solver == SolverAuto {
 		size := na
@@ -365,16 +394,7 @@ func factorize(a mat.Matrix, solver Solver, work *workMeter) (*factorization, er
 		work.add(svdWork(rows, cols))
 		return &factorization{a: a, values: svd.Values(nil), v: &v, svd: &svd, work: work}, nil
 	}
-	// MᵀM through the symmetric rank-k update; gonum's multiply skips the zeros
-	// of a sparse interaction matrix.
-	var n mat.SymDense
-	n.SymOuterK(1, mat.DenseCopyOf(a).T())
-	buf := make([]float64, cols*cols)
-	for i := 0; i < cols; i++ {
-		for j := 0; j <= i; j++ {
-			buf[i*cols+j] = n.At(i, j)
-		}
-	}
+	buf := normalMatrix(a)
 	work.add(normalWork(rows, cols))
 	base := work.done
 	lambda, v, err := symEigen(buf, cols, func(d float64) { work.set(base + d) })

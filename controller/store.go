@@ -26,7 +26,7 @@ import (
 // the slope and actuator counts NSLOPES and NACTU and the interaction matrix IMAT;
 // the reader accepts both versions, the writer writes the current one. The
 // optional keyword MODEBASE names the modal basis of MODES ("kl" for
-// Karhunen–Loève modes); files without it, all files before it, use the
+// Karhunen–Loève modes, "mirror" for mirror modes); files without it, all files before it, use the
 // singular modes of the interaction matrix.
 const (
 	extSingular = "SINGVAL"

@@ -206,8 +206,23 @@ func calibrationSettings(req *stillskyv1.CalibrateRequest, g *geometry) (control
 		if rc.MaxCondition == 0 {
 			rc.MaxCondition = klMaxCondition
 		}
+	case controller.MirrorBasisName:
+		if rc.Method != controller.MethodTruncatedSVD {
+			return cc, rc, fmt.Errorf("basis mirror: only with truncated SVD, not tikhonov")
+		}
+		if rc.MaxCondition > controller.MaxNormalCondition {
+			return cc, rc, fmt.Errorf("basis mirror: max condition %g: at most %g", rc.MaxCondition, float64(controller.MaxNormalCondition))
+		}
+		if err := g.hasLayout(); err != nil {
+			return cc, rc, fmt.Errorf("basis mirror: %w", err)
+		}
+		metric, err := controller.MirrorMetric(g.actuatorPositions(), g.pitch, g.coupling)
+		if err != nil {
+			return cc, rc, fmt.Errorf("basis mirror: %w", err)
+		}
+		rc.Metric, rc.BasisName = metric, controller.MirrorBasisName
 	default:
-		return cc, rc, fmt.Errorf("basis %q: want \"svd\" (or empty) or \"kl\"", b)
+		return cc, rc, fmt.Errorf("basis %q: want \"svd\" (or empty), \"kl\" or \"mirror\"", b)
 	}
 	if c := rc.MaxCondition; c != 0 && !(c >= 1 && !math.IsInf(c, 0)) {
 		return cc, rc, fmt.Errorf("max condition %g: must be finite and >= 1 (or 0 for the default)", c)
@@ -294,16 +309,11 @@ func (rt *realtime) showsBlock(cal *calibration, f *stillskyv1.StreamFramesRespo
 // a pupil of (actuators across − 1) pitches, the outer actuator rows on its
 // edge.
 func klBasis(g *geometry, kept int) (*mat.Dense, error) {
-	if len(g.positions) != 2*g.actuators || g.across < 2 || !(g.pitch > 0) {
-		return nil, fmt.Errorf("the mirror describes no actuator layout (%d position values for %d actuators, %d across, pitch %g m)",
-			len(g.positions), g.actuators, g.across, g.pitch)
-	}
-	pos := make([][2]float64, g.actuators)
-	for i := range pos {
-		pos[i] = [2]float64{g.positions[2*i], g.positions[2*i+1]}
+	if err := g.hasLayout(); err != nil {
+		return nil, err
 	}
 	b, _, err := controller.KLBasis(controller.KLConfig{
-		Positions: pos, Pitch: g.pitch, Coupling: g.coupling,
+		Positions: g.actuatorPositions(), Pitch: g.pitch, Coupling: g.coupling,
 		Diameter: float64(g.across-1) * g.pitch,
 	})
 	if err != nil {
@@ -316,6 +326,25 @@ func klBasis(g *geometry, kept int) (*mat.Dense, error) {
 		return nil, fmt.Errorf("modes kept %d: at most %d (actuators less piston)", kept, g.actuators-1)
 	}
 	return mat.DenseCopyOf(b.Slice(0, g.actuators, 0, kept)), nil
+}
+
+// hasLayout reports whether the mirror described its actuators' positions,
+// which the modal bases need.
+func (g *geometry) hasLayout() error {
+	if len(g.positions) != 2*g.actuators || g.across < 2 || !(g.pitch > 0) {
+		return fmt.Errorf("the mirror describes no actuator layout (%d position values for %d actuators, %d across, pitch %g m)",
+			len(g.positions), g.actuators, g.across, g.pitch)
+	}
+	return nil
+}
+
+// actuatorPositions returns the mirror's actuator positions as (x, y) pairs.
+func (g *geometry) actuatorPositions() [][2]float64 {
+	pos := make([][2]float64, g.actuators)
+	for i := range pos {
+		pos[i] = [2]float64{g.positions[2*i], g.positions[2*i+1]}
+	}
+	return pos
 }
 
 // klMaxCondition is the truncation of M·B, the interaction matrix in KL modes,

@@ -1007,7 +1007,8 @@ func TestBadCalibrationRequests(t *testing.T) {
 
 // TestCalibrationSettingsCheckedFirst asks for calibrations whose reconstructor
 // settings BuildReconstructor refuses (a condition cut below 1 or infinite, an
-// infinite Tikhonov weight): they must be refused with InvalidArgument before
+// infinite Tikhonov weight, an unknown basis, mirror modes with Tikhonov or
+// beyond the eigen route's condition): they must be refused with InvalidArgument before
 // the first poke, not with Internal after all of them.
 func TestCalibrationSettingsCheckedFirst(t *testing.T) {
 	r := startRig(t, "small", bench.Options{Lockstep: true}, daemon.Config{})
@@ -1019,6 +1020,9 @@ func TestCalibrationSettingsCheckedFirst(t *testing.T) {
 		{"max condition NaN", &stillskyv1.CalibrateRequest{MaxCondition: math.NaN()}},
 		{"max condition +Inf", &stillskyv1.CalibrateRequest{MaxCondition: math.Inf(1)}},
 		{"tikhonov +Inf", &stillskyv1.CalibrateRequest{Tikhonov: math.Inf(1)}},
+		{"unknown basis", &stillskyv1.CalibrateRequest{Basis: "zernike"}},
+		{"mirror basis with tikhonov", &stillskyv1.CalibrateRequest{Basis: "mirror", Tikhonov: 0.1}},
+		{"mirror basis max condition 1e6", &stillskyv1.CalibrateRequest{Basis: "mirror", MaxCondition: 1e6}},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			start := time.Now()

@@ -20,7 +20,7 @@ func runDemo(args []string) error {
 	gain := fs.Float64("gain", -1, "integrator gain in closed loop, in [0, 2) (default: the daemon's 0.4)")
 	summary := fs.String("summary", "", "write the summary as JSON to this file")
 	lockstep := fs.Bool("lockstep", false, "run the bench in lockstep mode (reproducible) instead of free-running; without it the demo checks first that the machine keeps real time")
-	basis := fs.String("basis", "", "modal basis of the reconstructor and its modal gains: svd (the interaction matrix's singular modes, the default) or kl (Karhunen–Loève modes of Kolmogorov turbulence on the mirror)")
+	basis := fs.String("basis", "", "modal basis of the reconstructor and its modal gains: svd (the interaction matrix's singular modes, the default) kl (Karhunen–Loève modes of Kolmogorov turbulence on the mirror) or mirror (the mirror's own modes, orthonormal in surface and ordered by the sensor's sensitivity)")
 	logLevel := fs.String("log-level", "warn", "log level of bench and loop: debug, info, warn, error")
 	if err := parseFlags(fs, args); err != nil {
 		return err
@@ -29,8 +29,8 @@ func runDemo(args []string) error {
 	if err != nil {
 		return err
 	}
-	if *basis != "" && *basis != "svd" && *basis != "kl" {
-		return fmt.Errorf("demo: --basis %q: want svd or kl", *basis)
+	if *basis != "" && *basis != "svd" && *basis != "kl" && *basis != "mirror" {
+		return fmt.Errorf("demo: --basis %q: want svd, kl or mirror", *basis)
 	}
 	cfg := demo.Config{Scenario: *scn, FramesClosed: *frames, Lockstep: *lockstep, Basis: *basis, Out: os.Stdout, Logger: log}
 	if *gain != -1 {

@@ -218,8 +218,10 @@ class Client:
         the new reconstructor's description. The loop must be open. hadamard or
         single_pokes (not both) choose the poke patterns at any size; neither
         takes the daemon's default (Hadamard from 1000 actuators up). basis is
-        "svd" (or empty: the interaction matrix's singular modes) or "kl"
-        (Karhunen–Loève modes; modes_kept then keeps that many of them)."""
+        "svd" (or empty: the interaction matrix's singular modes), "kl"
+        (Karhunen–Loève modes; modes_kept then keeps that many of them) or
+        "mirror" (the mirror's own modes, ordered by the sensor's
+        sensitivity)."""
         req = pb.CalibrateRequest(
             amplitude_m=amplitude_m,
             frames_per_pattern=frames_per_pattern,

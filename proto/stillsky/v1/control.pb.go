@@ -434,7 +434,8 @@ type ReconstructorInfo struct {
 	// Singular values of the interaction matrix, largest first.
 	SingularValues []float64 `protobuf:"fixed64,7,rep,packed,name=singular_values,json=singularValues,proto3" json:"singular_values,omitempty"`
 	// Modal basis the modal gains apply in: "svd" (singular modes of the
-	// interaction matrix) or "kl" (Karhunen–Loève modes of the mirror).
+	// interaction matrix), "kl" (Karhunen–Loève modes of the mirror) or "mirror"
+	// (the mirror's own modes, ordered by the sensor's sensitivity).
 	Basis string `protobuf:"bytes,8,opt,name=basis,proto3" json:"basis,omitempty"`
 	// Number of modes the modal gains apply to (columns of the modal basis).
 	ModeCount     uint32 `protobuf:"varint,9,opt,name=mode_count,json=modeCount,proto3" json:"mode_count,omitempty"`
@@ -1074,7 +1075,10 @@ type CalibrateRequest struct {
 	// the singular modes of the interaction matrix, "kl" for Karhunen–Loève modes
 	// of Kolmogorov turbulence on the mirror's influence functions (modes_kept
 	// then keeps that many KL modes, largest variance first; 0 keeps all but
-	// piston).
+	// piston), "mirror" for the mirror's own modes: orthonormal in surface over
+	// the mirror, their slopes orthogonal, ordered by the slope power per unit
+	// surface, with piston, waffle and the modes needing large commands per unit
+	// slope (max_condition, as for "svd") cut; truncated SVD only, at any size.
 	Basis         string `protobuf:"bytes,8,opt,name=basis,proto3" json:"basis,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache

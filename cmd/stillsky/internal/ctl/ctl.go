@@ -26,7 +26,7 @@ import (
 )
 
 // Usage lists the verbs.
-const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard | --single-pokes] [--basis svd|kl] | save FILE | load FILE | " + RecordUsage
+const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard | --single-pokes] [--basis svd|kl|mirror] | save FILE | load FILE | " + RecordUsage
 
 // Run performs one verb against the Control API on conn and writes the result to out.
 func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out io.Writer) error {
@@ -134,8 +134,8 @@ func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out 
 		for i := 0; i < len(rest); i++ {
 			switch a := rest[i]; a {
 			case "--basis":
-				if i+1 >= len(rest) || (rest[i+1] != "svd" && rest[i+1] != "kl") {
-					return fmt.Errorf("calibrate: --basis wants svd or kl")
+				if i+1 >= len(rest) || (rest[i+1] != "svd" && rest[i+1] != "kl" && rest[i+1] != "mirror") {
+					return fmt.Errorf("calibrate: --basis wants svd, kl or mirror")
 				}
 				i++
 				req.Basis = rest[i]
@@ -144,7 +144,7 @@ func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out 
 			case "--single-pokes":
 				req.SinglePokes = true
 			default:
-				return fmt.Errorf("calibrate: unknown option %q (only --hadamard, --single-pokes or --basis svd|kl)", a)
+				return fmt.Errorf("calibrate: unknown option %q (only --hadamard, --single-pokes or --basis svd|kl|mirror)", a)
 			}
 		}
 		if req.Hadamard && req.SinglePokes {

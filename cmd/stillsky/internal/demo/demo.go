@@ -37,7 +37,7 @@ type Config struct {
 	Gain *float64
 	// Lockstep runs the bench in lockstep mode instead of free-running.
 	Lockstep bool
-	// Basis is the calibration's modal basis ("", "svd" or "kl"; see
+	// Basis is the calibration's modal basis ("", "svd", "kl" or "mirror"; see
 	// CalibrateRequest.basis).
 	Basis string
 	// Out receives the progress bar, status lines and summary table.
