@@ -3,6 +3,8 @@ package controller
 import (
 	"fmt"
 	"math"
+
+	"gonum.org/v1/gonum/mat"
 )
 
 // TiltOffload moves the deformable mirror's tip-tilt onto the tip-tilt mirror,
@@ -89,4 +91,78 @@ func (o *TiltOffload) Apply(cmd []float32) (tx, ty float64) {
 		cmd[k] -= float32(a*o.dx[k] + b*o.dy[k])
 	}
 	return o.response * a, o.response * b
+}
+
+// WithoutSlopeTilt returns a copy of r that ignores the slopes' global
+// tip-tilt: R' = R·(I − P), with P the orthogonal projector onto the uniform
+// x slopes and the uniform y slopes (slopes interleaved x, y per
+// subaperture), which takes from each row of R the mean of its x columns and
+// the mean of its y columns. Inverse is filtered the same way, so parameter
+// sets with modal gains keep the filter. It is the reconstructor of a laser
+// guide star's sensor, whose tip-tilt is meaningless (the beacon moves on the
+// sky with the atmosphere's tilt and the sensor sees the tip-tilt mirror's),
+// when a natural star's sensor measures tip-tilt instead (common practice;
+// Rigaut & Gendron 1992, Astron. Astrophys. 261, 677).
+func (r *Reconstructor) WithoutSlopeTilt() *Reconstructor {
+	out := *r
+	out.Control = withoutSlopeTilt(r.Control)
+	if r.Inverse != nil {
+		out.Inverse = withoutSlopeTilt(r.Inverse)
+	}
+	return &out
+}
+
+func withoutSlopeTilt(a *mat.Dense) *mat.Dense {
+	c := mat.DenseCopyOf(a)
+	rows, cols := c.Dims()
+	for i := range rows {
+		row := c.RawRowView(i)
+		var mx, my float64
+		for j := 0; j+1 < cols; j += 2 {
+			mx += row[j]
+			my += row[j+1]
+		}
+		mx /= float64(cols / 2)
+		my /= float64(cols / 2)
+		for j := 0; j+1 < cols; j += 2 {
+			row[j] -= mx
+			row[j+1] -= my
+		}
+	}
+	return c
+}
+
+// TiltResponse measures on the reconstructor r the tilt response ρ that
+// NewTiltOffload takes: Δ = R·s for uniform x slopes of 1 rad (then y) is the
+// command that corrects 1 rad of wavefront tilt, and the slope a of its
+// least-squares plane over the actuator positions (metres) gives ρ = 1/a. It
+// returns the mean over the two axes, and refuses a reconstructor that does
+// not correct tilt (a tilt-filtered one, see WithoutSlopeTilt).
+func TiltResponse(r *Reconstructor, positions [][2]float64) (float64, error) {
+	if len(positions) != r.Actuators {
+		return 0, fmt.Errorf("controller: tilt response: %d positions for %d actuators", len(positions), r.Actuators)
+	}
+	fit, err := NewTiltOffload(positions, 1, 1)
+	if err != nil {
+		return 0, err
+	}
+	s := make([]float64, r.Slopes)
+	cmd := make([]float32, r.Actuators)
+	var a [2]float64
+	for axis := range 2 {
+		clear(s)
+		for j := axis; j < r.Slopes; j += 2 {
+			s[j] = 1
+		}
+		for i := range r.Actuators {
+			cmd[i] = float32(mat.Dot(r.Control.RowView(i), mat.NewVecDense(r.Slopes, s)))
+		}
+		ax, ay := fit.Apply(cmd)
+		a[axis] = [2]float64{ax, ay}[axis]
+	}
+	rho := 2 / (a[0] + a[1])
+	if !(rho > 0) || math.IsInf(rho, 0) || !(a[0] > 0 && a[1] > 0) {
+		return 0, fmt.Errorf("controller: tilt response: the reconstructor corrects no tilt (plane slopes %g, %g per rad)", a[0], a[1])
+	}
+	return rho, nil
 }

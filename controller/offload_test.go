@@ -6,9 +6,13 @@ import (
 	"strings"
 	"testing"
 
+	"gonum.org/v1/gonum/mat"
+
 	"stillsky/controller"
+	"stillsky/sim/bench"
 	"stillsky/sim/dm"
 	"stillsky/sim/optics"
+	"stillsky/sim/scenario"
 	"stillsky/sim/wfs"
 )
 
@@ -174,5 +178,106 @@ func BenchmarkTipTiltFrame(b *testing.B) {
 		mx, my := qc.Sense(2e-7-cx, -1e-7-cy, rng)
 		tt.Step(mx, my)
 		tt.Offload(off.Apply(cmd))
+	}
+}
+
+// TestTiltResponseFromReconstructor measures ρ on the lgs bench's
+// reconstructor (interaction matrix poked on the calibration source, geometric
+// sensor, truncated SVD) and checks it against the mirror's own surface, the
+// measurement of TestTiltOffloadKeepsTheCorrection (plane fit of 2·surface of
+// a unit-slope command plane, the same 17×17 mirror): within 3%, the
+// difference between a plane fitted over the actuators and the tilt the
+// subapertures see. WithoutSlopeTilt then ignores uniform slopes entirely and
+// leaves the reconstruction of tilt-free slopes unchanged.
+func TestTiltResponseFromReconstructor(t *testing.T) {
+	scn, err := scenario.Load("lgs")
+	if err != nil {
+		t.Fatal(err)
+	}
+	sys, err := bench.NewSystem(scn)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sys.SetTurbulence(false)
+	sys.SetNoise(false)
+	ns, na := sys.NumSlopes(), sys.NumActuators()
+	m := mat.NewDense(ns, na, nil)
+	cmd, slopes := make([]float32, na), make([]float32, ns)
+	const poke = 1e-7
+	for k := range na {
+		clear(cmd)
+		cmd[k] = poke
+		sys.Observe(cmd, slopes)
+		for i, v := range slopes {
+			m.Set(i, k, float64(v)/poke)
+		}
+	}
+	r, err := controller.BuildReconstructor(m, controller.ReconstructorConfig{Method: controller.MethodTruncatedSVD, MaxCondition: 100})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pos := sys.Mirror().Positions()
+	rho, err := controller.TiltResponse(r, pos)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The surface measurement on the bench's own pupil.
+	p := sys.Pupil()
+	ramp := make([]float32, na)
+	for k, q := range pos {
+		ramp[k] = float32(poke * q[0])
+	}
+	surf := make([]float64, p.N*p.N)
+	sys.Mirror().Surface(ramp, surf)
+	for i := range surf {
+		surf[i] *= 2
+	}
+	want, _ := planeFit(p, surf)
+	want /= poke
+	t.Logf("tilt response: %.3f rad per m/m from the reconstructor, %.3f on the surface", rho, want)
+	if math.Abs(rho/want-1) > 0.03 {
+		t.Errorf("ρ %.3f from the reconstructor, %.3f on the surface: want within 3%%", rho, want)
+	}
+
+	f := r.WithoutSlopeTilt()
+	if _, err := controller.TiltResponse(f, pos); err == nil {
+		t.Error("a tilt-filtered reconstructor has a tilt response")
+	}
+	rng := rand.New(rand.NewPCG(1, 2))
+	s := make([]float64, ns)
+	var mx, my float64
+	for i := range s {
+		s[i] = rng.NormFloat64()
+		if i%2 == 0 {
+			mx += s[i]
+		} else {
+			my += s[i]
+		}
+	}
+	for i := range s {
+		s[i] -= [2]float64{mx, my}[i%2] / float64(ns/2)
+	}
+	var a, b, u mat.VecDense
+	a.MulVec(r.Control, mat.NewVecDense(ns, s))
+	b.MulVec(f.Control, mat.NewVecDense(ns, s))
+	tilted := make([]float64, ns)
+	for i := range tilted {
+		tilted[i] = s[i] + [2]float64{3, -2}[i%2]
+	}
+	u.MulVec(f.Control, mat.NewVecDense(ns, tilted))
+	var d1, d2 mat.VecDense
+	d1.SubVec(&a, &b)
+	d2.SubVec(&u, &b)
+	if n := mat.Norm(&d1, 2) / mat.Norm(&a, 2); n > 1e-12 {
+		t.Errorf("tilt-free slopes reconstructed differently by the filtered reconstructor: relative %g", n)
+	}
+	if n := mat.Norm(&d2, 2) / mat.Norm(&a, 2); n > 1e-12 {
+		t.Errorf("the filtered reconstructor sees added tip-tilt: relative %g", n)
+	}
+	var ma, mb mat.Dense
+	ma.Mul(f.Modes, f.Inverse)
+	mb.Scale(-1, f.Control)
+	if d := relDiff(&ma, &mb); d > 1e-9 {
+		t.Errorf("filtered Modes·Inverse differs from −Control by %g", d)
 	}
 }
