@@ -66,6 +66,10 @@ type Config struct {
 	// AnalysisPeriod is the time between the loop's analyses of itself
 	// (turbulence estimate and error budget); 0 means 10 s, negative turns them off.
 	AnalysisPeriod time.Duration
+	// TipTilt, if set, runs the tip-tilt loop on a natural-star tip-tilt
+	// sensor and a tip-tilt mirror beside the high-order loop; see
+	// TipTiltConfig.
+	TipTilt *TipTiltConfig
 	// BenchURL is the HTTP base URL of the simulated bench, whose PSF the live view
 	// shows; "" for none.
 	BenchURL string
@@ -101,6 +105,13 @@ func (c *Config) setDefaults() error {
 	}
 	if err := c.Beacon.validate(); err != nil {
 		return err
+	}
+	if c.TipTilt != nil {
+		tt := *c.TipTilt
+		if err := tt.setDefaults(); err != nil {
+			return err
+		}
+		c.TipTilt = &tt
 	}
 	return c.Interlocks.setDefaults()
 }
@@ -181,6 +192,11 @@ func New(cfg Config) (*Daemon, error) {
 		}
 		d.u.auto = d.auto
 	}
+	if cfg.TipTilt != nil {
+		d.u.tt = &tipTilt{cfg: *cfg.TipTilt}
+		d.u.tt.stale.Store(int64(time.Second))
+		d.m.ttGain.Set(*cfg.TipTilt.Gain)
+	}
 	d.m.gain.Set(d.gain)
 	d.m.leak.Set(d.leak)
 	d.m.wavelength.Set(cfg.ScienceWavelength)
@@ -247,6 +263,10 @@ func (d *Daemon) Run(ctx context.Context) error {
 	}
 	d.log.Info("loop daemon listening", "control", d.ControlAddr(), "metrics", d.MetricsAddr())
 	go d.devices(ctx)
+	if d.u.tt != nil {
+		go d.tipTiltDevices(ctx)
+		go d.u.tipTiltWatchdog(ctx)
+	}
 	if d.cfg.AnalysisPeriod >= 0 {
 		go d.analyse(ctx)
 	}

@@ -27,7 +27,9 @@
 // params.go, calibration.go, status.go; metrics.go, telemetry.go (the ring of
 // recent frames), record.go (recordings read from it), liveview.go, persist.go,
 // auth.go, rtsched.go (threads and memory), autonomous.go (the unattended-operation
-// supervisor of daemon/supervisor, fed by the real-time goroutine every frame).
+// supervisor of daemon/supervisor, fed by the real-time goroutine every frame);
+// tiptilt.go (the tip-tilt loop: its device session, its real-time goroutine,
+// the offload from the high-order loop and its interlocks).
 //
 // The real-time goroutine has an OS thread of its own only when pinned or under
 // SCHED_FIFO (see Realtime); otherwise it runs unlocked, on whichever thread the

@@ -125,6 +125,12 @@ func (u *unit) trip(reason string) {
 		c = u.m.tripSat
 	case tripStaleCamera:
 		c = u.m.tripStale
+	case tripTipTiltStale:
+		c = u.m.tripTTStale
+	case tripTipTiltSaturation:
+		c = u.m.tripTTSat
+	case tripTipTiltUnreachable:
+		c = u.m.tripTTMirror
 	default:
 		c = u.m.tripMirror
 	}

@@ -52,8 +52,15 @@ type metrics struct {
 	strokeUsed, gain, leak, flux              prometheus.Gauge
 	state                                     [len(stateNames)]prometheus.Gauge
 	tripDiv, tripSat, tripStale, tripMirror   prometheus.Counter
-	calibrationsOK, calibrationsFailed        prometheus.Counter
-	refused                                   *prometheus.CounterVec
+	tripTTStale, tripTTSat, tripTTMirror      prometheus.Counter
+	// The tip-tilt loop (tiptilt.go); 0 without one.
+	ttFrames, ttCommands, ttSaturatedFrames      prometheus.Counter
+	ttRejLength, ttRejNonFinite, ttRejOrder      prometheus.Counter
+	ttResidualX, ttResidualY, ttResidualRMS      prometheus.Gauge
+	ttCommandX, ttCommandY, ttStrokeUsed         prometheus.Gauge
+	ttSaturated, ttFramePeriod, ttStroke, ttGain prometheus.Gauge
+	calibrationsOK, calibrationsFailed           prometheus.Counter
+	refused                                      *prometheus.CounterVec
 	// The loop's analysis of itself (analysis.go).
 	budget                             [len(budgetTerms)]prometheus.Gauge
 	budgetStrehl, r0, tau0, outerScale prometheus.Gauge
@@ -142,6 +149,39 @@ func newMetrics() *metrics {
 	m.tripSat = trips.WithLabelValues(tripSaturation)
 	m.tripStale = trips.WithLabelValues(tripStaleCamera)
 	m.tripMirror = trips.WithLabelValues(tripMirrorUnreachable)
+	m.tripTTStale = trips.WithLabelValues(tripTipTiltStale)
+	m.tripTTSat = trips.WithLabelValues(tripTipTiltSaturation)
+	m.tripTTMirror = trips.WithLabelValues(tripTipTiltUnreachable)
+
+	m.ttFrames = counter("stillsky_tip_tilt_frames_total", "Tilt frames received from the natural-star tip-tilt sensor.")
+	m.ttCommands = counter("stillsky_tip_tilt_commands_total", "Commands sent to the tip-tilt mirror.")
+	m.ttSaturatedFrames = counter("stillsky_tip_tilt_saturated_frames_total", "Tip-tilt frames whose command was clamped at the tip-tilt mirror's stroke.")
+	ttRejected := prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "stillsky_tip_tilt_frames_rejected_total",
+		Help: "Tip-tilt frames refused by validation, by reason.",
+	}, []string{"reason"})
+	m.reg.MustRegister(ttRejected)
+	m.ttRejLength = ttRejected.WithLabelValues(rejectLength)
+	m.ttRejNonFinite = ttRejected.WithLabelValues(rejectNonFinite)
+	m.ttRejOrder = ttRejected.WithLabelValues(rejectOutOfOrder)
+	ttResidual := prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "stillsky_tip_tilt_residual_radians",
+		Help: "Residual tilt the tip-tilt sensor measured in its last frame, radians on the sky, by axis.",
+	}, []string{"axis"})
+	m.reg.MustRegister(ttResidual)
+	m.ttResidualX, m.ttResidualY = ttResidual.WithLabelValues("x"), ttResidual.WithLabelValues("y")
+	m.ttResidualRMS = gauge("stillsky_tip_tilt_residual_rms_radians", "Rms per axis of the measured residual tilt over about the last second of tip-tilt frames.")
+	ttCommand := prometheus.NewGaugeVec(prometheus.GaugeOpts{
+		Name: "stillsky_tip_tilt_command_radians",
+		Help: "Last tip-tilt mirror command, radians of tilt on the sky, by axis.",
+	}, []string{"axis"})
+	m.reg.MustRegister(ttCommand)
+	m.ttCommandX, m.ttCommandY = ttCommand.WithLabelValues("x"), ttCommand.WithLabelValues("y")
+	m.ttStrokeUsed = gauge("stillsky_tip_tilt_stroke_used_ratio", "Larger |command| of the two axes over the tip-tilt mirror's stroke in the last command.")
+	m.ttSaturated = gauge("stillsky_tip_tilt_saturated", "1 when the last tip-tilt command was clamped at the stroke, else 0.")
+	m.ttFramePeriod = gauge("stillsky_tip_tilt_frame_period_seconds", "Frame period of the tip-tilt sensor (0 without one).")
+	m.ttStroke = gauge("stillsky_tip_tilt_stroke_radians", "Stroke of the tip-tilt mirror per axis, radians on the sky (0 without one).")
+	m.ttGain = gauge("stillsky_tip_tilt_gain", "Tip-tilt integrator gain (0 without a tip-tilt loop).")
 
 	cals := prometheus.NewCounterVec(prometheus.CounterOpts{
 		Name: "stillsky_calibrations_total",

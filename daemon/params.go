@@ -85,8 +85,12 @@ func (d *Daemon) installReconstructor(r *controller.Reconstructor, persist bool)
 	}
 	d.paramsMu.Lock()
 	defer d.paramsMu.Unlock()
+	use, off := r, (*controller.TiltOffload)(nil)
+	if tt := d.u.tt; tt != nil {
+		use, off = d.tipTiltReconstructor(r, g)
+	}
 	p, err := controller.NewParams(controller.ParamsConfig{
-		Reconstructor:    r,
+		Reconstructor:    use,
 		Gain:             d.gain,
 		Leak:             d.leak,
 		Stroke:           g.stroke,
@@ -98,6 +102,9 @@ func (d *Daemon) installReconstructor(r *controller.Reconstructor, persist bool)
 	}
 	if err := d.u.install(p); err != nil {
 		return err
+	}
+	if tt := d.u.tt; tt != nil {
+		tt.offload.Store(off)
 	}
 	d.log.Info("reconstructor installed", "method", r.Method.String(), "modes_kept", r.ModesKept, "slopes", r.Slopes, "actuators", r.Actuators)
 	if persist {
@@ -114,4 +121,33 @@ func validGainLeak(g, l float64) error {
 		return fmt.Errorf("leak %g: must be in [0, 1)", l)
 	}
 	return nil
+}
+
+// tipTiltReconstructor returns, for a daemon with a tip-tilt loop, the
+// reconstructor that ignores the main sensor's tip-tilt (the tip-tilt sensor
+// measures it) and the offload of the deformable mirror's tip-tilt, whose
+// tilt response is measured on r itself; without a usable response (r
+// corrects no tilt) there is no offload, which the log says.
+func (d *Daemon) tipTiltReconstructor(r *controller.Reconstructor, g *geometry) (*controller.Reconstructor, *controller.TiltOffload) {
+	filtered := r.WithoutSlopeTilt()
+	pos := make([][2]float64, len(g.positions)/2)
+	for k := range pos {
+		pos[k] = [2]float64{g.positions[2*k], g.positions[2*k+1]}
+	}
+	if len(pos) != r.Actuators {
+		d.log.Warn("no tip-tilt offload: the mirror describes no actuator positions", "positions", len(pos), "actuators", r.Actuators)
+		return filtered, nil
+	}
+	rho, err := controller.TiltResponse(r, pos)
+	if err != nil {
+		d.log.Warn("no tip-tilt offload", "err", err)
+		return filtered, nil
+	}
+	off, err := controller.NewTiltOffload(pos, d.u.tt.cfg.OffloadGain, rho)
+	if err != nil {
+		d.log.Warn("no tip-tilt offload", "err", err)
+		return filtered, nil
+	}
+	d.log.Info("tip-tilt offload", "tilt_response_rad_per_m_per_m", rho, "fraction", d.u.tt.cfg.OffloadGain)
+	return filtered, off
 }

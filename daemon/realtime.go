@@ -269,6 +269,9 @@ func (rt *realtime) receive(f *stillskyv1.StreamFramesResponse, received int64) 
 	} else {
 		rt.res = rt.compute(f)
 	}
+	if tt := u.tt; tt != nil {
+		tt.done.Store(num)
+	}
 	rt.out.FrameNumber = num
 	rt.out.AckBatch = rt.ackBatch
 	if rt.state == stateCalibrating {
@@ -365,7 +368,9 @@ func (rt *realtime) compute(f *stillskyv1.StreamFramesResponse) controller.Resul
 			// starts from the last command the mirror received.
 			copy(rt.cmd, rt.sent)
 			rt.safeShape()
+			break
 		}
+		u.offloadTilt(loop, rt.cmd)
 	case stateHold:
 		// The mirror keeps the last command; estimates still come from the frame.
 		if loop != nil {

@@ -61,5 +61,8 @@ func (d *Daemon) status() *stillskyv1.GetStatusResponse {
 	if g := d.geometry(); g != nil {
 		s.SlopeCount, s.ActuatorCount, s.FrameRateHz = uint32(g.slopes), uint32(g.actuators), g.frameRate
 	}
+	if tt := d.u.tt; tt != nil {
+		s.TipTilt = tt.status()
+	}
 	return s
 }

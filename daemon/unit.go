@@ -46,6 +46,8 @@ type unit struct {
 	telemetry telemetryRing
 	// auto, with the supervisor on, is fed every frame; set before the first.
 	auto *autonomy
+	// tt is the tip-tilt loop's shared part, nil without one (tiptilt.go).
+	tt *tipTilt
 }
 
 func newUnit(m *metrics, log *slog.Logger, interlocks Interlocks, rec *Recorder) *unit {

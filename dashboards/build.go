@@ -332,7 +332,7 @@ func mirror() *dashboard.DashboardBuilder {
 	id := &panelID{}
 	saturated := q("stillsky_saturated_actuators") + " / " + q("stillsky_actuators")
 	return base("stillsky-mirror", "stillsky: mirror",
-		"Saturation and stroke of the deformable mirror commands the loop sends.").
+		"Saturation and stroke of the deformable mirror commands the loop sends, and the tip-tilt loop: its residual, the tip-tilt mirror's command and stroke.").
 		WithPanel(single(id, "Saturated actuators", "Actuators at their stroke limit in the last command.", units.Short, 6, 5).
 			Thresholds(steps(1.0, "orange")).
 			WithTarget(target(q("stillsky_saturated_actuators"), "{{instance}}"))).
@@ -353,7 +353,24 @@ func mirror() *dashboard.DashboardBuilder {
 			WithTarget(target(q("stillsky_stroke_used_ratio"), "stroke used {{instance}}"))).
 		WithPanel(series(id, "Mirror commands per second", "Commands the loop sent and commands the bench applied.", units.Hertz, 24, 8).
 			WithTarget(target(rate("stillsky_commands_total"), "sent {{instance}}")).
-			WithTarget(target(rate("stillsky_bench_commands_total"), "applied by bench {{instance}}")))
+			WithTarget(target(rate("stillsky_bench_commands_total"), "applied by bench {{instance}}"))).
+		WithPanel(series(id, "Tip-tilt residual", "Residual tilt the natural-star tip-tilt sensor measures, per axis, and its rms over about a second, radians on the sky (all 0 without a tip-tilt loop).", "rad", 12, 8).
+			WithTarget(target(q("stillsky_tip_tilt_residual_rms_radians"), "rms {{instance}}")).
+			WithTarget(target(q("stillsky_tip_tilt_residual_radians"), "{{axis}} {{instance}}"))).
+		WithPanel(series(id, "Tip-tilt mirror command", "Tip-tilt mirror command per axis, radians on the sky, against its stroke.", "rad", 12, 8).
+			WithTarget(target(q("stillsky_tip_tilt_command_radians"), "{{axis}} {{instance}}")).
+			WithTarget(target(q("stillsky_tip_tilt_stroke_radians"), "stroke {{instance}}"))).
+		WithPanel(single(id, "Tip-tilt stroke used", "Larger tip-tilt command of the two axes over the tip-tilt mirror's stroke, last command.", units.PercentUnit, 6, 5).
+			Min(0).Max(1).
+			Thresholds(steps(0.8, "orange", 0.95, "red")).
+			WithTarget(target(q("stillsky_tip_tilt_stroke_used_ratio"), "{{instance}}"))).
+		WithPanel(single(id, "Tip-tilt saturated frames per second", "Tip-tilt frames whose command was clamped at the stroke, per second.", units.Hertz, 6, 5).
+			Thresholds(steps(0.1, "orange")).
+			WithTarget(target(rate("stillsky_tip_tilt_saturated_frames_total"), "{{instance}}"))).
+		WithPanel(series(id, "Tip-tilt frames and commands per second", "Tilt frames the loop received, commands it sent to the tip-tilt mirror and commands the bench applied.", units.Hertz, 12, 5).
+			WithTarget(target(rate("stillsky_tip_tilt_frames_total"), "frames {{instance}}")).
+			WithTarget(target(rate("stillsky_tip_tilt_commands_total"), "sent {{instance}}")).
+			WithTarget(target(rate("stillsky_bench_tip_tilt_commands_total"), "applied by bench {{instance}}")))
 }
 
 // Query is one panel query, named by the dashboard and panel it belongs to.

@@ -117,6 +117,25 @@ func (r *Rig) start(ctx context.Context, c Config) (err error) {
 
 	cfg := c.Loop
 	cfg.CameraAddr, cfg.MirrorAddr = r.Devices.Camera, r.Devices.Mirror
+	if r.Devices.TipTilt != "" {
+		// The tip-tilt loop on the bench's tip-tilt devices, with the
+		// scenario's gains unless the configuration gives its own.
+		tt := daemon.TipTiltConfig{}
+		if cfg.TipTilt != nil {
+			tt = *cfg.TipTilt
+		}
+		tt.CameraAddr, tt.MirrorAddr = r.Devices.TipTilt, r.Devices.TipTilt
+		if s := c.Scenario; s != nil && s.TipTilt != nil {
+			if tt.Gain == nil {
+				g := s.TipTilt.Gain
+				tt.Gain = &g
+			}
+			if tt.OffloadGain == 0 {
+				tt.OffloadGain = s.TipTilt.OffloadGain
+			}
+		}
+		cfg.TipTilt = &tt
+	}
 	if cfg.ListenAddr == "" {
 		cfg.ListenAddr = r.addr("control")
 	}

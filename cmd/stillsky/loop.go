@@ -15,6 +15,9 @@ limits from the manufacturer's data sheet, never above it: a mirror driven past 
 stroke or inter-actuator limits can be damaged. A simulator proves software, not
 hardware or human safety; follow the manufacturer's limits, local codes and
 licensed practice (laser guide stars and retinal imaging have their own rules).
+Laser guide stars (--tip-tilt): a real laser pointed at the sky needs coordination
+with the aviation authority and a laser-safety review (ANSI Z136.1, ANSI Z136.6,
+IEC 60825-1); local rules govern.
 Retinal imaging: give the beacon's power and exposure time and the limit for them
 (--beacon-power-w, --beacon-exposure-s, --exposure-limit-j) and the daemon refuses
 to start above the limit. The check is indicative only: exposure limits follow
@@ -31,6 +34,9 @@ func runLoop(args []string) error {
 	fs := newFlagSet("loop")
 	camera := fs.String("camera", "127.0.0.1:7401", "camera gRPC address (host:port or unix:/path)")
 	mirror := fs.String("mirror", "127.0.0.1:7402", "mirror gRPC address")
+	tipTilt := fs.String("tip-tilt", "", "gRPC address of a natural-star tip-tilt sensor and a tip-tilt mirror (stillsky sim --tip-tilt, 127.0.0.1:7404 for the lgs scenario): runs the tip-tilt loop, ignores the camera's own tip-tilt and offloads the deformable mirror's to the tip-tilt mirror (\"\": no tip-tilt loop)")
+	ttGain := fs.Float64("tip-tilt-gain", 0.4, "tip-tilt integrator gain, in [0, 2) (with --tip-tilt)")
+	ttOffload := fs.Float64("tip-tilt-offload", 0.05, "fraction of the deformable mirror's tip-tilt moved to the tip-tilt mirror per frame, in (0, 1] (with --tip-tilt)")
 	listen := fs.String("listen", "127.0.0.1:7411", "Control API gRPC address")
 	health := fs.String("health-listen", "", "plain-text address serving only the gRPC health service, for probes (\"\" for none)")
 	metrics := fs.String("metrics", "127.0.0.1:7412", "HTTP address of /metrics and the live view (\"-\" to disable)")
@@ -85,6 +91,9 @@ func runLoop(args []string) error {
 		Kernel:   kernelOptions(*bf16),
 	}
 	cfg.Kernel.Workers = *workers
+	if *tipTilt != "" {
+		cfg.TipTilt = &daemon.TipTiltConfig{CameraAddr: *tipTilt, MirrorAddr: *tipTilt, Gain: ttGain, OffloadGain: *ttOffload}
+	}
 	if *beaconPower != 0 || *beaconExposure != 0 || *exposureLimit != 0 {
 		cfg.Beacon = &daemon.Beacon{PowerW: *beaconPower, ExposureS: *beaconExposure, LimitJ: *exposureLimit}
 	}

@@ -154,8 +154,11 @@ type GetStatusResponse struct {
 	LastInterlock   string `protobuf:"bytes,20,opt,name=last_interlock,json=lastInterlock,proto3" json:"last_interlock,omitempty"`
 	CameraConnected bool   `protobuf:"varint,21,opt,name=camera_connected,json=cameraConnected,proto3" json:"camera_connected,omitempty"`
 	MirrorConnected bool   `protobuf:"varint,22,opt,name=mirror_connected,json=mirrorConnected,proto3" json:"mirror_connected,omitempty"`
-	unknownFields   protoimpl.UnknownFields
-	sizeCache       protoimpl.SizeCache
+	// The tip-tilt loop (stillsky loop --tip-tilt); absent without one. Added
+	// with the tip-tilt devices: older daemons never set it.
+	TipTilt       *TipTiltStatus `protobuf:"bytes,23,opt,name=tip_tilt,json=tipTilt,proto3" json:"tip_tilt,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
 }
 
 func (x *GetStatusResponse) Reset() {
@@ -342,6 +345,142 @@ func (x *GetStatusResponse) GetMirrorConnected() bool {
 	return false
 }
 
+func (x *GetStatusResponse) GetTipTilt() *TipTiltStatus {
+	if x != nil {
+		return x.TipTilt
+	}
+	return nil
+}
+
+// TipTiltStatus is a snapshot of the tip-tilt loop: the natural-star
+// tip-tilt sensor driving the tip-tilt mirror, with the deformable mirror's
+// tip-tilt offloaded to it. It follows the high-order loop's state.
+type TipTiltStatus struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Both tip-tilt devices are connected and streaming.
+	Connected bool `protobuf:"varint,1,opt,name=connected,proto3" json:"connected,omitempty"`
+	// Tilt frames received and commands sent.
+	Frames   uint64 `protobuf:"varint,2,opt,name=frames,proto3" json:"frames,omitempty"`
+	Commands uint64 `protobuf:"varint,3,opt,name=commands,proto3" json:"commands,omitempty"`
+	// Rms per axis of the measured residual tilt over about the last second,
+	// radians on the sky.
+	ResidualRmsRad float64 `protobuf:"fixed64,4,opt,name=residual_rms_rad,json=residualRmsRad,proto3" json:"residual_rms_rad,omitempty"`
+	// The last tip-tilt mirror command, radians on the sky per axis, and the
+	// mirror's stroke.
+	CommandXRad float64 `protobuf:"fixed64,5,opt,name=command_x_rad,json=commandXRad,proto3" json:"command_x_rad,omitempty"`
+	CommandYRad float64 `protobuf:"fixed64,6,opt,name=command_y_rad,json=commandYRad,proto3" json:"command_y_rad,omitempty"`
+	StrokeRad   float64 `protobuf:"fixed64,7,opt,name=stroke_rad,json=strokeRad,proto3" json:"stroke_rad,omitempty"`
+	// Frames whose command was clamped at the stroke.
+	SaturatedFrames uint64 `protobuf:"varint,8,opt,name=saturated_frames,json=saturatedFrames,proto3" json:"saturated_frames,omitempty"`
+	// Integrator gain, and the fraction of the deformable mirror's tip-tilt
+	// offloaded per high-order frame (0 while no offload runs: no
+	// reconstructor yet, or one that corrects no tilt).
+	Gain          float64 `protobuf:"fixed64,9,opt,name=gain,proto3" json:"gain,omitempty"`
+	OffloadGain   float64 `protobuf:"fixed64,10,opt,name=offload_gain,json=offloadGain,proto3" json:"offload_gain,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *TipTiltStatus) Reset() {
+	*x = TipTiltStatus{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[2]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *TipTiltStatus) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*TipTiltStatus) ProtoMessage() {}
+
+func (x *TipTiltStatus) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[2]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use TipTiltStatus.ProtoReflect.Descriptor instead.
+func (*TipTiltStatus) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{2}
+}
+
+func (x *TipTiltStatus) GetConnected() bool {
+	if x != nil {
+		return x.Connected
+	}
+	return false
+}
+
+func (x *TipTiltStatus) GetFrames() uint64 {
+	if x != nil {
+		return x.Frames
+	}
+	return 0
+}
+
+func (x *TipTiltStatus) GetCommands() uint64 {
+	if x != nil {
+		return x.Commands
+	}
+	return 0
+}
+
+func (x *TipTiltStatus) GetResidualRmsRad() float64 {
+	if x != nil {
+		return x.ResidualRmsRad
+	}
+	return 0
+}
+
+func (x *TipTiltStatus) GetCommandXRad() float64 {
+	if x != nil {
+		return x.CommandXRad
+	}
+	return 0
+}
+
+func (x *TipTiltStatus) GetCommandYRad() float64 {
+	if x != nil {
+		return x.CommandYRad
+	}
+	return 0
+}
+
+func (x *TipTiltStatus) GetStrokeRad() float64 {
+	if x != nil {
+		return x.StrokeRad
+	}
+	return 0
+}
+
+func (x *TipTiltStatus) GetSaturatedFrames() uint64 {
+	if x != nil {
+		return x.SaturatedFrames
+	}
+	return 0
+}
+
+func (x *TipTiltStatus) GetGain() float64 {
+	if x != nil {
+		return x.Gain
+	}
+	return 0
+}
+
+func (x *TipTiltStatus) GetOffloadGain() float64 {
+	if x != nil {
+		return x.OffloadGain
+	}
+	return 0
+}
+
 // LatencySummary gives quantiles of a latency over a recent window, seconds.
 type LatencySummary struct {
 	state         protoimpl.MessageState `protogen:"open.v1"`
@@ -356,7 +495,7 @@ type LatencySummary struct {
 
 func (x *LatencySummary) Reset() {
 	*x = LatencySummary{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[2]
+	mi := &file_stillsky_v1_control_proto_msgTypes[3]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -368,7 +507,7 @@ func (x *LatencySummary) String() string {
 func (*LatencySummary) ProtoMessage() {}
 
 func (x *LatencySummary) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[2]
+	mi := &file_stillsky_v1_control_proto_msgTypes[3]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -381,7 +520,7 @@ func (x *LatencySummary) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use LatencySummary.ProtoReflect.Descriptor instead.
 func (*LatencySummary) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{2}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{3}
 }
 
 func (x *LatencySummary) GetP50() float64 {
@@ -445,7 +584,7 @@ type ReconstructorInfo struct {
 
 func (x *ReconstructorInfo) Reset() {
 	*x = ReconstructorInfo{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[3]
+	mi := &file_stillsky_v1_control_proto_msgTypes[4]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -457,7 +596,7 @@ func (x *ReconstructorInfo) String() string {
 func (*ReconstructorInfo) ProtoMessage() {}
 
 func (x *ReconstructorInfo) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[3]
+	mi := &file_stillsky_v1_control_proto_msgTypes[4]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -470,7 +609,7 @@ func (x *ReconstructorInfo) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use ReconstructorInfo.ProtoReflect.Descriptor instead.
 func (*ReconstructorInfo) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{3}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{4}
 }
 
 func (x *ReconstructorInfo) GetMethod() string {
@@ -545,7 +684,7 @@ type OpenLoopRequest struct {
 
 func (x *OpenLoopRequest) Reset() {
 	*x = OpenLoopRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[4]
+	mi := &file_stillsky_v1_control_proto_msgTypes[5]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -557,7 +696,7 @@ func (x *OpenLoopRequest) String() string {
 func (*OpenLoopRequest) ProtoMessage() {}
 
 func (x *OpenLoopRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[4]
+	mi := &file_stillsky_v1_control_proto_msgTypes[5]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -570,7 +709,7 @@ func (x *OpenLoopRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use OpenLoopRequest.ProtoReflect.Descriptor instead.
 func (*OpenLoopRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{4}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{5}
 }
 
 // OpenLoopResponse returns the status after the change.
@@ -583,7 +722,7 @@ type OpenLoopResponse struct {
 
 func (x *OpenLoopResponse) Reset() {
 	*x = OpenLoopResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[5]
+	mi := &file_stillsky_v1_control_proto_msgTypes[6]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -595,7 +734,7 @@ func (x *OpenLoopResponse) String() string {
 func (*OpenLoopResponse) ProtoMessage() {}
 
 func (x *OpenLoopResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[5]
+	mi := &file_stillsky_v1_control_proto_msgTypes[6]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -608,7 +747,7 @@ func (x *OpenLoopResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use OpenLoopResponse.ProtoReflect.Descriptor instead.
 func (*OpenLoopResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{5}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{6}
 }
 
 func (x *OpenLoopResponse) GetStatus() *GetStatusResponse {
@@ -627,7 +766,7 @@ type CloseLoopRequest struct {
 
 func (x *CloseLoopRequest) Reset() {
 	*x = CloseLoopRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[6]
+	mi := &file_stillsky_v1_control_proto_msgTypes[7]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -639,7 +778,7 @@ func (x *CloseLoopRequest) String() string {
 func (*CloseLoopRequest) ProtoMessage() {}
 
 func (x *CloseLoopRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[6]
+	mi := &file_stillsky_v1_control_proto_msgTypes[7]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -652,7 +791,7 @@ func (x *CloseLoopRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CloseLoopRequest.ProtoReflect.Descriptor instead.
 func (*CloseLoopRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{6}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{7}
 }
 
 // CloseLoopResponse returns the status after the change.
@@ -665,7 +804,7 @@ type CloseLoopResponse struct {
 
 func (x *CloseLoopResponse) Reset() {
 	*x = CloseLoopResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[7]
+	mi := &file_stillsky_v1_control_proto_msgTypes[8]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -677,7 +816,7 @@ func (x *CloseLoopResponse) String() string {
 func (*CloseLoopResponse) ProtoMessage() {}
 
 func (x *CloseLoopResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[7]
+	mi := &file_stillsky_v1_control_proto_msgTypes[8]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -690,7 +829,7 @@ func (x *CloseLoopResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CloseLoopResponse.ProtoReflect.Descriptor instead.
 func (*CloseLoopResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{7}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{8}
 }
 
 func (x *CloseLoopResponse) GetStatus() *GetStatusResponse {
@@ -709,7 +848,7 @@ type HoldLoopRequest struct {
 
 func (x *HoldLoopRequest) Reset() {
 	*x = HoldLoopRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[8]
+	mi := &file_stillsky_v1_control_proto_msgTypes[9]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -721,7 +860,7 @@ func (x *HoldLoopRequest) String() string {
 func (*HoldLoopRequest) ProtoMessage() {}
 
 func (x *HoldLoopRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[8]
+	mi := &file_stillsky_v1_control_proto_msgTypes[9]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -734,7 +873,7 @@ func (x *HoldLoopRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use HoldLoopRequest.ProtoReflect.Descriptor instead.
 func (*HoldLoopRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{8}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{9}
 }
 
 // HoldLoopResponse returns the status after the change.
@@ -747,7 +886,7 @@ type HoldLoopResponse struct {
 
 func (x *HoldLoopResponse) Reset() {
 	*x = HoldLoopResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[9]
+	mi := &file_stillsky_v1_control_proto_msgTypes[10]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -759,7 +898,7 @@ func (x *HoldLoopResponse) String() string {
 func (*HoldLoopResponse) ProtoMessage() {}
 
 func (x *HoldLoopResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[9]
+	mi := &file_stillsky_v1_control_proto_msgTypes[10]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -772,7 +911,7 @@ func (x *HoldLoopResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use HoldLoopResponse.ProtoReflect.Descriptor instead.
 func (*HoldLoopResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{9}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{10}
 }
 
 func (x *HoldLoopResponse) GetStatus() *GetStatusResponse {
@@ -792,7 +931,7 @@ type SetGainRequest struct {
 
 func (x *SetGainRequest) Reset() {
 	*x = SetGainRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[10]
+	mi := &file_stillsky_v1_control_proto_msgTypes[11]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -804,7 +943,7 @@ func (x *SetGainRequest) String() string {
 func (*SetGainRequest) ProtoMessage() {}
 
 func (x *SetGainRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[10]
+	mi := &file_stillsky_v1_control_proto_msgTypes[11]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -817,7 +956,7 @@ func (x *SetGainRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetGainRequest.ProtoReflect.Descriptor instead.
 func (*SetGainRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{10}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{11}
 }
 
 func (x *SetGainRequest) GetGain() float64 {
@@ -837,7 +976,7 @@ type SetGainResponse struct {
 
 func (x *SetGainResponse) Reset() {
 	*x = SetGainResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[11]
+	mi := &file_stillsky_v1_control_proto_msgTypes[12]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -849,7 +988,7 @@ func (x *SetGainResponse) String() string {
 func (*SetGainResponse) ProtoMessage() {}
 
 func (x *SetGainResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[11]
+	mi := &file_stillsky_v1_control_proto_msgTypes[12]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -862,7 +1001,7 @@ func (x *SetGainResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetGainResponse.ProtoReflect.Descriptor instead.
 func (*SetGainResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{11}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{12}
 }
 
 func (x *SetGainResponse) GetStatus() *GetStatusResponse {
@@ -882,7 +1021,7 @@ type SetLeakRequest struct {
 
 func (x *SetLeakRequest) Reset() {
 	*x = SetLeakRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[12]
+	mi := &file_stillsky_v1_control_proto_msgTypes[13]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -894,7 +1033,7 @@ func (x *SetLeakRequest) String() string {
 func (*SetLeakRequest) ProtoMessage() {}
 
 func (x *SetLeakRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[12]
+	mi := &file_stillsky_v1_control_proto_msgTypes[13]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -907,7 +1046,7 @@ func (x *SetLeakRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetLeakRequest.ProtoReflect.Descriptor instead.
 func (*SetLeakRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{12}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{13}
 }
 
 func (x *SetLeakRequest) GetLeak() float64 {
@@ -927,7 +1066,7 @@ type SetLeakResponse struct {
 
 func (x *SetLeakResponse) Reset() {
 	*x = SetLeakResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[13]
+	mi := &file_stillsky_v1_control_proto_msgTypes[14]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -939,7 +1078,7 @@ func (x *SetLeakResponse) String() string {
 func (*SetLeakResponse) ProtoMessage() {}
 
 func (x *SetLeakResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[13]
+	mi := &file_stillsky_v1_control_proto_msgTypes[14]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -952,7 +1091,7 @@ func (x *SetLeakResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetLeakResponse.ProtoReflect.Descriptor instead.
 func (*SetLeakResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{13}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{14}
 }
 
 func (x *SetLeakResponse) GetStatus() *GetStatusResponse {
@@ -972,7 +1111,7 @@ type SetModalGainsRequest struct {
 
 func (x *SetModalGainsRequest) Reset() {
 	*x = SetModalGainsRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[14]
+	mi := &file_stillsky_v1_control_proto_msgTypes[15]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -984,7 +1123,7 @@ func (x *SetModalGainsRequest) String() string {
 func (*SetModalGainsRequest) ProtoMessage() {}
 
 func (x *SetModalGainsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[14]
+	mi := &file_stillsky_v1_control_proto_msgTypes[15]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -997,7 +1136,7 @@ func (x *SetModalGainsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetModalGainsRequest.ProtoReflect.Descriptor instead.
 func (*SetModalGainsRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{14}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{15}
 }
 
 func (x *SetModalGainsRequest) GetGains() []float64 {
@@ -1017,7 +1156,7 @@ type SetModalGainsResponse struct {
 
 func (x *SetModalGainsResponse) Reset() {
 	*x = SetModalGainsResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[15]
+	mi := &file_stillsky_v1_control_proto_msgTypes[16]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1029,7 +1168,7 @@ func (x *SetModalGainsResponse) String() string {
 func (*SetModalGainsResponse) ProtoMessage() {}
 
 func (x *SetModalGainsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[15]
+	mi := &file_stillsky_v1_control_proto_msgTypes[16]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1042,7 +1181,7 @@ func (x *SetModalGainsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetModalGainsResponse.ProtoReflect.Descriptor instead.
 func (*SetModalGainsResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{15}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{16}
 }
 
 func (x *SetModalGainsResponse) GetStatus() *GetStatusResponse {
@@ -1086,7 +1225,7 @@ type CalibrateRequest struct {
 
 func (x *CalibrateRequest) Reset() {
 	*x = CalibrateRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[16]
+	mi := &file_stillsky_v1_control_proto_msgTypes[17]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1098,7 +1237,7 @@ func (x *CalibrateRequest) String() string {
 func (*CalibrateRequest) ProtoMessage() {}
 
 func (x *CalibrateRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[16]
+	mi := &file_stillsky_v1_control_proto_msgTypes[17]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1111,7 +1250,7 @@ func (x *CalibrateRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CalibrateRequest.ProtoReflect.Descriptor instead.
 func (*CalibrateRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{16}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{17}
 }
 
 func (x *CalibrateRequest) GetAmplitudeM() float64 {
@@ -1185,7 +1324,7 @@ type CalibrateResponse struct {
 
 func (x *CalibrateResponse) Reset() {
 	*x = CalibrateResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[17]
+	mi := &file_stillsky_v1_control_proto_msgTypes[18]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1197,7 +1336,7 @@ func (x *CalibrateResponse) String() string {
 func (*CalibrateResponse) ProtoMessage() {}
 
 func (x *CalibrateResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[17]
+	mi := &file_stillsky_v1_control_proto_msgTypes[18]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1210,7 +1349,7 @@ func (x *CalibrateResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CalibrateResponse.ProtoReflect.Descriptor instead.
 func (*CalibrateResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{17}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{18}
 }
 
 func (x *CalibrateResponse) GetPhase() string {
@@ -1250,7 +1389,7 @@ type SaveReconstructorRequest struct {
 
 func (x *SaveReconstructorRequest) Reset() {
 	*x = SaveReconstructorRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[18]
+	mi := &file_stillsky_v1_control_proto_msgTypes[19]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1262,7 +1401,7 @@ func (x *SaveReconstructorRequest) String() string {
 func (*SaveReconstructorRequest) ProtoMessage() {}
 
 func (x *SaveReconstructorRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[18]
+	mi := &file_stillsky_v1_control_proto_msgTypes[19]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1275,7 +1414,7 @@ func (x *SaveReconstructorRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SaveReconstructorRequest.ProtoReflect.Descriptor instead.
 func (*SaveReconstructorRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{18}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{19}
 }
 
 // SaveReconstructorResponse is one chunk of the FITS file, in order.
@@ -1288,7 +1427,7 @@ type SaveReconstructorResponse struct {
 
 func (x *SaveReconstructorResponse) Reset() {
 	*x = SaveReconstructorResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[19]
+	mi := &file_stillsky_v1_control_proto_msgTypes[20]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1300,7 +1439,7 @@ func (x *SaveReconstructorResponse) String() string {
 func (*SaveReconstructorResponse) ProtoMessage() {}
 
 func (x *SaveReconstructorResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[19]
+	mi := &file_stillsky_v1_control_proto_msgTypes[20]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1313,7 +1452,7 @@ func (x *SaveReconstructorResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SaveReconstructorResponse.ProtoReflect.Descriptor instead.
 func (*SaveReconstructorResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{19}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{20}
 }
 
 func (x *SaveReconstructorResponse) GetChunk() []byte {
@@ -1333,7 +1472,7 @@ type LoadReconstructorRequest struct {
 
 func (x *LoadReconstructorRequest) Reset() {
 	*x = LoadReconstructorRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[20]
+	mi := &file_stillsky_v1_control_proto_msgTypes[21]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1345,7 +1484,7 @@ func (x *LoadReconstructorRequest) String() string {
 func (*LoadReconstructorRequest) ProtoMessage() {}
 
 func (x *LoadReconstructorRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[20]
+	mi := &file_stillsky_v1_control_proto_msgTypes[21]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1358,7 +1497,7 @@ func (x *LoadReconstructorRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use LoadReconstructorRequest.ProtoReflect.Descriptor instead.
 func (*LoadReconstructorRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{20}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{21}
 }
 
 func (x *LoadReconstructorRequest) GetChunk() []byte {
@@ -1378,7 +1517,7 @@ type LoadReconstructorResponse struct {
 
 func (x *LoadReconstructorResponse) Reset() {
 	*x = LoadReconstructorResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[21]
+	mi := &file_stillsky_v1_control_proto_msgTypes[22]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1390,7 +1529,7 @@ func (x *LoadReconstructorResponse) String() string {
 func (*LoadReconstructorResponse) ProtoMessage() {}
 
 func (x *LoadReconstructorResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[21]
+	mi := &file_stillsky_v1_control_proto_msgTypes[22]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1403,7 +1542,7 @@ func (x *LoadReconstructorResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use LoadReconstructorResponse.ProtoReflect.Descriptor instead.
 func (*LoadReconstructorResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{21}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{22}
 }
 
 func (x *LoadReconstructorResponse) GetReconstructor() *ReconstructorInfo {
@@ -1424,7 +1563,7 @@ type StreamTelemetryRequest struct {
 
 func (x *StreamTelemetryRequest) Reset() {
 	*x = StreamTelemetryRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[22]
+	mi := &file_stillsky_v1_control_proto_msgTypes[23]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1436,7 +1575,7 @@ func (x *StreamTelemetryRequest) String() string {
 func (*StreamTelemetryRequest) ProtoMessage() {}
 
 func (x *StreamTelemetryRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[22]
+	mi := &file_stillsky_v1_control_proto_msgTypes[23]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1449,7 +1588,7 @@ func (x *StreamTelemetryRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamTelemetryRequest.ProtoReflect.Descriptor instead.
 func (*StreamTelemetryRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{22}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{23}
 }
 
 func (x *StreamTelemetryRequest) GetDecimation() uint32 {
@@ -1478,7 +1617,7 @@ type StreamTelemetryResponse struct {
 
 func (x *StreamTelemetryResponse) Reset() {
 	*x = StreamTelemetryResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[23]
+	mi := &file_stillsky_v1_control_proto_msgTypes[24]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1490,7 +1629,7 @@ func (x *StreamTelemetryResponse) String() string {
 func (*StreamTelemetryResponse) ProtoMessage() {}
 
 func (x *StreamTelemetryResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[23]
+	mi := &file_stillsky_v1_control_proto_msgTypes[24]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1503,7 +1642,7 @@ func (x *StreamTelemetryResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamTelemetryResponse.ProtoReflect.Descriptor instead.
 func (*StreamTelemetryResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{23}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{24}
 }
 
 func (x *StreamTelemetryResponse) GetFrameNumber() uint64 {
@@ -1582,7 +1721,7 @@ type OptimiseModalGainsRequest struct {
 
 func (x *OptimiseModalGainsRequest) Reset() {
 	*x = OptimiseModalGainsRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[24]
+	mi := &file_stillsky_v1_control_proto_msgTypes[25]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1594,7 +1733,7 @@ func (x *OptimiseModalGainsRequest) String() string {
 func (*OptimiseModalGainsRequest) ProtoMessage() {}
 
 func (x *OptimiseModalGainsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[24]
+	mi := &file_stillsky_v1_control_proto_msgTypes[25]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1607,7 +1746,7 @@ func (x *OptimiseModalGainsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use OptimiseModalGainsRequest.ProtoReflect.Descriptor instead.
 func (*OptimiseModalGainsRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{24}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{25}
 }
 
 func (x *OptimiseModalGainsRequest) GetFrames() uint32 {
@@ -1641,7 +1780,7 @@ type OptimiseModalGainsResponse struct {
 
 func (x *OptimiseModalGainsResponse) Reset() {
 	*x = OptimiseModalGainsResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[25]
+	mi := &file_stillsky_v1_control_proto_msgTypes[26]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1653,7 +1792,7 @@ func (x *OptimiseModalGainsResponse) String() string {
 func (*OptimiseModalGainsResponse) ProtoMessage() {}
 
 func (x *OptimiseModalGainsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[25]
+	mi := &file_stillsky_v1_control_proto_msgTypes[26]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1666,7 +1805,7 @@ func (x *OptimiseModalGainsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use OptimiseModalGainsResponse.ProtoReflect.Descriptor instead.
 func (*OptimiseModalGainsResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{25}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{26}
 }
 
 func (x *OptimiseModalGainsResponse) GetGains() []float64 {
@@ -1708,7 +1847,7 @@ type RecordTelemetryRequest struct {
 
 func (x *RecordTelemetryRequest) Reset() {
 	*x = RecordTelemetryRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[26]
+	mi := &file_stillsky_v1_control_proto_msgTypes[27]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1720,7 +1859,7 @@ func (x *RecordTelemetryRequest) String() string {
 func (*RecordTelemetryRequest) ProtoMessage() {}
 
 func (x *RecordTelemetryRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[26]
+	mi := &file_stillsky_v1_control_proto_msgTypes[27]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1733,7 +1872,7 @@ func (x *RecordTelemetryRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RecordTelemetryRequest.ProtoReflect.Descriptor instead.
 func (*RecordTelemetryRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{26}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{27}
 }
 
 func (x *RecordTelemetryRequest) GetFrameCount() uint64 {
@@ -1759,7 +1898,7 @@ type RecordTelemetryResponse struct {
 
 func (x *RecordTelemetryResponse) Reset() {
 	*x = RecordTelemetryResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[27]
+	mi := &file_stillsky_v1_control_proto_msgTypes[28]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1771,7 +1910,7 @@ func (x *RecordTelemetryResponse) String() string {
 func (*RecordTelemetryResponse) ProtoMessage() {}
 
 func (x *RecordTelemetryResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[27]
+	mi := &file_stillsky_v1_control_proto_msgTypes[28]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1784,7 +1923,7 @@ func (x *RecordTelemetryResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RecordTelemetryResponse.ProtoReflect.Descriptor instead.
 func (*RecordTelemetryResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{27}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{28}
 }
 
 func (x *RecordTelemetryResponse) GetContent() isRecordTelemetryResponse_Content {
@@ -1870,7 +2009,7 @@ type RecordingHeader struct {
 
 func (x *RecordingHeader) Reset() {
 	*x = RecordingHeader{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[28]
+	mi := &file_stillsky_v1_control_proto_msgTypes[29]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1882,7 +2021,7 @@ func (x *RecordingHeader) String() string {
 func (*RecordingHeader) ProtoMessage() {}
 
 func (x *RecordingHeader) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[28]
+	mi := &file_stillsky_v1_control_proto_msgTypes[29]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1895,7 +2034,7 @@ func (x *RecordingHeader) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RecordingHeader.ProtoReflect.Descriptor instead.
 func (*RecordingHeader) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{28}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{29}
 }
 
 func (x *RecordingHeader) GetCamera() *CameraServiceDescribeResponse {
@@ -1994,7 +2133,7 @@ type RecordedFrames struct {
 
 func (x *RecordedFrames) Reset() {
 	*x = RecordedFrames{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[29]
+	mi := &file_stillsky_v1_control_proto_msgTypes[30]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2006,7 +2145,7 @@ func (x *RecordedFrames) String() string {
 func (*RecordedFrames) ProtoMessage() {}
 
 func (x *RecordedFrames) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[29]
+	mi := &file_stillsky_v1_control_proto_msgTypes[30]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2019,7 +2158,7 @@ func (x *RecordedFrames) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RecordedFrames.ProtoReflect.Descriptor instead.
 func (*RecordedFrames) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{29}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{30}
 }
 
 func (x *RecordedFrames) GetFrameNumbers() []uint64 {
@@ -2104,7 +2243,7 @@ var File_stillsky_v1_control_proto protoreflect.FileDescriptor
 const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\n" +
 	"\x19stillsky/v1/control.proto\x12\vstillsky.v1\x1a\x18stillsky/v1/camera.proto\x1a\x18stillsky/v1/mirror.proto\"\x12\n" +
-	"\x10GetStatusRequest\"\xca\a\n" +
+	"\x10GetStatusRequest\"\x81\b\n" +
 	"\x11GetStatusResponse\x12,\n" +
 	"\x05state\x18\x01 \x01(\x0e2\x16.stillsky.v1.LoopStateR\x05state\x12\x12\n" +
 	"\x04gain\x18\x02 \x01(\x01R\x04gain\x12\x12\n" +
@@ -2131,7 +2270,21 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x0finterlock_trips\x18\x13 \x01(\x04R\x0einterlockTrips\x12%\n" +
 	"\x0elast_interlock\x18\x14 \x01(\tR\rlastInterlock\x12)\n" +
 	"\x10camera_connected\x18\x15 \x01(\bR\x0fcameraConnected\x12)\n" +
-	"\x10mirror_connected\x18\x16 \x01(\bR\x0fmirrorConnected\"p\n" +
+	"\x10mirror_connected\x18\x16 \x01(\bR\x0fmirrorConnected\x125\n" +
+	"\btip_tilt\x18\x17 \x01(\v2\x1a.stillsky.v1.TipTiltStatusR\atipTilt\"\xd4\x02\n" +
+	"\rTipTiltStatus\x12\x1c\n" +
+	"\tconnected\x18\x01 \x01(\bR\tconnected\x12\x16\n" +
+	"\x06frames\x18\x02 \x01(\x04R\x06frames\x12\x1a\n" +
+	"\bcommands\x18\x03 \x01(\x04R\bcommands\x12(\n" +
+	"\x10residual_rms_rad\x18\x04 \x01(\x01R\x0eresidualRmsRad\x12\"\n" +
+	"\rcommand_x_rad\x18\x05 \x01(\x01R\vcommandXRad\x12\"\n" +
+	"\rcommand_y_rad\x18\x06 \x01(\x01R\vcommandYRad\x12\x1d\n" +
+	"\n" +
+	"stroke_rad\x18\a \x01(\x01R\tstrokeRad\x12)\n" +
+	"\x10saturated_frames\x18\b \x01(\x04R\x0fsaturatedFrames\x12\x12\n" +
+	"\x04gain\x18\t \x01(\x01R\x04gain\x12!\n" +
+	"\foffload_gain\x18\n" +
+	" \x01(\x01R\voffloadGain\"p\n" +
 	"\x0eLatencySummary\x12\x10\n" +
 	"\x03p50\x18\x01 \x01(\x01R\x03p50\x12\x10\n" +
 	"\x03p99\x18\x02 \x01(\x01R\x03p99\x12\x12\n" +
@@ -2288,94 +2441,96 @@ func file_stillsky_v1_control_proto_rawDescGZIP() []byte {
 }
 
 var file_stillsky_v1_control_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
-var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 30)
+var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 31)
 var file_stillsky_v1_control_proto_goTypes = []any{
 	(LoopState)(0),                        // 0: stillsky.v1.LoopState
 	(*GetStatusRequest)(nil),              // 1: stillsky.v1.GetStatusRequest
 	(*GetStatusResponse)(nil),             // 2: stillsky.v1.GetStatusResponse
-	(*LatencySummary)(nil),                // 3: stillsky.v1.LatencySummary
-	(*ReconstructorInfo)(nil),             // 4: stillsky.v1.ReconstructorInfo
-	(*OpenLoopRequest)(nil),               // 5: stillsky.v1.OpenLoopRequest
-	(*OpenLoopResponse)(nil),              // 6: stillsky.v1.OpenLoopResponse
-	(*CloseLoopRequest)(nil),              // 7: stillsky.v1.CloseLoopRequest
-	(*CloseLoopResponse)(nil),             // 8: stillsky.v1.CloseLoopResponse
-	(*HoldLoopRequest)(nil),               // 9: stillsky.v1.HoldLoopRequest
-	(*HoldLoopResponse)(nil),              // 10: stillsky.v1.HoldLoopResponse
-	(*SetGainRequest)(nil),                // 11: stillsky.v1.SetGainRequest
-	(*SetGainResponse)(nil),               // 12: stillsky.v1.SetGainResponse
-	(*SetLeakRequest)(nil),                // 13: stillsky.v1.SetLeakRequest
-	(*SetLeakResponse)(nil),               // 14: stillsky.v1.SetLeakResponse
-	(*SetModalGainsRequest)(nil),          // 15: stillsky.v1.SetModalGainsRequest
-	(*SetModalGainsResponse)(nil),         // 16: stillsky.v1.SetModalGainsResponse
-	(*CalibrateRequest)(nil),              // 17: stillsky.v1.CalibrateRequest
-	(*CalibrateResponse)(nil),             // 18: stillsky.v1.CalibrateResponse
-	(*SaveReconstructorRequest)(nil),      // 19: stillsky.v1.SaveReconstructorRequest
-	(*SaveReconstructorResponse)(nil),     // 20: stillsky.v1.SaveReconstructorResponse
-	(*LoadReconstructorRequest)(nil),      // 21: stillsky.v1.LoadReconstructorRequest
-	(*LoadReconstructorResponse)(nil),     // 22: stillsky.v1.LoadReconstructorResponse
-	(*StreamTelemetryRequest)(nil),        // 23: stillsky.v1.StreamTelemetryRequest
-	(*StreamTelemetryResponse)(nil),       // 24: stillsky.v1.StreamTelemetryResponse
-	(*OptimiseModalGainsRequest)(nil),     // 25: stillsky.v1.OptimiseModalGainsRequest
-	(*OptimiseModalGainsResponse)(nil),    // 26: stillsky.v1.OptimiseModalGainsResponse
-	(*RecordTelemetryRequest)(nil),        // 27: stillsky.v1.RecordTelemetryRequest
-	(*RecordTelemetryResponse)(nil),       // 28: stillsky.v1.RecordTelemetryResponse
-	(*RecordingHeader)(nil),               // 29: stillsky.v1.RecordingHeader
-	(*RecordedFrames)(nil),                // 30: stillsky.v1.RecordedFrames
-	(*CameraServiceDescribeResponse)(nil), // 31: stillsky.v1.CameraServiceDescribeResponse
-	(*MirrorServiceDescribeResponse)(nil), // 32: stillsky.v1.MirrorServiceDescribeResponse
+	(*TipTiltStatus)(nil),                 // 3: stillsky.v1.TipTiltStatus
+	(*LatencySummary)(nil),                // 4: stillsky.v1.LatencySummary
+	(*ReconstructorInfo)(nil),             // 5: stillsky.v1.ReconstructorInfo
+	(*OpenLoopRequest)(nil),               // 6: stillsky.v1.OpenLoopRequest
+	(*OpenLoopResponse)(nil),              // 7: stillsky.v1.OpenLoopResponse
+	(*CloseLoopRequest)(nil),              // 8: stillsky.v1.CloseLoopRequest
+	(*CloseLoopResponse)(nil),             // 9: stillsky.v1.CloseLoopResponse
+	(*HoldLoopRequest)(nil),               // 10: stillsky.v1.HoldLoopRequest
+	(*HoldLoopResponse)(nil),              // 11: stillsky.v1.HoldLoopResponse
+	(*SetGainRequest)(nil),                // 12: stillsky.v1.SetGainRequest
+	(*SetGainResponse)(nil),               // 13: stillsky.v1.SetGainResponse
+	(*SetLeakRequest)(nil),                // 14: stillsky.v1.SetLeakRequest
+	(*SetLeakResponse)(nil),               // 15: stillsky.v1.SetLeakResponse
+	(*SetModalGainsRequest)(nil),          // 16: stillsky.v1.SetModalGainsRequest
+	(*SetModalGainsResponse)(nil),         // 17: stillsky.v1.SetModalGainsResponse
+	(*CalibrateRequest)(nil),              // 18: stillsky.v1.CalibrateRequest
+	(*CalibrateResponse)(nil),             // 19: stillsky.v1.CalibrateResponse
+	(*SaveReconstructorRequest)(nil),      // 20: stillsky.v1.SaveReconstructorRequest
+	(*SaveReconstructorResponse)(nil),     // 21: stillsky.v1.SaveReconstructorResponse
+	(*LoadReconstructorRequest)(nil),      // 22: stillsky.v1.LoadReconstructorRequest
+	(*LoadReconstructorResponse)(nil),     // 23: stillsky.v1.LoadReconstructorResponse
+	(*StreamTelemetryRequest)(nil),        // 24: stillsky.v1.StreamTelemetryRequest
+	(*StreamTelemetryResponse)(nil),       // 25: stillsky.v1.StreamTelemetryResponse
+	(*OptimiseModalGainsRequest)(nil),     // 26: stillsky.v1.OptimiseModalGainsRequest
+	(*OptimiseModalGainsResponse)(nil),    // 27: stillsky.v1.OptimiseModalGainsResponse
+	(*RecordTelemetryRequest)(nil),        // 28: stillsky.v1.RecordTelemetryRequest
+	(*RecordTelemetryResponse)(nil),       // 29: stillsky.v1.RecordTelemetryResponse
+	(*RecordingHeader)(nil),               // 30: stillsky.v1.RecordingHeader
+	(*RecordedFrames)(nil),                // 31: stillsky.v1.RecordedFrames
+	(*CameraServiceDescribeResponse)(nil), // 32: stillsky.v1.CameraServiceDescribeResponse
+	(*MirrorServiceDescribeResponse)(nil), // 33: stillsky.v1.MirrorServiceDescribeResponse
 }
 var file_stillsky_v1_control_proto_depIdxs = []int32{
 	0,  // 0: stillsky.v1.GetStatusResponse.state:type_name -> stillsky.v1.LoopState
-	4,  // 1: stillsky.v1.GetStatusResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
-	3,  // 2: stillsky.v1.GetStatusResponse.rtc_latency:type_name -> stillsky.v1.LatencySummary
-	3,  // 3: stillsky.v1.GetStatusResponse.end_to_end_latency:type_name -> stillsky.v1.LatencySummary
-	2,  // 4: stillsky.v1.OpenLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 5: stillsky.v1.CloseLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 6: stillsky.v1.HoldLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 7: stillsky.v1.SetGainResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 8: stillsky.v1.SetLeakResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 9: stillsky.v1.SetModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	4,  // 10: stillsky.v1.CalibrateResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
-	4,  // 11: stillsky.v1.LoadReconstructorResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
-	0,  // 12: stillsky.v1.StreamTelemetryResponse.state:type_name -> stillsky.v1.LoopState
-	2,  // 13: stillsky.v1.OptimiseModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	29, // 14: stillsky.v1.RecordTelemetryResponse.header:type_name -> stillsky.v1.RecordingHeader
-	30, // 15: stillsky.v1.RecordTelemetryResponse.frames:type_name -> stillsky.v1.RecordedFrames
-	31, // 16: stillsky.v1.RecordingHeader.camera:type_name -> stillsky.v1.CameraServiceDescribeResponse
-	32, // 17: stillsky.v1.RecordingHeader.mirror:type_name -> stillsky.v1.MirrorServiceDescribeResponse
-	4,  // 18: stillsky.v1.RecordingHeader.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
-	0,  // 19: stillsky.v1.RecordedFrames.states:type_name -> stillsky.v1.LoopState
-	1,  // 20: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
-	5,  // 21: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
-	7,  // 22: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
-	9,  // 23: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
-	11, // 24: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
-	13, // 25: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
-	15, // 26: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
-	17, // 27: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
-	19, // 28: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
-	21, // 29: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
-	23, // 30: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
-	25, // 31: stillsky.v1.ControlService.OptimiseModalGains:input_type -> stillsky.v1.OptimiseModalGainsRequest
-	27, // 32: stillsky.v1.ControlService.RecordTelemetry:input_type -> stillsky.v1.RecordTelemetryRequest
-	2,  // 33: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
-	6,  // 34: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
-	8,  // 35: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
-	10, // 36: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
-	12, // 37: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
-	14, // 38: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
-	16, // 39: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
-	18, // 40: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
-	20, // 41: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
-	22, // 42: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
-	24, // 43: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
-	26, // 44: stillsky.v1.ControlService.OptimiseModalGains:output_type -> stillsky.v1.OptimiseModalGainsResponse
-	28, // 45: stillsky.v1.ControlService.RecordTelemetry:output_type -> stillsky.v1.RecordTelemetryResponse
-	33, // [33:46] is the sub-list for method output_type
-	20, // [20:33] is the sub-list for method input_type
-	20, // [20:20] is the sub-list for extension type_name
-	20, // [20:20] is the sub-list for extension extendee
-	0,  // [0:20] is the sub-list for field type_name
+	5,  // 1: stillsky.v1.GetStatusResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	4,  // 2: stillsky.v1.GetStatusResponse.rtc_latency:type_name -> stillsky.v1.LatencySummary
+	4,  // 3: stillsky.v1.GetStatusResponse.end_to_end_latency:type_name -> stillsky.v1.LatencySummary
+	3,  // 4: stillsky.v1.GetStatusResponse.tip_tilt:type_name -> stillsky.v1.TipTiltStatus
+	2,  // 5: stillsky.v1.OpenLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	2,  // 6: stillsky.v1.CloseLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	2,  // 7: stillsky.v1.HoldLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	2,  // 8: stillsky.v1.SetGainResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	2,  // 9: stillsky.v1.SetLeakResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	2,  // 10: stillsky.v1.SetModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	5,  // 11: stillsky.v1.CalibrateResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	5,  // 12: stillsky.v1.LoadReconstructorResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	0,  // 13: stillsky.v1.StreamTelemetryResponse.state:type_name -> stillsky.v1.LoopState
+	2,  // 14: stillsky.v1.OptimiseModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	30, // 15: stillsky.v1.RecordTelemetryResponse.header:type_name -> stillsky.v1.RecordingHeader
+	31, // 16: stillsky.v1.RecordTelemetryResponse.frames:type_name -> stillsky.v1.RecordedFrames
+	32, // 17: stillsky.v1.RecordingHeader.camera:type_name -> stillsky.v1.CameraServiceDescribeResponse
+	33, // 18: stillsky.v1.RecordingHeader.mirror:type_name -> stillsky.v1.MirrorServiceDescribeResponse
+	5,  // 19: stillsky.v1.RecordingHeader.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	0,  // 20: stillsky.v1.RecordedFrames.states:type_name -> stillsky.v1.LoopState
+	1,  // 21: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
+	6,  // 22: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
+	8,  // 23: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
+	10, // 24: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
+	12, // 25: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
+	14, // 26: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
+	16, // 27: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
+	18, // 28: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
+	20, // 29: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
+	22, // 30: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
+	24, // 31: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
+	26, // 32: stillsky.v1.ControlService.OptimiseModalGains:input_type -> stillsky.v1.OptimiseModalGainsRequest
+	28, // 33: stillsky.v1.ControlService.RecordTelemetry:input_type -> stillsky.v1.RecordTelemetryRequest
+	2,  // 34: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
+	7,  // 35: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
+	9,  // 36: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
+	11, // 37: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
+	13, // 38: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
+	15, // 39: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
+	17, // 40: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
+	19, // 41: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
+	21, // 42: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
+	23, // 43: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
+	25, // 44: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
+	27, // 45: stillsky.v1.ControlService.OptimiseModalGains:output_type -> stillsky.v1.OptimiseModalGainsResponse
+	29, // 46: stillsky.v1.ControlService.RecordTelemetry:output_type -> stillsky.v1.RecordTelemetryResponse
+	34, // [34:47] is the sub-list for method output_type
+	21, // [21:34] is the sub-list for method input_type
+	21, // [21:21] is the sub-list for extension type_name
+	21, // [21:21] is the sub-list for extension extendee
+	0,  // [0:21] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_control_proto_init() }
@@ -2385,7 +2540,7 @@ func file_stillsky_v1_control_proto_init() {
 	}
 	file_stillsky_v1_camera_proto_init()
 	file_stillsky_v1_mirror_proto_init()
-	file_stillsky_v1_control_proto_msgTypes[27].OneofWrappers = []any{
+	file_stillsky_v1_control_proto_msgTypes[28].OneofWrappers = []any{
 		(*RecordTelemetryResponse_Header)(nil),
 		(*RecordTelemetryResponse_Frames)(nil),
 		(*RecordTelemetryResponse_ReconstructorChunk)(nil),
@@ -2396,7 +2551,7 @@ func file_stillsky_v1_control_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_control_proto_rawDesc), len(file_stillsky_v1_control_proto_rawDesc)),
 			NumEnums:      1,
-			NumMessages:   30,
+			NumMessages:   31,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

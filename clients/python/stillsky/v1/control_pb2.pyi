@@ -61,7 +61,7 @@ class GetStatusRequest(_message.Message):
     def __init__(self) -> None: ...
 
 class GetStatusResponse(_message.Message):
-    __slots__ = ["actuator_count", "camera_connected", "end_to_end_latency", "frame_rate_hz", "frames", "frames_dropped", "frames_rejected", "gain", "interlock_trips", "last_frame", "last_interlock", "leak", "mirror_connected", "reconstructor", "residual_slope_rms_rad", "residual_wavefront_rms_m", "rtc_latency", "saturated_actuators", "science_wavelength_m", "slope_count", "state", "strehl_estimate"]
+    __slots__ = ["actuator_count", "camera_connected", "end_to_end_latency", "frame_rate_hz", "frames", "frames_dropped", "frames_rejected", "gain", "interlock_trips", "last_frame", "last_interlock", "leak", "mirror_connected", "reconstructor", "residual_slope_rms_rad", "residual_wavefront_rms_m", "rtc_latency", "saturated_actuators", "science_wavelength_m", "slope_count", "state", "strehl_estimate", "tip_tilt"]
     ACTUATOR_COUNT_FIELD_NUMBER: _ClassVar[int]
     CAMERA_CONNECTED_FIELD_NUMBER: _ClassVar[int]
     END_TO_END_LATENCY_FIELD_NUMBER: _ClassVar[int]
@@ -84,6 +84,7 @@ class GetStatusResponse(_message.Message):
     SLOPE_COUNT_FIELD_NUMBER: _ClassVar[int]
     STATE_FIELD_NUMBER: _ClassVar[int]
     STREHL_ESTIMATE_FIELD_NUMBER: _ClassVar[int]
+    TIP_TILT_FIELD_NUMBER: _ClassVar[int]
     actuator_count: int
     camera_connected: bool
     end_to_end_latency: LatencySummary
@@ -106,7 +107,8 @@ class GetStatusResponse(_message.Message):
     slope_count: int
     state: LoopState
     strehl_estimate: float
-    def __init__(self, state: _Optional[_Union[LoopState, str]] = ..., gain: _Optional[float] = ..., leak: _Optional[float] = ..., frames: _Optional[int] = ..., frames_dropped: _Optional[int] = ..., frames_rejected: _Optional[int] = ..., last_frame: _Optional[int] = ..., slope_count: _Optional[int] = ..., actuator_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., reconstructor: _Optional[_Union[ReconstructorInfo, _Mapping]] = ..., residual_slope_rms_rad: _Optional[float] = ..., residual_wavefront_rms_m: _Optional[float] = ..., strehl_estimate: _Optional[float] = ..., science_wavelength_m: _Optional[float] = ..., saturated_actuators: _Optional[int] = ..., rtc_latency: _Optional[_Union[LatencySummary, _Mapping]] = ..., end_to_end_latency: _Optional[_Union[LatencySummary, _Mapping]] = ..., interlock_trips: _Optional[int] = ..., last_interlock: _Optional[str] = ..., camera_connected: bool = ..., mirror_connected: bool = ...) -> None: ...
+    tip_tilt: TipTiltStatus
+    def __init__(self, state: _Optional[_Union[LoopState, str]] = ..., gain: _Optional[float] = ..., leak: _Optional[float] = ..., frames: _Optional[int] = ..., frames_dropped: _Optional[int] = ..., frames_rejected: _Optional[int] = ..., last_frame: _Optional[int] = ..., slope_count: _Optional[int] = ..., actuator_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., reconstructor: _Optional[_Union[ReconstructorInfo, _Mapping]] = ..., residual_slope_rms_rad: _Optional[float] = ..., residual_wavefront_rms_m: _Optional[float] = ..., strehl_estimate: _Optional[float] = ..., science_wavelength_m: _Optional[float] = ..., saturated_actuators: _Optional[int] = ..., rtc_latency: _Optional[_Union[LatencySummary, _Mapping]] = ..., end_to_end_latency: _Optional[_Union[LatencySummary, _Mapping]] = ..., interlock_trips: _Optional[int] = ..., last_interlock: _Optional[str] = ..., camera_connected: bool = ..., mirror_connected: bool = ..., tip_tilt: _Optional[_Union[TipTiltStatus, _Mapping]] = ...) -> None: ...
 
 class HoldLoopRequest(_message.Message):
     __slots__ = []
@@ -335,6 +337,30 @@ class StreamTelemetryResponse(_message.Message):
     state: LoopState
     strehl_estimate: float
     def __init__(self, frame_number: _Optional[int] = ..., state: _Optional[_Union[LoopState, str]] = ..., slopes: _Optional[_Iterable[float]] = ..., commands: _Optional[_Iterable[float]] = ..., residual_slope_rms_rad: _Optional[float] = ..., residual_wavefront_rms_m: _Optional[float] = ..., strehl_estimate: _Optional[float] = ..., saturated_actuators: _Optional[int] = ..., rtc_latency_s: _Optional[float] = ...) -> None: ...
+
+class TipTiltStatus(_message.Message):
+    __slots__ = ["command_x_rad", "command_y_rad", "commands", "connected", "frames", "gain", "offload_gain", "residual_rms_rad", "saturated_frames", "stroke_rad"]
+    COMMANDS_FIELD_NUMBER: _ClassVar[int]
+    COMMAND_X_RAD_FIELD_NUMBER: _ClassVar[int]
+    COMMAND_Y_RAD_FIELD_NUMBER: _ClassVar[int]
+    CONNECTED_FIELD_NUMBER: _ClassVar[int]
+    FRAMES_FIELD_NUMBER: _ClassVar[int]
+    GAIN_FIELD_NUMBER: _ClassVar[int]
+    OFFLOAD_GAIN_FIELD_NUMBER: _ClassVar[int]
+    RESIDUAL_RMS_RAD_FIELD_NUMBER: _ClassVar[int]
+    SATURATED_FRAMES_FIELD_NUMBER: _ClassVar[int]
+    STROKE_RAD_FIELD_NUMBER: _ClassVar[int]
+    command_x_rad: float
+    command_y_rad: float
+    commands: int
+    connected: bool
+    frames: int
+    gain: float
+    offload_gain: float
+    residual_rms_rad: float
+    saturated_frames: int
+    stroke_rad: float
+    def __init__(self, connected: bool = ..., frames: _Optional[int] = ..., commands: _Optional[int] = ..., residual_rms_rad: _Optional[float] = ..., command_x_rad: _Optional[float] = ..., command_y_rad: _Optional[float] = ..., stroke_rad: _Optional[float] = ..., saturated_frames: _Optional[int] = ..., gain: _Optional[float] = ..., offload_gain: _Optional[float] = ...) -> None: ...
 
 class LoopState(int, metaclass=_enum_type_wrapper.EnumTypeWrapper):
     __slots__ = []

@@ -390,6 +390,11 @@ func WriteStatus(out io.Writer, s *stillskyv1.GetStatusResponse) {
 		trip = "none"
 	}
 	fmt.Fprintf(out, "interlocks      %d trips (last: %s)\n", s.GetInterlockTrips(), trip)
+	if t := s.GetTipTilt(); t != nil {
+		fmt.Fprintf(out, "tip-tilt        devices %s; %d frames, %d commands; residual %.3g µrad rms; command (%.3g, %.3g) µrad of ±%.3g; %d saturated frames; gain %.3g, offload %.3g\n",
+			upDown(t.GetConnected()), t.GetFrames(), t.GetCommands(), t.GetResidualRmsRad()*1e6, t.GetCommandXRad()*1e6, t.GetCommandYRad()*1e6,
+			t.GetStrokeRad()*1e6, t.GetSaturatedFrames(), t.GetGain(), t.GetOffloadGain())
+	}
 }
 
 func upDown(b bool) string {
