@@ -25,6 +25,9 @@ type BudgetSummary struct {
 	// TruthR0M and TruthTau0S are the scenario's r0 (500 nm, zenith) and τ0.
 	TruthR0M   float64 `json:"truth_r0_m"`
 	TruthTau0S float64 `json:"truth_tau0_s"`
+	// TipTiltApart says tip and tilt are corrected by the tip-tilt loop and
+	// left out of the budget.
+	TipTiltApart bool `json:"tip_tilt_apart,omitempty"`
 }
 
 // predictBudget computes the budget of the run; nil when it cannot (no
@@ -43,12 +46,18 @@ func predictBudget(scn *scenario.Scenario, r *rig.Rig, gain, leak float64) *Budg
 		return nil
 	}
 	in.Loop.Leak = leak
+	if scn.TipTilt != nil && len(in.LowOrder) >= 2 {
+		// The high-order reconstructor ignores the sensor's tip-tilt (Noll 2
+		// and 3): the tip-tilt loop corrects them, and its residual is not in
+		// this budget.
+		in.LowOrder[0], in.LowOrder[1] = 1, 1
+	}
 	b, err := analysis.Compute(in)
 	if err != nil {
 		return nil
 	}
 	t := budgetsim.Turbulence(scn)
-	s := &BudgetSummary{Predicted: b, TruthR0M: t.R0, TruthTau0S: t.Tau0()}
+	s := &BudgetSummary{Predicted: b, TruthR0M: t.R0, TruthTau0S: t.Tau0(), TipTiltApart: scn.TipTilt != nil}
 	if a := r.Loop.LatestAnalysis(); a != nil {
 		s.Live, s.LiveTurbulence = a.Budget, a.Turbulence
 	}
@@ -64,6 +73,9 @@ func (s *BudgetSummary) write(out io.Writer, measured float64) {
 	fmt.Fprintf(out, "  error budget (rad² at the science wavelength): fitting %.4f + aliasing %.4f + low order %.4f + servo %.4f + noise %.4f = %.4f (%.0f nm)\n",
 		b.Fitting, b.Aliasing, b.LowOrder, b.Servo, b.Noise, b.Total, b.NM(b.Total))
 	fmt.Fprintf(out, "  Strehl predicted (Maréchal) %.3f, measured (long exposure) %.3f\n", b.Strehl, measured)
+	if s.TipTiltApart {
+		fmt.Fprintf(out, "  (tip and tilt are the tip-tilt loop's: the budget counts them corrected and leaves out its residual)\n")
+	}
 	if t := s.LiveTurbulence; t.Frames > 0 {
 		fmt.Fprintf(out, "  loop's own estimate: r0 %.3f m (scenario %.3f m), τ0 %.2f ms (scenario %.2f ms), L0 %.0f m; its budget %.4f rad², Strehl %.3f\n",
 			t.R0, s.TruthR0M, t.Tau0*1e3, s.TruthTau0S*1e3, t.L0, s.Live.Total, s.Live.Strehl)

@@ -119,6 +119,46 @@ type Summary struct {
 	// Interrupted says the run was stopped early (Ctrl-C): the frames are those
 	// run, and the figures are of those frames.
 	Interrupted bool `json:"interrupted,omitempty"`
+	// TipTilt is the tip-tilt loop at the end of the run, for scenarios with
+	// a natural-star tip-tilt sensor and a tip-tilt mirror (nil without).
+	TipTilt *TipTiltSummary `json:"tip_tilt,omitempty"`
+}
+
+// TipTiltSummary is the tip-tilt loop's part of the summary.
+type TipTiltSummary struct {
+	Frames          uint64  `json:"frames"`
+	Commands        uint64  `json:"commands"`
+	ResidualRMSMas  float64 `json:"residual_rms_mas"`
+	StrokeUsed      float64 `json:"stroke_used"`
+	SaturatedFrames uint64  `json:"saturated_frames"`
+	Gain            float64 `json:"gain"`
+	OffloadGain     float64 `json:"offload_gain"`
+}
+
+// mas is a milliarcsecond in radians.
+const mas = math.Pi / (180 * 3600 * 1000)
+
+func tipTiltSummary(t *stillskyv1.TipTiltStatus) *TipTiltSummary {
+	if t == nil {
+		return nil
+	}
+	s := &TipTiltSummary{Frames: t.GetFrames(), Commands: t.GetCommands(), ResidualRMSMas: t.GetResidualRmsRad() / mas,
+		SaturatedFrames: t.GetSaturatedFrames(), Gain: t.GetGain(), OffloadGain: t.GetOffloadGain()}
+	if st := t.GetStrokeRad(); st > 0 {
+		s.StrokeUsed = math.Max(math.Abs(t.GetCommandXRad()), math.Abs(t.GetCommandYRad())) / st
+	}
+	return s
+}
+
+// tipTiltText is the tip-tilt loop's part of a status line ("" without one).
+func tipTiltText(t *stillskyv1.TipTiltStatus) string {
+	if t == nil {
+		return ""
+	}
+	if !t.GetConnected() {
+		return "  tip-tilt not connected"
+	}
+	return fmt.Sprintf("  tip-tilt residual %5.1f mas cmd (%6.1f, %6.1f) mas", t.GetResidualRmsRad()/mas, t.GetCommandXRad()/mas, t.GetCommandYRad()/mas)
 }
 
 // ErrInterrupted is returned, with the summary of what ran, when the run's
@@ -217,6 +257,10 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	}
 	fmt.Fprintf(c.Out, "bench camera %s, mirror %s; loop control %s, metrics http://%s/metrics, live view http://%s/\n",
 		r.Devices.Camera, r.Devices.Mirror, r.ControlAddr, r.Loop.MetricsAddr(), r.Loop.MetricsAddr())
+	if t := scn.TipTilt; t != nil {
+		fmt.Fprintf(c.Out, "tip-tilt loop: natural star of magnitude %g at %g Hz (%s), tip-tilt mirror ±%.2f arcsec; the high-order loop ignores the laser sensor's tip-tilt and offloads its mirror's to the tip-tilt mirror\n",
+			t.Magnitude, t.FrameRate, r.Devices.TipTilt, t.Stroke/mas/1000)
+	}
 
 	st, err := run(ctx, c, r, sum)
 	if err != nil && ctx.Err() != nil {
@@ -234,6 +278,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 		sum.FinalLoopState = stateName(st.GetState())
 		sum.Gain = st.GetGain()
 		sum.Budget = predictBudget(scn, r, sum.Gain, st.GetLeak())
+		sum.TipTilt = tipTiltSummary(st.GetTipTilt())
 	}
 	if cerr := r.Close(); err == nil {
 		err = cerr
@@ -465,9 +510,10 @@ func runPhaseFrom(ctx context.Context, c stillskyv1.ControlServiceClient, b *ben
 			rate := float64(s.GetFrames()-lastFrames) / now.Sub(lastT).Seconds()
 			rms, strehl := b.Latest()
 			l := s.GetRtcLatency()
-			fmt.Fprintf(out, "  %-8s %6.0f frames/s  rtc p50 %5.1f µs p99 %6.1f µs  residual %6.1f nm (true %6.1f nm)  Strehl est %.3f true %.3f%s\n",
+			fmt.Fprintf(out, "  %-8s %6.0f frames/s  rtc p50 %5.1f µs p99 %6.1f µs  residual %6.1f nm (true %6.1f nm)  Strehl est %.3f true %.3f%s%s\n",
 				stateName(s.GetState()), rate, l.GetP50()*1e6, l.GetP99()*1e6,
-				s.GetResidualWavefrontRmsM()*1e9, rms*1e9, s.GetStrehlEstimate(), strehl, contrastText(b.LatestContrast(), "  contrast "))
+				s.GetResidualWavefrontRmsM()*1e9, rms*1e9, s.GetStrehlEstimate(), strehl, contrastText(b.LatestContrast(), "  contrast "),
+				tipTiltText(s.GetTipTilt()))
 			lastLine, lastFrames, lastT = now, s.GetFrames(), now
 		}
 	}
@@ -512,6 +558,10 @@ func writeTable(out io.Writer, s *Summary) {
 	fmt.Fprintf(out, "  rtc latency (µs)             p50 %.1f  p99 %.1f  p99.9 %.1f  max %.1f\n", s.RTCLatencyUs.P50, s.RTCLatencyUs.P99, s.RTCLatencyUs.P999, s.RTCLatencyUs.Max)
 	fmt.Fprintf(out, "  end-to-end latency (µs)      p50 %.1f  p99 %.1f  p99.9 %.1f  max %.1f\n", s.EndToEndLatencyUs.P50, s.EndToEndLatencyUs.P99, s.EndToEndLatencyUs.P999, s.EndToEndLatencyUs.Max)
 	fmt.Fprintf(out, "  frames dropped %d, rejected %d; interlock trips %d; final state %s\n", s.FramesDropped, s.FramesRejected, s.InterlockTrips, s.FinalLoopState)
+	if t := s.TipTilt; t != nil {
+		fmt.Fprintf(out, "  tip-tilt loop                %d frames, %d commands; residual %.1f mas rms; stroke used %.0f %%, %d saturated frames; gain %.2f, offload %.2f\n",
+			t.Frames, t.Commands, t.ResidualRMSMas, 100*t.StrokeUsed, t.SaturatedFrames, t.Gain, t.OffloadGain)
+	}
 	s.Budget.write(out, s.StrehlClosed)
 	if s.NotRealTime != "" {
 		fmt.Fprintf(out, "  ran lockstep, not in real time: %s\n", s.NotRealTime)
