@@ -50,6 +50,10 @@ func (k kernel) windows(c *Calibration, frame []uint16, base int, idx []int32, s
 		windowsAVX2(c, frame, base, idx, slopes, f)
 		return
 	}
+	if c.layout.Pixels == 8 {
+		windowsGo8(c, frame, base, idx, slopes, work, f)
+		return
+	}
 	windowsGo(c, frame, base, idx, slopes, work, f)
 }
 
@@ -165,27 +169,36 @@ func windowsGo(c *Calibration, frame []uint16, base int, idx []int32, slopes, wo
 		if c.hotRatio > 0 && peak > 0 && c.isHot(work, pk, peak) {
 			f.Hot++
 		}
+		// Clip and weight rows y and p−1−y, then pair them (step 4). A
+		// clipped value is v − thr or 0, as max(v − thr, 0): v − thr is never
+		// −0 when thr > 0.
 		thr := float32(c.threshold) * peak
-		switch {
-		case c.method == WCoG && thr > 0:
-			for j, v := range work {
-				work[j] = max(v-thr, 0) * c.weight[j]
-			}
-		case c.method == WCoG:
-			for j, v := range work {
-				work[j] = v * c.weight[j]
-			}
-		case thr > 0:
-			for j, v := range work {
-				work[j] = max(v-thr, 0)
-			}
-		}
+		clip, wcog := thr > 0, c.method == WCoG
 		h := p / 2
-		for y := range h {
+		for y := range h + p%2 {
 			a, b := work[y*p:y*p+p], work[(p-1-y)*p:(p-y)*p]
+			wa, wb := c.weight[y*p:y*p+p], c.weight[(p-1-y)*p:(p-y)*p]
+			b, wa, wb = b[:len(a)], wa[:len(a)], wb[:len(a)]
 			ys := xs[y]
 			for j := range a {
-				a[j], b[j] = a[j]+b[j], float32(ys*(a[j]-b[j]))
+				u, v := a[j], b[j]
+				if clip {
+					if u -= thr; u < 0 {
+						u = 0
+					}
+					if v -= thr; v < 0 {
+						v = 0
+					}
+				}
+				if wcog {
+					u *= wa[j]
+					v *= wb[j]
+				}
+				if y == h { // the middle row of an odd p pairs with nothing
+					a[j] = u
+					continue
+				}
+				a[j], b[j] = u+v, float32(ys*(u-v))
 			}
 		}
 		sum := pairRows(work, p, h+p%2)
@@ -223,4 +236,81 @@ func (c *Calibration) isHot(work []float32, k int, peak float32) bool {
 		n = max(n, work[k+p])
 	}
 	return peak > c.hotRatio*n
+}
+
+// windowsGo8 is windowsGo for 8×8-pixel windows, with the window in fixed
+// arrays so that the loops carry no bounds checks: the pure-Go route where
+// the assembly is missing. The same order of operations, the same bits.
+func windowsGo8(c *Calibration, frame []uint16, base int, idx []int32, slopes, work []float32, f *Flags) {
+	side := c.layout.Side()
+	xs := (*[8]float32)(c.xs)
+	wt := (*[64]float32)(c.weight)
+	w := (*[64]float32)(work)
+	for _, i := range idx {
+		st := int(c.start[i]) - base
+		blk := (*[128]float32)(c.cal[128*int(i):])
+		peak := float32(0)
+		pk := 0
+		var top uint16
+		for y := range 8 {
+			raw := (*[8]uint16)(frame[st+y*side:])
+			var rowTop uint16
+			for x, a := range raw {
+				rowTop = max(rowTop, a)
+				v := float32(float32(a)*blk[16*y+x]) - blk[16*y+8+x]
+				w[8*y+x] = v
+				if v > peak {
+					peak, pk = v, 8*y+x
+				}
+			}
+			if rowTop == 0 {
+				f.DeadRows++
+			}
+			top = max(top, rowTop)
+		}
+		if top >= c.satADU {
+			f.Saturated++
+		}
+		if c.hotRatio > 0 && peak > 0 && c.isHot(work, pk, peak) {
+			f.Hot++
+		}
+		thr := float32(c.threshold) * peak
+		clip, wcog := thr > 0, c.method == WCoG
+		var sum, mom, xm [8]float32
+		for j := range 8 {
+			var a, d [4]float32
+			for y := range 4 {
+				u, v := w[8*y+j], w[8*(7-y)+j]
+				if clip {
+					if u -= thr; u < 0 {
+						u = 0
+					}
+					if v -= thr; v < 0 {
+						v = 0
+					}
+				}
+				if wcog {
+					u *= wt[8*y+j]
+					v *= wt[8*(7-y)+j]
+				}
+				a[y], d[y] = u+v, float32(xs[y]*(u-v))
+			}
+			sum[j] = (a[0] + a[1]) + (a[2] + a[3])
+			mom[j] = (d[3] + d[2]) + (d[1] + d[0])
+			xm[j] = float32(sum[j] * xs[j])
+		}
+		ss, sx, sy := pair8(&sum), pair8(&xm), pair8(&mom)
+		if !(ss > 0) {
+			f.Dark++
+			slopes[2*i], slopes[2*i+1] = 0, 0
+			continue
+		}
+		slopes[2*i] = sx/ss - c.ref[2*i]
+		slopes[2*i+1] = sy/ss - c.ref[2*i+1]
+	}
+}
+
+// pair8 is pairs on 8 values.
+func pair8(a *[8]float32) float32 {
+	return ((a[0] + a[1]) + (a[2] + a[3])) + ((a[4] + a[5]) + (a[6] + a[7]))
 }

@@ -316,6 +316,31 @@ func TestKernelsAgreeBitForBit(t *testing.T) {
 	}
 }
 
+// The generic pure-Go loop and its 8×8 form give the same bits.
+func TestGoLoopsAgree(t *testing.T) {
+	for _, tc := range kernelCases(t, 8) {
+		t.Run(tc.name, func(t *testing.T) {
+			c, err := NewCalibration(tc.l, tc.o)
+			if err != nil {
+				t.Fatal(err)
+			}
+			idx := c.byRow
+			s8, sg := make([]float32, 2*len(idx)), make([]float32, 2*len(idx))
+			var f8, fg Flags
+			windowsGo8(c, tc.frame, 0, idx, s8, make([]float32, 64), &f8)
+			windowsGo(c, tc.frame, 0, idx, sg, make([]float32, 64), &fg)
+			if f8 != fg {
+				t.Errorf("flags %+v, generic %+v", f8, fg)
+			}
+			for i := range s8 {
+				if math.Float32bits(s8[i]) != math.Float32bits(sg[i]) {
+					t.Fatalf("slope %d: %v, generic %v", i, s8[i], sg[i])
+				}
+			}
+		})
+	}
+}
+
 // Each kernel allocates nothing per frame or chunk.
 func TestKernelsAllocateNothing(t *testing.T) {
 	tc := kernelCases(t, 8)[7] // threshold and hot-pixel test on
