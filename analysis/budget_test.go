@@ -32,7 +32,7 @@ func TestServoGreenwood(t *testing.T) {
 	const r0, v, rate, g = 0.5, 10.0, 1e5, 0.05
 	l := Loop{Gain: g, Delay: 1, FrameRate: rate}
 	o := Optics{Diameter: 1e5, Subaperture: 0.0005, Pitch: 0.0005, ScienceWavelength: Wavelength500}
-	servo, _ := bandVariances(o, kolmogorov(r0, Layer{Fraction: 1, WindSpeed: v}), l)
+	servo, _, _ := bandVariances(o, kolmogorov(r0, Layer{Fraction: 1, WindSpeed: v}), l)
 	f3 := g * rate / (2 * math.Pi)
 	want := math.Pow(0.427*v/r0/f3, 5.0/3)
 	t.Logf("servo %.6f rad², Greenwood %.6f rad² (f_3dB %.1f Hz, loop's %.1f Hz)", servo, want, f3, l.Bandwidth())
