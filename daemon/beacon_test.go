@@ -2,8 +2,11 @@ package daemon
 
 import (
 	"errors"
+	"math"
 	"strings"
 	"testing"
+
+	stillskyv1 "stillsky/proto/stillsky/v1"
 )
 
 // TestBeaconRefused: New refuses a declared beacon above its exposure limit
@@ -46,4 +49,45 @@ func TestBeaconRefused(t *testing.T) {
 		t.Fatalf("beacon within its limit refused: %v", err)
 	}
 	d.ctlLis.Close()
+}
+
+// TestDeviceBeaconChecked: a camera's declared beacon (Describe
+// retinal_beacon) is checked by the device's own figures, against the lower
+// of its limit and the daemon's, and refused naming the fields and the limit.
+func TestDeviceBeaconChecked(t *testing.T) {
+	dev := func(p, e, l float64) *stillskyv1.RetinalBeacon {
+		return &stillskyv1.RetinalBeacon{PowerW: p, ExposureS: e, ExposureLimitJ: l}
+	}
+	cases := []struct {
+		name     string
+		rb       *stillskyv1.RetinalBeacon
+		own      *Beacon
+		want     string // "" for accepted
+		exposure bool
+	}{
+		{"sky camera", nil, nil, "", false},
+		{"within the camera's limit", dev(1e-5, 600, 0.01), nil, "", false},
+		{"within both limits", dev(1e-5, 600, 0.01), &Beacon{PowerW: 1e-6, ExposureS: 600, LimitJ: 0.008}, "", false},
+		{"above the camera's limit", dev(1e-5, 2000, 0.01), nil,
+			"camera retinal_beacon.power_w 1e-05 W × retinal_beacon.exposure_s 2000 s = 0.02 J exceeds retinal_beacon.exposure_limit_j (the camera's) 0.01 J", true},
+		{"above the daemon's limit", dev(1e-5, 600, 0.01), &Beacon{PowerW: 1e-6, ExposureS: 600, LimitJ: 0.005},
+			"camera retinal_beacon.power_w 1e-05 W × retinal_beacon.exposure_s 600 s = 0.006 J exceeds exposure-limit-j (the daemon's) 0.005 J", true},
+		{"power missing", dev(0, 600, 0.01), nil, "camera retinal_beacon.power_w 0: must be in (0, 0.01] W", false},
+		{"exposure NaN", dev(1e-5, math.NaN(), 0.01), nil, "retinal_beacon.exposure_s NaN: must be in (0, 36000] s", false},
+		{"limit too large", dev(1e-5, 600, 1e3), nil, "retinal_beacon.exposure_limit_j 1000: must be in (0, 100] J", false},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			err := checkDeviceBeacon(c.rb, c.own)
+			switch {
+			case c.want == "" && err != nil:
+				t.Fatalf("refused: %v", err)
+			case c.want != "" && (err == nil || !strings.Contains(err.Error(), c.want)):
+				t.Fatalf("error %v: want it to contain %q", err, c.want)
+			}
+			if errors.Is(err, ErrExposure) != c.exposure {
+				t.Errorf("errors.Is(err, ErrExposure) = %v, want %v", !c.exposure, c.exposure)
+			}
+		})
+	}
 }

@@ -33,6 +33,14 @@ func (d *Daemon) session(ctx context.Context) error {
 	if err != nil {
 		return fmt.Errorf("camera describe: %w", err)
 	}
+	if err := checkDeviceBeacon(camDesc.GetRetinalBeacon(), d.cfg.Beacon); err != nil {
+		d.log.Error("camera refused: its retinal beacon", "err", err)
+		return fmt.Errorf("camera describe: %w", err)
+	}
+	if rb := camDesc.GetRetinalBeacon(); rb != nil {
+		d.log.Info("retinal beacon declared by the camera", "power_w", rb.GetPowerW(), "exposure_s", rb.GetExposureS(),
+			"exposure_j", rb.GetPowerW()*rb.GetExposureS(), "exposure_limit_j", rb.GetExposureLimitJ())
+	}
 	mirDesc, err := mir.Describe(ctx, &stillskyv1.MirrorServiceDescribeRequest{}, grpc.WaitForReady(true))
 	if err != nil {
 		return fmt.Errorf("mirror describe: %w", err)

@@ -20,7 +20,10 @@ with the aviation authority and a laser-safety review (ANSI Z136.1, ANSI Z136.6,
 IEC 60825-1); local rules govern.
 Retinal imaging: give the beacon's power and exposure time and the limit for them
 (--beacon-power-w, --beacon-exposure-s, --exposure-limit-j) and the daemon refuses
-to start above the limit. The check is indicative only: exposure limits follow
+to start above the limit. A camera that declares its beacon in its Describe
+(retinal_beacon, as the simulator's eye camera does) is checked by its own figures
+when it connects, against the lower of its limit and --exposure-limit-j, and
+refused above it. The check is indicative only: exposure limits follow
 ANSI Z136.1 and ISO 15004-2, and local medical-device and ethics rules and licensed
 practice govern any real use.
 Unattended operation (--autonomous): the daemon calibrates, closes, holds, opens and

@@ -88,7 +88,18 @@ func (b *Server) Describe(context.Context, *stillskyv1.CameraServiceDescribeRequ
 		SensorKind:        stillskyv1.SensorKind_SENSOR_KIND_SHACK_HARTMANN,
 		StarMagnitude:     b.starMagnitude(),
 		Pixels:            b.pixelGeometry(),
+		RetinalBeacon:     b.retinalBeacon(),
 	}, nil
+}
+
+// retinalBeacon is Describe's retinal_beacon field: the eye scenario's beacon
+// power, exposure time and limit; nil when the sensor looks at the sky.
+func (b *Server) retinalBeacon() *stillskyv1.RetinalBeacon {
+	e := b.scn.Eye
+	if e == nil {
+		return nil
+	}
+	return &stillskyv1.RetinalBeacon{PowerW: e.BeaconPower, ExposureS: e.BeaconExposure, ExposureLimitJ: e.ExposureLimit}
 }
 
 // starMagnitude is the guide star's magnitude, 0 for a laser beacon.

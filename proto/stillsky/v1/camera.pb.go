@@ -443,7 +443,15 @@ type CameraServiceDescribeResponse struct {
 	// streams raw detector pixels instead of slopes (see StreamFramesResponse.pixels);
 	// absent for a slope camera (frame format 1). A consumer that does not know the
 	// field sees a slope camera whose frames carry no slopes, and refuses them.
-	Pixels        *PixelGeometry `protobuf:"bytes,16,opt,name=pixels,proto3" json:"pixels,omitempty"`
+	Pixels *PixelGeometry `protobuf:"bytes,16,opt,name=pixels,proto3" json:"pixels,omitempty"`
+	// A retinal imager's beacon (added with field 17), as the device declares it:
+	// the light it sends into the eye and the limit configured for it on the
+	// device. Absent for a sensor that looks at the sky. The loop daemon refuses
+	// a device whose power_w × exposure_s exceeds exposure_limit_j or the daemon's
+	// own limit, whichever is lower. The check is indicative only: exposure limits
+	// follow ANSI Z136.1 and ISO 15004-2, and local medical-device and ethics
+	// rules and licensed practice govern any real use.
+	RetinalBeacon *RetinalBeacon `protobuf:"bytes,17,opt,name=retinal_beacon,json=retinalBeacon,proto3" json:"retinal_beacon,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -590,6 +598,78 @@ func (x *CameraServiceDescribeResponse) GetPixels() *PixelGeometry {
 	return nil
 }
 
+func (x *CameraServiceDescribeResponse) GetRetinalBeacon() *RetinalBeacon {
+	if x != nil {
+		return x.RetinalBeacon
+	}
+	return nil
+}
+
+// RetinalBeacon is the light a retinal imager's beacon sends into the eye.
+type RetinalBeacon struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	// Optical power entering the pupil, watts, in (0, 0.01].
+	PowerW float64 `protobuf:"fixed64,1,opt,name=power_w,json=powerW,proto3" json:"power_w,omitempty"`
+	// Exposure time of the session, seconds, in (0, 36000].
+	ExposureS float64 `protobuf:"fixed64,2,opt,name=exposure_s,json=exposureS,proto3" json:"exposure_s,omitempty"`
+	// Energy the beacon may put into the eye over exposure_s, joules, in (0, 100],
+	// as configured on the device.
+	ExposureLimitJ float64 `protobuf:"fixed64,3,opt,name=exposure_limit_j,json=exposureLimitJ,proto3" json:"exposure_limit_j,omitempty"`
+	unknownFields  protoimpl.UnknownFields
+	sizeCache      protoimpl.SizeCache
+}
+
+func (x *RetinalBeacon) Reset() {
+	*x = RetinalBeacon{}
+	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *RetinalBeacon) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*RetinalBeacon) ProtoMessage() {}
+
+func (x *RetinalBeacon) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use RetinalBeacon.ProtoReflect.Descriptor instead.
+func (*RetinalBeacon) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{6}
+}
+
+func (x *RetinalBeacon) GetPowerW() float64 {
+	if x != nil {
+		return x.PowerW
+	}
+	return 0
+}
+
+func (x *RetinalBeacon) GetExposureS() float64 {
+	if x != nil {
+		return x.ExposureS
+	}
+	return 0
+}
+
+func (x *RetinalBeacon) GetExposureLimitJ() float64 {
+	if x != nil {
+		return x.ExposureLimitJ
+	}
+	return 0
+}
+
 // PixelGeometry describes the raw frames of a Shack–Hartmann detector: one square
 // window of pixels_per_subaperture² pixels per subaperture of the grid, the window of
 // the subaperture at grid row r and column c starting at pixel (r·p, c·p), so that
@@ -624,7 +704,7 @@ type PixelGeometry struct {
 
 func (x *PixelGeometry) Reset() {
 	*x = PixelGeometry{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -636,7 +716,7 @@ func (x *PixelGeometry) String() string {
 func (*PixelGeometry) ProtoMessage() {}
 
 func (x *PixelGeometry) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[6]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -649,7 +729,7 @@ func (x *PixelGeometry) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use PixelGeometry.ProtoReflect.Descriptor instead.
 func (*PixelGeometry) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{6}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{7}
 }
 
 func (x *PixelGeometry) GetPixelsPerSubaperture() uint32 {
@@ -734,7 +814,7 @@ type StreamFramesRequest struct {
 
 func (x *StreamFramesRequest) Reset() {
 	*x = StreamFramesRequest{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[8]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -746,7 +826,7 @@ func (x *StreamFramesRequest) String() string {
 func (*StreamFramesRequest) ProtoMessage() {}
 
 func (x *StreamFramesRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[7]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[8]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -759,7 +839,7 @@ func (x *StreamFramesRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamFramesRequest.ProtoReflect.Descriptor instead.
 func (*StreamFramesRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{7}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{8}
 }
 
 func (x *StreamFramesRequest) GetChunks() uint32 {
@@ -809,7 +889,7 @@ type StreamFramesResponse struct {
 
 func (x *StreamFramesResponse) Reset() {
 	*x = StreamFramesResponse{}
-	mi := &file_stillsky_v1_camera_proto_msgTypes[8]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[9]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -821,7 +901,7 @@ func (x *StreamFramesResponse) String() string {
 func (*StreamFramesResponse) ProtoMessage() {}
 
 func (x *StreamFramesResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_camera_proto_msgTypes[8]
+	mi := &file_stillsky_v1_camera_proto_msgTypes[9]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -834,7 +914,7 @@ func (x *StreamFramesResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamFramesResponse.ProtoReflect.Descriptor instead.
 func (*StreamFramesResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{8}
+	return file_stillsky_v1_camera_proto_rawDescGZIP(), []int{9}
 }
 
 func (x *StreamFramesResponse) GetFrameNumber() uint64 {
@@ -920,7 +1000,7 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"@\n" +
 	"\x11SetSourceResponse\x12+\n" +
 	"\x06source\x18\x01 \x01(\x0e2\x13.stillsky.v1.SourceR\x06source\"\x1e\n" +
-	"\x1cCameraServiceDescribeRequest\"\x88\x05\n" +
+	"\x1cCameraServiceDescribeRequest\"\xcb\x05\n" +
 	"\x1dCameraServiceDescribeResponse\x12\"\n" +
 	"\fsubapertures\x18\x01 \x01(\rR\fsubapertures\x12-\n" +
 	"\x12valid_subapertures\x18\x02 \x03(\rR\x11validSubapertures\x12\x1f\n" +
@@ -942,7 +1022,13 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\vsensor_kind\x18\x0e \x01(\x0e2\x17.stillsky.v1.SensorKindR\n" +
 	"sensorKind\x12%\n" +
 	"\x0estar_magnitude\x18\x0f \x01(\x01R\rstarMagnitude\x122\n" +
-	"\x06pixels\x18\x10 \x01(\v2\x1a.stillsky.v1.PixelGeometryR\x06pixels\"\x81\x03\n" +
+	"\x06pixels\x18\x10 \x01(\v2\x1a.stillsky.v1.PixelGeometryR\x06pixels\x12A\n" +
+	"\x0eretinal_beacon\x18\x11 \x01(\v2\x1a.stillsky.v1.RetinalBeaconR\rretinalBeacon\"q\n" +
+	"\rRetinalBeacon\x12\x17\n" +
+	"\apower_w\x18\x01 \x01(\x01R\x06powerW\x12\x1d\n" +
+	"\n" +
+	"exposure_s\x18\x02 \x01(\x01R\texposureS\x12(\n" +
+	"\x10exposure_limit_j\x18\x03 \x01(\x01R\x0eexposureLimitJ\"\x81\x03\n" +
 	"\rPixelGeometry\x124\n" +
 	"\x16pixels_per_subaperture\x18\x01 \x01(\rR\x14pixelsPerSubaperture\x12\x14\n" +
 	"\x05width\x18\x02 \x01(\rR\x05width\x12\x16\n" +
@@ -1004,7 +1090,7 @@ func file_stillsky_v1_camera_proto_rawDescGZIP() []byte {
 }
 
 var file_stillsky_v1_camera_proto_enumTypes = make([]protoimpl.EnumInfo, 3)
-var file_stillsky_v1_camera_proto_msgTypes = make([]protoimpl.MessageInfo, 9)
+var file_stillsky_v1_camera_proto_msgTypes = make([]protoimpl.MessageInfo, 10)
 var file_stillsky_v1_camera_proto_goTypes = []any{
 	(Source)(0),                           // 0: stillsky.v1.Source
 	(CentroidMethod)(0),                   // 1: stillsky.v1.CentroidMethod
@@ -1015,29 +1101,31 @@ var file_stillsky_v1_camera_proto_goTypes = []any{
 	(*SetSourceResponse)(nil),             // 6: stillsky.v1.SetSourceResponse
 	(*CameraServiceDescribeRequest)(nil),  // 7: stillsky.v1.CameraServiceDescribeRequest
 	(*CameraServiceDescribeResponse)(nil), // 8: stillsky.v1.CameraServiceDescribeResponse
-	(*PixelGeometry)(nil),                 // 9: stillsky.v1.PixelGeometry
-	(*StreamFramesRequest)(nil),           // 10: stillsky.v1.StreamFramesRequest
-	(*StreamFramesResponse)(nil),          // 11: stillsky.v1.StreamFramesResponse
+	(*RetinalBeacon)(nil),                 // 9: stillsky.v1.RetinalBeacon
+	(*PixelGeometry)(nil),                 // 10: stillsky.v1.PixelGeometry
+	(*StreamFramesRequest)(nil),           // 11: stillsky.v1.StreamFramesRequest
+	(*StreamFramesResponse)(nil),          // 12: stillsky.v1.StreamFramesResponse
 }
 var file_stillsky_v1_camera_proto_depIdxs = []int32{
 	0,  // 0: stillsky.v1.SetSourceRequest.source:type_name -> stillsky.v1.Source
 	0,  // 1: stillsky.v1.SetSourceResponse.source:type_name -> stillsky.v1.Source
 	2,  // 2: stillsky.v1.CameraServiceDescribeResponse.sensor_kind:type_name -> stillsky.v1.SensorKind
-	9,  // 3: stillsky.v1.CameraServiceDescribeResponse.pixels:type_name -> stillsky.v1.PixelGeometry
-	1,  // 4: stillsky.v1.PixelGeometry.centroid:type_name -> stillsky.v1.CentroidMethod
-	7,  // 5: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
-	10, // 6: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
-	5,  // 7: stillsky.v1.CameraService.SetSource:input_type -> stillsky.v1.SetSourceRequest
-	3,  // 8: stillsky.v1.CameraService.SetAcquisition:input_type -> stillsky.v1.SetAcquisitionRequest
-	8,  // 9: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
-	11, // 10: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
-	6,  // 11: stillsky.v1.CameraService.SetSource:output_type -> stillsky.v1.SetSourceResponse
-	4,  // 12: stillsky.v1.CameraService.SetAcquisition:output_type -> stillsky.v1.SetAcquisitionResponse
-	9,  // [9:13] is the sub-list for method output_type
-	5,  // [5:9] is the sub-list for method input_type
-	5,  // [5:5] is the sub-list for extension type_name
-	5,  // [5:5] is the sub-list for extension extendee
-	0,  // [0:5] is the sub-list for field type_name
+	10, // 3: stillsky.v1.CameraServiceDescribeResponse.pixels:type_name -> stillsky.v1.PixelGeometry
+	9,  // 4: stillsky.v1.CameraServiceDescribeResponse.retinal_beacon:type_name -> stillsky.v1.RetinalBeacon
+	1,  // 5: stillsky.v1.PixelGeometry.centroid:type_name -> stillsky.v1.CentroidMethod
+	7,  // 6: stillsky.v1.CameraService.Describe:input_type -> stillsky.v1.CameraServiceDescribeRequest
+	11, // 7: stillsky.v1.CameraService.StreamFrames:input_type -> stillsky.v1.StreamFramesRequest
+	5,  // 8: stillsky.v1.CameraService.SetSource:input_type -> stillsky.v1.SetSourceRequest
+	3,  // 9: stillsky.v1.CameraService.SetAcquisition:input_type -> stillsky.v1.SetAcquisitionRequest
+	8,  // 10: stillsky.v1.CameraService.Describe:output_type -> stillsky.v1.CameraServiceDescribeResponse
+	12, // 11: stillsky.v1.CameraService.StreamFrames:output_type -> stillsky.v1.StreamFramesResponse
+	6,  // 12: stillsky.v1.CameraService.SetSource:output_type -> stillsky.v1.SetSourceResponse
+	4,  // 13: stillsky.v1.CameraService.SetAcquisition:output_type -> stillsky.v1.SetAcquisitionResponse
+	10, // [10:14] is the sub-list for method output_type
+	6,  // [6:10] is the sub-list for method input_type
+	6,  // [6:6] is the sub-list for extension type_name
+	6,  // [6:6] is the sub-list for extension extendee
+	0,  // [0:6] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_camera_proto_init() }
@@ -1051,7 +1139,7 @@ func file_stillsky_v1_camera_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_camera_proto_rawDesc), len(file_stillsky_v1_camera_proto_rawDesc)),
 			NumEnums:      3,
-			NumMessages:   9,
+			NumMessages:   10,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

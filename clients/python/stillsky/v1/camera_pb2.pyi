@@ -20,7 +20,7 @@ class CameraServiceDescribeRequest(_message.Message):
     def __init__(self) -> None: ...
 
 class CameraServiceDescribeResponse(_message.Message):
-    __slots__ = ["delay_frames", "description", "frame_rate_hz", "lockstep", "obstruction", "pixels", "pupil_diameter_m", "sensor_kind", "slope_count", "slope_unit", "star_magnitude", "subaperture_size_m", "subapertures", "valid_subapertures", "wavelength_m", "zenith_deg"]
+    __slots__ = ["delay_frames", "description", "frame_rate_hz", "lockstep", "obstruction", "pixels", "pupil_diameter_m", "retinal_beacon", "sensor_kind", "slope_count", "slope_unit", "star_magnitude", "subaperture_size_m", "subapertures", "valid_subapertures", "wavelength_m", "zenith_deg"]
     DELAY_FRAMES_FIELD_NUMBER: _ClassVar[int]
     DESCRIPTION_FIELD_NUMBER: _ClassVar[int]
     FRAME_RATE_HZ_FIELD_NUMBER: _ClassVar[int]
@@ -28,6 +28,7 @@ class CameraServiceDescribeResponse(_message.Message):
     OBSTRUCTION_FIELD_NUMBER: _ClassVar[int]
     PIXELS_FIELD_NUMBER: _ClassVar[int]
     PUPIL_DIAMETER_M_FIELD_NUMBER: _ClassVar[int]
+    RETINAL_BEACON_FIELD_NUMBER: _ClassVar[int]
     SENSOR_KIND_FIELD_NUMBER: _ClassVar[int]
     SLOPE_COUNT_FIELD_NUMBER: _ClassVar[int]
     SLOPE_UNIT_FIELD_NUMBER: _ClassVar[int]
@@ -44,6 +45,7 @@ class CameraServiceDescribeResponse(_message.Message):
     obstruction: float
     pixels: PixelGeometry
     pupil_diameter_m: float
+    retinal_beacon: RetinalBeacon
     sensor_kind: SensorKind
     slope_count: int
     slope_unit: str
@@ -53,7 +55,7 @@ class CameraServiceDescribeResponse(_message.Message):
     valid_subapertures: _containers.RepeatedScalarFieldContainer[int]
     wavelength_m: float
     zenith_deg: float
-    def __init__(self, subapertures: _Optional[int] = ..., valid_subapertures: _Optional[_Iterable[int]] = ..., slope_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., subaperture_size_m: _Optional[float] = ..., pupil_diameter_m: _Optional[float] = ..., wavelength_m: _Optional[float] = ..., slope_unit: _Optional[str] = ..., lockstep: bool = ..., delay_frames: _Optional[int] = ..., description: _Optional[str] = ..., zenith_deg: _Optional[float] = ..., obstruction: _Optional[float] = ..., sensor_kind: _Optional[_Union[SensorKind, str]] = ..., star_magnitude: _Optional[float] = ..., pixels: _Optional[_Union[PixelGeometry, _Mapping]] = ...) -> None: ...
+    def __init__(self, subapertures: _Optional[int] = ..., valid_subapertures: _Optional[_Iterable[int]] = ..., slope_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., subaperture_size_m: _Optional[float] = ..., pupil_diameter_m: _Optional[float] = ..., wavelength_m: _Optional[float] = ..., slope_unit: _Optional[str] = ..., lockstep: bool = ..., delay_frames: _Optional[int] = ..., description: _Optional[str] = ..., zenith_deg: _Optional[float] = ..., obstruction: _Optional[float] = ..., sensor_kind: _Optional[_Union[SensorKind, str]] = ..., star_magnitude: _Optional[float] = ..., pixels: _Optional[_Union[PixelGeometry, _Mapping]] = ..., retinal_beacon: _Optional[_Union[RetinalBeacon, _Mapping]] = ...) -> None: ...
 
 class PixelGeometry(_message.Message):
     __slots__ = ["bias_adu", "centroid", "gain_e_per_adu", "height", "pixel_scale_rad", "pixels_per_subaperture", "saturation_adu", "threshold", "weight_sigma_px", "width"]
@@ -78,6 +80,16 @@ class PixelGeometry(_message.Message):
     weight_sigma_px: float
     width: int
     def __init__(self, pixels_per_subaperture: _Optional[int] = ..., width: _Optional[int] = ..., height: _Optional[int] = ..., pixel_scale_rad: _Optional[float] = ..., bias_adu: _Optional[float] = ..., saturation_adu: _Optional[int] = ..., gain_e_per_adu: _Optional[float] = ..., centroid: _Optional[_Union[CentroidMethod, str]] = ..., threshold: _Optional[float] = ..., weight_sigma_px: _Optional[float] = ...) -> None: ...
+
+class RetinalBeacon(_message.Message):
+    __slots__ = ["exposure_limit_j", "exposure_s", "power_w"]
+    EXPOSURE_LIMIT_J_FIELD_NUMBER: _ClassVar[int]
+    EXPOSURE_S_FIELD_NUMBER: _ClassVar[int]
+    POWER_W_FIELD_NUMBER: _ClassVar[int]
+    exposure_limit_j: float
+    exposure_s: float
+    power_w: float
+    def __init__(self, power_w: _Optional[float] = ..., exposure_s: _Optional[float] = ..., exposure_limit_j: _Optional[float] = ...) -> None: ...
 
 class SetAcquisitionRequest(_message.Message):
     __slots__ = ["paused"]
