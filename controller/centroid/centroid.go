@@ -58,7 +58,7 @@ type Calibration struct {
 	layout Layout
 	// cal holds, per valid window in slope order, Pixels rows of Pixels gains
 	// (1/flat) then Pixels offsets (dark·gain), so that a calibrated pixel is
-	// raw·gain − offset: 2·Pixels² float32 per window, read in one sequential
+	// raw·gain − offset, rounded once (a fused multiply–subtract): 2·Pixels² float32 per window, read in one sequential
 	// stream beside the frame (the dark and flat of invalid pixels are never
 	// read, so they are not kept).
 	cal []float32
@@ -77,9 +77,12 @@ type Calibration struct {
 	rowFirst []int32
 	// xs are the window coordinates minus the centre.
 	xs []float32
-	// kern is the window kernel in use; par8 its constants when Pixels is 8.
-	kern kernel
-	par8 *params8
+	// kern is the window kernel in use; par8 its constants when Pixels is 8;
+	// cal64 is cal in float64 for the pure-Go kernels, which calibrate in
+	// float64 (see kernel.go).
+	kern  kernel
+	par8  *params8
+	cal64 []float64
 }
 
 // Options of a Calibration.
@@ -110,9 +113,9 @@ type Options struct {
 	// (1..65535; 0 means 65535).
 	Saturation uint16
 	// Kernel forces the window loop: "plain" (pure Go, any window size) or
-	// "avx2" (AVX2 assembly, 8×8-pixel windows). "" picks the fastest one the
-	// CPU and the window size allow (see Available). Both give the same
-	// slopes and flags, bit for bit.
+	// "avx2" (AVX2 and FMA assembly, 8×8-pixel windows). "" picks the
+	// fastest one the CPU and the window size allow (see Available). Both
+	// give the same slopes and flags, bit for bit.
 	Kernel string
 }
 
@@ -172,6 +175,12 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 				}
 				if o.Dark != nil {
 					off[x] = o.Dark[k] * g[x]
+				}
+				// An offset below gain/4096 (a dark under 1/4096 ADU) counts
+				// as 0: then raw·gain − offset is exact in float64 (see
+				// kernel.go), so that every kernel rounds it once, alike.
+				if off[x] < g[x]/4096 {
+					off[x] = 0
 				}
 			}
 		}
@@ -240,6 +249,12 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 		return nil, err
 	}
 	c.kern = k
+	if !k.avx2 {
+		c.cal64 = make([]float64, len(c.cal))
+		for i, v := range c.cal {
+			c.cal64[i] = float64(v)
+		}
+	}
 	if p == 8 {
 		c.par8 = newParams8(c)
 	}

@@ -12,8 +12,11 @@ import (
 // Every kernel computes the same thing in the same order, so that their
 // results agree bit for bit:
 //
-//  1. calibrate: v = float32(raw·gain) − offset, the product rounded to
-//     float32 before the subtraction (no fused multiply–add);
+//  1. calibrate: v = raw·gain − offset rounded once to float32, as a fused
+//     multiply–subtract does it. The pure-Go kernels get the same bits from
+//     float64: raw (16 bits) times gain (24) is exact there, and so is the
+//     difference, whose bits span at most 41 + 12 = 53 places because
+//     NewCalibration keeps every offset 0 or >= gain/4096;
 //  2. peak = max(0, max v), k its first position in row-major order; a dead
 //     row is one whose raw pixels are all 0, a saturated window has a raw
 //     pixel >= the saturation level, a hot window has peak > 0 and
@@ -140,7 +143,7 @@ func windowsGo(c *Calibration, frame []uint16, base int, idx []int32, slopes, wo
 	var sumX [64]float32
 	for _, i := range idx {
 		st := int(c.start[i]) - base
-		blk := c.cal[2*p*p*int(i) : 2*p*p*(int(i)+1)]
+		blk := c.cal64[2*p*p*int(i) : 2*p*p*(int(i)+1)]
 		peak := float32(0)
 		pk := 0
 		var top uint16
@@ -152,7 +155,7 @@ func windowsGo(c *Calibration, frame []uint16, base int, idx []int32, slopes, wo
 			var rowTop uint16
 			for x, a := range raw {
 				rowTop = max(rowTop, a)
-				v := float32(float32(a)*g[x]) - off[x]
+				v := float32(float64(a)*g[x] - off[x])
 				wk[x] = v
 				if v > peak {
 					peak, pk = v, y*p+x
@@ -248,7 +251,7 @@ func windowsGo8(c *Calibration, frame []uint16, base int, idx []int32, slopes, w
 	w := (*[64]float32)(work)
 	for _, i := range idx {
 		st := int(c.start[i]) - base
-		blk := (*[128]float32)(c.cal[128*int(i):])
+		blk := (*[128]float64)(c.cal64[128*int(i):])
 		peak := float32(0)
 		pk := 0
 		var top uint16
@@ -257,7 +260,7 @@ func windowsGo8(c *Calibration, frame []uint16, base int, idx []int32, slopes, w
 			var rowTop uint16
 			for x, a := range raw {
 				rowTop = max(rowTop, a)
-				v := float32(float32(a)*blk[16*y+x]) - blk[16*y+8+x]
+				v := float32(float64(a)*blk[16*y+x] - blk[16*y+8+x])
 				w[8*y+x] = v
 				if v > peak {
 					peak, pk = v, 8*y+x

@@ -25,7 +25,7 @@ func windowsAVX2(c *Calibration, frame []uint16, base int, idx []int32, slopes [
 }
 
 func archKernels() []kernel {
-	if cpu.X86.HasAVX2 {
+	if cpu.X86.HasAVX2 && cpu.X86.HasFMA {
 		return []kernel{{name: "avx2", pixels: 8, avx2: true}}
 	}
 	return nil

@@ -6,8 +6,7 @@
 //	cal *float32, start *int32, ref *float32, slopes *float32, flags *[4]int)
 //
 // One pass per window, in the order of kernel.go: the eight raw rows are
-// widened, calibrated (a product then a subtraction, no FMA, so that the
-// pure-Go kernel gives the same bits) and kept in Y0–Y7 while the peak, the
+// widened, calibrated (one fused multiply–subtract) and kept in Y0–Y7 while the peak, the
 // largest raw value and the dead rows are found; the threshold and the
 // moment sums then run on the registers.
 //
@@ -33,8 +32,8 @@
 	VPMINUD Y14, Y10, Y10 \
 	VPMAXSD Y14, Y9, Y9 \
 	VCVTDQ2PS Y14, v \
-	VMULPS g(R13), v, v \
-	VSUBPS g+32(R13), v, v \
+	VMOVUPS g(R13), Y15 \
+	VFMSUB213PS g+32(R13), Y15, v \
 	VMAXPS v, Y8, Y8
 
 // CLIP applies the threshold to row v.
