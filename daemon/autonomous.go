@@ -107,7 +107,7 @@ func (a *autonomy) step(u *unit, num uint64, hz, flux float64, cur loopState) {
 	a.mu.Lock()
 	have := u.params() != nil
 	act := a.s.Observe(supervisor.Input{Now: frameTime(num, hz), Flux: flux, HaveReconstructor: have,
-		Tripped: cur == stateTripped, CalibrationDone: a.calDone.Swap(false), CalibrationFailed: a.calFailed.Swap(false)})
+		Tripped: cur == stateTripped, Held: cur == stateHold, CalibrationDone: a.calDone.Swap(false), CalibrationFailed: a.calFailed.Swap(false)})
 	if act != supervisor.None && a.npending > 0 {
 		a.pending[a.npending-1].Action = act
 	}
@@ -261,3 +261,7 @@ func (d *Daemon) supervise(ctx context.Context) {
 		}
 	}
 }
+
+// Flux returns the guide-star flux of the newest frame as the camera reported
+// it, photo-electrons (0 before the first frame or from a camera without it).
+func (d *Daemon) Flux() float64 { return d.u.stats.flux.Load() }

@@ -24,19 +24,6 @@ var nightClouds = scenario.Clouds{
 	{Start: 10, Duration: 4, Depth: 0.99, Ramp: 0.4},
 }
 
-// returnTime is the frame time at which the transmission of the passage c rises
-// back to frac of the clear sky's: the flux has returned from there on.
-func returnTime(c scenario.Cloud, frac float64) time.Duration {
-	mid := c.Start + c.Duration/2
-	cs := scenario.Clouds{c}
-	for t := mid; t <= c.Start+c.Duration; t += 1e-4 {
-		if cs.Transmission(t) >= frac {
-			return time.Duration(t * 1e9)
-		}
-	}
-	return time.Duration((c.Start + c.Duration) * 1e9)
-}
-
 // startAutonomous runs the small scenario's bench in lockstep with clouds,
 // and the loop daemon with the supervisor on and no reconstructor.
 func startAutonomous(t *testing.T, clouds scenario.Clouds, cfg supervisor.Config) *rig.Rig {
@@ -115,7 +102,7 @@ func TestAutonomousNight(t *testing.T) {
 		t.Errorf("first closed at %v, after the first cloud began", e.Applied)
 	}
 	for i, k := range []int{4, 7} {
-		back := returnTime(nightClouds[i], cfg.ReturnFraction)
+		back := time.Duration(nightClouds[i].Recovered(cfg.ReturnFraction) * 1e9)
 		e := events[k]
 		took := e.Applied - back
 		t.Logf("cloud %d: flux back above %.0f %% at %.3f s, loop closed at %.3f s: %.3f s", i+1, 100*cfg.ReturnFraction, back.Seconds(), e.Applied.Seconds(), took.Seconds())

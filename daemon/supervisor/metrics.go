@@ -1,6 +1,10 @@
 package supervisor
 
-import "github.com/prometheus/client_golang/prometheus"
+import (
+	"slices"
+
+	"github.com/prometheus/client_golang/prometheus"
+)
 
 // Metrics are the supervisor's Prometheus metrics: the state as a gauge (1 for the
 // current state, 0 for the others; all 0 when the daemon runs without the
@@ -61,7 +65,9 @@ func AllowedPairs() [][2]State {
 	var out [][2]State
 	for _, tr := range Transitions {
 		if tr.From != anyState {
-			out = append(out, [2]State{tr.From, tr.To})
+			if p := [2]State{tr.From, tr.To}; !slices.Contains(out, p) {
+				out = append(out, p)
+			}
 			continue
 		}
 		for _, s := range States() {

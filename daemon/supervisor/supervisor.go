@@ -39,6 +39,10 @@
 //	                           in it ≥ ReturnFraction of that mean (action Close);
 //	                           the mean becomes the reference flux
 //	Closed      → Holding      flux < LossFraction·reference for LossDwell (action Hold)
+//	Closed      → Holding      the daemon held the loop itself (its stale-camera
+//	                           watchdog, when frames stopped for a while): the
+//	                           supervisor then closes again once the flux is back
+//	                           for ReturnDwell, or opens after HoldTimeout
 //	Holding     → Closed       flux ≥ ReturnFraction·reference for ReturnDwell (action Close)
 //	Holding     → Clouded      held for HoldTimeout (action Open)
 //	Clouded     → Closed       flux ≥ ReturnFraction·reference for ReturnDwell (action Close)
@@ -156,6 +160,7 @@ var Transitions = []Transition{
 	{Calibrating, Starting, "calibration failed"},
 	{Acquiring, Closed, "flux steady above minimum"},
 	{Closed, Holding, "flux lost"},
+	{Closed, Holding, "loop held by the daemon"},
 	{Holding, Closed, "flux returned"},
 	{Holding, Clouded, "hold timeout"},
 	{Clouded, Closed, "flux returned"},
@@ -233,6 +238,7 @@ type Input struct {
 	Flux              float64       // total flux of the frame (sum over subapertures)
 	HaveReconstructor bool          // a reconstructor is loaded
 	Tripped           bool          // the loop is tripped by an interlock
+	Held              bool          // the loop is held (by the supervisor's hold or the daemon's own)
 	CalibrationDone   bool          // the calibration asked for has finished
 	CalibrationFailed bool          // the calibration asked for has failed
 }
@@ -359,6 +365,10 @@ func (s *Supervisor) Observe(in Input) Action {
 			s.resetWindow(now)
 		}
 	case Closed:
+		if in.Held {
+			s.move(Holding, now, "loop held by the daemon", in.Flux)
+			return None
+		}
 		if s.dwell(&s.lost, &s.lostSince, in.Flux < s.cfg.LossFraction*s.ref, now, s.cfg.LossDwell) {
 			s.move(Holding, now, "flux lost", in.Flux)
 			return Hold

@@ -84,21 +84,33 @@ func TestTransitions(t *testing.T) {
 		act      func(*rig) []Action
 		want     []Action
 	}
-	steps := map[[2]State]tc{
-		{Starting, Calibrating}:  {act: func(r *rig) []Action { r.in.HaveReconstructor = false; return r.run(frame) }, want: []Action{Calibrate}},
-		{Starting, Acquiring}:    {act: func(r *rig) []Action { return r.run(frame) }},
-		{Calibrating, Acquiring}: {act: func(r *rig) []Action { r.in.CalibrationDone = true; return r.run(frame) }},
-		{Calibrating, Starting}:  {act: func(r *rig) []Action { r.in.CalibrationFailed = true; return r.run(frame) }},
-		{Acquiring, Closed}:      {act: func(r *rig) []Action { return r.run(600 * time.Millisecond) }, want: []Action{Close}},
-		{Closed, Holding}:        {act: func(r *rig) []Action { r.in.Flux = 100; return r.run(100 * time.Millisecond) }, want: []Action{Hold}},
-		{Holding, Closed}:        {act: func(r *rig) []Action { r.in.Flux = 900; return r.run(300 * time.Millisecond) }, want: []Action{Close}},
-		{Holding, Clouded}:       {act: func(r *rig) []Action { return r.run(2100 * time.Millisecond) }, want: []Action{Open}},
-		{Clouded, Closed}:        {act: func(r *rig) []Action { r.in.Flux = 900; return r.run(300 * time.Millisecond) }, want: []Action{Close}},
-		{Clouded, Acquiring}:     {act: func(r *rig) []Action { r.until(Acquiring, 61*time.Second); return nil }},
-		{Tripped, Acquiring}:     {act: func(r *rig) []Action { r.in.Tripped = false; return r.run(frame) }},
-		{Manual, Acquiring}:      {act: func(r *rig) []Action { r.s.Operator(CmdResume, r.now); return nil }},
+	// A step per transition of the table, keyed by its states and reason (two
+	// transitions may join the same states for different causes).
+	type key struct {
+		from, to State
+		reason   string
 	}
-	var cases []tc
+	steps := map[key]tc{
+		{Starting, Calibrating, "no reconstructor"}:      {act: func(r *rig) []Action { r.in.HaveReconstructor = false; return r.run(frame) }, want: []Action{Calibrate}},
+		{Starting, Acquiring, "reconstructor loaded"}:    {act: func(r *rig) []Action { return r.run(frame) }},
+		{Calibrating, Acquiring, "calibration finished"}: {act: func(r *rig) []Action { r.in.CalibrationDone = true; return r.run(frame) }},
+		{Calibrating, Starting, "calibration failed"}:    {act: func(r *rig) []Action { r.in.CalibrationFailed = true; return r.run(frame) }},
+		{Acquiring, Closed, "flux steady above minimum"}: {act: func(r *rig) []Action { return r.run(600 * time.Millisecond) }, want: []Action{Close}},
+		{Closed, Holding, "flux lost"}:                   {act: func(r *rig) []Action { r.in.Flux = 100; return r.run(100 * time.Millisecond) }, want: []Action{Hold}},
+		// The daemon's watchdog held the loop: no action (it is held already).
+		{Closed, Holding, "loop held by the daemon"}:             {act: func(r *rig) []Action { r.in.Held = true; return r.run(frame) }},
+		{Holding, Closed, "flux returned"}:                       {act: func(r *rig) []Action { r.in.Flux = 900; return r.run(300 * time.Millisecond) }, want: []Action{Close}},
+		{Holding, Clouded, "hold timeout"}:                       {act: func(r *rig) []Action { return r.run(2100 * time.Millisecond) }, want: []Action{Open}},
+		{Clouded, Closed, "flux returned"}:                       {act: func(r *rig) []Action { r.in.Flux = 900; return r.run(300 * time.Millisecond) }, want: []Action{Close}},
+		{Clouded, Acquiring, "long pause: re-measure reference"}: {act: func(r *rig) []Action { r.until(Acquiring, 61*time.Second); return nil }},
+		{Tripped, Acquiring, "trip reset"}:                       {act: func(r *rig) []Action { r.in.Tripped = false; return r.run(frame) }},
+		{Manual, Acquiring, "operator resume"}:                   {act: func(r *rig) []Action { r.s.Operator(CmdResume, r.now); return nil }},
+	}
+	type tcase struct {
+		tc
+		reason string
+	}
+	var cases []tcase
 	for _, tr := range Transitions {
 		froms := []State{tr.From}
 		if tr.From == anyState {
@@ -110,7 +122,7 @@ func TestTransitions(t *testing.T) {
 			}
 		}
 		for _, f := range froms {
-			c, ok := steps[[2]State{f, tr.To}]
+			c, ok := steps[key{f, tr.To, tr.Reason}]
 			switch {
 			case ok:
 			case tr.To == Tripped:
@@ -118,14 +130,14 @@ func TestTransitions(t *testing.T) {
 			case tr.To == Manual:
 				c = tc{act: func(r *rig) []Action { r.s.Operator(CmdHold, r.now); return nil }}
 			default:
-				t.Fatalf("no test step for %v → %v", f, tr.To)
+				t.Fatalf("no test step for %v → %v (%s)", f, tr.To, tr.Reason)
 			}
 			c.from, c.to = f, tr.To
-			cases = append(cases, c)
+			cases = append(cases, tcase{c, tr.Reason})
 		}
 	}
 	for _, c := range cases {
-		t.Run(c.from.String()+"→"+c.to.String(), func(t *testing.T) {
+		t.Run(c.from.String()+"→"+c.to.String()+" "+c.reason, func(t *testing.T) {
 			r := newRig(t)
 			setups[c.from](r)
 			if r.s.State() != c.from {
@@ -139,23 +151,14 @@ func TestTransitions(t *testing.T) {
 			if len(r.events) != 1 || r.events[0].From != c.from || r.events[0].To != c.to {
 				t.Fatalf("events %+v, want exactly one %v→%v", r.events, c.from, c.to)
 			}
-			if !allowed(c.from, c.to, r.events[0].Reason) {
-				t.Fatalf("transition %v→%v (%q) not in the table", c.from, c.to, r.events[0].Reason)
+			if r.events[0].Reason != c.reason {
+				t.Fatalf("transition %v→%v for %q, want the table's %q", c.from, c.to, r.events[0].Reason, c.reason)
 			}
 			if len(got) != len(c.want) || (len(got) > 0 && got[0] != c.want[0]) {
 				t.Fatalf("actions %v, want %v", got, c.want)
 			}
 		})
 	}
-}
-
-func allowed(from, to State, reason string) bool {
-	for _, tr := range Transitions {
-		if (tr.From == from || tr.From == anyState) && tr.To == to && tr.Reason == reason {
-			return true
-		}
-	}
-	return false
 }
 
 // TestNoTransitionWithoutCause checks that a steady state stays put: a closed loop on

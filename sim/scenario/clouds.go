@@ -49,6 +49,17 @@ func (cs Clouds) Transmission(t float64) float64 {
 	return 1
 }
 
+// Recovered returns the frame time, seconds, from which the passage lets at
+// least frac of the light through again: the end of the passage less the part of
+// its closing ramp above frac, end − ramp·(1 − frac)/depth (the start when the
+// passage never takes the transmission below frac).
+func (c Cloud) Recovered(frac float64) float64 {
+	if 1-c.Depth >= frac {
+		return c.Start
+	}
+	return c.Start + c.Duration - c.Ramp*(1-frac)/c.Depth
+}
+
 type rawCloud struct {
 	Start    *float64 `yaml:"start_s"`
 	Duration *float64 `yaml:"duration_s"`

@@ -79,3 +79,25 @@ func TestCloudTransmission(t *testing.T) {
 		}
 	}
 }
+
+// TestCloudRecovered checks Recovered against a search along Transmission.
+func TestCloudRecovered(t *testing.T) {
+	for _, c := range []Cloud{{Start: 10, Duration: 4, Depth: 0.9, Ramp: 1}, {Start: 20, Duration: 2, Depth: 0.5}, {Start: 1, Duration: 3, Depth: 0.99, Ramp: 0.4}} {
+		for _, frac := range []float64{0.3, 0.6, 0.95} {
+			want := c.Start
+			if 1-c.Depth < frac {
+				want = c.Start + c.Duration
+				cs := Clouds{c}
+				for x := c.Start + c.Duration/2; x <= c.Start+c.Duration; x += 1e-5 {
+					if cs.Transmission(x) >= frac {
+						want = x
+						break
+					}
+				}
+			}
+			if got := c.Recovered(frac); math.Abs(got-want) > 2e-5 {
+				t.Errorf("%+v: Recovered(%g) = %g, want %g", c, frac, got, want)
+			}
+		}
+	}
+}
