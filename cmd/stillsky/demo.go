@@ -21,6 +21,8 @@ func runDemo(args []string) error {
 	summary := fs.String("summary", "", "write the summary as JSON to this file")
 	lockstep := fs.Bool("lockstep", false, "run the bench in lockstep mode (reproducible) instead of free-running; without it the demo checks first that the machine keeps real time")
 	basis := fs.String("basis", "", "modal basis of the reconstructor and its modal gains: svd (the interaction matrix's singular modes, the default) kl (Karhunen–Loève modes of Kolmogorov turbulence on the mirror) or mirror (the mirror's own modes, orthonormal in surface and ordered by the sensor's sensitivity)")
+	autonomous := fs.Bool("autonomous", false, "run a stretch of night with no operator instead of the open and closed phases: the loop's supervisor (stillsky loop --autonomous) calibrates, closes, holds through a cloud, opens (no trip) when it lasts and closes again; the scenario's clouds list sets the passages (two of the demo's own, at 8 s and 16 s of frame time, when it has none); the summary lists every transition with its frame time and each cloud's re-close time. Not a safety system: a real site's dome, weather and personnel interlocks govern")
+	night := fs.Duration("night", 0, "with --autonomous: length of the night in frame time (default: until 4 s after the last cloud)")
 	logLevel := fs.String("log-level", "warn", "log level of bench and loop: debug, info, warn, error")
 	if err := parseFlags(fs, args); err != nil {
 		return err
@@ -32,7 +34,11 @@ func runDemo(args []string) error {
 	if *basis != "" && *basis != "svd" && *basis != "kl" && *basis != "mirror" {
 		return fmt.Errorf("demo: --basis %q: want svd, kl or mirror", *basis)
 	}
-	cfg := demo.Config{Scenario: *scn, FramesClosed: *frames, Lockstep: *lockstep, Basis: *basis, Out: os.Stdout, Logger: log}
+	if *night != 0 && !*autonomous {
+		return fmt.Errorf("demo: --night is for --autonomous")
+	}
+	cfg := demo.Config{Scenario: *scn, FramesClosed: *frames, Lockstep: *lockstep, Basis: *basis, Out: os.Stdout, Logger: log,
+		Autonomous: *autonomous, Night: *night}
 	if *gain != -1 {
 		cfg.Gain = gain
 	}

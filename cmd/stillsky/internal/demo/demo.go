@@ -18,6 +18,7 @@ import (
 
 	"stillsky/cmd/stillsky/internal/ctl"
 	"stillsky/daemon"
+	"stillsky/daemon/supervisor"
 	"stillsky/internal/atomicfile"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/rig"
@@ -44,6 +45,19 @@ type Config struct {
 	Out io.Writer
 	// Logger receives the log of the bench and the daemon; nil discards it.
 	Logger *slog.Logger
+	// Autonomous runs a stretch of night instead of the open and closed
+	// phases: the daemon's supervisor (stillsky loop --autonomous) calibrates,
+	// closes, holds, opens and closes again on its own, through the
+	// scenario's clouds (two of the demo's own when it has none), with no
+	// operator command.
+	Autonomous bool
+	// Night is the length of an autonomous night in frame time; 0 runs until
+	// 4 s after the last cloud.
+	Night time.Duration
+
+	// night and supervisor are the autonomous night's length and thresholds.
+	night      time.Duration
+	supervisor supervisor.Config
 
 	// scaleFrames says, after a fallback to lockstep, which phase's frames were
 	// left to their default and so follow the lockstep rate.
@@ -122,6 +136,8 @@ type Summary struct {
 	// TipTilt is the tip-tilt loop at the end of the run, for scenarios with
 	// a natural-star tip-tilt sensor and a tip-tilt mirror (nil without).
 	TipTilt *TipTiltSummary `json:"tip_tilt,omitempty"`
+	// Night is the record of an autonomous night (Config.Autonomous).
+	Night *NightSummary `json:"night,omitempty"`
 }
 
 // TipTiltSummary is the tip-tilt loop's part of the summary.
@@ -192,6 +208,19 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	if err != nil {
 		return nil, err
 	}
+	var auto *daemon.Autonomous
+	var night *NightSummary
+	var nightLine string
+	if c.Autonomous {
+		if c.Night < 0 {
+			return nil, fmt.Errorf("demo: night %v: must be >= 0", c.Night)
+		}
+		var def bool
+		c.night, def, nightLine = prepareNight(&c, scn)
+		c.supervisor = supervisor.DefaultConfig()
+		auto = &daemon.Autonomous{Supervisor: c.supervisor, Calibration: &stillskyv1.CalibrateRequest{Basis: c.Basis}}
+		night = &NightSummary{FrameTimeS: c.night.Seconds(), DefaultClouds: def, Clouds: scn.Clouds, Supervisor: c.supervisor}
+	}
 	// The rig runs until the end of the summary whatever ctx does: an
 	// interrupted run still reports the loop's figures.
 	start := func(lockstep bool) (*rig.Rig, error) {
@@ -219,10 +248,12 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 			Scenario: scn,
 			// One science image every 20 frames is plenty for a long exposure of
 			// thousands of frames, and keeps the camera's FFTs off the loop's CPU time.
-			Bench: bench.Options{Lockstep: lockstep, Gated: lockstep, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
+			// An autonomous night is not cut into phases: no gate.
+			Bench: bench.Options{Lockstep: lockstep, Gated: lockstep && !c.Autonomous, StrehlEvery: 20, Logger: c.Logger.With("process", "sim")},
 			// The loop analyses itself every 4 s, so that its turbulence estimate
 			// and budget reach the summary of a run of a few seconds.
-			Loop:      daemon.Config{Gain: c.Gain, AnalysisPeriod: 4 * time.Second, Interlocks: locks, Beacon: beacon, Logger: c.Logger.With("process", "loop")},
+			Loop: daemon.Config{Gain: c.Gain, AnalysisPeriod: 4 * time.Second, Interlocks: locks, Beacon: beacon,
+				Autonomous: auto, Logger: c.Logger.With("process", "loop")},
 			BenchHTTP: true,
 		})
 	}
@@ -232,7 +263,10 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 	}
 	defer func() { r.Close() }()
 	fmt.Fprintf(c.Out, "stillsky demo: scenario %q — %s\n", scn.Name, scn.Description)
-	sum := &Summary{Scenario: scn.Name, ScienceWavelengthM: scn.Science.Wavelength, Lockstep: c.Lockstep}
+	sum := &Summary{Scenario: scn.Name, ScienceWavelengthM: scn.Science.Wavelength, Lockstep: c.Lockstep, Night: night}
+	if c.Autonomous {
+		fmt.Fprintln(c.Out, nightLine)
+	}
 	if !c.Lockstep {
 		if err := connected(ctx, r, false); err != nil {
 			return nil, err
@@ -262,7 +296,12 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 			t.Magnitude, t.FrameRate, r.Devices.TipTilt, t.Stroke/mas/1000)
 	}
 
-	st, err := run(ctx, c, r, sum)
+	var st *stillskyv1.GetStatusResponse
+	if c.Autonomous {
+		st, err = runNight(ctx, c, r, scn)
+	} else {
+		st, err = run(ctx, c, r, sum)
+	}
 	if err != nil && ctx.Err() != nil {
 		// Stopped from outside: the summary of what ran, from the loop as it is.
 		sum.Interrupted = true
@@ -280,13 +319,28 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 		sum.Budget = predictBudget(scn, r, sum.Gain, st.GetLeak())
 		sum.TipTilt = tipTiltSummary(st.GetTipTilt())
 	}
+	if night != nil {
+		events := r.Loop.SupervisorEvents()
+		night.Transitions = nightTransitions(events)
+		night.Passages = passages(scn.Clouds, events, c.supervisor)
+		night.WatchdogHolds = watchdogHolds(events)
+		night.TrueStrehl = r.Bench.Stats().Strehl
+		if s, ok := r.Loop.SupervisorState(); ok {
+			night.FinalState = s.String()
+		}
+		sum.Budget = nil // a night with clouds is no steady closed loop to budget
+	}
 	if cerr := r.Close(); err == nil {
 		err = cerr
 	}
 	if err != nil && !sum.Interrupted {
 		return nil, err
 	}
-	writeTable(c.Out, sum)
+	if sum.Night != nil {
+		writeNight(c.Out, sum)
+	} else {
+		writeTable(c.Out, sum)
+	}
 	return sum, err
 }
 

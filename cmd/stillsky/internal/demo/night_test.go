@@ -1,0 +1,49 @@
+package demo_test
+
+import (
+	"bytes"
+	"context"
+	"strings"
+	"testing"
+
+	"stillsky/cmd/stillsky/internal/demo"
+)
+
+// TestAutonomousNightDemo runs `stillsky demo --scenario small --autonomous
+// --lockstep`: the small scenario has no clouds, so the demo schedules its two
+// passages; with no operator command the supervisor calibrates, closes, holds
+// through the first cloud and opens in the second, and closes again after each
+// within the issue's 2 s of the flux returning, with no interlock trip; the
+// summary lists each transition and each cloud's re-close time.
+func TestAutonomousNightDemo(t *testing.T) {
+	var out bytes.Buffer
+	sum, err := demo.Run(context.Background(), demo.Config{Scenario: "small", Lockstep: true, Autonomous: true, Out: &out})
+	if err != nil {
+		t.Fatalf("Run: %v\n%s", err, out.String())
+	}
+	n := sum.Night
+	if n == nil || !n.DefaultClouds || len(n.Clouds) != 2 || n.FrameTimeS != 26 {
+		t.Fatalf("night %+v: want the demo's two clouds over 26 s", n)
+	}
+	var path []string
+	for _, tr := range n.Transitions {
+		path = append(path, tr.From+"→"+tr.To)
+	}
+	want := "starting→calibrating calibrating→acquiring acquiring→closed closed→holding holding→closed closed→holding holding→clouded clouded→closed"
+	if got := strings.Join(path, " "); got != want {
+		t.Fatalf("transitions\n  %s\nwant\n  %s\n%s", got, want, out.String())
+	}
+	for i, p := range n.Passages {
+		if p.Opened != (i == 1) || p.ClosedS < 0 || p.RecloseS < 0 || p.RecloseS > 2 {
+			t.Errorf("cloud %d: %+v: want %s, closed again within 2 s of the flux returning", i+1, p, map[bool]string{false: "held through", true: "opened"}[i == 1])
+		}
+	}
+	if sum.InterlockTrips != 0 || sum.FinalLoopState != "closed" || n.FinalState != "closed" {
+		t.Errorf("trips %d, final loop %q, supervisor %q: want 0, closed, closed", sum.InterlockTrips, sum.FinalLoopState, n.FinalState)
+	}
+	for _, s := range []string{"autonomous night: 26.0 s of frame time", "holding     → clouded", "cloud 2 (16.0–22.0 s, depth 0.99): opened (no trip)", "re-closed", "operator commands 0"} {
+		if !strings.Contains(out.String(), s) {
+			t.Errorf("output lacks %q:\n%s", s, out.String())
+		}
+	}
+}
