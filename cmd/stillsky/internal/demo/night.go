@@ -18,10 +18,11 @@ import (
 // defaultClouds are the passages of an autonomous demo whose scenario has none:
 // a short one the supervisor holds the loop through (its loss lasts less than
 // the 2 s hold timeout) and a long, thick one after which it opens the loop and
-// closes it again when the sky clears.
+// closes it again when the sky clears. The first comes late enough for the
+// calibration (about 1 s of frame time, longer on a loaded machine).
 var defaultClouds = scenario.Clouds{
-	{Start: 8, Duration: 2, Depth: 0.9, Ramp: 0.3},
-	{Start: 16, Duration: 6, Depth: 0.99, Ramp: 0.5},
+	{Start: 10, Duration: 2, Depth: 0.9, Ramp: 0.3},
+	{Start: 18, Duration: 6, Depth: 0.99, Ramp: 0.5},
 }
 
 // nightAfter is how long an autonomous night runs on after its last cloud.

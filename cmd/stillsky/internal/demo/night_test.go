@@ -22,8 +22,8 @@ func TestAutonomousNightDemo(t *testing.T) {
 		t.Fatalf("Run: %v\n%s", err, out.String())
 	}
 	n := sum.Night
-	if n == nil || !n.DefaultClouds || len(n.Clouds) != 2 || n.FrameTimeS != 26 {
-		t.Fatalf("night %+v: want the demo's two clouds over 26 s", n)
+	if n == nil || !n.DefaultClouds || len(n.Clouds) != 2 || n.FrameTimeS != 28 {
+		t.Fatalf("night %+v: want the demo's two clouds over 28 s", n)
 	}
 	var path []string
 	for _, tr := range n.Transitions {
@@ -41,7 +41,7 @@ func TestAutonomousNightDemo(t *testing.T) {
 	if sum.InterlockTrips != 0 || sum.FinalLoopState != "closed" || n.FinalState != "closed" {
 		t.Errorf("trips %d, final loop %q, supervisor %q: want 0, closed, closed", sum.InterlockTrips, sum.FinalLoopState, n.FinalState)
 	}
-	for _, s := range []string{"autonomous night: 26.0 s of frame time", "holding     → clouded", "cloud 2 (16.0–22.0 s, depth 0.99): opened (no trip)", "re-closed", "operator commands 0"} {
+	for _, s := range []string{"autonomous night: 28.0 s of frame time", "holding     → clouded", "cloud 2 (18.0–24.0 s, depth 0.99): opened (no trip)", "re-closed", "operator commands 0"} {
 		if !strings.Contains(out.String(), s) {
 			t.Errorf("output lacks %q:\n%s", s, out.String())
 		}
