@@ -87,3 +87,34 @@ func TestSystemTipTiltAllocations(t *testing.T) {
 		t.Errorf("frame with the tip-tilt mirror: %v allocations, want 0", n)
 	}
 }
+
+// BenchmarkResidualTilt times the tip-tilt sensor's share of a free-running
+// lgs frame beside the frame itself: Frame alone, then Frame and
+// ResidualTilt (which forms the residual: the mirror's surface and the
+// gradient over the pupil), with the command changing every frame as in
+// closed loop.
+func BenchmarkResidualTilt(b *testing.B) {
+	for _, withTilt := range []bool{false, true} {
+		name := "frame"
+		if withTilt {
+			name = "frame+tilt"
+		}
+		b.Run(name, func(b *testing.B) {
+			sys := newSystem(b, load(b, "lgs"))
+			slopes := make([]float32, sys.NumSlopes())
+			cmd := make([]float32, sys.NumActuators())
+			k := 0
+			for b.Loop() {
+				k++
+				for i := range cmd {
+					cmd[i] = 1e-8 * float32((i+k)%7)
+				}
+				sys.SetCommand(cmd)
+				sys.Frame(slopes)
+				if withTilt {
+					sys.ResidualTilt()
+				}
+			}
+		})
+	}
+}
