@@ -20,6 +20,15 @@ func TestFittingCoefficient(t *testing.T) {
 	if !(aF > 0.20 && aF < 0.275) {
 		t.Errorf("a_F = %.4f: want in (0.20, 0.275)", aF)
 	}
+	// A real face-sheet mirror, Gaussian influence functions of coupling 0.15 as
+	// the simulated one's: its least-squares fit is worse than the ideal band's,
+	// and inside Hudgin's 0.23–0.35 for continuous face-sheet mirrors (from memory).
+	o.Coupling = 0.15
+	aG := FittingVariance(o, kolmogorov(0.1, Layer{Fraction: 1})) / math.Pow(0.2/0.1, 5.0/3)
+	t.Logf("a_F of a Gaussian-influence mirror, coupling 0.15: %.4f", aG)
+	if !(aG > aF && aG > 0.23 && aG < 0.35) {
+		t.Errorf("a_F = %.4f with coupling 0.15: want above the ideal %.4f and in (0.23, 0.35)", aG, aF)
+	}
 }
 
 func TestServoGreenwood(t *testing.T) {

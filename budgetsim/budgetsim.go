@@ -130,7 +130,7 @@ func Input(scn *scenario.Scenario, sys *bench.System, r *controller.Reconstructo
 	m := sys.Mirror()
 	in := analysis.BudgetInput{
 		Optics: analysis.Optics{Diameter: scn.Telescope.Diameter, Subaperture: scn.SubapertureSize(),
-			Pitch: m.Pitch(), ScienceWavelength: scn.Science.Wavelength},
+			Pitch: m.Pitch(), ScienceWavelength: scn.Science.Wavelength, Coupling: m.Coupling()},
 		Turbulence: t,
 		Loop:       analysis.Loop{Gain: gain, Delay: max(scn.Loop.DelayFrames, 1), FrameRate: scn.Loop.FrameRate},
 		ModalGains: modalGains,
