@@ -33,6 +33,10 @@ func (s *controlServer) GetStatus(context.Context, *stillskyv1.GetStatusRequest)
 	return s.d.status(), nil
 }
 
+func (s *controlServer) CapturePixelCalibration(ctx context.Context, req *stillskyv1.CapturePixelCalibrationRequest) (*stillskyv1.CapturePixelCalibrationResponse, error) {
+	return s.d.capturePixels(ctx, req)
+}
+
 func (s *controlServer) OpenLoop(ctx context.Context, _ *stillskyv1.OpenLoopRequest) (*stillskyv1.OpenLoopResponse, error) {
 	if err := s.d.requestState(ctx, stateOpen); err != nil {
 		return nil, err

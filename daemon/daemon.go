@@ -159,6 +159,9 @@ type Daemon struct {
 	// auto is the unattended-operation supervisor, nil without Config.Autonomous.
 	auto *autonomy
 
+	// pixParts are a pixel camera's captured dark, flat and reference.
+	pixParts pixelParts
+
 	// describes holds the devices' Describe answers, for the live view.
 	describes atomic.Pointer[describes]
 	// camera is the connected camera's client, for source selection.

@@ -26,6 +26,8 @@
 // stats.go (status figures), interlock.go; control.go (Control API handlers),
 // params.go, calibration.go, status.go; metrics.go, telemetry.go (the ring of
 // recent frames), record.go (recordings read from it), liveview.go, persist.go,
+// pixels.go (a pixel camera's frames centroided chunk by chunk), pixelcal.go
+// (its dark, flat and reference: capture, FITS files, restore),
 // auth.go, rtsched.go (threads and memory), autonomous.go (the unattended-operation
 // supervisor of daemon/supervisor, fed by the real-time goroutine every frame);
 // tiptilt.go (the tip-tilt loop: its device session, its real-time goroutine,

@@ -112,7 +112,7 @@ func (a *assembler) addPixels(f *stillskyv1.StreamFramesResponse, r assembly, nu
 	if int(f.GetOffset()) != from {
 		return a.refuse(r, num, refusedChunkLayout)
 	}
-	dst := px.frame[:rows*g.width]
+	dst := px.frame[first*g.width : (first+rows)*g.width] // the whole frame stays, for captures
 	for i := range dst {
 		dst[i] = uint16(b[2*i]) | uint16(b[2*i+1])<<8
 	}

@@ -249,6 +249,11 @@ func (rt *realtime) receive(f *stillskyv1.StreamFramesResponse, received int64) 
 	u.stats.lastFrame.Store(num)
 	u.stats.flux.Store(rt.asm.flux)
 	m.flux.Set(rt.asm.flux)
+	if px := rt.asm.px; px != nil {
+		if c := u.capture.Load(); c != nil {
+			c.add(px.frame)
+		}
+	}
 	if a.dropped > 0 {
 		m.dropped.Add(float64(a.dropped))
 		u.stats.dropped.Add(a.dropped)

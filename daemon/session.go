@@ -77,7 +77,7 @@ func (d *Daemon) session(ctx context.Context) error {
 	d.restoreOnce(g)
 	if pg := g.pixels; pg != nil {
 		if c := d.u.pixCal.Load(); c == nil || !sameLayout(c.Layout(), pg.layout) {
-			c, err := pg.defaultCalibration()
+			c, err := d.restorePixels(pg)
 			if err != nil {
 				return err
 			}

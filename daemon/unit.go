@@ -41,6 +41,8 @@ type unit struct {
 	// pixCal is the centroid calibration of a pixel camera (dark, flat,
 	// reference), swapped whole between frames; nil for a slope camera.
 	pixCal atomic.Pointer[centroid.Calibration]
+	// capture, while a pixel calibration is captured, sums the raw frames.
+	capture atomic.Pointer[pixelCapture]
 
 	stats     runStats
 	telemetry telemetryRing

@@ -195,14 +195,21 @@ func (b *Server) SetSource(_ context.Context, req *stillskyv1.SetSourceRequest) 
 	case stillskyv1.Source_SOURCE_SKY:
 		sky = true
 	case stillskyv1.Source_SOURCE_CALIBRATION:
+	case stillskyv1.Source_SOURCE_DARK, stillskyv1.Source_SOURCE_FLAT:
+		if b.px == nil {
+			return nil, status.Errorf(codes.Unimplemented, "camera: source %v: a slope camera has no shutter or flat lamp", req.GetSource())
+		}
 	default:
-		return nil, status.Errorf(codes.InvalidArgument, "camera: source %v: want SOURCE_SKY or SOURCE_CALIBRATION", req.GetSource())
+		return nil, status.Errorf(codes.InvalidArgument, "camera: source %v: want SOURCE_SKY, SOURCE_CALIBRATION, SOURCE_DARK or SOURCE_FLAT", req.GetSource())
 	}
 	b.gate.mu.Lock() // between two frames of a gated bench
 	b.mu.Lock()
 	b.sys.SetTurbulence(sky)
 	b.sys.SetNoise(sky && b.scn.WFS.Noise && b.px == nil) // pixels: the detector's noise
 	b.calibrationSource.Store(!sky)
+	if b.px != nil {
+		b.px.source.Store(int32(req.GetSource()))
+	}
 	b.mu.Unlock()
 	b.sky.Store(sky)
 	b.gate.mu.Unlock()

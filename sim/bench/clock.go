@@ -178,7 +178,7 @@ func (b *Server) produce(k, n uint64, sample bool) {
 // its noise-free slopes; a slope camera's slot is left as it is.
 func (b *Server) renderPixels(slot *frameSlot) {
 	if b.px != nil {
-		b.px.render(slot.pixels, slot.slopes, b.calibrationSource.Load())
+		b.px.render(slot.pixels, slot.slopes)
 	}
 }
 

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"sync/atomic"
 
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/detector"
@@ -23,18 +24,25 @@ const pixelStream = 0x5eed_0f_91c5
 // and read noise (cal). Only the bench's producer renders.
 type pixelCamera struct {
 	sky, cal *detector.Detector
-	scale    float64 // radians per pixel
-	off      []float64
-	frame    []uint16
-	rng      *rand.Rand
-	pixels   int // across a window
-	side     int // across the detector
+	// dark renders with the shutter closed, flat under a uniform lamp.
+	dark, flat *detector.Detector
+	source     atomic.Int32 // the stillskyv1.Source selected
+	scale      float64      // radians per pixel
+	off        []float64
+	frame      []uint16
+	rng        *rand.Rand
+	pixels     int // across a window
+	side       int // across the detector
 }
 
 // calibrationPhotons is the calibration source's photo-electrons per
 // subaperture per frame (at most half a full well): bright, as an internal
 // source is, and no pixel of a spot saturates.
 const calibrationPhotons = 1e4
+
+// flatLevel is the flat lamp's electrons per pixel per frame (at most half
+// a full well).
+const flatLevel = 1e4
 
 // newPixelCamera builds the detectors of scenario s, with the laser beacon's
 // elongation when s has one; nil when s streams slopes.
@@ -70,6 +78,19 @@ func newPixelCamera(s *scenario.Scenario, sys *System) (*pixelCamera, error) {
 	if err != nil {
 		return nil, fmt.Errorf("bench: scenario %s: wfs.pixels: %w", s.Name, err)
 	}
+	// The shutter closed: bias, dark current and its noise, read noise. The
+	// flat lamp: a uniform level of half a full well at most, times each
+	// pixel's response.
+	cfg.Photons, cfg.Background, cfg.ReadNoise, cfg.PhotonNoise = 0, 0, p.ReadNoise, true
+	dark, err := detector.New(cfg)
+	if err != nil {
+		return nil, fmt.Errorf("bench: scenario %s: wfs.pixels: %w", s.Name, err)
+	}
+	cfg.Background = min(flatLevel, p.FullWell/2)
+	flat, err := detector.New(cfg)
+	if err != nil {
+		return nil, fmt.Errorf("bench: scenario %s: wfs.pixels: %w", s.Name, err)
+	}
 	if s.LaserGuideStar != nil {
 		d, half := s.SubapertureSize(), s.Telescope.Diameter/2
 		centres := make([][2]float64, len(valid))
@@ -87,24 +108,31 @@ func newPixelCamera(s *scenario.Scenario, sys *System) (*pixelCamera, error) {
 		}
 	}
 	side := sky.Side()
-	return &pixelCamera{sky: sky, cal: cal, scale: p.PixelScale, off: make([]float64, 2*len(valid)),
+	c := &pixelCamera{sky: sky, cal: cal, dark: dark, flat: flat, scale: p.PixelScale, off: make([]float64, 2*len(valid)),
 		frame: make([]uint16, side*side), pixels: p.PixelsPerSubaperture, side: side,
-		rng: rand.New(rand.NewPCG(uint64(s.Atmosphere.Seed), pixelStream))}, nil
+		rng: rand.New(rand.NewPCG(uint64(s.Atmosphere.Seed), pixelStream))}
+	c.source.Store(int32(stillskyv1.Source_SOURCE_SKY))
+	return c, nil
 }
 
 // bytes is the size of one encoded frame.
 func (c *pixelCamera) bytes() int { return 2 * c.side * c.side }
 
 // render draws the frame whose noise-free slopes are slopes (radians) into
-// dst, little-endian 16-bit pixels, from the calibration source's detector
-// when cal is set. It allocates nothing.
-func (c *pixelCamera) render(dst []byte, slopes []float32, cal bool) {
+// dst, little-endian 16-bit pixels, as the selected source shows it. It
+// allocates nothing.
+func (c *pixelCamera) render(dst []byte, slopes []float32) {
 	for i, s := range slopes {
 		c.off[i] = float64(s) / c.scale
 	}
 	d := c.sky
-	if cal {
+	switch stillskyv1.Source(c.source.Load()) {
+	case stillskyv1.Source_SOURCE_CALIBRATION:
 		d = c.cal
+	case stillskyv1.Source_SOURCE_DARK:
+		d = c.dark
+	case stillskyv1.Source_SOURCE_FLAT:
+		d = c.flat
 	}
 	if err := d.Render(c.frame, c.off, c.rng); err != nil {
 		// Lengths are fixed at construction; an error here is a bug.

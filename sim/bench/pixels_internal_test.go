@@ -5,6 +5,7 @@ import (
 	"math"
 	"testing"
 
+	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/scenario"
 )
 
@@ -60,7 +61,12 @@ func TestPixelCameraElongatesBeaconSpots(t *testing.T) {
 	ux, uy := farX/farR, farY/farR
 	moments := func(cal bool) (along, across float64) {
 		buf := make([]byte, c.bytes())
-		c.render(buf, make([]float32, 2*len(valid)), cal)
+		src := stillskyv1.Source_SOURCE_SKY
+		if cal {
+			src = stillskyv1.Source_SOURCE_CALIBRATION
+		}
+		c.source.Store(int32(src))
+		c.render(buf, make([]float32, 2*len(valid)))
 		r0, c0 := (far/n)*p, (far%n)*p
 		var sw, sa, sc float64
 		mid := float64(p-1) / 2

@@ -30,6 +30,12 @@ const (
 	Source_SOURCE_SKY Source = 1
 	// The internal calibration source: no turbulence, no photon noise.
 	Source_SOURCE_CALIBRATION Source = 2
+	// Pixel cameras (frame format 2) only, for their dark and flat frames: the
+	// shutter closed (bias, dark current and read noise, no light), and a uniform
+	// flat-field lamp (every pixel lit alike, showing each one's response). A
+	// slope camera returns UNIMPLEMENTED.
+	Source_SOURCE_DARK Source = 3
+	Source_SOURCE_FLAT Source = 4
 )
 
 // Enum value maps for Source.
@@ -38,11 +44,15 @@ var (
 		0: "SOURCE_UNSPECIFIED",
 		1: "SOURCE_SKY",
 		2: "SOURCE_CALIBRATION",
+		3: "SOURCE_DARK",
+		4: "SOURCE_FLAT",
 	}
 	Source_value = map[string]int32{
 		"SOURCE_UNSPECIFIED": 0,
 		"SOURCE_SKY":         1,
 		"SOURCE_CALIBRATION": 2,
+		"SOURCE_DARK":        3,
+		"SOURCE_FLAT":        4,
 	}
 )
 
@@ -1056,12 +1066,14 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\x06pixels\x18\b \x01(\fR\x06pixels\x12\x1b\n" +
 	"\tfirst_row\x18\t \x01(\rR\bfirstRow\x12\x1b\n" +
 	"\trow_count\x18\n" +
-	" \x01(\rR\browCount*H\n" +
+	" \x01(\rR\browCount*j\n" +
 	"\x06Source\x12\x16\n" +
 	"\x12SOURCE_UNSPECIFIED\x10\x00\x12\x0e\n" +
 	"\n" +
 	"SOURCE_SKY\x10\x01\x12\x16\n" +
-	"\x12SOURCE_CALIBRATION\x10\x02*h\n" +
+	"\x12SOURCE_CALIBRATION\x10\x02\x12\x0f\n" +
+	"\vSOURCE_DARK\x10\x03\x12\x0f\n" +
+	"\vSOURCE_FLAT\x10\x04*h\n" +
 	"\x0eCentroidMethod\x12\x1f\n" +
 	"\x1bCENTROID_METHOD_UNSPECIFIED\x10\x00\x12\x17\n" +
 	"\x13CENTROID_METHOD_COG\x10\x01\x12\x1c\n" +

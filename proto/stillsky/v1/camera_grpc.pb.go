@@ -46,7 +46,8 @@ type CameraServiceClient interface {
 	// calibration source (bright and free of turbulence), which makes interaction
 	// matrices noise-free. The change applies from the next frame.
 	// Errors: INVALID_ARGUMENT for SOURCE_UNSPECIFIED; UNIMPLEMENTED for a device that
-	// has no calibration source (callers then calibrate on the sky).
+	// has no calibration source (callers then calibrate on the sky), or for
+	// SOURCE_DARK and SOURCE_FLAT on a slope camera.
 	SetSource(ctx context.Context, in *SetSourceRequest, opts ...grpc.CallOption) (*SetSourceResponse, error)
 	// SetAcquisition pauses or resumes the frame stream, as a detector's
 	// acquisition is stopped and started. Paused, the camera's clock and its frame
@@ -136,7 +137,8 @@ type CameraServiceServer interface {
 	// calibration source (bright and free of turbulence), which makes interaction
 	// matrices noise-free. The change applies from the next frame.
 	// Errors: INVALID_ARGUMENT for SOURCE_UNSPECIFIED; UNIMPLEMENTED for a device that
-	// has no calibration source (callers then calibrate on the sky).
+	// has no calibration source (callers then calibrate on the sky), or for
+	// SOURCE_DARK and SOURCE_FLAT on a slope camera.
 	SetSource(context.Context, *SetSourceRequest) (*SetSourceResponse, error)
 	// SetAcquisition pauses or resumes the frame stream, as a detector's
 	// acquisition is stopped and started. Paused, the camera's clock and its frame

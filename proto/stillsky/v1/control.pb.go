@@ -85,6 +85,62 @@ func (LoopState) EnumDescriptor() ([]byte, []int) {
 	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{0}
 }
 
+// PixelCalibrationKind names a pixel camera's calibration.
+type PixelCalibrationKind int32
+
+const (
+	PixelCalibrationKind_PIXEL_CALIBRATION_KIND_UNSPECIFIED PixelCalibrationKind = 0
+	// Mean frame with the shutter closed, ADU: subtracted from every frame.
+	PixelCalibrationKind_PIXEL_CALIBRATION_KIND_DARK PixelCalibrationKind = 1
+	// Each pixel's relative response (mean 1), from the flat lamp less the dark.
+	PixelCalibrationKind_PIXEL_CALIBRATION_KIND_FLAT PixelCalibrationKind = 2
+	// Slopes measured on the calibration source, subtracted from every frame's.
+	PixelCalibrationKind_PIXEL_CALIBRATION_KIND_REFERENCE PixelCalibrationKind = 3
+)
+
+// Enum value maps for PixelCalibrationKind.
+var (
+	PixelCalibrationKind_name = map[int32]string{
+		0: "PIXEL_CALIBRATION_KIND_UNSPECIFIED",
+		1: "PIXEL_CALIBRATION_KIND_DARK",
+		2: "PIXEL_CALIBRATION_KIND_FLAT",
+		3: "PIXEL_CALIBRATION_KIND_REFERENCE",
+	}
+	PixelCalibrationKind_value = map[string]int32{
+		"PIXEL_CALIBRATION_KIND_UNSPECIFIED": 0,
+		"PIXEL_CALIBRATION_KIND_DARK":        1,
+		"PIXEL_CALIBRATION_KIND_FLAT":        2,
+		"PIXEL_CALIBRATION_KIND_REFERENCE":   3,
+	}
+)
+
+func (x PixelCalibrationKind) Enum() *PixelCalibrationKind {
+	p := new(PixelCalibrationKind)
+	*p = x
+	return p
+}
+
+func (x PixelCalibrationKind) String() string {
+	return protoimpl.X.EnumStringOf(x.Descriptor(), protoreflect.EnumNumber(x))
+}
+
+func (PixelCalibrationKind) Descriptor() protoreflect.EnumDescriptor {
+	return file_stillsky_v1_control_proto_enumTypes[1].Descriptor()
+}
+
+func (PixelCalibrationKind) Type() protoreflect.EnumType {
+	return &file_stillsky_v1_control_proto_enumTypes[1]
+}
+
+func (x PixelCalibrationKind) Number() protoreflect.EnumNumber {
+	return protoreflect.EnumNumber(x)
+}
+
+// Deprecated: Use PixelCalibrationKind.Descriptor instead.
+func (PixelCalibrationKind) EnumDescriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{1}
+}
+
 // GetStatusRequest has no fields.
 type GetStatusRequest struct {
 	state         protoimpl.MessageState `protogen:"open.v1"`
@@ -2238,6 +2294,141 @@ func (x *RecordedFrames) GetCommands() []float32 {
 	return nil
 }
 
+// CapturePixelCalibrationRequest asks for one calibration.
+type CapturePixelCalibrationRequest struct {
+	state protoimpl.MessageState `protogen:"open.v1"`
+	Kind  PixelCalibrationKind   `protobuf:"varint,1,opt,name=kind,proto3,enum=stillsky.v1.PixelCalibrationKind" json:"kind,omitempty"`
+	// Frames averaged (0: 50; at most 10000).
+	Frames        uint32 `protobuf:"varint,2,opt,name=frames,proto3" json:"frames,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *CapturePixelCalibrationRequest) Reset() {
+	*x = CapturePixelCalibrationRequest{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[31]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *CapturePixelCalibrationRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*CapturePixelCalibrationRequest) ProtoMessage() {}
+
+func (x *CapturePixelCalibrationRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[31]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use CapturePixelCalibrationRequest.ProtoReflect.Descriptor instead.
+func (*CapturePixelCalibrationRequest) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{31}
+}
+
+func (x *CapturePixelCalibrationRequest) GetKind() PixelCalibrationKind {
+	if x != nil {
+		return x.Kind
+	}
+	return PixelCalibrationKind_PIXEL_CALIBRATION_KIND_UNSPECIFIED
+}
+
+func (x *CapturePixelCalibrationRequest) GetFrames() uint32 {
+	if x != nil {
+		return x.Frames
+	}
+	return 0
+}
+
+// CapturePixelCalibrationResponse summarises what was captured.
+type CapturePixelCalibrationResponse struct {
+	state  protoimpl.MessageState `protogen:"open.v1"`
+	Kind   PixelCalibrationKind   `protobuf:"varint,1,opt,name=kind,proto3,enum=stillsky.v1.PixelCalibrationKind" json:"kind,omitempty"`
+	Frames uint32                 `protobuf:"varint,2,opt,name=frames,proto3" json:"frames,omitempty"`
+	// Dark: mean ADU; flat: mean response (1); reference: mean slope, pixels.
+	Mean float64 `protobuf:"fixed64,3,opt,name=mean,proto3" json:"mean,omitempty"`
+	// The rms about the mean: of the dark's pixels (ADU), of the flat's pixels,
+	// of the reference slopes (pixels).
+	Rms float64 `protobuf:"fixed64,4,opt,name=rms,proto3" json:"rms,omitempty"`
+	// The file it was committed to in the state directory ("" without one).
+	File          string `protobuf:"bytes,5,opt,name=file,proto3" json:"file,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *CapturePixelCalibrationResponse) Reset() {
+	*x = CapturePixelCalibrationResponse{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[32]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *CapturePixelCalibrationResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*CapturePixelCalibrationResponse) ProtoMessage() {}
+
+func (x *CapturePixelCalibrationResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[32]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use CapturePixelCalibrationResponse.ProtoReflect.Descriptor instead.
+func (*CapturePixelCalibrationResponse) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{32}
+}
+
+func (x *CapturePixelCalibrationResponse) GetKind() PixelCalibrationKind {
+	if x != nil {
+		return x.Kind
+	}
+	return PixelCalibrationKind_PIXEL_CALIBRATION_KIND_UNSPECIFIED
+}
+
+func (x *CapturePixelCalibrationResponse) GetFrames() uint32 {
+	if x != nil {
+		return x.Frames
+	}
+	return 0
+}
+
+func (x *CapturePixelCalibrationResponse) GetMean() float64 {
+	if x != nil {
+		return x.Mean
+	}
+	return 0
+}
+
+func (x *CapturePixelCalibrationResponse) GetRms() float64 {
+	if x != nil {
+		return x.Rms
+	}
+	return 0
+}
+
+func (x *CapturePixelCalibrationResponse) GetFile() string {
+	if x != nil {
+		return x.File
+	}
+	return ""
+}
+
 var File_stillsky_v1_control_proto protoreflect.FileDescriptor
 
 const file_stillsky_v1_control_proto_rawDesc = "" +
@@ -2405,14 +2596,28 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x0fstrehl_estimate\x18\t \x03(\x01R\x0estrehlEstimate\x12\x16\n" +
 	"\x06slopes\x18\n" +
 	" \x03(\x02R\x06slopes\x12\x1a\n" +
-	"\bcommands\x18\v \x03(\x02R\bcommands*\x9c\x01\n" +
+	"\bcommands\x18\v \x03(\x02R\bcommands\"o\n" +
+	"\x1eCapturePixelCalibrationRequest\x125\n" +
+	"\x04kind\x18\x01 \x01(\x0e2!.stillsky.v1.PixelCalibrationKindR\x04kind\x12\x16\n" +
+	"\x06frames\x18\x02 \x01(\rR\x06frames\"\xaa\x01\n" +
+	"\x1fCapturePixelCalibrationResponse\x125\n" +
+	"\x04kind\x18\x01 \x01(\x0e2!.stillsky.v1.PixelCalibrationKindR\x04kind\x12\x16\n" +
+	"\x06frames\x18\x02 \x01(\rR\x06frames\x12\x12\n" +
+	"\x04mean\x18\x03 \x01(\x01R\x04mean\x12\x10\n" +
+	"\x03rms\x18\x04 \x01(\x01R\x03rms\x12\x12\n" +
+	"\x04file\x18\x05 \x01(\tR\x04file*\x9c\x01\n" +
 	"\tLoopState\x12\x1a\n" +
 	"\x16LOOP_STATE_UNSPECIFIED\x10\x00\x12\x13\n" +
 	"\x0fLOOP_STATE_OPEN\x10\x01\x12\x15\n" +
 	"\x11LOOP_STATE_CLOSED\x10\x02\x12\x13\n" +
 	"\x0fLOOP_STATE_HOLD\x10\x03\x12\x1a\n" +
 	"\x16LOOP_STATE_CALIBRATING\x10\x04\x12\x16\n" +
-	"\x12LOOP_STATE_TRIPPED\x10\x052\xdf\b\n" +
+	"\x12LOOP_STATE_TRIPPED\x10\x05*\xa6\x01\n" +
+	"\x14PixelCalibrationKind\x12&\n" +
+	"\"PIXEL_CALIBRATION_KIND_UNSPECIFIED\x10\x00\x12\x1f\n" +
+	"\x1bPIXEL_CALIBRATION_KIND_DARK\x10\x01\x12\x1f\n" +
+	"\x1bPIXEL_CALIBRATION_KIND_FLAT\x10\x02\x12$\n" +
+	" PIXEL_CALIBRATION_KIND_REFERENCE\x10\x032\xd5\t\n" +
 	"\x0eControlService\x12J\n" +
 	"\tGetStatus\x12\x1d.stillsky.v1.GetStatusRequest\x1a\x1e.stillsky.v1.GetStatusResponse\x12G\n" +
 	"\bOpenLoop\x12\x1c.stillsky.v1.OpenLoopRequest\x1a\x1d.stillsky.v1.OpenLoopResponse\x12J\n" +
@@ -2426,7 +2631,8 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x11LoadReconstructor\x12%.stillsky.v1.LoadReconstructorRequest\x1a&.stillsky.v1.LoadReconstructorResponse(\x01\x12^\n" +
 	"\x0fStreamTelemetry\x12#.stillsky.v1.StreamTelemetryRequest\x1a$.stillsky.v1.StreamTelemetryResponse0\x01\x12e\n" +
 	"\x12OptimiseModalGains\x12&.stillsky.v1.OptimiseModalGainsRequest\x1a'.stillsky.v1.OptimiseModalGainsResponse\x12^\n" +
-	"\x0fRecordTelemetry\x12#.stillsky.v1.RecordTelemetryRequest\x1a$.stillsky.v1.RecordTelemetryResponse0\x01B'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
+	"\x0fRecordTelemetry\x12#.stillsky.v1.RecordTelemetryRequest\x1a$.stillsky.v1.RecordTelemetryResponse0\x01\x12t\n" +
+	"\x17CapturePixelCalibration\x12+.stillsky.v1.CapturePixelCalibrationRequest\x1a,.stillsky.v1.CapturePixelCalibrationResponseB'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3"
 
 var (
 	file_stillsky_v1_control_proto_rawDescOnce sync.Once
@@ -2440,97 +2646,104 @@ func file_stillsky_v1_control_proto_rawDescGZIP() []byte {
 	return file_stillsky_v1_control_proto_rawDescData
 }
 
-var file_stillsky_v1_control_proto_enumTypes = make([]protoimpl.EnumInfo, 1)
-var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 31)
+var file_stillsky_v1_control_proto_enumTypes = make([]protoimpl.EnumInfo, 2)
+var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 33)
 var file_stillsky_v1_control_proto_goTypes = []any{
-	(LoopState)(0),                        // 0: stillsky.v1.LoopState
-	(*GetStatusRequest)(nil),              // 1: stillsky.v1.GetStatusRequest
-	(*GetStatusResponse)(nil),             // 2: stillsky.v1.GetStatusResponse
-	(*TipTiltStatus)(nil),                 // 3: stillsky.v1.TipTiltStatus
-	(*LatencySummary)(nil),                // 4: stillsky.v1.LatencySummary
-	(*ReconstructorInfo)(nil),             // 5: stillsky.v1.ReconstructorInfo
-	(*OpenLoopRequest)(nil),               // 6: stillsky.v1.OpenLoopRequest
-	(*OpenLoopResponse)(nil),              // 7: stillsky.v1.OpenLoopResponse
-	(*CloseLoopRequest)(nil),              // 8: stillsky.v1.CloseLoopRequest
-	(*CloseLoopResponse)(nil),             // 9: stillsky.v1.CloseLoopResponse
-	(*HoldLoopRequest)(nil),               // 10: stillsky.v1.HoldLoopRequest
-	(*HoldLoopResponse)(nil),              // 11: stillsky.v1.HoldLoopResponse
-	(*SetGainRequest)(nil),                // 12: stillsky.v1.SetGainRequest
-	(*SetGainResponse)(nil),               // 13: stillsky.v1.SetGainResponse
-	(*SetLeakRequest)(nil),                // 14: stillsky.v1.SetLeakRequest
-	(*SetLeakResponse)(nil),               // 15: stillsky.v1.SetLeakResponse
-	(*SetModalGainsRequest)(nil),          // 16: stillsky.v1.SetModalGainsRequest
-	(*SetModalGainsResponse)(nil),         // 17: stillsky.v1.SetModalGainsResponse
-	(*CalibrateRequest)(nil),              // 18: stillsky.v1.CalibrateRequest
-	(*CalibrateResponse)(nil),             // 19: stillsky.v1.CalibrateResponse
-	(*SaveReconstructorRequest)(nil),      // 20: stillsky.v1.SaveReconstructorRequest
-	(*SaveReconstructorResponse)(nil),     // 21: stillsky.v1.SaveReconstructorResponse
-	(*LoadReconstructorRequest)(nil),      // 22: stillsky.v1.LoadReconstructorRequest
-	(*LoadReconstructorResponse)(nil),     // 23: stillsky.v1.LoadReconstructorResponse
-	(*StreamTelemetryRequest)(nil),        // 24: stillsky.v1.StreamTelemetryRequest
-	(*StreamTelemetryResponse)(nil),       // 25: stillsky.v1.StreamTelemetryResponse
-	(*OptimiseModalGainsRequest)(nil),     // 26: stillsky.v1.OptimiseModalGainsRequest
-	(*OptimiseModalGainsResponse)(nil),    // 27: stillsky.v1.OptimiseModalGainsResponse
-	(*RecordTelemetryRequest)(nil),        // 28: stillsky.v1.RecordTelemetryRequest
-	(*RecordTelemetryResponse)(nil),       // 29: stillsky.v1.RecordTelemetryResponse
-	(*RecordingHeader)(nil),               // 30: stillsky.v1.RecordingHeader
-	(*RecordedFrames)(nil),                // 31: stillsky.v1.RecordedFrames
-	(*CameraServiceDescribeResponse)(nil), // 32: stillsky.v1.CameraServiceDescribeResponse
-	(*MirrorServiceDescribeResponse)(nil), // 33: stillsky.v1.MirrorServiceDescribeResponse
+	(LoopState)(0),                          // 0: stillsky.v1.LoopState
+	(PixelCalibrationKind)(0),               // 1: stillsky.v1.PixelCalibrationKind
+	(*GetStatusRequest)(nil),                // 2: stillsky.v1.GetStatusRequest
+	(*GetStatusResponse)(nil),               // 3: stillsky.v1.GetStatusResponse
+	(*TipTiltStatus)(nil),                   // 4: stillsky.v1.TipTiltStatus
+	(*LatencySummary)(nil),                  // 5: stillsky.v1.LatencySummary
+	(*ReconstructorInfo)(nil),               // 6: stillsky.v1.ReconstructorInfo
+	(*OpenLoopRequest)(nil),                 // 7: stillsky.v1.OpenLoopRequest
+	(*OpenLoopResponse)(nil),                // 8: stillsky.v1.OpenLoopResponse
+	(*CloseLoopRequest)(nil),                // 9: stillsky.v1.CloseLoopRequest
+	(*CloseLoopResponse)(nil),               // 10: stillsky.v1.CloseLoopResponse
+	(*HoldLoopRequest)(nil),                 // 11: stillsky.v1.HoldLoopRequest
+	(*HoldLoopResponse)(nil),                // 12: stillsky.v1.HoldLoopResponse
+	(*SetGainRequest)(nil),                  // 13: stillsky.v1.SetGainRequest
+	(*SetGainResponse)(nil),                 // 14: stillsky.v1.SetGainResponse
+	(*SetLeakRequest)(nil),                  // 15: stillsky.v1.SetLeakRequest
+	(*SetLeakResponse)(nil),                 // 16: stillsky.v1.SetLeakResponse
+	(*SetModalGainsRequest)(nil),            // 17: stillsky.v1.SetModalGainsRequest
+	(*SetModalGainsResponse)(nil),           // 18: stillsky.v1.SetModalGainsResponse
+	(*CalibrateRequest)(nil),                // 19: stillsky.v1.CalibrateRequest
+	(*CalibrateResponse)(nil),               // 20: stillsky.v1.CalibrateResponse
+	(*SaveReconstructorRequest)(nil),        // 21: stillsky.v1.SaveReconstructorRequest
+	(*SaveReconstructorResponse)(nil),       // 22: stillsky.v1.SaveReconstructorResponse
+	(*LoadReconstructorRequest)(nil),        // 23: stillsky.v1.LoadReconstructorRequest
+	(*LoadReconstructorResponse)(nil),       // 24: stillsky.v1.LoadReconstructorResponse
+	(*StreamTelemetryRequest)(nil),          // 25: stillsky.v1.StreamTelemetryRequest
+	(*StreamTelemetryResponse)(nil),         // 26: stillsky.v1.StreamTelemetryResponse
+	(*OptimiseModalGainsRequest)(nil),       // 27: stillsky.v1.OptimiseModalGainsRequest
+	(*OptimiseModalGainsResponse)(nil),      // 28: stillsky.v1.OptimiseModalGainsResponse
+	(*RecordTelemetryRequest)(nil),          // 29: stillsky.v1.RecordTelemetryRequest
+	(*RecordTelemetryResponse)(nil),         // 30: stillsky.v1.RecordTelemetryResponse
+	(*RecordingHeader)(nil),                 // 31: stillsky.v1.RecordingHeader
+	(*RecordedFrames)(nil),                  // 32: stillsky.v1.RecordedFrames
+	(*CapturePixelCalibrationRequest)(nil),  // 33: stillsky.v1.CapturePixelCalibrationRequest
+	(*CapturePixelCalibrationResponse)(nil), // 34: stillsky.v1.CapturePixelCalibrationResponse
+	(*CameraServiceDescribeResponse)(nil),   // 35: stillsky.v1.CameraServiceDescribeResponse
+	(*MirrorServiceDescribeResponse)(nil),   // 36: stillsky.v1.MirrorServiceDescribeResponse
 }
 var file_stillsky_v1_control_proto_depIdxs = []int32{
 	0,  // 0: stillsky.v1.GetStatusResponse.state:type_name -> stillsky.v1.LoopState
-	5,  // 1: stillsky.v1.GetStatusResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
-	4,  // 2: stillsky.v1.GetStatusResponse.rtc_latency:type_name -> stillsky.v1.LatencySummary
-	4,  // 3: stillsky.v1.GetStatusResponse.end_to_end_latency:type_name -> stillsky.v1.LatencySummary
-	3,  // 4: stillsky.v1.GetStatusResponse.tip_tilt:type_name -> stillsky.v1.TipTiltStatus
-	2,  // 5: stillsky.v1.OpenLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 6: stillsky.v1.CloseLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 7: stillsky.v1.HoldLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 8: stillsky.v1.SetGainResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 9: stillsky.v1.SetLeakResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	2,  // 10: stillsky.v1.SetModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	5,  // 11: stillsky.v1.CalibrateResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
-	5,  // 12: stillsky.v1.LoadReconstructorResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	6,  // 1: stillsky.v1.GetStatusResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	5,  // 2: stillsky.v1.GetStatusResponse.rtc_latency:type_name -> stillsky.v1.LatencySummary
+	5,  // 3: stillsky.v1.GetStatusResponse.end_to_end_latency:type_name -> stillsky.v1.LatencySummary
+	4,  // 4: stillsky.v1.GetStatusResponse.tip_tilt:type_name -> stillsky.v1.TipTiltStatus
+	3,  // 5: stillsky.v1.OpenLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 6: stillsky.v1.CloseLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 7: stillsky.v1.HoldLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 8: stillsky.v1.SetGainResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 9: stillsky.v1.SetLeakResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 10: stillsky.v1.SetModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	6,  // 11: stillsky.v1.CalibrateResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	6,  // 12: stillsky.v1.LoadReconstructorResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
 	0,  // 13: stillsky.v1.StreamTelemetryResponse.state:type_name -> stillsky.v1.LoopState
-	2,  // 14: stillsky.v1.OptimiseModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	30, // 15: stillsky.v1.RecordTelemetryResponse.header:type_name -> stillsky.v1.RecordingHeader
-	31, // 16: stillsky.v1.RecordTelemetryResponse.frames:type_name -> stillsky.v1.RecordedFrames
-	32, // 17: stillsky.v1.RecordingHeader.camera:type_name -> stillsky.v1.CameraServiceDescribeResponse
-	33, // 18: stillsky.v1.RecordingHeader.mirror:type_name -> stillsky.v1.MirrorServiceDescribeResponse
-	5,  // 19: stillsky.v1.RecordingHeader.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	3,  // 14: stillsky.v1.OptimiseModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	31, // 15: stillsky.v1.RecordTelemetryResponse.header:type_name -> stillsky.v1.RecordingHeader
+	32, // 16: stillsky.v1.RecordTelemetryResponse.frames:type_name -> stillsky.v1.RecordedFrames
+	35, // 17: stillsky.v1.RecordingHeader.camera:type_name -> stillsky.v1.CameraServiceDescribeResponse
+	36, // 18: stillsky.v1.RecordingHeader.mirror:type_name -> stillsky.v1.MirrorServiceDescribeResponse
+	6,  // 19: stillsky.v1.RecordingHeader.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
 	0,  // 20: stillsky.v1.RecordedFrames.states:type_name -> stillsky.v1.LoopState
-	1,  // 21: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
-	6,  // 22: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
-	8,  // 23: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
-	10, // 24: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
-	12, // 25: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
-	14, // 26: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
-	16, // 27: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
-	18, // 28: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
-	20, // 29: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
-	22, // 30: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
-	24, // 31: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
-	26, // 32: stillsky.v1.ControlService.OptimiseModalGains:input_type -> stillsky.v1.OptimiseModalGainsRequest
-	28, // 33: stillsky.v1.ControlService.RecordTelemetry:input_type -> stillsky.v1.RecordTelemetryRequest
-	2,  // 34: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
-	7,  // 35: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
-	9,  // 36: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
-	11, // 37: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
-	13, // 38: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
-	15, // 39: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
-	17, // 40: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
-	19, // 41: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
-	21, // 42: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
-	23, // 43: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
-	25, // 44: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
-	27, // 45: stillsky.v1.ControlService.OptimiseModalGains:output_type -> stillsky.v1.OptimiseModalGainsResponse
-	29, // 46: stillsky.v1.ControlService.RecordTelemetry:output_type -> stillsky.v1.RecordTelemetryResponse
-	34, // [34:47] is the sub-list for method output_type
-	21, // [21:34] is the sub-list for method input_type
-	21, // [21:21] is the sub-list for extension type_name
-	21, // [21:21] is the sub-list for extension extendee
-	0,  // [0:21] is the sub-list for field type_name
+	1,  // 21: stillsky.v1.CapturePixelCalibrationRequest.kind:type_name -> stillsky.v1.PixelCalibrationKind
+	1,  // 22: stillsky.v1.CapturePixelCalibrationResponse.kind:type_name -> stillsky.v1.PixelCalibrationKind
+	2,  // 23: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
+	7,  // 24: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
+	9,  // 25: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
+	11, // 26: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
+	13, // 27: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
+	15, // 28: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
+	17, // 29: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
+	19, // 30: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
+	21, // 31: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
+	23, // 32: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
+	25, // 33: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
+	27, // 34: stillsky.v1.ControlService.OptimiseModalGains:input_type -> stillsky.v1.OptimiseModalGainsRequest
+	29, // 35: stillsky.v1.ControlService.RecordTelemetry:input_type -> stillsky.v1.RecordTelemetryRequest
+	33, // 36: stillsky.v1.ControlService.CapturePixelCalibration:input_type -> stillsky.v1.CapturePixelCalibrationRequest
+	3,  // 37: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
+	8,  // 38: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
+	10, // 39: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
+	12, // 40: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
+	14, // 41: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
+	16, // 42: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
+	18, // 43: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
+	20, // 44: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
+	22, // 45: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
+	24, // 46: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
+	26, // 47: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
+	28, // 48: stillsky.v1.ControlService.OptimiseModalGains:output_type -> stillsky.v1.OptimiseModalGainsResponse
+	30, // 49: stillsky.v1.ControlService.RecordTelemetry:output_type -> stillsky.v1.RecordTelemetryResponse
+	34, // 50: stillsky.v1.ControlService.CapturePixelCalibration:output_type -> stillsky.v1.CapturePixelCalibrationResponse
+	37, // [37:51] is the sub-list for method output_type
+	23, // [23:37] is the sub-list for method input_type
+	23, // [23:23] is the sub-list for extension type_name
+	23, // [23:23] is the sub-list for extension extendee
+	0,  // [0:23] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_control_proto_init() }
@@ -2550,8 +2763,8 @@ func file_stillsky_v1_control_proto_init() {
 		File: protoimpl.DescBuilder{
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_control_proto_rawDesc), len(file_stillsky_v1_control_proto_rawDesc)),
-			NumEnums:      1,
-			NumMessages:   31,
+			NumEnums:      2,
+			NumMessages:   33,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

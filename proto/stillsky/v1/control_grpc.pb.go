@@ -19,19 +19,20 @@ import (
 const _ = grpc.SupportPackageIsVersion9
 
 const (
-	ControlService_GetStatus_FullMethodName          = "/stillsky.v1.ControlService/GetStatus"
-	ControlService_OpenLoop_FullMethodName           = "/stillsky.v1.ControlService/OpenLoop"
-	ControlService_CloseLoop_FullMethodName          = "/stillsky.v1.ControlService/CloseLoop"
-	ControlService_HoldLoop_FullMethodName           = "/stillsky.v1.ControlService/HoldLoop"
-	ControlService_SetGain_FullMethodName            = "/stillsky.v1.ControlService/SetGain"
-	ControlService_SetLeak_FullMethodName            = "/stillsky.v1.ControlService/SetLeak"
-	ControlService_SetModalGains_FullMethodName      = "/stillsky.v1.ControlService/SetModalGains"
-	ControlService_Calibrate_FullMethodName          = "/stillsky.v1.ControlService/Calibrate"
-	ControlService_SaveReconstructor_FullMethodName  = "/stillsky.v1.ControlService/SaveReconstructor"
-	ControlService_LoadReconstructor_FullMethodName  = "/stillsky.v1.ControlService/LoadReconstructor"
-	ControlService_StreamTelemetry_FullMethodName    = "/stillsky.v1.ControlService/StreamTelemetry"
-	ControlService_OptimiseModalGains_FullMethodName = "/stillsky.v1.ControlService/OptimiseModalGains"
-	ControlService_RecordTelemetry_FullMethodName    = "/stillsky.v1.ControlService/RecordTelemetry"
+	ControlService_GetStatus_FullMethodName               = "/stillsky.v1.ControlService/GetStatus"
+	ControlService_OpenLoop_FullMethodName                = "/stillsky.v1.ControlService/OpenLoop"
+	ControlService_CloseLoop_FullMethodName               = "/stillsky.v1.ControlService/CloseLoop"
+	ControlService_HoldLoop_FullMethodName                = "/stillsky.v1.ControlService/HoldLoop"
+	ControlService_SetGain_FullMethodName                 = "/stillsky.v1.ControlService/SetGain"
+	ControlService_SetLeak_FullMethodName                 = "/stillsky.v1.ControlService/SetLeak"
+	ControlService_SetModalGains_FullMethodName           = "/stillsky.v1.ControlService/SetModalGains"
+	ControlService_Calibrate_FullMethodName               = "/stillsky.v1.ControlService/Calibrate"
+	ControlService_SaveReconstructor_FullMethodName       = "/stillsky.v1.ControlService/SaveReconstructor"
+	ControlService_LoadReconstructor_FullMethodName       = "/stillsky.v1.ControlService/LoadReconstructor"
+	ControlService_StreamTelemetry_FullMethodName         = "/stillsky.v1.ControlService/StreamTelemetry"
+	ControlService_OptimiseModalGains_FullMethodName      = "/stillsky.v1.ControlService/OptimiseModalGains"
+	ControlService_RecordTelemetry_FullMethodName         = "/stillsky.v1.ControlService/RecordTelemetry"
+	ControlService_CapturePixelCalibration_FullMethodName = "/stillsky.v1.ControlService/CapturePixelCalibration"
 )
 
 // ControlServiceClient is the client API for ControlService service.
@@ -106,6 +107,17 @@ type ControlServiceClient interface {
 	// client fell more than the ring behind; ABORTED when the device session ends
 	// during the recording.
 	RecordTelemetry(ctx context.Context, in *RecordTelemetryRequest, opts ...grpc.CallOption) (grpc.ServerStreamingClient[RecordTelemetryResponse], error)
+	// CapturePixelCalibration measures one of a pixel camera's calibrations
+	// (frame format 2): the dark frame (the camera's shutter closed), the flat
+	// field (its flat lamp; the dark is subtracted first) or the reference slopes
+	// (its calibration source), averaging the requested frames, then swaps it
+	// into the centroid between two frames and commits it to the state directory
+	// as FITS, restored on restart. The camera is switched back to the sky after.
+	// Errors: INVALID_ARGUMENT for an unspecified kind or a frame count above
+	// 10000; FAILED_PRECONDITION for a slope camera, a loop that is not open, or a
+	// flat with a pixel outside (0.05, 20) of the mean response; UNAVAILABLE
+	// without devices; DEADLINE_EXCEEDED when the frames do not come.
+	CapturePixelCalibration(ctx context.Context, in *CapturePixelCalibrationRequest, opts ...grpc.CallOption) (*CapturePixelCalibrationResponse, error)
 }
 
 type controlServiceClient struct {
@@ -285,6 +297,16 @@ func (c *controlServiceClient) RecordTelemetry(ctx context.Context, in *RecordTe
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type ControlService_RecordTelemetryClient = grpc.ServerStreamingClient[RecordTelemetryResponse]
 
+func (c *controlServiceClient) CapturePixelCalibration(ctx context.Context, in *CapturePixelCalibrationRequest, opts ...grpc.CallOption) (*CapturePixelCalibrationResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(CapturePixelCalibrationResponse)
+	err := c.cc.Invoke(ctx, ControlService_CapturePixelCalibration_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // ControlServiceServer is the server API for ControlService service.
 // All implementations must embed UnimplementedControlServiceServer
 // for forward compatibility.
@@ -357,6 +379,17 @@ type ControlServiceServer interface {
 	// client fell more than the ring behind; ABORTED when the device session ends
 	// during the recording.
 	RecordTelemetry(*RecordTelemetryRequest, grpc.ServerStreamingServer[RecordTelemetryResponse]) error
+	// CapturePixelCalibration measures one of a pixel camera's calibrations
+	// (frame format 2): the dark frame (the camera's shutter closed), the flat
+	// field (its flat lamp; the dark is subtracted first) or the reference slopes
+	// (its calibration source), averaging the requested frames, then swaps it
+	// into the centroid between two frames and commits it to the state directory
+	// as FITS, restored on restart. The camera is switched back to the sky after.
+	// Errors: INVALID_ARGUMENT for an unspecified kind or a frame count above
+	// 10000; FAILED_PRECONDITION for a slope camera, a loop that is not open, or a
+	// flat with a pixel outside (0.05, 20) of the mean response; UNAVAILABLE
+	// without devices; DEADLINE_EXCEEDED when the frames do not come.
+	CapturePixelCalibration(context.Context, *CapturePixelCalibrationRequest) (*CapturePixelCalibrationResponse, error)
 	mustEmbedUnimplementedControlServiceServer()
 }
 
@@ -405,6 +438,9 @@ func (UnimplementedControlServiceServer) OptimiseModalGains(context.Context, *Op
 }
 func (UnimplementedControlServiceServer) RecordTelemetry(*RecordTelemetryRequest, grpc.ServerStreamingServer[RecordTelemetryResponse]) error {
 	return status.Error(codes.Unimplemented, "method RecordTelemetry not implemented")
+}
+func (UnimplementedControlServiceServer) CapturePixelCalibration(context.Context, *CapturePixelCalibrationRequest) (*CapturePixelCalibrationResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method CapturePixelCalibration not implemented")
 }
 func (UnimplementedControlServiceServer) mustEmbedUnimplementedControlServiceServer() {}
 func (UnimplementedControlServiceServer) testEmbeddedByValue()                        {}
@@ -622,6 +658,24 @@ func _ControlService_RecordTelemetry_Handler(srv interface{}, stream grpc.Server
 // This type alias is provided for backwards compatibility with existing code that references the prior non-generic stream type by name.
 type ControlService_RecordTelemetryServer = grpc.ServerStreamingServer[RecordTelemetryResponse]
 
+func _ControlService_CapturePixelCalibration_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(CapturePixelCalibrationRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(ControlServiceServer).CapturePixelCalibration(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: ControlService_CapturePixelCalibration_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(ControlServiceServer).CapturePixelCalibration(ctx, req.(*CapturePixelCalibrationRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
 // ControlService_ServiceDesc is the grpc.ServiceDesc for ControlService service.
 // It's only intended for direct use with grpc.RegisterService,
 // and not to be introspected or modified (even as a copy)
@@ -660,6 +714,10 @@ var ControlService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "OptimiseModalGains",
 			Handler:    _ControlService_OptimiseModalGains_Handler,
+		},
+		{
+			MethodName: "CapturePixelCalibration",
+			Handler:    _ControlService_CapturePixelCalibration_Handler,
 		},
 	},
 	Streams: []grpc.StreamDesc{

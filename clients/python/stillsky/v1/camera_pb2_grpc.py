@@ -69,7 +69,8 @@ class CameraServiceServicer(object):
         calibration source (bright and free of turbulence), which makes interaction
         matrices noise-free. The change applies from the next frame.
         Errors: INVALID_ARGUMENT for SOURCE_UNSPECIFIED; UNIMPLEMENTED for a device that
-        has no calibration source (callers then calibrate on the sky).
+        has no calibration source (callers then calibrate on the sky), or for
+        SOURCE_DARK and SOURCE_FLAT on a slope camera.
         """
         context.set_code(grpc.StatusCode.UNIMPLEMENTED)
         context.set_details('Method not implemented!')

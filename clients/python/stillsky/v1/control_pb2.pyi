@@ -13,6 +13,10 @@ LOOP_STATE_HOLD: LoopState
 LOOP_STATE_OPEN: LoopState
 LOOP_STATE_TRIPPED: LoopState
 LOOP_STATE_UNSPECIFIED: LoopState
+PIXEL_CALIBRATION_KIND_DARK: PixelCalibrationKind
+PIXEL_CALIBRATION_KIND_FLAT: PixelCalibrationKind
+PIXEL_CALIBRATION_KIND_REFERENCE: PixelCalibrationKind
+PIXEL_CALIBRATION_KIND_UNSPECIFIED: PixelCalibrationKind
 
 class CalibrateRequest(_message.Message):
     __slots__ = ["amplitude_m", "basis", "frames_per_pattern", "hadamard", "max_condition", "modes_kept", "single_pokes", "tikhonov"]
@@ -45,6 +49,28 @@ class CalibrateResponse(_message.Message):
     reconstructor: ReconstructorInfo
     total: int
     def __init__(self, phase: _Optional[str] = ..., done: _Optional[int] = ..., total: _Optional[int] = ..., reconstructor: _Optional[_Union[ReconstructorInfo, _Mapping]] = ...) -> None: ...
+
+class CapturePixelCalibrationRequest(_message.Message):
+    __slots__ = ["frames", "kind"]
+    FRAMES_FIELD_NUMBER: _ClassVar[int]
+    KIND_FIELD_NUMBER: _ClassVar[int]
+    frames: int
+    kind: PixelCalibrationKind
+    def __init__(self, kind: _Optional[_Union[PixelCalibrationKind, str]] = ..., frames: _Optional[int] = ...) -> None: ...
+
+class CapturePixelCalibrationResponse(_message.Message):
+    __slots__ = ["file", "frames", "kind", "mean", "rms"]
+    FILE_FIELD_NUMBER: _ClassVar[int]
+    FRAMES_FIELD_NUMBER: _ClassVar[int]
+    KIND_FIELD_NUMBER: _ClassVar[int]
+    MEAN_FIELD_NUMBER: _ClassVar[int]
+    RMS_FIELD_NUMBER: _ClassVar[int]
+    file: str
+    frames: int
+    kind: PixelCalibrationKind
+    mean: float
+    rms: float
+    def __init__(self, kind: _Optional[_Union[PixelCalibrationKind, str]] = ..., frames: _Optional[int] = ..., mean: _Optional[float] = ..., rms: _Optional[float] = ..., file: _Optional[str] = ...) -> None: ...
 
 class CloseLoopRequest(_message.Message):
     __slots__ = []
@@ -363,4 +389,7 @@ class TipTiltStatus(_message.Message):
     def __init__(self, connected: bool = ..., frames: _Optional[int] = ..., commands: _Optional[int] = ..., residual_rms_rad: _Optional[float] = ..., command_x_rad: _Optional[float] = ..., command_y_rad: _Optional[float] = ..., stroke_rad: _Optional[float] = ..., saturated_frames: _Optional[int] = ..., gain: _Optional[float] = ..., offload_gain: _Optional[float] = ...) -> None: ...
 
 class LoopState(int, metaclass=_enum_type_wrapper.EnumTypeWrapper):
+    __slots__ = []
+
+class PixelCalibrationKind(int, metaclass=_enum_type_wrapper.EnumTypeWrapper):
     __slots__ = []

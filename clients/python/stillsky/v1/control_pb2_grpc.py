@@ -86,6 +86,11 @@ class ControlServiceStub(object):
                 request_serializer=stillsky_dot_v1_dot_control__pb2.RecordTelemetryRequest.SerializeToString,
                 response_deserializer=stillsky_dot_v1_dot_control__pb2.RecordTelemetryResponse.FromString,
                 )
+        self.CapturePixelCalibration = channel.unary_unary(
+                '/stillsky.v1.ControlService/CapturePixelCalibration',
+                request_serializer=stillsky_dot_v1_dot_control__pb2.CapturePixelCalibrationRequest.SerializeToString,
+                response_deserializer=stillsky_dot_v1_dot_control__pb2.CapturePixelCalibrationResponse.FromString,
+                )
 
 
 class ControlServiceServicer(object):
@@ -223,6 +228,22 @@ class ControlServiceServicer(object):
         context.set_details('Method not implemented!')
         raise NotImplementedError('Method not implemented!')
 
+    def CapturePixelCalibration(self, request, context):
+        """CapturePixelCalibration measures one of a pixel camera's calibrations
+        (frame format 2): the dark frame (the camera's shutter closed), the flat
+        field (its flat lamp; the dark is subtracted first) or the reference slopes
+        (its calibration source), averaging the requested frames, then swaps it
+        into the centroid between two frames and commits it to the state directory
+        as FITS, restored on restart. The camera is switched back to the sky after.
+        Errors: INVALID_ARGUMENT for an unspecified kind or a frame count above
+        10000; FAILED_PRECONDITION for a slope camera, a loop that is not open, or a
+        flat with a pixel outside (0.05, 20) of the mean response; UNAVAILABLE
+        without devices; DEADLINE_EXCEEDED when the frames do not come.
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
 
 def add_ControlServiceServicer_to_server(servicer, server):
     rpc_method_handlers = {
@@ -290,6 +311,11 @@ def add_ControlServiceServicer_to_server(servicer, server):
                     servicer.RecordTelemetry,
                     request_deserializer=stillsky_dot_v1_dot_control__pb2.RecordTelemetryRequest.FromString,
                     response_serializer=stillsky_dot_v1_dot_control__pb2.RecordTelemetryResponse.SerializeToString,
+            ),
+            'CapturePixelCalibration': grpc.unary_unary_rpc_method_handler(
+                    servicer.CapturePixelCalibration,
+                    request_deserializer=stillsky_dot_v1_dot_control__pb2.CapturePixelCalibrationRequest.FromString,
+                    response_serializer=stillsky_dot_v1_dot_control__pb2.CapturePixelCalibrationResponse.SerializeToString,
             ),
     }
     generic_handler = grpc.method_handlers_generic_handler(
@@ -526,5 +552,22 @@ class ControlService(object):
         return grpc.experimental.unary_stream(request, target, '/stillsky.v1.ControlService/RecordTelemetry',
             stillsky_dot_v1_dot_control__pb2.RecordTelemetryRequest.SerializeToString,
             stillsky_dot_v1_dot_control__pb2.RecordTelemetryResponse.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
+
+    @staticmethod
+    def CapturePixelCalibration(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_unary(request, target, '/stillsky.v1.ControlService/CapturePixelCalibration',
+            stillsky_dot_v1_dot_control__pb2.CapturePixelCalibrationRequest.SerializeToString,
+            stillsky_dot_v1_dot_control__pb2.CapturePixelCalibrationResponse.FromString,
             options, channel_credentials,
             insecure, call_credentials, compression, wait_for_ready, timeout, metadata)

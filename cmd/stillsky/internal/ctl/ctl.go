@@ -26,7 +26,7 @@ import (
 )
 
 // Usage lists the verbs.
-const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard | --single-pokes] [--basis svd|kl|mirror] | save FILE | load FILE | " + RecordUsage
+const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard | --single-pokes] [--basis svd|kl|mirror] | save FILE | load FILE | capture-dark|capture-flat|capture-reference [--frames N] | " + RecordUsage
 
 // Run performs one verb against the Control API on conn and writes the result to out.
 func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out io.Writer) error {
@@ -151,6 +151,8 @@ func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out 
 			return fmt.Errorf("calibrate: --hadamard and --single-pokes exclude each other")
 		}
 		return Calibrate(ctx, c, req, out)
+	case "capture-dark", "capture-flat", "capture-reference":
+		return capturePixels(ctx, c, verb, rest, out)
 	case "save":
 		if err = want(1); err == nil {
 			err = save(ctx, c, rest[0])
@@ -424,4 +426,42 @@ func (e *timeLeft) update(phase string, done, total uint32, now time.Time) strin
 	}
 	left := time.Duration(float64(el) * float64(total-done) / float64(done-e.done0))
 	return "about " + left.Round(time.Second).String() + " left"
+}
+
+// capturePixels runs a capture-dark, capture-flat or capture-reference verb:
+// the daemon switches a pixel camera to its shutter, flat lamp or calibration
+// source, averages the frames and commits the result.
+func capturePixels(ctx context.Context, c stillskyv1.ControlServiceClient, verb string, args []string, out io.Writer) error {
+	kind := map[string]stillskyv1.PixelCalibrationKind{
+		"capture-dark":      stillskyv1.PixelCalibrationKind_PIXEL_CALIBRATION_KIND_DARK,
+		"capture-flat":      stillskyv1.PixelCalibrationKind_PIXEL_CALIBRATION_KIND_FLAT,
+		"capture-reference": stillskyv1.PixelCalibrationKind_PIXEL_CALIBRATION_KIND_REFERENCE,
+	}[verb]
+	req := &stillskyv1.CapturePixelCalibrationRequest{Kind: kind}
+	switch {
+	case len(args) == 0:
+	case len(args) == 2 && args[0] == "--frames":
+		n, err := strconv.ParseUint(args[1], 10, 32)
+		if err != nil || n < 1 {
+			return fmt.Errorf("%s: --frames %q: want a whole number >= 1", verb, args[1])
+		}
+		req.Frames = uint32(n)
+	default:
+		return fmt.Errorf("%s takes [--frames N], got %q", verb, strings.Join(args, " "))
+	}
+	r, err := c.CapturePixelCalibration(ctx, req)
+	if err != nil {
+		return err
+	}
+	file := r.GetFile()
+	if file == "" {
+		file = "not committed: the daemon has no state directory"
+	}
+	unit := map[stillskyv1.PixelCalibrationKind]string{
+		stillskyv1.PixelCalibrationKind_PIXEL_CALIBRATION_KIND_DARK:      "ADU",
+		stillskyv1.PixelCalibrationKind_PIXEL_CALIBRATION_KIND_FLAT:      "of the mean response",
+		stillskyv1.PixelCalibrationKind_PIXEL_CALIBRATION_KIND_REFERENCE: "pixels",
+	}[kind]
+	fmt.Fprintf(out, "%s: %d frames, mean %.4g rms %.4g %s (%s)\n", strings.TrimPrefix(verb, "capture-"), r.GetFrames(), r.GetMean(), r.GetRms(), unit, file)
+	return nil
 }
