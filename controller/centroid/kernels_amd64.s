@@ -20,8 +20,8 @@
 //
 // Stack: 0–479 the calibrated window for the hot-pixel test, ten rows of 12
 // floats (48 bytes): row y at 48·(y+1), its pixels in the first 8 floats; the
-// rows −1 and 8 and the last 4 floats of every row stay 0 from the start, so
-// the four neighbours of any pixel can be read without a test at the edges
+// rows −1 and 8 and the last 4 floats of every row stay 0 from the start
+// (zeroed when HotRatio is set), so the four neighbours of any pixel can be read without a test at the edges
 // (an outside neighbour reads 0, which is where the largest one starts).
 // 480, 488, 496, 504: the counters saturated, dark, dead rows, hot.
 
@@ -82,6 +82,8 @@ TEXT ·windows8AVX2(SB), NOSPLIT, $512-88
 	MOVQ $0, 488(SP)
 	MOVQ $0, 496(SP)
 	MOVQ $0, 504(SP)
+	CMPL 644(R8), $0
+	JEQ  zeroed
 	VXORPS Y15, Y15, Y15
 	VMOVUPS Y15, 0(SP)
 	VMOVUPS Y15, 32(SP)
@@ -98,6 +100,8 @@ TEXT ·windows8AVX2(SB), NOSPLIT, $512-88
 	VMOVUPS Y15, 384(SP)
 	VMOVUPS Y15, 416(SP)
 	VMOVUPS Y15, 448(SP)
+
+zeroed:
 	TESTQ CX, CX
 	JZ   done
 

@@ -127,6 +127,18 @@ func BenchmarkPixelVsSlope(b *testing.B) {
 			}
 		})
 	})
+	// process-rows hands the frame in one grid row (8 detector rows) at a
+	// time, as a camera's row chunks arrive.
+	b.Run("process-rows", func(b *testing.B) {
+		side := det.Side()
+		perFrame(b, func() {
+			for r := 0; r < side; r += pix {
+				if _, err := cal.ProcessRows(frame[r*side:(r+pix)*side], r, r+pix, slopes, work); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+	})
 	b.Run("process-plain", func(b *testing.B) {
 		perFrame(b, func() {
 			if _, err := plain.Process(frame, slopes, work); err != nil {
