@@ -150,11 +150,9 @@ saturation:
 	// Hot pixel: only with HotRatio set and a positive peak.
 	CMPL 644(R8), $0
 	JEQ  threshold
-	VXORPS Y14, Y14, Y14
-	VCMPPS $0x0e, Y14, Y8, Y15
-	VMOVMSKPS Y15, DX
-	TESTL DX, DX
-	JZ   threshold
+	VXORPS X14, X14, X14
+	VUCOMISS X14, X8
+	JLS  threshold
 	VMOVUPS Y0, 48(SP)
 	VMOVUPS Y1, 96(SP)
 	VMOVUPS Y2, 144(SP)
@@ -186,10 +184,8 @@ saturation:
 	VMAXSS 0(SP)(R13*4), X14, X14
 	VMAXSS 96(SP)(R13*4), X14, X14
 	VMULSS 640(R8), X14, X14
-	VCMPSS $0x0e, X14, X8, X15
-	VMOVMSKPS X15, DX
-	TESTL $1, DX
-	JZ   2(PC)
+	VUCOMISS X14, X8
+	JLS  2(PC)
 	INCQ 504(SP)
 
 threshold:
@@ -242,11 +238,10 @@ moments:
 	VEXTRACTF128 $1, Y14, X13
 	VADDPS X13, X14, X14
 	VPERMILPS $0xaa, X14, X10
+	// Dark unless s > 0 (VUCOMISS b, a sets the flags of a against b).
 	VXORPS X13, X13, X13
-	VCMPSS $0x0e, X13, X10, X13
-	VMOVMSKPS X13, DX
-	TESTL $1, DX
-	JZ   dark
+	VUCOMISS X13, X10
+	JLS  dark
 	// [sx/s − rx, sy/s − ry] into slopes[2i:2i+2].
 	VDIVPS X10, X14, X14
 	VMOVSD (R11)(AX*8), X13
