@@ -36,3 +36,47 @@ func TestStealPercent(t *testing.T) {
 		}
 	}
 }
+
+// TestPressurePercent reads /proc/pressure/cpu as the kernel lays it out
+// (Documentation/accounting/psi.rst: "some avg10=… avg60=… avg300=… total=…",
+// total in µs) and turns two readings into the share of wall time.
+func TestPressurePercent(t *testing.T) {
+	dir := t.TempDir()
+	write := func(name, body string) string {
+		p := filepath.Join(dir, name)
+		if err := os.WriteFile(p, []byte(body), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		return p
+	}
+	a, errA := ReadPressure(write("a", "some avg10=1.00 avg60=2.00 avg300=3.00 total=1000000\nfull avg10=0.00 avg60=0.00 avg300=0.00 total=0\n"))
+	b, errB := ReadPressure(write("b", "some avg10=1.00 avg60=2.00 avg300=3.00 total=1250000\nfull avg10=0.00 avg60=0.00 avg300=0.00 total=0\n"))
+	if errA != nil || errB != nil || a != 1000000 || b != 1250000 {
+		t.Fatalf("read %d, %d (%v, %v): want 1000000, 1250000", a, b, errA, errB)
+	}
+	// 250 ms of waiting in 1 s of wall time.
+	if got := PressurePercent(a, b, nil, nil, 1e9); got != 25 {
+		t.Errorf("pressure %v %%, want 25 %%", got)
+	}
+	for name, body := range map[string]string{"no some line": "full total=3\n", "no total": "some avg10=1.00\n", "bad total": "some total=x\n"} {
+		t.Run(name, func(t *testing.T) {
+			if _, err := ReadPressure(write("bad", body)); err == nil {
+				t.Errorf("%q was accepted", body)
+			}
+		})
+	}
+	if got := PressurePercent(a, b, nil, nil, 0.248e9); got != 100 {
+		t.Errorf("250 ms of waiting read over 248 ms: pressure %v %%, want 100 %%", got)
+	}
+	if got := PressurePercent(b, a, nil, nil, 1e9); got != -1 {
+		t.Errorf("counter went back: pressure %v, want -1", got)
+	}
+	if got := PressurePercent(a, b, nil, nil, 0); got != -1 {
+		t.Errorf("no time passed: pressure %v, want -1", got)
+	}
+	if _, err := os.Stat("/proc/pressure/cpu"); err == nil {
+		if _, err := ReadPressure("/proc/pressure/cpu"); err != nil {
+			t.Errorf("this machine's /proc/pressure/cpu: %v", err)
+		}
+	}
+}

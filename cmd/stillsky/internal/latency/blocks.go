@@ -19,6 +19,9 @@ import (
 // as quiet: the comparison of the loop with its floor uses quiet pairs only.
 const QuietSteal = 5.0
 
+// pressureFile is the kernel's CPU pressure stall information (PSI).
+const pressureFile = "/proc/pressure/cpu"
+
 // settle is how long a block waits after the camera resumes or pauses: the
 // first frame after a pause carries the gap in frame numbers, and the frames
 // in flight when it pauses are answered before the floor is measured.
@@ -31,6 +34,11 @@ type Block struct {
 	// StartS is when the block began, seconds after the first block began.
 	StartS       float64 `json:"start_s"`
 	StealPercent float64 `json:"cpu_steal_percent"`
+	// PressurePercent is the share of the block's wall time in which some
+	// runnable task of the machine waited for a CPU (PSI "some",
+	// /proc/pressure/cpu), −1 when it cannot be read: the contention that
+	// steal does not show.
+	PressurePercent float64 `json:"cpu_pressure_percent"`
 	// Samples counts the block's frames (loop) or round trips (floor).
 	Samples int `json:"samples"`
 	// Loop blocks: latencies of the frames read out during the block, and of
@@ -50,7 +58,8 @@ type Block struct {
 type Comparison struct {
 	Pairs           int           `json:"pairs"`
 	Frames          int           `json:"frames"`
-	StealPercent    float64       `json:"cpu_steal_percent"` // mean over the pairs' blocks
+	StealPercent    float64       `json:"cpu_steal_percent"`    // mean over the pairs' blocks
+	PressurePercent float64       `json:"cpu_pressure_percent"` // mean over the pairs' blocks, −1 unread
 	ComputeUs       rig.Quantiles `json:"compute_us"`
 	EndToEndUs      rig.Quantiles `json:"end_to_end_us"`
 	FloorUs         rig.Quantiles `json:"floor_us"`
@@ -105,6 +114,7 @@ func interleaved(ctx context.Context, r *rig.Rig, rec *daemon.Recorder, slopes, 
 			return nil, loop, nil, nil, false, err
 		}
 		c0, e0 := cpustat.Read("/proc/stat")
+		p0, pe0 := cpustat.ReadPressure(pressureFile)
 		t0 := monoclock.Now()
 		if sleep(ctx, d) != nil {
 			interrupted = true
@@ -112,33 +122,40 @@ func interleaved(ctx context.Context, r *rig.Rig, rec *daemon.Recorder, slopes, 
 		}
 		t1 := monoclock.Now()
 		c1, e1 := cpustat.Read("/proc/stat")
+		p1, pe1 := cpustat.ReadPressure(pressureFile)
 		st1, err := r.Status(bg)
 		if err != nil {
 			return nil, loop, nil, nil, false, err
 		}
 		windows = append(windows, window{t0, t1})
 		blocks = append(blocks, Block{Kind: "loop", StartS: float64(t0-begin) * 1e-9, StealPercent: cpustat.StealPercent(c0, c1, e0, e1),
-			FramesDropped: st1.GetFramesDropped() - st0.GetFramesDropped()})
+			PressurePercent: cpustat.PressurePercent(p0, p1, pe0, pe1, t1-t0),
+			FramesDropped:   st1.GetFramesDropped() - st0.GetFramesDropped()})
 		if err := acquire(true); err != nil {
 			return nil, loop, nil, nil, false, err
 		}
 		sleep(bg, settle)
 		c0, e0 = cpustat.Read("/proc/stat")
+		p0, pe0 = cpustat.ReadPressure(pressureFile)
 		f0 := monoclock.Now()
 		rtt, err := probe.run(d)
 		if err != nil {
 			return nil, loop, nil, nil, false, err
 		}
+		f1 := monoclock.Now()
 		c1, e1 = cpustat.Read("/proc/stat")
+		p1, pe1 = cpustat.ReadPressure(pressureFile)
 		floors = append(floors, rtt)
-		blocks = append(blocks, Block{Kind: "floor", StartS: float64(f0-begin) * 1e-9, StealPercent: cpustat.StealPercent(c0, c1, e0, e1), Samples: len(rtt)})
+		blocks = append(blocks, Block{Kind: "floor", StartS: float64(f0-begin) * 1e-9, StealPercent: cpustat.StealPercent(c0, c1, e0, e1),
+			PressurePercent: cpustat.PressurePercent(p0, p1, pe0, pe1, f1-f0), Samples: len(rtt)})
 	}
-	// The mirror acknowledges in batches: stream once more, unrecorded by
-	// the windows, so that the last block's acknowledgements come in.
+	// The mirror acknowledges in batches of a quarter second of commands:
+	// stream once more, unrecorded by the windows, so that the last block's
+	// acknowledgements come in.
 	if err := acquire(false); err != nil {
 		return nil, loop, nil, nil, false, err
 	}
-	sleep(bg, 300*time.Millisecond)
+	sleep(bg, 500*time.Millisecond)
 	rec.Stop()
 	all := rec.Samples()
 	pns := period.Nanoseconds()
@@ -185,12 +202,14 @@ func compare(blocks []Block, pairs []pairSamples) *Comparison {
 	var compute, e2e, floor []int64
 	c := &Comparison{}
 	var steal float64
+	var quietBlocks []Block
 	for i, p := range pairs {
 		lb, fb := blocks[2*i], blocks[2*i+1]
 		if !quiet(lb) || !quiet(fb) {
 			continue
 		}
 		c.Pairs++
+		quietBlocks = append(quietBlocks, lb, fb)
 		steal += lb.StealPercent + fb.StealPercent
 		compute = append(compute, p.compute...)
 		e2e = append(e2e, p.e2e...)
@@ -202,10 +221,27 @@ func compare(blocks []Block, pairs []pairSamples) *Comparison {
 	}
 	c.Frames = len(compute)
 	c.StealPercent = math.Round(steal/float64(2*c.Pairs)*10) / 10
+	c.PressurePercent = meanPressure(quietBlocks)
 	c.ComputeUs, c.EndToEndUs, c.FloorUs = rig.QuantilesOf(compute), rig.QuantilesOf(e2e), rig.QuantilesOf(floor)
 	c.P50MarginUs = math.Round((c.EndToEndUs.P50-c.FloorUs.P50-c.ComputeUs.P50)*10) / 10
 	c.P99MarginUs = math.Round((c.EndToEndUs.P99-c.FloorUs.P99-c.ComputeUs.P99)*10) / 10
 	return c
+}
+
+// meanPressure is the blocks' mean CPU pressure, percent to one decimal, or
+// −1 when any block's could not be read.
+func meanPressure(blocks []Block) float64 {
+	if len(blocks) == 0 {
+		return -1
+	}
+	var sum float64
+	for _, b := range blocks {
+		if b.PressurePercent < 0 {
+			return -1
+		}
+		sum += b.PressurePercent
+	}
+	return math.Round(sum/float64(len(blocks))*10) / 10
 }
 
 // quiet reports whether a block's steal was read and below QuietSteal.

@@ -133,6 +133,11 @@ type Result struct {
 	// gave to other guests during the measurement (/proc/stat), −1 when it
 	// cannot be read. On a shared virtual machine it sets the tails.
 	StealPercent float64 `json:"cpu_steal_percent"`
+	// PressurePercent is the mean over the blocks of the share of time in
+	// which some runnable task of the machine waited for a CPU (PSI,
+	// /proc/pressure/cpu), −1 when it cannot be read: on 2 CPUs shared by more
+	// runnable threads, the contention that steal does not show.
+	PressurePercent float64 `json:"cpu_pressure_percent"`
 	// Interrupted says the measurement was stopped early (Ctrl-C): the figures
 	// are of the pairs of blocks completed until then.
 	Interrupted bool `json:"interrupted,omitempty"`
@@ -357,7 +362,7 @@ func runOne(ctx context.Context, c Config, src source, transport string) (*Resul
 		SimCPUs: c.SimulatorCPUs, RTCPU: rtCPU(c.Realtime), RTFIFO: c.Realtime.FIFOPriority, RTSpinUs: float64(c.Realtime.Spin.Microseconds()),
 		Slopes: int(after.GetSlopeCount()), Actuators: int(after.GetActuatorCount()),
 		TransitUs: rig.QuantilesOf(s.Transit), ComputeUs: rig.QuantilesOf(s.Compute), RTCUs: rig.QuantilesOf(s.RTC), EndToEndUs: rig.QuantilesOf(s.EndToEnd),
-		FloorUs: rig.QuantilesOf(floor), FramesDropped: dropped, StealPercent: math.Round(steal*10) / 10,
+		FloorUs: rig.QuantilesOf(floor), FramesDropped: dropped, StealPercent: math.Round(steal*10) / 10, PressurePercent: meanPressure(blocks),
 		Camera: src.camera(c), BlockS: blockLen.Seconds(), Blocks: blocks, Quiet: compare(blocks, pairs),
 		Interrupted: interrupted,
 	}
@@ -541,11 +546,19 @@ func WriteJSON(path string, rs []Result) error {
 	})
 }
 
+// percent formats a share that may be unknown (−1).
+func percent(p float64) string {
+	if p < 0 {
+		return "n/a"
+	}
+	return fmt.Sprintf("%.1f %%", p)
+}
+
 // WriteTable prints the results as Markdown tables (µs): the figures over
 // every block, then the comparison over the quiet pairs of blocks.
 func WriteTable(w io.Writer, rs []Result) {
-	fmt.Fprintln(w, "\n| scenario | transport | camera | rate | frames | camera→loop p50/p99 | compute p50/p99/p99.9/max | rtc p50/p99/p99.9/max | end-to-end p50/p99/p99.9/max | floor p50/p99 | arrival jitter p99 | missed | dropped | max rate | cpu steal |")
-	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
+	fmt.Fprintln(w, "\n| scenario | transport | camera | rate | frames | camera→loop p50/p99 | compute p50/p99/p99.9/max | rtc p50/p99/p99.9/max | end-to-end p50/p99/p99.9/max | floor p50/p99 | arrival jitter p99 | missed | dropped | max rate | cpu steal | cpu pressure |")
+	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
 	f := func(q rig.Quantiles) string {
 		return fmt.Sprintf("%.1f / %.1f / %.1f / %.1f", q.P50, q.P99, q.P999, q.Max)
 	}
@@ -554,21 +567,21 @@ func WriteTable(w io.Writer, rs []Result) {
 		if r.Interrupted {
 			name += " (interrupted)"
 		}
-		fmt.Fprintf(w, "| %s | %s | %s | %.0f Hz | %d | %.1f / %.1f | %s | %s | %s | %.1f / %.1f | %.1f | %d | %d | %.0f Hz | %.1f %% |\n",
+		fmt.Fprintf(w, "| %s | %s | %s | %.0f Hz | %d | %.1f / %.1f | %s | %s | %s | %.1f / %.1f | %.1f | %d | %d | %.0f Hz | %.1f %% | %s |\n",
 			name, r.Transport, r.Camera, r.RateHz, r.Frames, r.TransitUs.P50, r.TransitUs.P99, f(r.ComputeUs), f(r.RTCUs), f(r.EndToEndUs),
-			r.FloorUs.P50, r.FloorUs.P99, r.ArrivalJitterUs.P99, r.MissedDeadlines, r.FramesDropped, r.MaxRateHz, r.StealPercent)
+			r.FloorUs.P50, r.FloorUs.P99, r.ArrivalJitterUs.P99, r.MissedDeadlines, r.FramesDropped, r.MaxRateHz, r.StealPercent, percent(r.PressurePercent))
 	}
 	fmt.Fprintf(w, "\nPairs of blocks (loop, then floor) with cpu steal below %.0f %%; margin = end-to-end − (floor + compute):\n\n", QuietSteal)
-	fmt.Fprintln(w, "| scenario | transport | camera | pairs | frames | cpu steal | compute p50/p99 | floor p50/p99 | end-to-end p50/p99 | margin p50/p99 | missed |")
-	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
+	fmt.Fprintln(w, "| scenario | transport | camera | pairs | frames | cpu steal | cpu pressure | compute p50/p99 | floor p50/p99 | end-to-end p50/p99 | margin p50/p99 | missed |")
+	fmt.Fprintln(w, "| --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- | --- |")
 	for _, r := range rs {
 		q := r.Quiet
 		if q == nil {
-			fmt.Fprintf(w, "| %s | %s | %s | 0 of %d | | | | | | | |\n", r.Scenario, r.Transport, r.Camera, len(r.Blocks)/2)
+			fmt.Fprintf(w, "| %s | %s | %s | 0 of %d | | | | | | | | |\n", r.Scenario, r.Transport, r.Camera, len(r.Blocks)/2)
 			continue
 		}
-		fmt.Fprintf(w, "| %s | %s | %s | %d of %d | %d | %.1f %% | %.1f / %.1f | %.1f / %.1f | %.1f / %.1f | %+.1f / %+.1f | %d |\n",
-			r.Scenario, r.Transport, r.Camera, q.Pairs, len(r.Blocks)/2, q.Frames, q.StealPercent, q.ComputeUs.P50, q.ComputeUs.P99,
+		fmt.Fprintf(w, "| %s | %s | %s | %d of %d | %d | %.1f %% | %s | %.1f / %.1f | %.1f / %.1f | %.1f / %.1f | %+.1f / %+.1f | %d |\n",
+			r.Scenario, r.Transport, r.Camera, q.Pairs, len(r.Blocks)/2, q.Frames, q.StealPercent, percent(q.PressurePercent), q.ComputeUs.P50, q.ComputeUs.P99,
 			q.FloorUs.P50, q.FloorUs.P99, q.EndToEndUs.P50, q.EndToEndUs.P99, q.P50MarginUs, q.P99MarginUs, q.MissedDeadlines)
 	}
 }

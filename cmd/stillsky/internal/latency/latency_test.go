@@ -57,6 +57,15 @@ func TestRunReportsEveryFigure(t *testing.T) {
 		if b.Kind == "loop" {
 			frames += b.Samples
 		}
+		// PSI counts waiting time in µs of wall time: a share from 0 to 100 %
+		// where the kernel has it, −1 where it has not.
+		if _, err := os.Stat(pressureFile); err == nil {
+			if !(b.PressurePercent >= 0 && b.PressurePercent <= 100) {
+				t.Errorf("block %d: cpu pressure %v %%, want 0–100 %%", i, b.PressurePercent)
+			}
+		} else if b.PressurePercent != -1 {
+			t.Errorf("block %d: cpu pressure %v without %s, want -1", i, b.PressurePercent, pressureFile)
+		}
 	}
 	if frames != r.Frames {
 		t.Errorf("loop blocks hold %d frames, the result %d", frames, r.Frames)
@@ -70,7 +79,7 @@ func TestRunReportsEveryFigure(t *testing.T) {
 	if err := json.Unmarshal(b, &objs); err != nil {
 		t.Fatal(err)
 	}
-	for _, k := range []string{"scenario", "transport", "rate_hz", "frames", "compute_us", "rtc_us", "end_to_end_us", "floor_us", "arrival_jitter_us", "missed_deadlines", "max_rate_hz", "camera", "blocks"} {
+	for _, k := range []string{"scenario", "transport", "rate_hz", "frames", "compute_us", "rtc_us", "end_to_end_us", "floor_us", "arrival_jitter_us", "missed_deadlines", "max_rate_hz", "cpu_steal_percent", "cpu_pressure_percent", "camera", "blocks"} {
 		if _, ok := objs[0][k]; !ok {
 			t.Errorf("JSON lacks %q", k)
 		}
