@@ -20,6 +20,9 @@ const (
 	// Pixel frames (pixels.go):
 	refusedPixelCount  // a chunk's pixel bytes are not 2 × its rows × the detector's width
 	refusedChunkLayout // rows not continuing the last chunk, not whole windows, past the detector, or a frame ending short
+	refusedDeadRow     // a window row of a valid subaperture reads 0 throughout (a dead readout line)
+	refusedSaturated   // a valid window has a pixel at the saturation level: its centroid is biased
+	refusedHotPixel    // a valid window's brightest pixel towers over its neighbours (a hot pixel or a cosmic ray)
 )
 
 // refused reports whether v refuses its message.
@@ -35,6 +38,9 @@ type assembly struct {
 	// from and to are the slope indices [from, to) the message filled, when
 	// accepted; from == 0 for the first message of a frame.
 	from, to int
+	// pixels: every row of a pixel frame arrived and was decoded (in
+	// pixelFrames.frame), even if the frame is then refused for a defect.
+	pixels bool
 	// dropped, for a complete frame, is the number of frames lost since the
 	// previous one: a gap in the camera's frame numbers.
 	dropped uint64

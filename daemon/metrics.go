@@ -27,6 +27,10 @@ const (
 	// detector's rows of windows.
 	rejectPixelCount  = "pixel_count"
 	rejectChunkLayout = "chunk_layout"
+	// Pixel frames whose pixels show a defect (controller/centroid's flags).
+	rejectDeadRow   = "dead_row"
+	rejectSaturated = "saturated"
+	rejectHotPixel  = "hot_pixel"
 )
 
 // Interlock reasons (label values of stillsky_interlock_trips_total).
@@ -46,6 +50,7 @@ type metrics struct {
 	frames, dropped, commands                 prometheus.Counter
 	rejLength, rejNonFinite, rejDup, rejOrder prometheus.Counter
 	rejPixelCount, rejChunkLayout             prometheus.Counter
+	rejDeadRow, rejSaturated, rejHotPixel     prometheus.Counter
 	compute, rtc, endToEnd                    prometheus.Observer
 	framePeriod, slopeRMS, wavefrontRMS       prometheus.Gauge
 	strehl, wavelength, saturated, actuators  prometheus.Gauge
@@ -97,6 +102,9 @@ func newMetrics() *metrics {
 	m.rejOrder = rejected.WithLabelValues(rejectOutOfOrder)
 	m.rejPixelCount = rejected.WithLabelValues(rejectPixelCount)
 	m.rejChunkLayout = rejected.WithLabelValues(rejectChunkLayout)
+	m.rejDeadRow = rejected.WithLabelValues(rejectDeadRow)
+	m.rejSaturated = rejected.WithLabelValues(rejectSaturated)
+	m.rejHotPixel = rejected.WithLabelValues(rejectHotPixel)
 
 	m.compute = histogram("stillsky_compute_latency_seconds", "Time from frame received to command computed.")
 	m.rtc = histogram("stillsky_rtc_latency_seconds", "Time from frame received to command sent: the controller's own latency.")

@@ -3,6 +3,7 @@ package daemon
 import (
 	"encoding/binary"
 	"math/rand/v2"
+	"slices"
 	"testing"
 	"time"
 
@@ -197,6 +198,10 @@ func TestPixelChunksRefused(t *testing.T) {
 		{"rows past the detector", 3, func(m *stillskyv1.StreamFramesResponse) { m.FirstRow = 56 }, refusedChunkLayout},
 		{"wrong slope offset", 2, func(m *stillskyv1.StreamFramesResponse) { m.Offset += 2 }, refusedChunkLayout},
 		{"frame ends short", 2, func(m *stillskyv1.StreamFramesResponse) { m.ChunkCount = 3 }, refusedChunkLayout},
+		// Window (2, 3) lies in chunk 1 (rows 16–31), at columns 24–31.
+		{"dead row", 3, func(*stillskyv1.StreamFramesResponse) {}, refusedDeadRow},
+		{"hot pixel", 3, func(*stillskyv1.StreamFramesResponse) {}, refusedHotPixel},
+		{"saturated spot", 3, func(*stillskyv1.StreamFramesResponse) {}, refusedSaturated},
 	} {
 		t.Run(c.name, func(t *testing.T) {
 			r := newPixelRig(t, 4)
@@ -207,6 +212,18 @@ func TestPixelChunksRefused(t *testing.T) {
 			a := newAssembler(int(r.desc.GetSlopeCount()))
 			a.px = newPixelFrames(r.g, func() *centroid.Calibration { return cal })
 			c.edit(r.chunks[c.chunk])
+			px := r.chunks[1].Pixels
+			set := func(x, y int, v uint16) { binary.LittleEndian.PutUint16(px[2*((y-16)*64+x):], v) }
+			switch c.want {
+			case refusedDeadRow:
+				for x := 24; x < 32; x++ {
+					set(x, 17, 0)
+				}
+			case refusedHotPixel:
+				set(24, 16, 3100) // 3000 ADU in a corner, the spot's peak about 730
+			case refusedSaturated:
+				set(28, 20, 60000) // the spot's centre at the saturation level
+			}
 			for i, m := range r.chunks {
 				m.FrameNumber = 1
 				v := a.add(m)
@@ -228,5 +245,65 @@ func TestPixelChunksRefused(t *testing.T) {
 				}
 			}
 		})
+	}
+}
+
+// A frame refused for a defect computes no command: the last good command is
+// what the mirror holds, and the refusal is counted.
+func TestPixelDefectHoldsCommand(t *testing.T) {
+	d, err := New(Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:2", ListenAddr: "127.0.0.1:0", MetricsAddr: "-"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { d.ctlLis.Close() })
+	r := newPixelRig(t, 1)
+	ns, na := int(r.desc.GetSlopeCount()), 30
+	g := &geometry{slopes: ns, actuators: na, frameRate: 1000, stroke: 3e-6, delayFrames: 1, lockstep: true, pixels: r.g}
+	d.geom = g
+	cal, err := r.g.defaultCalibration()
+	if err != nil {
+		t.Fatal(err)
+	}
+	d.u.pixCal.Store(cal)
+	m := mat.NewDense(na, ns, nil)
+	rng := rand.New(rand.NewPCG(2, 2))
+	for i := 0; i < na; i++ {
+		for j := 0; j < ns; j++ {
+			m.Set(i, j, 1e-3*rng.NormFloat64())
+		}
+	}
+	rec, err := controller.ReconstructorFromMatrix(m, time.Unix(0, 0))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := d.installReconstructor(rec, false); err != nil {
+		t.Fatal(err)
+	}
+	rt := newRealtime(d.u, g)
+	d.u.request(stateClosed)
+	f := r.chunks[0]
+	for n := uint64(1); n <= 3; n++ {
+		f.FrameNumber = n
+		now := monoclock.Now()
+		if !rt.receive(f, now) {
+			t.Fatalf("good frame %d refused", n)
+		}
+		rt.delivered(f, now, now, now)
+	}
+	held := slices.Clone(rt.sent)
+	if slices.Equal(held, make([]float32, na)) {
+		t.Fatal("the loop sent nothing but zeros")
+	}
+	binary.LittleEndian.PutUint16(f.Pixels[2*(16*64+24):], 3100) // a hot pixel in window (2, 3)
+	before := d.u.stats.rejected.Load()
+	f.FrameNumber = 4
+	if rt.receive(f, monoclock.Now()) {
+		t.Fatal("a frame with a hot pixel was used")
+	}
+	if got := d.u.stats.rejected.Load() - before; got != 1 {
+		t.Errorf("%d refusals counted, want 1", got)
+	}
+	if !slices.Equal(rt.sent, held) {
+		t.Error("the command changed on a refused frame")
 	}
 }

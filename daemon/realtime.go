@@ -218,6 +218,11 @@ func (p *poller) stop() { close(p.quit) }
 func (rt *realtime) receive(f *stillskyv1.StreamFramesResponse, received int64) bool {
 	u, m := rt.u, rt.u.m
 	a := rt.asm.add(f)
+	if a.pixels {
+		if c := u.capture.Load(); c != nil {
+			c.add(rt.asm.px.frame)
+		}
+	}
 	if a.abandoned {
 		rt.reject(refusedLength)
 	}
@@ -249,11 +254,7 @@ func (rt *realtime) receive(f *stillskyv1.StreamFramesResponse, received int64) 
 	u.stats.lastFrame.Store(num)
 	u.stats.flux.Store(rt.asm.flux)
 	m.flux.Set(rt.asm.flux)
-	if px := rt.asm.px; px != nil {
-		if c := u.capture.Load(); c != nil {
-			c.add(px.frame)
-		}
-	}
+
 	if a.dropped > 0 {
 		m.dropped.Add(float64(a.dropped))
 		u.stats.dropped.Add(a.dropped)
@@ -320,6 +321,12 @@ func (rt *realtime) reject(v verdict) {
 		m.rejPixelCount.Inc()
 	case refusedChunkLayout:
 		m.rejChunkLayout.Inc()
+	case refusedDeadRow:
+		m.rejDeadRow.Inc()
+	case refusedSaturated:
+		m.rejSaturated.Inc()
+	case refusedHotPixel:
+		m.rejHotPixel.Inc()
 	default:
 		m.rejLength.Inc()
 	}
