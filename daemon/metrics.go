@@ -64,6 +64,7 @@ type metrics struct {
 	ttResidualX, ttResidualY, ttResidualRMS      prometheus.Gauge
 	ttCommandX, ttCommandY, ttStrokeUsed         prometheus.Gauge
 	ttSaturated, ttFramePeriod, ttStroke, ttGain prometheus.Gauge
+	ttFlux                                       prometheus.Gauge
 	calibrationsOK, calibrationsFailed           prometheus.Counter
 	refused                                      *prometheus.CounterVec
 	// The loop's analysis of itself (analysis.go).
@@ -189,6 +190,7 @@ func newMetrics() *metrics {
 	m.ttSaturated = gauge("stillsky_tip_tilt_saturated", "1 when the last tip-tilt command was clamped at the stroke, else 0.")
 	m.ttFramePeriod = gauge("stillsky_tip_tilt_frame_period_seconds", "Frame period of the tip-tilt sensor (0 without one).")
 	m.ttStroke = gauge("stillsky_tip_tilt_stroke_radians", "Stroke of the tip-tilt mirror per axis, radians on the sky (0 without one).")
+	m.ttFlux = gauge("stillsky_tip_tilt_flux_electrons", "Natural-star flux of the last tip-tilt frame as the sensor reports it: photo-electrons summed over its quadrants (0 from a sensor that does not report it).")
 	m.ttGain = gauge("stillsky_tip_tilt_gain", "Tip-tilt integrator gain (0 without a tip-tilt loop).")
 
 	cals := prometheus.NewCounterVec(prometheus.CounterOpts{

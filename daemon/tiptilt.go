@@ -232,6 +232,7 @@ func (t *ttRealtime) receive(f *stillskyv1.StreamFramesResponse, received int64)
 	}
 	t.ms += t.alpha * ((mx*mx+my*my)/2 - t.ms)
 	t.tt.residual.Store(math.Float64bits(math.Sqrt(t.ms)))
+	m.ttFlux.Set(float64(f.GetFluxElectrons()))
 	m.ttResidualX.Set(mx)
 	m.ttResidualY.Set(my)
 	m.ttResidualRMS.Set(math.Sqrt(t.ms))

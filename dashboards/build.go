@@ -367,6 +367,8 @@ func mirror() *dashboard.DashboardBuilder {
 		WithPanel(single(id, "Tip-tilt saturated frames per second", "Tip-tilt frames whose command was clamped at the stroke, per second.", units.Hertz, 6, 5).
 			Thresholds(steps(0.1, "orange")).
 			WithTarget(target(rate("stillsky_tip_tilt_saturated_frames_total"), "{{instance}}"))).
+		WithPanel(series(id, "Tip-tilt star flux", "Photo-electrons of the natural star per tip-tilt frame, as the sensor reports them: clouds dim it.", units.Short, 12, 5).
+			WithTarget(target(q("stillsky_tip_tilt_flux_electrons"), "{{instance}}"))).
 		WithPanel(series(id, "Tip-tilt frames and commands per second", "Tilt frames the loop received, commands it sent to the tip-tilt mirror and commands the bench applied.", units.Hertz, 12, 5).
 			WithTarget(target(rate("stillsky_tip_tilt_frames_total"), "frames {{instance}}")).
 			WithTarget(target(rate("stillsky_tip_tilt_commands_total"), "sent {{instance}}")).

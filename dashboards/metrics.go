@@ -60,6 +60,7 @@ var KnownMetrics = []Metric{
 	{Name: "stillsky_tip_tilt_frame_period_seconds", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_tip_tilt_stroke_radians", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_tip_tilt_gain", Type: "gauge", Exporter: "loop"},
+	{Name: "stillsky_tip_tilt_flux_electrons", Type: "gauge", Exporter: "loop"},
 	{Name: "stillsky_supervisor_state", Type: "gauge", Labels: []string{"state"}, Exporter: "loop"},
 	{Name: "stillsky_supervisor_transitions_total", Type: "counter", Labels: []string{"from", "to"}, Exporter: "loop"},
 

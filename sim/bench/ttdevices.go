@@ -33,10 +33,13 @@ type tipTiltDevices struct {
 	qc    *wfs.QuadCell
 	ratio uint64
 	rng   *rand.Rand
-	// sum and n integrate the residual tilt over the current tip-tilt frame;
-	// written by the bench's clock under Server.mu.
-	sum [2]float64
-	n   int
+	// sum and n integrate the residual tilt over the current tip-tilt frame,
+	// trans the sky's transmission (the scenario's clouds dim the natural
+	// star as they dim the guide star); written by the bench's clock under
+	// Server.mu.
+	sum   [2]float64
+	trans float64
+	n     int
 
 	// The camera stream: frames as they are read out, one consumer at a time.
 	ready   chan ttFrame
@@ -58,6 +61,7 @@ type ttFrame struct {
 	number  uint64
 	readout int64
 	tilt    [2]float32
+	flux    float32
 }
 
 type ttPending struct {
@@ -89,12 +93,14 @@ func (t *tipTiltDevices) integrate(b *Server, k uint64) {
 	tx, ty := b.sys.ResidualTilt()
 	t.sum[0] += tx
 	t.sum[1] += ty
+	t.trans += b.sys.Transmission()
 	t.n++
 	if k%t.ratio != 0 {
 		return
 	}
 	mx, my := t.sum[0]/float64(t.n), t.sum[1]/float64(t.n)
-	t.sum, t.n = [2]float64{}, 0
+	t.qc.SetTransmission(t.trans / float64(t.n))
+	t.sum, t.trans, t.n = [2]float64{}, 0, 0
 	var rng *rand.Rand
 	if b.sky.Load() {
 		rng = t.rng
@@ -105,7 +111,7 @@ func (t *tipTiltDevices) integrate(b *Server, k uint64) {
 		return
 	}
 	t.published[j%pendingRing].Store(j)
-	t.ready <- ttFrame{number: j, readout: monoclock.Now(), tilt: [2]float32{float32(sx), float32(sy)}}
+	t.ready <- ttFrame{number: j, readout: monoclock.Now(), tilt: [2]float32{float32(sx), float32(sy)}, flux: float32(t.qc.Flux())}
 }
 
 // applyPending sets, before lockstep frame k, the tip-tilt command that
@@ -207,6 +213,7 @@ func (c ttCamera) StreamFrames(req *stillskyv1.StreamFramesRequest, stream grpc.
 		case f := <-t.ready:
 			msg.FrameNumber, msg.ReadoutEndNs = f.number, f.readout
 			msg.Slopes[0], msg.Slopes[1] = f.tilt[0], f.tilt[1]
+			msg.FluxElectrons = f.flux
 			if err := stream.Send(msg); err != nil {
 				return err
 			}

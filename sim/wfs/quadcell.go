@@ -37,6 +37,8 @@ type QuadCell struct {
 	cfg     QuadCellConfig
 	gain    float64
 	poisson distuv.Poisson
+	trans   float64 // sky transmission, SetTransmission
+	sum     float64 // detected sum of the last Sense
 }
 
 // NewQuadCell checks c and returns the sensor. Each refusal names the field
@@ -50,8 +52,23 @@ func NewQuadCell(c QuadCellConfig) (*QuadCell, error) {
 	case !(c.ReadNoise >= 0) || math.IsInf(c.ReadNoise, 0):
 		return nil, fmt.Errorf("wfs: quad cell read noise %g e-: must be finite and >= 0", c.ReadNoise)
 	}
-	return &QuadCell{cfg: c, gain: c.SpotSigma * math.Sqrt(math.Pi/2)}, nil
+	return &QuadCell{cfg: c, gain: c.SpotSigma * math.Sqrt(math.Pi/2), trans: 1}, nil
 }
+
+// SetTransmission dims the star to the fraction t of Photons from the next
+// Sense on (a cloud; t in [0, 1], clamped there; 1 is a clear sky). NoiseRMS
+// stays the clear sky's.
+func (q *QuadCell) SetTransmission(t float64) {
+	if !(t > 0) {
+		t = 0
+	}
+	q.trans = min(t, 1)
+}
+
+// Flux returns the photo-electrons the last Sense detected over the four
+// quadrants (with its noise; read noise included), as the sensor's own sum
+// gives it.
+func (q *QuadCell) Flux() float64 { return q.sum }
 
 // NoiseRMS is the tilt-estimate noise at the null, radians rms per axis:
 //
@@ -79,7 +96,7 @@ func (q *QuadCell) Sense(tx, ty float64, rng *rand.Rand) (sx, sy float64) {
 	s2 := q.cfg.SpotSigma * math.Sqrt2
 	px := 0.5 * math.Erfc(-tx/s2)
 	py := 0.5 * math.Erfc(-ty/s2)
-	n := q.cfg.Photons
+	n := q.cfg.Photons * q.trans
 	a := n * px * py             // right, top
 	b := n * (1 - px) * py       // left, top
 	c := n * (1 - px) * (1 - py) // left, bottom
@@ -92,6 +109,7 @@ func (q *QuadCell) Sense(tx, ty float64, rng *rand.Rand) (sx, sy float64) {
 		d = q.count(d, rng)
 	}
 	sum := a + b + c + d
+	q.sum = sum
 	if !(sum > 0) {
 		return 0, 0
 	}

@@ -95,3 +95,36 @@ func TestQuadCellAllocations(t *testing.T) {
 		t.Errorf("Sense: %v allocations per frame, want 0", n)
 	}
 }
+
+// A cloud of transmission t dims the quad cell: the sum it detects falls to
+// t·N, the noiseless estimate does not change (a ratio), and the noise
+// variance at the null grows as 1/t in the photon-limited regime (the
+// formula of NoiseRMS with N → t·N); Monte-Carlo of 20 000 frames, within
+// 10% in variance.
+func TestQuadCellTransmission(t *testing.T) {
+	const arcsec = math.Pi / 180 / 3600
+	q, err := wfs.NewQuadCell(wfs.QuadCellConfig{SpotSigma: 0.4 * arcsec, Photons: 1000})
+	if err != nil {
+		t.Fatal(err)
+	}
+	x0, _ := q.Sense(0.05*arcsec, 0, nil)
+	if q.Flux() != 1000 {
+		t.Fatalf("clear sky: flux %g, want 1000", q.Flux())
+	}
+	clear := q.NoiseRMS()
+	q.SetTransmission(0.25)
+	x1, _ := q.Sense(0.05*arcsec, 0, nil)
+	if math.Abs(q.Flux()-250) > 1e-9 || math.Abs(x1-x0) > 1e-12*math.Abs(x0) {
+		t.Fatalf("transmission 0.25: flux %g (want 250), estimate %g (want %g)", q.Flux(), x1, x0)
+	}
+	rng := rand.New(rand.NewPCG(7, 8))
+	var ss float64
+	const n = 20000
+	for range n {
+		x, _ := q.Sense(0, 0, rng)
+		ss += x * x
+	}
+	if got, want := ss/n, clear*clear/0.25; math.Abs(got/want-1) > 0.1 {
+		t.Errorf("noise variance under the cloud %.4g, want %.4g (clear %.4g / t)", got, want, clear*clear)
+	}
+}
