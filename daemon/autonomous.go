@@ -6,6 +6,9 @@ import (
 	"sync/atomic"
 	"time"
 
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
 	"stillsky/daemon/supervisor"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
@@ -211,6 +214,28 @@ func (d *Daemon) operator(cmd supervisor.Command) {
 	defer a.mu.Unlock()
 	a.s.Operator(cmd, frameTime(d.u.stats.lastFrame.Load(), g.frameRate))
 	a.publish()
+}
+
+// resume hands the loop back to the supervisor after an operator took over.
+// Errors carry the gRPC status code the Control API returns.
+func (d *Daemon) resume() error {
+	a := d.auto
+	if a == nil {
+		return status.Error(codes.FailedPrecondition, "the daemon runs without the supervisor (start it with --autonomous)")
+	}
+	hz := 1.0
+	if g := d.geometry(); g != nil {
+		hz = g.frameRate
+	}
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	if st := a.s.State(); st != supervisor.Manual {
+		return status.Errorf(codes.FailedPrecondition, "the supervisor is %s, not manual: nothing to resume", st)
+	}
+	a.s.Operator(supervisor.CmdResume, frameTime(d.u.stats.lastFrame.Load(), hz))
+	a.publish()
+	d.log.Info("supervisor resumed by an operator")
+	return nil
 }
 
 // supervise is the supervisor goroutine: it logs and counts each transition

@@ -8,6 +8,9 @@ import (
 	"testing"
 	"time"
 
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
+
 	"stillsky/daemon"
 	"stillsky/daemon/supervisor"
 	stillskyv1 "stillsky/proto/stillsky/v1"
@@ -184,7 +187,21 @@ func TestAutonomousLongPause(t *testing.T) {
 		t.Fatalf("supervisor %v after an operator's open, want manual", s)
 	}
 	st = waitFrameTime(t, rg, 25*time.Second)
-	if st.GetState() != stillskyv1.LoopState_LOOP_STATE_OPEN {
-		t.Errorf("loop %v 2 s after the operator opened it, want open: the supervisor must only watch", st.GetState())
+	if st.GetState() != stillskyv1.LoopState_LOOP_STATE_OPEN || st.GetSupervisorState() != "manual" {
+		t.Errorf("loop %v, supervisor %q 2 s after the operator opened it, want open and manual: the supervisor must only watch",
+			st.GetState(), st.GetSupervisorState())
+	}
+	// The operator hands the loop back: the supervisor measures the flux again
+	// and closes; a second resume has nothing to resume.
+	r, err := rg.Client.ResumeAutonomous(context.Background(), &stillskyv1.ResumeAutonomousRequest{})
+	if err != nil || r.GetStatus().GetSupervisorState() != "acquiring" {
+		t.Fatalf("ResumeAutonomous: %v, supervisor %q; want acquiring", err, r.GetStatus().GetSupervisorState())
+	}
+	if _, err := rg.Client.ResumeAutonomous(context.Background(), &stillskyv1.ResumeAutonomousRequest{}); status.Code(err) != codes.FailedPrecondition {
+		t.Errorf("second ResumeAutonomous: %v, want FailedPrecondition", err)
+	}
+	st = waitFrameTime(t, rg, 27*time.Second)
+	if st.GetState() != stillskyv1.LoopState_LOOP_STATE_CLOSED || st.GetSupervisorState() != "closed" {
+		t.Errorf("loop %v, supervisor %q 2 s after the resume, want closed, closed", st.GetState(), st.GetSupervisorState())
 	}
 }

@@ -1,8 +1,12 @@
 package daemon
 
 import (
+	"strings"
 	"testing"
 	"time"
+
+	"google.golang.org/grpc/codes"
+	"google.golang.org/grpc/status"
 
 	"gonum.org/v1/gonum/mat"
 
@@ -11,6 +15,21 @@ import (
 	"stillsky/internal/monoclock"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 )
+
+// A daemon without the supervisor has nothing to resume.
+func TestResumeWithoutSupervisor(t *testing.T) {
+	d, err := New(Config{CameraAddr: "127.0.0.1:1", MirrorAddr: "127.0.0.1:2", ListenAddr: "127.0.0.1:0", MetricsAddr: "-"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { d.ctlLis.Close() })
+	if err := d.resume(); status.Code(err) != codes.FailedPrecondition || !strings.Contains(err.Error(), "--autonomous") {
+		t.Errorf("resume: %v, want FailedPrecondition naming --autonomous", err)
+	}
+	if s := d.status(); s.GetSupervisorState() != "" {
+		t.Errorf("supervisor_state %q without the supervisor, want empty", s.GetSupervisorState())
+	}
+}
 
 // TestSupervisorAfterWatchdogHold drives the real-time unit frame by frame with
 // the supervisor on: it closes the loop on steady flux; the stale-camera

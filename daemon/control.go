@@ -61,6 +61,13 @@ func (s *controlServer) HoldLoop(ctx context.Context, _ *stillskyv1.HoldLoopRequ
 	return &stillskyv1.HoldLoopResponse{Status: s.d.status()}, nil
 }
 
+func (s *controlServer) ResumeAutonomous(context.Context, *stillskyv1.ResumeAutonomousRequest) (*stillskyv1.ResumeAutonomousResponse, error) {
+	if err := s.d.resume(); err != nil {
+		return nil, err
+	}
+	return &stillskyv1.ResumeAutonomousResponse{Status: s.d.status()}, nil
+}
+
 func (s *controlServer) SetGain(_ context.Context, req *stillskyv1.SetGainRequest) (*stillskyv1.SetGainResponse, error) {
 	if err := s.d.setGainLeak(&req.Gain, nil); err != nil {
 		return nil, err

@@ -248,6 +248,10 @@ func TestControlAuthentication(t *testing.T) {
 			_, err := c.HoldLoop(ctx, &stillskyv1.HoldLoopRequest{})
 			return err
 		},
+		"ResumeAutonomous": func(c stillskyv1.ControlServiceClient) error {
+			_, err := c.ResumeAutonomous(ctx, &stillskyv1.ResumeAutonomousRequest{})
+			return err
+		},
 		"SetGain": func(c stillskyv1.ControlServiceClient) error {
 			_, err := c.SetGain(ctx, &stillskyv1.SetGainRequest{Gain: 0.1})
 			return err

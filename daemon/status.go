@@ -64,5 +64,8 @@ func (d *Daemon) status() *stillskyv1.GetStatusResponse {
 	if tt := d.u.tt; tt != nil {
 		s.TipTilt = tt.status()
 	}
+	if st, ok := d.SupervisorState(); ok {
+		s.SupervisorState = st.String()
+	}
 	return s
 }

@@ -184,6 +184,15 @@ class Client:
         """Freezes the mirror at its last command (from a closed loop)."""
         return self._unary(self._stub.HoldLoop, pb.HoldLoopRequest()).status
 
+    def resume_autonomous(self) -> pb.GetStatusResponse:
+        """Hands the loop back to the unattended-operation supervisor
+        (stillsky loop --autonomous) after an open, close or hold put it in
+        manual; returns the status after (status.supervisor_state).
+
+        Raises Error(FAILED_PRECONDITION) without the supervisor or when it is
+        not in manual."""
+        return self._unary(self._stub.ResumeAutonomous, pb.ResumeAutonomousRequest()).status
+
     def set_gain(self, gain: float) -> pb.GetStatusResponse:
         """Sets the integrator gain, in [0, 2), from the next frame."""
         return self._unary(self._stub.SetGain, pb.SetGainRequest(gain=gain)).status

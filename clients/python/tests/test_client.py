@@ -135,6 +135,8 @@ class WithoutReconstructor(unittest.TestCase):
         self.assertFalse(s.HasField("reconstructor"))
         self.assertCode(grpc.StatusCode.FAILED_PRECONDITION, self.client.close_loop)
         self.assertCode(grpc.StatusCode.FAILED_PRECONDITION, self.client.hold_loop)
+        self.assertEqual(s.supervisor_state, "", "no supervisor without --autonomous")
+        self.assertCode(grpc.StatusCode.FAILED_PRECONDITION, self.client.resume_autonomous)
         self.assertCode(grpc.StatusCode.FAILED_PRECONDITION, self.client.save_reconstructor)
         self.assertCode(grpc.StatusCode.FAILED_PRECONDITION, self.client.set_modal_gains, [1.0])
         self.assertCode(grpc.StatusCode.INVALID_ARGUMENT, self.client.set_gain, 2.5)

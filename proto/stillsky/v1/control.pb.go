@@ -212,9 +212,13 @@ type GetStatusResponse struct {
 	MirrorConnected bool   `protobuf:"varint,22,opt,name=mirror_connected,json=mirrorConnected,proto3" json:"mirror_connected,omitempty"`
 	// The tip-tilt loop (stillsky loop --tip-tilt); absent without one. Added
 	// with the tip-tilt devices: older daemons never set it.
-	TipTilt       *TipTiltStatus `protobuf:"bytes,23,opt,name=tip_tilt,json=tipTilt,proto3" json:"tip_tilt,omitempty"`
-	unknownFields protoimpl.UnknownFields
-	sizeCache     protoimpl.SizeCache
+	TipTilt *TipTiltStatus `protobuf:"bytes,23,opt,name=tip_tilt,json=tipTilt,proto3" json:"tip_tilt,omitempty"`
+	// State of the unattended-operation supervisor (starting, calibrating, acquiring,
+	// closed, holding, clouded, tripped, manual; see daemon/supervisor); "" when the
+	// daemon runs without --autonomous.
+	SupervisorState string `protobuf:"bytes,24,opt,name=supervisor_state,json=supervisorState,proto3" json:"supervisor_state,omitempty"`
+	unknownFields   protoimpl.UnknownFields
+	sizeCache       protoimpl.SizeCache
 }
 
 func (x *GetStatusResponse) Reset() {
@@ -406,6 +410,13 @@ func (x *GetStatusResponse) GetTipTilt() *TipTiltStatus {
 		return x.TipTilt
 	}
 	return nil
+}
+
+func (x *GetStatusResponse) GetSupervisorState() string {
+	if x != nil {
+		return x.SupervisorState
+	}
+	return ""
 }
 
 // TipTiltStatus is a snapshot of the tip-tilt loop: the natural-star
@@ -813,6 +824,88 @@ func (x *OpenLoopResponse) GetStatus() *GetStatusResponse {
 	return nil
 }
 
+// ResumeAutonomousRequest has no fields.
+type ResumeAutonomousRequest struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ResumeAutonomousRequest) Reset() {
+	*x = ResumeAutonomousRequest{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[7]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ResumeAutonomousRequest) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ResumeAutonomousRequest) ProtoMessage() {}
+
+func (x *ResumeAutonomousRequest) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[7]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ResumeAutonomousRequest.ProtoReflect.Descriptor instead.
+func (*ResumeAutonomousRequest) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{7}
+}
+
+// ResumeAutonomousResponse returns the status after the change.
+type ResumeAutonomousResponse struct {
+	state         protoimpl.MessageState `protogen:"open.v1"`
+	Status        *GetStatusResponse     `protobuf:"bytes,1,opt,name=status,proto3" json:"status,omitempty"`
+	unknownFields protoimpl.UnknownFields
+	sizeCache     protoimpl.SizeCache
+}
+
+func (x *ResumeAutonomousResponse) Reset() {
+	*x = ResumeAutonomousResponse{}
+	mi := &file_stillsky_v1_control_proto_msgTypes[8]
+	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+	ms.StoreMessageInfo(mi)
+}
+
+func (x *ResumeAutonomousResponse) String() string {
+	return protoimpl.X.MessageStringOf(x)
+}
+
+func (*ResumeAutonomousResponse) ProtoMessage() {}
+
+func (x *ResumeAutonomousResponse) ProtoReflect() protoreflect.Message {
+	mi := &file_stillsky_v1_control_proto_msgTypes[8]
+	if x != nil {
+		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
+		if ms.LoadMessageInfo() == nil {
+			ms.StoreMessageInfo(mi)
+		}
+		return ms
+	}
+	return mi.MessageOf(x)
+}
+
+// Deprecated: Use ResumeAutonomousResponse.ProtoReflect.Descriptor instead.
+func (*ResumeAutonomousResponse) Descriptor() ([]byte, []int) {
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{8}
+}
+
+func (x *ResumeAutonomousResponse) GetStatus() *GetStatusResponse {
+	if x != nil {
+		return x.Status
+	}
+	return nil
+}
+
 // CloseLoopRequest has no fields.
 type CloseLoopRequest struct {
 	state         protoimpl.MessageState `protogen:"open.v1"`
@@ -822,7 +915,7 @@ type CloseLoopRequest struct {
 
 func (x *CloseLoopRequest) Reset() {
 	*x = CloseLoopRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[7]
+	mi := &file_stillsky_v1_control_proto_msgTypes[9]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -834,7 +927,7 @@ func (x *CloseLoopRequest) String() string {
 func (*CloseLoopRequest) ProtoMessage() {}
 
 func (x *CloseLoopRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[7]
+	mi := &file_stillsky_v1_control_proto_msgTypes[9]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -847,7 +940,7 @@ func (x *CloseLoopRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CloseLoopRequest.ProtoReflect.Descriptor instead.
 func (*CloseLoopRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{7}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{9}
 }
 
 // CloseLoopResponse returns the status after the change.
@@ -860,7 +953,7 @@ type CloseLoopResponse struct {
 
 func (x *CloseLoopResponse) Reset() {
 	*x = CloseLoopResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[8]
+	mi := &file_stillsky_v1_control_proto_msgTypes[10]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -872,7 +965,7 @@ func (x *CloseLoopResponse) String() string {
 func (*CloseLoopResponse) ProtoMessage() {}
 
 func (x *CloseLoopResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[8]
+	mi := &file_stillsky_v1_control_proto_msgTypes[10]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -885,7 +978,7 @@ func (x *CloseLoopResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CloseLoopResponse.ProtoReflect.Descriptor instead.
 func (*CloseLoopResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{8}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{10}
 }
 
 func (x *CloseLoopResponse) GetStatus() *GetStatusResponse {
@@ -904,7 +997,7 @@ type HoldLoopRequest struct {
 
 func (x *HoldLoopRequest) Reset() {
 	*x = HoldLoopRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[9]
+	mi := &file_stillsky_v1_control_proto_msgTypes[11]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -916,7 +1009,7 @@ func (x *HoldLoopRequest) String() string {
 func (*HoldLoopRequest) ProtoMessage() {}
 
 func (x *HoldLoopRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[9]
+	mi := &file_stillsky_v1_control_proto_msgTypes[11]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -929,7 +1022,7 @@ func (x *HoldLoopRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use HoldLoopRequest.ProtoReflect.Descriptor instead.
 func (*HoldLoopRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{9}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{11}
 }
 
 // HoldLoopResponse returns the status after the change.
@@ -942,7 +1035,7 @@ type HoldLoopResponse struct {
 
 func (x *HoldLoopResponse) Reset() {
 	*x = HoldLoopResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[10]
+	mi := &file_stillsky_v1_control_proto_msgTypes[12]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -954,7 +1047,7 @@ func (x *HoldLoopResponse) String() string {
 func (*HoldLoopResponse) ProtoMessage() {}
 
 func (x *HoldLoopResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[10]
+	mi := &file_stillsky_v1_control_proto_msgTypes[12]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -967,7 +1060,7 @@ func (x *HoldLoopResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use HoldLoopResponse.ProtoReflect.Descriptor instead.
 func (*HoldLoopResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{10}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{12}
 }
 
 func (x *HoldLoopResponse) GetStatus() *GetStatusResponse {
@@ -987,7 +1080,7 @@ type SetGainRequest struct {
 
 func (x *SetGainRequest) Reset() {
 	*x = SetGainRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[11]
+	mi := &file_stillsky_v1_control_proto_msgTypes[13]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -999,7 +1092,7 @@ func (x *SetGainRequest) String() string {
 func (*SetGainRequest) ProtoMessage() {}
 
 func (x *SetGainRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[11]
+	mi := &file_stillsky_v1_control_proto_msgTypes[13]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1012,7 +1105,7 @@ func (x *SetGainRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetGainRequest.ProtoReflect.Descriptor instead.
 func (*SetGainRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{11}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{13}
 }
 
 func (x *SetGainRequest) GetGain() float64 {
@@ -1032,7 +1125,7 @@ type SetGainResponse struct {
 
 func (x *SetGainResponse) Reset() {
 	*x = SetGainResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[12]
+	mi := &file_stillsky_v1_control_proto_msgTypes[14]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1044,7 +1137,7 @@ func (x *SetGainResponse) String() string {
 func (*SetGainResponse) ProtoMessage() {}
 
 func (x *SetGainResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[12]
+	mi := &file_stillsky_v1_control_proto_msgTypes[14]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1057,7 +1150,7 @@ func (x *SetGainResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetGainResponse.ProtoReflect.Descriptor instead.
 func (*SetGainResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{12}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{14}
 }
 
 func (x *SetGainResponse) GetStatus() *GetStatusResponse {
@@ -1077,7 +1170,7 @@ type SetLeakRequest struct {
 
 func (x *SetLeakRequest) Reset() {
 	*x = SetLeakRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[13]
+	mi := &file_stillsky_v1_control_proto_msgTypes[15]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1089,7 +1182,7 @@ func (x *SetLeakRequest) String() string {
 func (*SetLeakRequest) ProtoMessage() {}
 
 func (x *SetLeakRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[13]
+	mi := &file_stillsky_v1_control_proto_msgTypes[15]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1102,7 +1195,7 @@ func (x *SetLeakRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetLeakRequest.ProtoReflect.Descriptor instead.
 func (*SetLeakRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{13}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{15}
 }
 
 func (x *SetLeakRequest) GetLeak() float64 {
@@ -1122,7 +1215,7 @@ type SetLeakResponse struct {
 
 func (x *SetLeakResponse) Reset() {
 	*x = SetLeakResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[14]
+	mi := &file_stillsky_v1_control_proto_msgTypes[16]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1134,7 +1227,7 @@ func (x *SetLeakResponse) String() string {
 func (*SetLeakResponse) ProtoMessage() {}
 
 func (x *SetLeakResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[14]
+	mi := &file_stillsky_v1_control_proto_msgTypes[16]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1147,7 +1240,7 @@ func (x *SetLeakResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetLeakResponse.ProtoReflect.Descriptor instead.
 func (*SetLeakResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{14}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{16}
 }
 
 func (x *SetLeakResponse) GetStatus() *GetStatusResponse {
@@ -1167,7 +1260,7 @@ type SetModalGainsRequest struct {
 
 func (x *SetModalGainsRequest) Reset() {
 	*x = SetModalGainsRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[15]
+	mi := &file_stillsky_v1_control_proto_msgTypes[17]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1179,7 +1272,7 @@ func (x *SetModalGainsRequest) String() string {
 func (*SetModalGainsRequest) ProtoMessage() {}
 
 func (x *SetModalGainsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[15]
+	mi := &file_stillsky_v1_control_proto_msgTypes[17]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1192,7 +1285,7 @@ func (x *SetModalGainsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetModalGainsRequest.ProtoReflect.Descriptor instead.
 func (*SetModalGainsRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{15}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{17}
 }
 
 func (x *SetModalGainsRequest) GetGains() []float64 {
@@ -1212,7 +1305,7 @@ type SetModalGainsResponse struct {
 
 func (x *SetModalGainsResponse) Reset() {
 	*x = SetModalGainsResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[16]
+	mi := &file_stillsky_v1_control_proto_msgTypes[18]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1224,7 +1317,7 @@ func (x *SetModalGainsResponse) String() string {
 func (*SetModalGainsResponse) ProtoMessage() {}
 
 func (x *SetModalGainsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[16]
+	mi := &file_stillsky_v1_control_proto_msgTypes[18]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1237,7 +1330,7 @@ func (x *SetModalGainsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SetModalGainsResponse.ProtoReflect.Descriptor instead.
 func (*SetModalGainsResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{16}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{18}
 }
 
 func (x *SetModalGainsResponse) GetStatus() *GetStatusResponse {
@@ -1281,7 +1374,7 @@ type CalibrateRequest struct {
 
 func (x *CalibrateRequest) Reset() {
 	*x = CalibrateRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[17]
+	mi := &file_stillsky_v1_control_proto_msgTypes[19]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1293,7 +1386,7 @@ func (x *CalibrateRequest) String() string {
 func (*CalibrateRequest) ProtoMessage() {}
 
 func (x *CalibrateRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[17]
+	mi := &file_stillsky_v1_control_proto_msgTypes[19]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1306,7 +1399,7 @@ func (x *CalibrateRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CalibrateRequest.ProtoReflect.Descriptor instead.
 func (*CalibrateRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{17}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{19}
 }
 
 func (x *CalibrateRequest) GetAmplitudeM() float64 {
@@ -1380,7 +1473,7 @@ type CalibrateResponse struct {
 
 func (x *CalibrateResponse) Reset() {
 	*x = CalibrateResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[18]
+	mi := &file_stillsky_v1_control_proto_msgTypes[20]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1392,7 +1485,7 @@ func (x *CalibrateResponse) String() string {
 func (*CalibrateResponse) ProtoMessage() {}
 
 func (x *CalibrateResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[18]
+	mi := &file_stillsky_v1_control_proto_msgTypes[20]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1405,7 +1498,7 @@ func (x *CalibrateResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CalibrateResponse.ProtoReflect.Descriptor instead.
 func (*CalibrateResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{18}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{20}
 }
 
 func (x *CalibrateResponse) GetPhase() string {
@@ -1445,7 +1538,7 @@ type SaveReconstructorRequest struct {
 
 func (x *SaveReconstructorRequest) Reset() {
 	*x = SaveReconstructorRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[19]
+	mi := &file_stillsky_v1_control_proto_msgTypes[21]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1457,7 +1550,7 @@ func (x *SaveReconstructorRequest) String() string {
 func (*SaveReconstructorRequest) ProtoMessage() {}
 
 func (x *SaveReconstructorRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[19]
+	mi := &file_stillsky_v1_control_proto_msgTypes[21]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1470,7 +1563,7 @@ func (x *SaveReconstructorRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SaveReconstructorRequest.ProtoReflect.Descriptor instead.
 func (*SaveReconstructorRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{19}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{21}
 }
 
 // SaveReconstructorResponse is one chunk of the FITS file, in order.
@@ -1483,7 +1576,7 @@ type SaveReconstructorResponse struct {
 
 func (x *SaveReconstructorResponse) Reset() {
 	*x = SaveReconstructorResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[20]
+	mi := &file_stillsky_v1_control_proto_msgTypes[22]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1495,7 +1588,7 @@ func (x *SaveReconstructorResponse) String() string {
 func (*SaveReconstructorResponse) ProtoMessage() {}
 
 func (x *SaveReconstructorResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[20]
+	mi := &file_stillsky_v1_control_proto_msgTypes[22]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1508,7 +1601,7 @@ func (x *SaveReconstructorResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use SaveReconstructorResponse.ProtoReflect.Descriptor instead.
 func (*SaveReconstructorResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{20}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{22}
 }
 
 func (x *SaveReconstructorResponse) GetChunk() []byte {
@@ -1528,7 +1621,7 @@ type LoadReconstructorRequest struct {
 
 func (x *LoadReconstructorRequest) Reset() {
 	*x = LoadReconstructorRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[21]
+	mi := &file_stillsky_v1_control_proto_msgTypes[23]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1540,7 +1633,7 @@ func (x *LoadReconstructorRequest) String() string {
 func (*LoadReconstructorRequest) ProtoMessage() {}
 
 func (x *LoadReconstructorRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[21]
+	mi := &file_stillsky_v1_control_proto_msgTypes[23]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1553,7 +1646,7 @@ func (x *LoadReconstructorRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use LoadReconstructorRequest.ProtoReflect.Descriptor instead.
 func (*LoadReconstructorRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{21}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{23}
 }
 
 func (x *LoadReconstructorRequest) GetChunk() []byte {
@@ -1573,7 +1666,7 @@ type LoadReconstructorResponse struct {
 
 func (x *LoadReconstructorResponse) Reset() {
 	*x = LoadReconstructorResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[22]
+	mi := &file_stillsky_v1_control_proto_msgTypes[24]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1585,7 +1678,7 @@ func (x *LoadReconstructorResponse) String() string {
 func (*LoadReconstructorResponse) ProtoMessage() {}
 
 func (x *LoadReconstructorResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[22]
+	mi := &file_stillsky_v1_control_proto_msgTypes[24]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1598,7 +1691,7 @@ func (x *LoadReconstructorResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use LoadReconstructorResponse.ProtoReflect.Descriptor instead.
 func (*LoadReconstructorResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{22}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{24}
 }
 
 func (x *LoadReconstructorResponse) GetReconstructor() *ReconstructorInfo {
@@ -1619,7 +1712,7 @@ type StreamTelemetryRequest struct {
 
 func (x *StreamTelemetryRequest) Reset() {
 	*x = StreamTelemetryRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[23]
+	mi := &file_stillsky_v1_control_proto_msgTypes[25]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1631,7 +1724,7 @@ func (x *StreamTelemetryRequest) String() string {
 func (*StreamTelemetryRequest) ProtoMessage() {}
 
 func (x *StreamTelemetryRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[23]
+	mi := &file_stillsky_v1_control_proto_msgTypes[25]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1644,7 +1737,7 @@ func (x *StreamTelemetryRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamTelemetryRequest.ProtoReflect.Descriptor instead.
 func (*StreamTelemetryRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{23}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{25}
 }
 
 func (x *StreamTelemetryRequest) GetDecimation() uint32 {
@@ -1673,7 +1766,7 @@ type StreamTelemetryResponse struct {
 
 func (x *StreamTelemetryResponse) Reset() {
 	*x = StreamTelemetryResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[24]
+	mi := &file_stillsky_v1_control_proto_msgTypes[26]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1685,7 +1778,7 @@ func (x *StreamTelemetryResponse) String() string {
 func (*StreamTelemetryResponse) ProtoMessage() {}
 
 func (x *StreamTelemetryResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[24]
+	mi := &file_stillsky_v1_control_proto_msgTypes[26]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1698,7 +1791,7 @@ func (x *StreamTelemetryResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use StreamTelemetryResponse.ProtoReflect.Descriptor instead.
 func (*StreamTelemetryResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{24}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{26}
 }
 
 func (x *StreamTelemetryResponse) GetFrameNumber() uint64 {
@@ -1777,7 +1870,7 @@ type OptimiseModalGainsRequest struct {
 
 func (x *OptimiseModalGainsRequest) Reset() {
 	*x = OptimiseModalGainsRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[25]
+	mi := &file_stillsky_v1_control_proto_msgTypes[27]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1789,7 +1882,7 @@ func (x *OptimiseModalGainsRequest) String() string {
 func (*OptimiseModalGainsRequest) ProtoMessage() {}
 
 func (x *OptimiseModalGainsRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[25]
+	mi := &file_stillsky_v1_control_proto_msgTypes[27]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1802,7 +1895,7 @@ func (x *OptimiseModalGainsRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use OptimiseModalGainsRequest.ProtoReflect.Descriptor instead.
 func (*OptimiseModalGainsRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{25}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{27}
 }
 
 func (x *OptimiseModalGainsRequest) GetFrames() uint32 {
@@ -1836,7 +1929,7 @@ type OptimiseModalGainsResponse struct {
 
 func (x *OptimiseModalGainsResponse) Reset() {
 	*x = OptimiseModalGainsResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[26]
+	mi := &file_stillsky_v1_control_proto_msgTypes[28]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1848,7 +1941,7 @@ func (x *OptimiseModalGainsResponse) String() string {
 func (*OptimiseModalGainsResponse) ProtoMessage() {}
 
 func (x *OptimiseModalGainsResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[26]
+	mi := &file_stillsky_v1_control_proto_msgTypes[28]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1861,7 +1954,7 @@ func (x *OptimiseModalGainsResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use OptimiseModalGainsResponse.ProtoReflect.Descriptor instead.
 func (*OptimiseModalGainsResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{26}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{28}
 }
 
 func (x *OptimiseModalGainsResponse) GetGains() []float64 {
@@ -1903,7 +1996,7 @@ type RecordTelemetryRequest struct {
 
 func (x *RecordTelemetryRequest) Reset() {
 	*x = RecordTelemetryRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[27]
+	mi := &file_stillsky_v1_control_proto_msgTypes[29]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1915,7 +2008,7 @@ func (x *RecordTelemetryRequest) String() string {
 func (*RecordTelemetryRequest) ProtoMessage() {}
 
 func (x *RecordTelemetryRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[27]
+	mi := &file_stillsky_v1_control_proto_msgTypes[29]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1928,7 +2021,7 @@ func (x *RecordTelemetryRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RecordTelemetryRequest.ProtoReflect.Descriptor instead.
 func (*RecordTelemetryRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{27}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{29}
 }
 
 func (x *RecordTelemetryRequest) GetFrameCount() uint64 {
@@ -1954,7 +2047,7 @@ type RecordTelemetryResponse struct {
 
 func (x *RecordTelemetryResponse) Reset() {
 	*x = RecordTelemetryResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[28]
+	mi := &file_stillsky_v1_control_proto_msgTypes[30]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -1966,7 +2059,7 @@ func (x *RecordTelemetryResponse) String() string {
 func (*RecordTelemetryResponse) ProtoMessage() {}
 
 func (x *RecordTelemetryResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[28]
+	mi := &file_stillsky_v1_control_proto_msgTypes[30]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -1979,7 +2072,7 @@ func (x *RecordTelemetryResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RecordTelemetryResponse.ProtoReflect.Descriptor instead.
 func (*RecordTelemetryResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{28}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{30}
 }
 
 func (x *RecordTelemetryResponse) GetContent() isRecordTelemetryResponse_Content {
@@ -2065,7 +2158,7 @@ type RecordingHeader struct {
 
 func (x *RecordingHeader) Reset() {
 	*x = RecordingHeader{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[29]
+	mi := &file_stillsky_v1_control_proto_msgTypes[31]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2077,7 +2170,7 @@ func (x *RecordingHeader) String() string {
 func (*RecordingHeader) ProtoMessage() {}
 
 func (x *RecordingHeader) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[29]
+	mi := &file_stillsky_v1_control_proto_msgTypes[31]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2090,7 +2183,7 @@ func (x *RecordingHeader) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RecordingHeader.ProtoReflect.Descriptor instead.
 func (*RecordingHeader) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{29}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{31}
 }
 
 func (x *RecordingHeader) GetCamera() *CameraServiceDescribeResponse {
@@ -2189,7 +2282,7 @@ type RecordedFrames struct {
 
 func (x *RecordedFrames) Reset() {
 	*x = RecordedFrames{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[30]
+	mi := &file_stillsky_v1_control_proto_msgTypes[32]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2201,7 +2294,7 @@ func (x *RecordedFrames) String() string {
 func (*RecordedFrames) ProtoMessage() {}
 
 func (x *RecordedFrames) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[30]
+	mi := &file_stillsky_v1_control_proto_msgTypes[32]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2214,7 +2307,7 @@ func (x *RecordedFrames) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use RecordedFrames.ProtoReflect.Descriptor instead.
 func (*RecordedFrames) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{30}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{32}
 }
 
 func (x *RecordedFrames) GetFrameNumbers() []uint64 {
@@ -2306,7 +2399,7 @@ type CapturePixelCalibrationRequest struct {
 
 func (x *CapturePixelCalibrationRequest) Reset() {
 	*x = CapturePixelCalibrationRequest{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[31]
+	mi := &file_stillsky_v1_control_proto_msgTypes[33]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2318,7 +2411,7 @@ func (x *CapturePixelCalibrationRequest) String() string {
 func (*CapturePixelCalibrationRequest) ProtoMessage() {}
 
 func (x *CapturePixelCalibrationRequest) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[31]
+	mi := &file_stillsky_v1_control_proto_msgTypes[33]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2331,7 +2424,7 @@ func (x *CapturePixelCalibrationRequest) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CapturePixelCalibrationRequest.ProtoReflect.Descriptor instead.
 func (*CapturePixelCalibrationRequest) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{31}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{33}
 }
 
 func (x *CapturePixelCalibrationRequest) GetKind() PixelCalibrationKind {
@@ -2366,7 +2459,7 @@ type CapturePixelCalibrationResponse struct {
 
 func (x *CapturePixelCalibrationResponse) Reset() {
 	*x = CapturePixelCalibrationResponse{}
-	mi := &file_stillsky_v1_control_proto_msgTypes[32]
+	mi := &file_stillsky_v1_control_proto_msgTypes[34]
 	ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 	ms.StoreMessageInfo(mi)
 }
@@ -2378,7 +2471,7 @@ func (x *CapturePixelCalibrationResponse) String() string {
 func (*CapturePixelCalibrationResponse) ProtoMessage() {}
 
 func (x *CapturePixelCalibrationResponse) ProtoReflect() protoreflect.Message {
-	mi := &file_stillsky_v1_control_proto_msgTypes[32]
+	mi := &file_stillsky_v1_control_proto_msgTypes[34]
 	if x != nil {
 		ms := protoimpl.X.MessageStateOf(protoimpl.Pointer(x))
 		if ms.LoadMessageInfo() == nil {
@@ -2391,7 +2484,7 @@ func (x *CapturePixelCalibrationResponse) ProtoReflect() protoreflect.Message {
 
 // Deprecated: Use CapturePixelCalibrationResponse.ProtoReflect.Descriptor instead.
 func (*CapturePixelCalibrationResponse) Descriptor() ([]byte, []int) {
-	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{32}
+	return file_stillsky_v1_control_proto_rawDescGZIP(), []int{34}
 }
 
 func (x *CapturePixelCalibrationResponse) GetKind() PixelCalibrationKind {
@@ -2434,7 +2527,7 @@ var File_stillsky_v1_control_proto protoreflect.FileDescriptor
 const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\n" +
 	"\x19stillsky/v1/control.proto\x12\vstillsky.v1\x1a\x18stillsky/v1/camera.proto\x1a\x18stillsky/v1/mirror.proto\"\x12\n" +
-	"\x10GetStatusRequest\"\x81\b\n" +
+	"\x10GetStatusRequest\"\xac\b\n" +
 	"\x11GetStatusResponse\x12,\n" +
 	"\x05state\x18\x01 \x01(\x0e2\x16.stillsky.v1.LoopStateR\x05state\x12\x12\n" +
 	"\x04gain\x18\x02 \x01(\x01R\x04gain\x12\x12\n" +
@@ -2462,7 +2555,8 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\x0elast_interlock\x18\x14 \x01(\tR\rlastInterlock\x12)\n" +
 	"\x10camera_connected\x18\x15 \x01(\bR\x0fcameraConnected\x12)\n" +
 	"\x10mirror_connected\x18\x16 \x01(\bR\x0fmirrorConnected\x125\n" +
-	"\btip_tilt\x18\x17 \x01(\v2\x1a.stillsky.v1.TipTiltStatusR\atipTilt\"\xd4\x02\n" +
+	"\btip_tilt\x18\x17 \x01(\v2\x1a.stillsky.v1.TipTiltStatusR\atipTilt\x12)\n" +
+	"\x10supervisor_state\x18\x18 \x01(\tR\x0fsupervisorState\"\xd4\x02\n" +
 	"\rTipTiltStatus\x12\x1c\n" +
 	"\tconnected\x18\x01 \x01(\bR\tconnected\x12\x16\n" +
 	"\x06frames\x18\x02 \x01(\x04R\x06frames\x12\x1a\n" +
@@ -2497,6 +2591,9 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"mode_count\x18\t \x01(\rR\tmodeCount\"\x11\n" +
 	"\x0fOpenLoopRequest\"J\n" +
 	"\x10OpenLoopResponse\x126\n" +
+	"\x06status\x18\x01 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status\"\x19\n" +
+	"\x17ResumeAutonomousRequest\"R\n" +
+	"\x18ResumeAutonomousResponse\x126\n" +
 	"\x06status\x18\x01 \x01(\v2\x1e.stillsky.v1.GetStatusResponseR\x06status\"\x12\n" +
 	"\x10CloseLoopRequest\"K\n" +
 	"\x11CloseLoopResponse\x126\n" +
@@ -2617,12 +2714,14 @@ const file_stillsky_v1_control_proto_rawDesc = "" +
 	"\"PIXEL_CALIBRATION_KIND_UNSPECIFIED\x10\x00\x12\x1f\n" +
 	"\x1bPIXEL_CALIBRATION_KIND_DARK\x10\x01\x12\x1f\n" +
 	"\x1bPIXEL_CALIBRATION_KIND_FLAT\x10\x02\x12$\n" +
-	" PIXEL_CALIBRATION_KIND_REFERENCE\x10\x032\xd5\t\n" +
+	" PIXEL_CALIBRATION_KIND_REFERENCE\x10\x032\xb6\n" +
+	"\n" +
 	"\x0eControlService\x12J\n" +
 	"\tGetStatus\x12\x1d.stillsky.v1.GetStatusRequest\x1a\x1e.stillsky.v1.GetStatusResponse\x12G\n" +
 	"\bOpenLoop\x12\x1c.stillsky.v1.OpenLoopRequest\x1a\x1d.stillsky.v1.OpenLoopResponse\x12J\n" +
 	"\tCloseLoop\x12\x1d.stillsky.v1.CloseLoopRequest\x1a\x1e.stillsky.v1.CloseLoopResponse\x12G\n" +
-	"\bHoldLoop\x12\x1c.stillsky.v1.HoldLoopRequest\x1a\x1d.stillsky.v1.HoldLoopResponse\x12D\n" +
+	"\bHoldLoop\x12\x1c.stillsky.v1.HoldLoopRequest\x1a\x1d.stillsky.v1.HoldLoopResponse\x12_\n" +
+	"\x10ResumeAutonomous\x12$.stillsky.v1.ResumeAutonomousRequest\x1a%.stillsky.v1.ResumeAutonomousResponse\x12D\n" +
 	"\aSetGain\x12\x1b.stillsky.v1.SetGainRequest\x1a\x1c.stillsky.v1.SetGainResponse\x12D\n" +
 	"\aSetLeak\x12\x1b.stillsky.v1.SetLeakRequest\x1a\x1c.stillsky.v1.SetLeakResponse\x12V\n" +
 	"\rSetModalGains\x12!.stillsky.v1.SetModalGainsRequest\x1a\".stillsky.v1.SetModalGainsResponse\x12L\n" +
@@ -2647,7 +2746,7 @@ func file_stillsky_v1_control_proto_rawDescGZIP() []byte {
 }
 
 var file_stillsky_v1_control_proto_enumTypes = make([]protoimpl.EnumInfo, 2)
-var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 33)
+var file_stillsky_v1_control_proto_msgTypes = make([]protoimpl.MessageInfo, 35)
 var file_stillsky_v1_control_proto_goTypes = []any{
 	(LoopState)(0),                          // 0: stillsky.v1.LoopState
 	(PixelCalibrationKind)(0),               // 1: stillsky.v1.PixelCalibrationKind
@@ -2658,34 +2757,36 @@ var file_stillsky_v1_control_proto_goTypes = []any{
 	(*ReconstructorInfo)(nil),               // 6: stillsky.v1.ReconstructorInfo
 	(*OpenLoopRequest)(nil),                 // 7: stillsky.v1.OpenLoopRequest
 	(*OpenLoopResponse)(nil),                // 8: stillsky.v1.OpenLoopResponse
-	(*CloseLoopRequest)(nil),                // 9: stillsky.v1.CloseLoopRequest
-	(*CloseLoopResponse)(nil),               // 10: stillsky.v1.CloseLoopResponse
-	(*HoldLoopRequest)(nil),                 // 11: stillsky.v1.HoldLoopRequest
-	(*HoldLoopResponse)(nil),                // 12: stillsky.v1.HoldLoopResponse
-	(*SetGainRequest)(nil),                  // 13: stillsky.v1.SetGainRequest
-	(*SetGainResponse)(nil),                 // 14: stillsky.v1.SetGainResponse
-	(*SetLeakRequest)(nil),                  // 15: stillsky.v1.SetLeakRequest
-	(*SetLeakResponse)(nil),                 // 16: stillsky.v1.SetLeakResponse
-	(*SetModalGainsRequest)(nil),            // 17: stillsky.v1.SetModalGainsRequest
-	(*SetModalGainsResponse)(nil),           // 18: stillsky.v1.SetModalGainsResponse
-	(*CalibrateRequest)(nil),                // 19: stillsky.v1.CalibrateRequest
-	(*CalibrateResponse)(nil),               // 20: stillsky.v1.CalibrateResponse
-	(*SaveReconstructorRequest)(nil),        // 21: stillsky.v1.SaveReconstructorRequest
-	(*SaveReconstructorResponse)(nil),       // 22: stillsky.v1.SaveReconstructorResponse
-	(*LoadReconstructorRequest)(nil),        // 23: stillsky.v1.LoadReconstructorRequest
-	(*LoadReconstructorResponse)(nil),       // 24: stillsky.v1.LoadReconstructorResponse
-	(*StreamTelemetryRequest)(nil),          // 25: stillsky.v1.StreamTelemetryRequest
-	(*StreamTelemetryResponse)(nil),         // 26: stillsky.v1.StreamTelemetryResponse
-	(*OptimiseModalGainsRequest)(nil),       // 27: stillsky.v1.OptimiseModalGainsRequest
-	(*OptimiseModalGainsResponse)(nil),      // 28: stillsky.v1.OptimiseModalGainsResponse
-	(*RecordTelemetryRequest)(nil),          // 29: stillsky.v1.RecordTelemetryRequest
-	(*RecordTelemetryResponse)(nil),         // 30: stillsky.v1.RecordTelemetryResponse
-	(*RecordingHeader)(nil),                 // 31: stillsky.v1.RecordingHeader
-	(*RecordedFrames)(nil),                  // 32: stillsky.v1.RecordedFrames
-	(*CapturePixelCalibrationRequest)(nil),  // 33: stillsky.v1.CapturePixelCalibrationRequest
-	(*CapturePixelCalibrationResponse)(nil), // 34: stillsky.v1.CapturePixelCalibrationResponse
-	(*CameraServiceDescribeResponse)(nil),   // 35: stillsky.v1.CameraServiceDescribeResponse
-	(*MirrorServiceDescribeResponse)(nil),   // 36: stillsky.v1.MirrorServiceDescribeResponse
+	(*ResumeAutonomousRequest)(nil),         // 9: stillsky.v1.ResumeAutonomousRequest
+	(*ResumeAutonomousResponse)(nil),        // 10: stillsky.v1.ResumeAutonomousResponse
+	(*CloseLoopRequest)(nil),                // 11: stillsky.v1.CloseLoopRequest
+	(*CloseLoopResponse)(nil),               // 12: stillsky.v1.CloseLoopResponse
+	(*HoldLoopRequest)(nil),                 // 13: stillsky.v1.HoldLoopRequest
+	(*HoldLoopResponse)(nil),                // 14: stillsky.v1.HoldLoopResponse
+	(*SetGainRequest)(nil),                  // 15: stillsky.v1.SetGainRequest
+	(*SetGainResponse)(nil),                 // 16: stillsky.v1.SetGainResponse
+	(*SetLeakRequest)(nil),                  // 17: stillsky.v1.SetLeakRequest
+	(*SetLeakResponse)(nil),                 // 18: stillsky.v1.SetLeakResponse
+	(*SetModalGainsRequest)(nil),            // 19: stillsky.v1.SetModalGainsRequest
+	(*SetModalGainsResponse)(nil),           // 20: stillsky.v1.SetModalGainsResponse
+	(*CalibrateRequest)(nil),                // 21: stillsky.v1.CalibrateRequest
+	(*CalibrateResponse)(nil),               // 22: stillsky.v1.CalibrateResponse
+	(*SaveReconstructorRequest)(nil),        // 23: stillsky.v1.SaveReconstructorRequest
+	(*SaveReconstructorResponse)(nil),       // 24: stillsky.v1.SaveReconstructorResponse
+	(*LoadReconstructorRequest)(nil),        // 25: stillsky.v1.LoadReconstructorRequest
+	(*LoadReconstructorResponse)(nil),       // 26: stillsky.v1.LoadReconstructorResponse
+	(*StreamTelemetryRequest)(nil),          // 27: stillsky.v1.StreamTelemetryRequest
+	(*StreamTelemetryResponse)(nil),         // 28: stillsky.v1.StreamTelemetryResponse
+	(*OptimiseModalGainsRequest)(nil),       // 29: stillsky.v1.OptimiseModalGainsRequest
+	(*OptimiseModalGainsResponse)(nil),      // 30: stillsky.v1.OptimiseModalGainsResponse
+	(*RecordTelemetryRequest)(nil),          // 31: stillsky.v1.RecordTelemetryRequest
+	(*RecordTelemetryResponse)(nil),         // 32: stillsky.v1.RecordTelemetryResponse
+	(*RecordingHeader)(nil),                 // 33: stillsky.v1.RecordingHeader
+	(*RecordedFrames)(nil),                  // 34: stillsky.v1.RecordedFrames
+	(*CapturePixelCalibrationRequest)(nil),  // 35: stillsky.v1.CapturePixelCalibrationRequest
+	(*CapturePixelCalibrationResponse)(nil), // 36: stillsky.v1.CapturePixelCalibrationResponse
+	(*CameraServiceDescribeResponse)(nil),   // 37: stillsky.v1.CameraServiceDescribeResponse
+	(*MirrorServiceDescribeResponse)(nil),   // 38: stillsky.v1.MirrorServiceDescribeResponse
 }
 var file_stillsky_v1_control_proto_depIdxs = []int32{
 	0,  // 0: stillsky.v1.GetStatusResponse.state:type_name -> stillsky.v1.LoopState
@@ -2694,56 +2795,59 @@ var file_stillsky_v1_control_proto_depIdxs = []int32{
 	5,  // 3: stillsky.v1.GetStatusResponse.end_to_end_latency:type_name -> stillsky.v1.LatencySummary
 	4,  // 4: stillsky.v1.GetStatusResponse.tip_tilt:type_name -> stillsky.v1.TipTiltStatus
 	3,  // 5: stillsky.v1.OpenLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	3,  // 6: stillsky.v1.CloseLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	3,  // 7: stillsky.v1.HoldLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	3,  // 8: stillsky.v1.SetGainResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	3,  // 9: stillsky.v1.SetLeakResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	3,  // 10: stillsky.v1.SetModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	6,  // 11: stillsky.v1.CalibrateResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
-	6,  // 12: stillsky.v1.LoadReconstructorResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
-	0,  // 13: stillsky.v1.StreamTelemetryResponse.state:type_name -> stillsky.v1.LoopState
-	3,  // 14: stillsky.v1.OptimiseModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
-	31, // 15: stillsky.v1.RecordTelemetryResponse.header:type_name -> stillsky.v1.RecordingHeader
-	32, // 16: stillsky.v1.RecordTelemetryResponse.frames:type_name -> stillsky.v1.RecordedFrames
-	35, // 17: stillsky.v1.RecordingHeader.camera:type_name -> stillsky.v1.CameraServiceDescribeResponse
-	36, // 18: stillsky.v1.RecordingHeader.mirror:type_name -> stillsky.v1.MirrorServiceDescribeResponse
-	6,  // 19: stillsky.v1.RecordingHeader.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
-	0,  // 20: stillsky.v1.RecordedFrames.states:type_name -> stillsky.v1.LoopState
-	1,  // 21: stillsky.v1.CapturePixelCalibrationRequest.kind:type_name -> stillsky.v1.PixelCalibrationKind
-	1,  // 22: stillsky.v1.CapturePixelCalibrationResponse.kind:type_name -> stillsky.v1.PixelCalibrationKind
-	2,  // 23: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
-	7,  // 24: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
-	9,  // 25: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
-	11, // 26: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
-	13, // 27: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
-	15, // 28: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
-	17, // 29: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
-	19, // 30: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
-	21, // 31: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
-	23, // 32: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
-	25, // 33: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
-	27, // 34: stillsky.v1.ControlService.OptimiseModalGains:input_type -> stillsky.v1.OptimiseModalGainsRequest
-	29, // 35: stillsky.v1.ControlService.RecordTelemetry:input_type -> stillsky.v1.RecordTelemetryRequest
-	33, // 36: stillsky.v1.ControlService.CapturePixelCalibration:input_type -> stillsky.v1.CapturePixelCalibrationRequest
-	3,  // 37: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
-	8,  // 38: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
-	10, // 39: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
-	12, // 40: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
-	14, // 41: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
-	16, // 42: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
-	18, // 43: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
-	20, // 44: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
-	22, // 45: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
-	24, // 46: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
-	26, // 47: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
-	28, // 48: stillsky.v1.ControlService.OptimiseModalGains:output_type -> stillsky.v1.OptimiseModalGainsResponse
-	30, // 49: stillsky.v1.ControlService.RecordTelemetry:output_type -> stillsky.v1.RecordTelemetryResponse
-	34, // 50: stillsky.v1.ControlService.CapturePixelCalibration:output_type -> stillsky.v1.CapturePixelCalibrationResponse
-	37, // [37:51] is the sub-list for method output_type
-	23, // [23:37] is the sub-list for method input_type
-	23, // [23:23] is the sub-list for extension type_name
-	23, // [23:23] is the sub-list for extension extendee
-	0,  // [0:23] is the sub-list for field type_name
+	3,  // 6: stillsky.v1.ResumeAutonomousResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 7: stillsky.v1.CloseLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 8: stillsky.v1.HoldLoopResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 9: stillsky.v1.SetGainResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 10: stillsky.v1.SetLeakResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	3,  // 11: stillsky.v1.SetModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	6,  // 12: stillsky.v1.CalibrateResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	6,  // 13: stillsky.v1.LoadReconstructorResponse.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	0,  // 14: stillsky.v1.StreamTelemetryResponse.state:type_name -> stillsky.v1.LoopState
+	3,  // 15: stillsky.v1.OptimiseModalGainsResponse.status:type_name -> stillsky.v1.GetStatusResponse
+	33, // 16: stillsky.v1.RecordTelemetryResponse.header:type_name -> stillsky.v1.RecordingHeader
+	34, // 17: stillsky.v1.RecordTelemetryResponse.frames:type_name -> stillsky.v1.RecordedFrames
+	37, // 18: stillsky.v1.RecordingHeader.camera:type_name -> stillsky.v1.CameraServiceDescribeResponse
+	38, // 19: stillsky.v1.RecordingHeader.mirror:type_name -> stillsky.v1.MirrorServiceDescribeResponse
+	6,  // 20: stillsky.v1.RecordingHeader.reconstructor:type_name -> stillsky.v1.ReconstructorInfo
+	0,  // 21: stillsky.v1.RecordedFrames.states:type_name -> stillsky.v1.LoopState
+	1,  // 22: stillsky.v1.CapturePixelCalibrationRequest.kind:type_name -> stillsky.v1.PixelCalibrationKind
+	1,  // 23: stillsky.v1.CapturePixelCalibrationResponse.kind:type_name -> stillsky.v1.PixelCalibrationKind
+	2,  // 24: stillsky.v1.ControlService.GetStatus:input_type -> stillsky.v1.GetStatusRequest
+	7,  // 25: stillsky.v1.ControlService.OpenLoop:input_type -> stillsky.v1.OpenLoopRequest
+	11, // 26: stillsky.v1.ControlService.CloseLoop:input_type -> stillsky.v1.CloseLoopRequest
+	13, // 27: stillsky.v1.ControlService.HoldLoop:input_type -> stillsky.v1.HoldLoopRequest
+	9,  // 28: stillsky.v1.ControlService.ResumeAutonomous:input_type -> stillsky.v1.ResumeAutonomousRequest
+	15, // 29: stillsky.v1.ControlService.SetGain:input_type -> stillsky.v1.SetGainRequest
+	17, // 30: stillsky.v1.ControlService.SetLeak:input_type -> stillsky.v1.SetLeakRequest
+	19, // 31: stillsky.v1.ControlService.SetModalGains:input_type -> stillsky.v1.SetModalGainsRequest
+	21, // 32: stillsky.v1.ControlService.Calibrate:input_type -> stillsky.v1.CalibrateRequest
+	23, // 33: stillsky.v1.ControlService.SaveReconstructor:input_type -> stillsky.v1.SaveReconstructorRequest
+	25, // 34: stillsky.v1.ControlService.LoadReconstructor:input_type -> stillsky.v1.LoadReconstructorRequest
+	27, // 35: stillsky.v1.ControlService.StreamTelemetry:input_type -> stillsky.v1.StreamTelemetryRequest
+	29, // 36: stillsky.v1.ControlService.OptimiseModalGains:input_type -> stillsky.v1.OptimiseModalGainsRequest
+	31, // 37: stillsky.v1.ControlService.RecordTelemetry:input_type -> stillsky.v1.RecordTelemetryRequest
+	35, // 38: stillsky.v1.ControlService.CapturePixelCalibration:input_type -> stillsky.v1.CapturePixelCalibrationRequest
+	3,  // 39: stillsky.v1.ControlService.GetStatus:output_type -> stillsky.v1.GetStatusResponse
+	8,  // 40: stillsky.v1.ControlService.OpenLoop:output_type -> stillsky.v1.OpenLoopResponse
+	12, // 41: stillsky.v1.ControlService.CloseLoop:output_type -> stillsky.v1.CloseLoopResponse
+	14, // 42: stillsky.v1.ControlService.HoldLoop:output_type -> stillsky.v1.HoldLoopResponse
+	10, // 43: stillsky.v1.ControlService.ResumeAutonomous:output_type -> stillsky.v1.ResumeAutonomousResponse
+	16, // 44: stillsky.v1.ControlService.SetGain:output_type -> stillsky.v1.SetGainResponse
+	18, // 45: stillsky.v1.ControlService.SetLeak:output_type -> stillsky.v1.SetLeakResponse
+	20, // 46: stillsky.v1.ControlService.SetModalGains:output_type -> stillsky.v1.SetModalGainsResponse
+	22, // 47: stillsky.v1.ControlService.Calibrate:output_type -> stillsky.v1.CalibrateResponse
+	24, // 48: stillsky.v1.ControlService.SaveReconstructor:output_type -> stillsky.v1.SaveReconstructorResponse
+	26, // 49: stillsky.v1.ControlService.LoadReconstructor:output_type -> stillsky.v1.LoadReconstructorResponse
+	28, // 50: stillsky.v1.ControlService.StreamTelemetry:output_type -> stillsky.v1.StreamTelemetryResponse
+	30, // 51: stillsky.v1.ControlService.OptimiseModalGains:output_type -> stillsky.v1.OptimiseModalGainsResponse
+	32, // 52: stillsky.v1.ControlService.RecordTelemetry:output_type -> stillsky.v1.RecordTelemetryResponse
+	36, // 53: stillsky.v1.ControlService.CapturePixelCalibration:output_type -> stillsky.v1.CapturePixelCalibrationResponse
+	39, // [39:54] is the sub-list for method output_type
+	24, // [24:39] is the sub-list for method input_type
+	24, // [24:24] is the sub-list for extension type_name
+	24, // [24:24] is the sub-list for extension extendee
+	0,  // [0:24] is the sub-list for field type_name
 }
 
 func init() { file_stillsky_v1_control_proto_init() }
@@ -2753,7 +2857,7 @@ func file_stillsky_v1_control_proto_init() {
 	}
 	file_stillsky_v1_camera_proto_init()
 	file_stillsky_v1_mirror_proto_init()
-	file_stillsky_v1_control_proto_msgTypes[28].OneofWrappers = []any{
+	file_stillsky_v1_control_proto_msgTypes[30].OneofWrappers = []any{
 		(*RecordTelemetryResponse_Header)(nil),
 		(*RecordTelemetryResponse_Frames)(nil),
 		(*RecordTelemetryResponse_ReconstructorChunk)(nil),
@@ -2764,7 +2868,7 @@ func file_stillsky_v1_control_proto_init() {
 			GoPackagePath: reflect.TypeOf(x{}).PkgPath(),
 			RawDescriptor: unsafe.Slice(unsafe.StringData(file_stillsky_v1_control_proto_rawDesc), len(file_stillsky_v1_control_proto_rawDesc)),
 			NumEnums:      2,
-			NumMessages:   33,
+			NumMessages:   35,
 			NumExtensions: 0,
 			NumServices:   1,
 		},

@@ -23,6 +23,7 @@ const (
 	ControlService_OpenLoop_FullMethodName                = "/stillsky.v1.ControlService/OpenLoop"
 	ControlService_CloseLoop_FullMethodName               = "/stillsky.v1.ControlService/CloseLoop"
 	ControlService_HoldLoop_FullMethodName                = "/stillsky.v1.ControlService/HoldLoop"
+	ControlService_ResumeAutonomous_FullMethodName        = "/stillsky.v1.ControlService/ResumeAutonomous"
 	ControlService_SetGain_FullMethodName                 = "/stillsky.v1.ControlService/SetGain"
 	ControlService_SetLeak_FullMethodName                 = "/stillsky.v1.ControlService/SetLeak"
 	ControlService_SetModalGains_FullMethodName           = "/stillsky.v1.ControlService/SetModalGains"
@@ -58,6 +59,12 @@ type ControlServiceClient interface {
 	// HoldLoop freezes the mirror at its last command; CloseLoop resumes from there.
 	// Errors: FAILED_PRECONDITION unless the loop is closed.
 	HoldLoop(ctx context.Context, in *HoldLoopRequest, opts ...grpc.CallOption) (*HoldLoopResponse, error)
+	// ResumeAutonomous hands the loop back to the unattended-operation supervisor
+	// (stillsky loop --autonomous) after an operator's open, close or hold put it in
+	// manual: it measures the reference flux again and closes when the flux allows.
+	// Errors: FAILED_PRECONDITION when the daemon runs without the supervisor or the
+	// supervisor is not in manual.
+	ResumeAutonomous(ctx context.Context, in *ResumeAutonomousRequest, opts ...grpc.CallOption) (*ResumeAutonomousResponse, error)
 	// SetGain sets the integrator gain, applied from the next frame.
 	// Errors: INVALID_ARGUMENT for a gain outside [0, 2) or not finite.
 	SetGain(ctx context.Context, in *SetGainRequest, opts ...grpc.CallOption) (*SetGainResponse, error)
@@ -162,6 +169,16 @@ func (c *controlServiceClient) HoldLoop(ctx context.Context, in *HoldLoopRequest
 	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
 	out := new(HoldLoopResponse)
 	err := c.cc.Invoke(ctx, ControlService_HoldLoop_FullMethodName, in, out, cOpts...)
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+func (c *controlServiceClient) ResumeAutonomous(ctx context.Context, in *ResumeAutonomousRequest, opts ...grpc.CallOption) (*ResumeAutonomousResponse, error) {
+	cOpts := append([]grpc.CallOption{grpc.StaticMethod()}, opts...)
+	out := new(ResumeAutonomousResponse)
+	err := c.cc.Invoke(ctx, ControlService_ResumeAutonomous_FullMethodName, in, out, cOpts...)
 	if err != nil {
 		return nil, err
 	}
@@ -330,6 +347,12 @@ type ControlServiceServer interface {
 	// HoldLoop freezes the mirror at its last command; CloseLoop resumes from there.
 	// Errors: FAILED_PRECONDITION unless the loop is closed.
 	HoldLoop(context.Context, *HoldLoopRequest) (*HoldLoopResponse, error)
+	// ResumeAutonomous hands the loop back to the unattended-operation supervisor
+	// (stillsky loop --autonomous) after an operator's open, close or hold put it in
+	// manual: it measures the reference flux again and closes when the flux allows.
+	// Errors: FAILED_PRECONDITION when the daemon runs without the supervisor or the
+	// supervisor is not in manual.
+	ResumeAutonomous(context.Context, *ResumeAutonomousRequest) (*ResumeAutonomousResponse, error)
 	// SetGain sets the integrator gain, applied from the next frame.
 	// Errors: INVALID_ARGUMENT for a gain outside [0, 2) or not finite.
 	SetGain(context.Context, *SetGainRequest) (*SetGainResponse, error)
@@ -411,6 +434,9 @@ func (UnimplementedControlServiceServer) CloseLoop(context.Context, *CloseLoopRe
 }
 func (UnimplementedControlServiceServer) HoldLoop(context.Context, *HoldLoopRequest) (*HoldLoopResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method HoldLoop not implemented")
+}
+func (UnimplementedControlServiceServer) ResumeAutonomous(context.Context, *ResumeAutonomousRequest) (*ResumeAutonomousResponse, error) {
+	return nil, status.Error(codes.Unimplemented, "method ResumeAutonomous not implemented")
 }
 func (UnimplementedControlServiceServer) SetGain(context.Context, *SetGainRequest) (*SetGainResponse, error) {
 	return nil, status.Error(codes.Unimplemented, "method SetGain not implemented")
@@ -531,6 +557,24 @@ func _ControlService_HoldLoop_Handler(srv interface{}, ctx context.Context, dec 
 	}
 	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
 		return srv.(ControlServiceServer).HoldLoop(ctx, req.(*HoldLoopRequest))
+	}
+	return interceptor(ctx, in, info, handler)
+}
+
+func _ControlService_ResumeAutonomous_Handler(srv interface{}, ctx context.Context, dec func(interface{}) error, interceptor grpc.UnaryServerInterceptor) (interface{}, error) {
+	in := new(ResumeAutonomousRequest)
+	if err := dec(in); err != nil {
+		return nil, err
+	}
+	if interceptor == nil {
+		return srv.(ControlServiceServer).ResumeAutonomous(ctx, in)
+	}
+	info := &grpc.UnaryServerInfo{
+		Server:     srv,
+		FullMethod: ControlService_ResumeAutonomous_FullMethodName,
+	}
+	handler := func(ctx context.Context, req interface{}) (interface{}, error) {
+		return srv.(ControlServiceServer).ResumeAutonomous(ctx, req.(*ResumeAutonomousRequest))
 	}
 	return interceptor(ctx, in, info, handler)
 }
@@ -698,6 +742,10 @@ var ControlService_ServiceDesc = grpc.ServiceDesc{
 		{
 			MethodName: "HoldLoop",
 			Handler:    _ControlService_HoldLoop_Handler,
+		},
+		{
+			MethodName: "ResumeAutonomous",
+			Handler:    _ControlService_ResumeAutonomous_Handler,
 		},
 		{
 			MethodName: "SetGain",

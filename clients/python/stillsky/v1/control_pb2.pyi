@@ -87,7 +87,7 @@ class GetStatusRequest(_message.Message):
     def __init__(self) -> None: ...
 
 class GetStatusResponse(_message.Message):
-    __slots__ = ["actuator_count", "camera_connected", "end_to_end_latency", "frame_rate_hz", "frames", "frames_dropped", "frames_rejected", "gain", "interlock_trips", "last_frame", "last_interlock", "leak", "mirror_connected", "reconstructor", "residual_slope_rms_rad", "residual_wavefront_rms_m", "rtc_latency", "saturated_actuators", "science_wavelength_m", "slope_count", "state", "strehl_estimate", "tip_tilt"]
+    __slots__ = ["actuator_count", "camera_connected", "end_to_end_latency", "frame_rate_hz", "frames", "frames_dropped", "frames_rejected", "gain", "interlock_trips", "last_frame", "last_interlock", "leak", "mirror_connected", "reconstructor", "residual_slope_rms_rad", "residual_wavefront_rms_m", "rtc_latency", "saturated_actuators", "science_wavelength_m", "slope_count", "state", "strehl_estimate", "supervisor_state", "tip_tilt"]
     ACTUATOR_COUNT_FIELD_NUMBER: _ClassVar[int]
     CAMERA_CONNECTED_FIELD_NUMBER: _ClassVar[int]
     END_TO_END_LATENCY_FIELD_NUMBER: _ClassVar[int]
@@ -110,6 +110,7 @@ class GetStatusResponse(_message.Message):
     SLOPE_COUNT_FIELD_NUMBER: _ClassVar[int]
     STATE_FIELD_NUMBER: _ClassVar[int]
     STREHL_ESTIMATE_FIELD_NUMBER: _ClassVar[int]
+    SUPERVISOR_STATE_FIELD_NUMBER: _ClassVar[int]
     TIP_TILT_FIELD_NUMBER: _ClassVar[int]
     actuator_count: int
     camera_connected: bool
@@ -133,8 +134,9 @@ class GetStatusResponse(_message.Message):
     slope_count: int
     state: LoopState
     strehl_estimate: float
+    supervisor_state: str
     tip_tilt: TipTiltStatus
-    def __init__(self, state: _Optional[_Union[LoopState, str]] = ..., gain: _Optional[float] = ..., leak: _Optional[float] = ..., frames: _Optional[int] = ..., frames_dropped: _Optional[int] = ..., frames_rejected: _Optional[int] = ..., last_frame: _Optional[int] = ..., slope_count: _Optional[int] = ..., actuator_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., reconstructor: _Optional[_Union[ReconstructorInfo, _Mapping]] = ..., residual_slope_rms_rad: _Optional[float] = ..., residual_wavefront_rms_m: _Optional[float] = ..., strehl_estimate: _Optional[float] = ..., science_wavelength_m: _Optional[float] = ..., saturated_actuators: _Optional[int] = ..., rtc_latency: _Optional[_Union[LatencySummary, _Mapping]] = ..., end_to_end_latency: _Optional[_Union[LatencySummary, _Mapping]] = ..., interlock_trips: _Optional[int] = ..., last_interlock: _Optional[str] = ..., camera_connected: bool = ..., mirror_connected: bool = ..., tip_tilt: _Optional[_Union[TipTiltStatus, _Mapping]] = ...) -> None: ...
+    def __init__(self, state: _Optional[_Union[LoopState, str]] = ..., gain: _Optional[float] = ..., leak: _Optional[float] = ..., frames: _Optional[int] = ..., frames_dropped: _Optional[int] = ..., frames_rejected: _Optional[int] = ..., last_frame: _Optional[int] = ..., slope_count: _Optional[int] = ..., actuator_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., reconstructor: _Optional[_Union[ReconstructorInfo, _Mapping]] = ..., residual_slope_rms_rad: _Optional[float] = ..., residual_wavefront_rms_m: _Optional[float] = ..., strehl_estimate: _Optional[float] = ..., science_wavelength_m: _Optional[float] = ..., saturated_actuators: _Optional[int] = ..., rtc_latency: _Optional[_Union[LatencySummary, _Mapping]] = ..., end_to_end_latency: _Optional[_Union[LatencySummary, _Mapping]] = ..., interlock_trips: _Optional[int] = ..., last_interlock: _Optional[str] = ..., camera_connected: bool = ..., mirror_connected: bool = ..., tip_tilt: _Optional[_Union[TipTiltStatus, _Mapping]] = ..., supervisor_state: _Optional[str] = ...) -> None: ...
 
 class HoldLoopRequest(_message.Message):
     __slots__ = []
@@ -289,6 +291,16 @@ class RecordingHeader(_message.Message):
     started_unix_ns: int
     window_frames: int
     def __init__(self, camera: _Optional[_Union[_camera_pb2.CameraServiceDescribeResponse, _Mapping]] = ..., mirror: _Optional[_Union[_mirror_pb2.MirrorServiceDescribeResponse, _Mapping]] = ..., gain: _Optional[float] = ..., leak: _Optional[float] = ..., modal_gains: _Optional[_Iterable[float]] = ..., science_wavelength_m: _Optional[float] = ..., reconstructor: _Optional[_Union[ReconstructorInfo, _Mapping]] = ..., reconstructor_file_bytes: _Optional[int] = ..., window_frames: _Optional[int] = ..., started_unix_ns: _Optional[int] = ...) -> None: ...
+
+class ResumeAutonomousRequest(_message.Message):
+    __slots__ = []
+    def __init__(self) -> None: ...
+
+class ResumeAutonomousResponse(_message.Message):
+    __slots__ = ["status"]
+    STATUS_FIELD_NUMBER: _ClassVar[int]
+    status: GetStatusResponse
+    def __init__(self, status: _Optional[_Union[GetStatusResponse, _Mapping]] = ...) -> None: ...
 
 class SaveReconstructorRequest(_message.Message):
     __slots__ = []

@@ -41,6 +41,11 @@ class ControlServiceStub(object):
                 request_serializer=stillsky_dot_v1_dot_control__pb2.HoldLoopRequest.SerializeToString,
                 response_deserializer=stillsky_dot_v1_dot_control__pb2.HoldLoopResponse.FromString,
                 )
+        self.ResumeAutonomous = channel.unary_unary(
+                '/stillsky.v1.ControlService/ResumeAutonomous',
+                request_serializer=stillsky_dot_v1_dot_control__pb2.ResumeAutonomousRequest.SerializeToString,
+                response_deserializer=stillsky_dot_v1_dot_control__pb2.ResumeAutonomousResponse.FromString,
+                )
         self.SetGain = channel.unary_unary(
                 '/stillsky.v1.ControlService/SetGain',
                 request_serializer=stillsky_dot_v1_dot_control__pb2.SetGainRequest.SerializeToString,
@@ -129,6 +134,17 @@ class ControlServiceServicer(object):
     def HoldLoop(self, request, context):
         """HoldLoop freezes the mirror at its last command; CloseLoop resumes from there.
         Errors: FAILED_PRECONDITION unless the loop is closed.
+        """
+        context.set_code(grpc.StatusCode.UNIMPLEMENTED)
+        context.set_details('Method not implemented!')
+        raise NotImplementedError('Method not implemented!')
+
+    def ResumeAutonomous(self, request, context):
+        """ResumeAutonomous hands the loop back to the unattended-operation supervisor
+        (stillsky loop --autonomous) after an operator's open, close or hold put it in
+        manual: it measures the reference flux again and closes when the flux allows.
+        Errors: FAILED_PRECONDITION when the daemon runs without the supervisor or the
+        supervisor is not in manual.
         """
         context.set_code(grpc.StatusCode.UNIMPLEMENTED)
         context.set_details('Method not implemented!')
@@ -267,6 +283,11 @@ def add_ControlServiceServicer_to_server(servicer, server):
                     request_deserializer=stillsky_dot_v1_dot_control__pb2.HoldLoopRequest.FromString,
                     response_serializer=stillsky_dot_v1_dot_control__pb2.HoldLoopResponse.SerializeToString,
             ),
+            'ResumeAutonomous': grpc.unary_unary_rpc_method_handler(
+                    servicer.ResumeAutonomous,
+                    request_deserializer=stillsky_dot_v1_dot_control__pb2.ResumeAutonomousRequest.FromString,
+                    response_serializer=stillsky_dot_v1_dot_control__pb2.ResumeAutonomousResponse.SerializeToString,
+            ),
             'SetGain': grpc.unary_unary_rpc_method_handler(
                     servicer.SetGain,
                     request_deserializer=stillsky_dot_v1_dot_control__pb2.SetGainRequest.FromString,
@@ -399,6 +420,23 @@ class ControlService(object):
         return grpc.experimental.unary_unary(request, target, '/stillsky.v1.ControlService/HoldLoop',
             stillsky_dot_v1_dot_control__pb2.HoldLoopRequest.SerializeToString,
             stillsky_dot_v1_dot_control__pb2.HoldLoopResponse.FromString,
+            options, channel_credentials,
+            insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
+
+    @staticmethod
+    def ResumeAutonomous(request,
+            target,
+            options=(),
+            channel_credentials=None,
+            call_credentials=None,
+            insecure=False,
+            compression=None,
+            wait_for_ready=None,
+            timeout=None,
+            metadata=None):
+        return grpc.experimental.unary_unary(request, target, '/stillsky.v1.ControlService/ResumeAutonomous',
+            stillsky_dot_v1_dot_control__pb2.ResumeAutonomousRequest.SerializeToString,
+            stillsky_dot_v1_dot_control__pb2.ResumeAutonomousResponse.FromString,
             options, channel_credentials,
             insecure, call_credentials, compression, wait_for_ready, timeout, metadata)
 

@@ -26,7 +26,7 @@ import (
 )
 
 // Usage lists the verbs.
-const Usage = "status | open | close | hold | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard | --single-pokes] [--basis svd|kl|mirror] | save FILE | load FILE | capture-dark|capture-flat|capture-reference [--frames N] | " + RecordUsage
+const Usage = "status | open | close | hold | resume | gain G | leak L | modal-gains G1,G2,… | optimise-gains [--frames N] [--dry-run] | calibrate [--hadamard | --single-pokes] [--basis svd|kl|mirror] | save FILE | load FILE | capture-dark|capture-flat|capture-reference [--frames N] | " + RecordUsage
 
 // Run performs one verb against the Control API on conn and writes the result to out.
 func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out io.Writer) error {
@@ -64,6 +64,12 @@ func Run(ctx context.Context, conn grpc.ClientConnInterface, args []string, out 
 		if err = want(0); err == nil {
 			var r *stillskyv1.HoldLoopResponse
 			r, err = c.HoldLoop(ctx, &stillskyv1.HoldLoopRequest{})
+			st = r.GetStatus()
+		}
+	case "resume":
+		if err = want(0); err == nil {
+			var r *stillskyv1.ResumeAutonomousResponse
+			r, err = c.ResumeAutonomous(ctx, &stillskyv1.ResumeAutonomousRequest{})
 			st = r.GetStatus()
 		}
 	case "gain", "leak":
@@ -375,6 +381,9 @@ func Upload(ctx context.Context, c stillskyv1.ControlServiceClient, r io.Reader)
 func WriteStatus(out io.Writer, s *stillskyv1.GetStatusResponse) {
 	state := strings.ToLower(strings.TrimPrefix(s.GetState().String(), "LOOP_STATE_"))
 	fmt.Fprintf(out, "state           %s\n", state)
+	if s := s.GetSupervisorState(); s != "" {
+		fmt.Fprintf(out, "supervisor      %s (unattended operation; after an operator's open, close or hold: ctl resume)\n", s)
+	}
 	fmt.Fprintf(out, "gain / leak     %.3g / %.3g\n", s.GetGain(), s.GetLeak())
 	fmt.Fprintf(out, "devices         camera %s, mirror %s\n", upDown(s.GetCameraConnected()), upDown(s.GetMirrorConnected()))
 	fmt.Fprintf(out, "geometry        %d slopes, %d actuators, %.0f Hz\n", s.GetSlopeCount(), s.GetActuatorCount(), s.GetFrameRateHz())

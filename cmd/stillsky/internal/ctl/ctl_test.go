@@ -161,8 +161,12 @@ func TestControlRequests(t *testing.T) {
 	if out, err := run("open"); err != nil || !strings.Contains(out, "state           open") {
 		t.Fatalf("ctl open: %v\n%s", err, out)
 	}
-	if out, err := run("status"); err != nil || !strings.Contains(out, "frames") {
+	if out, err := run("status"); err != nil || !strings.Contains(out, "frames") || strings.Contains(out, "supervisor") {
 		t.Fatalf("ctl status: %v\n%s", err, out)
+	}
+	// This loop runs without --autonomous: resume is refused on one line.
+	if _, err := run("resume"); err == nil || !strings.Contains(err.Error(), "--autonomous") {
+		t.Errorf("ctl resume without the supervisor: %v", err)
 	}
 }
 
