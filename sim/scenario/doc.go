@@ -38,7 +38,11 @@
 // each {start_s, duration_s, depth, ramp_s} in seconds of the bench's frame time
 // (ramp_s optional, default 0): the transmission falls linearly to 1 − depth over
 // ramp_s and rises back at the end; passages come in time order without overlap,
-// and an eye scenario has none (Cloud, Clouds.Transmission).
+// and an eye scenario has none (Cloud, Clouds.Transmission). An optional
+// "supervisor" section sets the unattended-operation supervisor's thresholds for
+// `stillsky demo --autonomous` (min_flux_e, loss_fraction, return_fraction,
+// loss_dwell_s, return_dwell_s, hold_timeout_s, long_pause_s, measure_window_s,
+// retry_delay_s; each optional, with the supervisor's defaults; see Supervisor).
 //
 // An optional "wfs.pixels" subsection puts the camera in pixel mode: it streams
 // raw 16-bit detector frames (sim/detector) and the loop daemon centroids them.

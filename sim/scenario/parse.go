@@ -378,6 +378,9 @@ func validate(r *rawScenario) (*Scenario, error) {
 		s.TipTilt = c.tipTilt(r.TipTilt, r, s)
 	}
 	s.Clouds = c.clouds(r.Clouds, r)
+	if r.Supervisor != nil {
+		s.Supervisor = c.supervisor(r.Supervisor)
+	}
 	if len(c.errs) > 0 {
 		return nil, errors.Join(c.errs...)
 	}

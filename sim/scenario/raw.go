@@ -12,6 +12,7 @@ type rawScenario struct {
 	LGS         *rawLGS        `yaml:"laser_guide_star,omitempty"`
 	TipTilt     *rawTipTilt    `yaml:"tip_tilt,omitempty"`
 	Clouds      []*rawCloud    `yaml:"clouds,omitempty"`
+	Supervisor  *rawSupervisor `yaml:"supervisor,omitempty"`
 	WFS         *rawWFS        `yaml:"wfs"`
 	DM          *rawDM         `yaml:"dm"`
 	Loop        *rawLoop       `yaml:"loop"`
@@ -135,6 +136,7 @@ func (s *Scenario) toRaw() *rawScenario {
 		LGS:         lgs,
 		TipTilt:     tt,
 		Clouds:      s.Clouds.toRaw(),
+		Supervisor:  s.Supervisor.toRaw(),
 		Name:        &s.Name,
 		Description: &s.Description,
 		Telescope:   &rawTelescope{&t.Name, &t.Site, &t.Diameter, &t.Obstruction, &t.Spiders, &t.SpiderWidth, &t.PupilSamples},

@@ -46,6 +46,10 @@ type Scenario struct {
 	// Clouds are the cloud passages in front of the guide star (YAML list
 	// "clouds", optional; absent, a clear night). See Cloud.
 	Clouds Clouds
+	// Supervisor, when not nil, sets the thresholds of the unattended-operation
+	// supervisor for `stillsky demo --autonomous` (YAML section "supervisor",
+	// optional; absent, its defaults). See Supervisor.
+	Supervisor *Supervisor
 }
 
 // Telescope is the entrance pupil and its sampling (YAML section "telescope").

@@ -217,7 +217,7 @@ func Run(ctx context.Context, c Config) (*Summary, error) {
 		}
 		var def bool
 		c.night, def, nightLine = prepareNight(&c, scn)
-		c.supervisor = supervisor.DefaultConfig()
+		c.supervisor = supervisorConfig(scn.Supervisor)
 		auto = &daemon.Autonomous{Supervisor: c.supervisor, Calibration: &stillskyv1.CalibrateRequest{Basis: c.Basis}}
 		night = &NightSummary{FrameTimeS: c.night.Seconds(), DefaultClouds: def, Clouds: scn.Clouds, Supervisor: c.supervisor}
 	}

@@ -25,6 +25,17 @@ var defaultClouds = scenario.Clouds{
 	{Start: 18, Duration: 6, Depth: 0.99, Ramp: 0.5},
 }
 
+// supervisorConfig is the scenario's supervisor section as the daemon takes
+// it: the supervisor's defaults without one.
+func supervisorConfig(s *scenario.Supervisor) supervisor.Config {
+	if s == nil {
+		return supervisor.DefaultConfig()
+	}
+	return supervisor.Config{MinFlux: s.MinFlux, LossFraction: s.LossFraction, ReturnFraction: s.ReturnFraction,
+		LossDwell: s.LossDwell, ReturnDwell: s.ReturnDwell, HoldTimeout: s.HoldTimeout, LongPause: s.LongPause,
+		MeasureWindow: s.MeasureWindow, RetryDelay: s.RetryDelay}
+}
+
 // nightAfter is how long an autonomous night runs on after its last cloud.
 const nightAfter = 4 * time.Second
 
