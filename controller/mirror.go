@@ -104,11 +104,13 @@ func MirrorMetric(positions [][2]float64, pitch, coupling float64) (*mat.SymBand
 	}
 	k := 0
 	for s := range xs {
-		lo, hi := na, -1
-		for _, t := range sample(s) {
-			lo, hi = min(lo, t.i), max(hi, t.i)
+		for _, a := range sample(s) {
+			for _, b := range terms {
+				if b.i > a.i+k && a.f*b.f >= mirrorMetricTiny {
+					k = b.i - a.i
+				}
+			}
 		}
-		k = max(k, hi-lo)
 	}
 	k = min(k, na-1)
 	stride := k + 1
