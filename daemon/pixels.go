@@ -3,6 +3,7 @@ package daemon
 import (
 	"fmt"
 	"slices"
+	"unsafe"
 
 	"stillsky/controller/centroid"
 	stillskyv1 "stillsky/proto/stillsky/v1"
@@ -122,11 +123,19 @@ func (a *assembler) addPixels(f *stillskyv1.StreamFramesResponse, r assembly, nu
 	if int(f.GetOffset()) != from {
 		return a.refuse(r, num, refusedChunkLayout)
 	}
-	dst := px.frame[first*g.width : (first+rows)*g.width] // the whole frame stays, for captures
-	for i := range dst {
-		dst[i] = uint16(b[2*i]) | uint16(b[2*i+1])<<8
+	// The whole frame stays in px.frame, for captures; the centroid reads the
+	// chunk's own bytes where the host's order is the wire's.
+	dst := px.frame[first*g.width : (first+rows)*g.width]
+	src := dst
+	if v, ok := wireView(b); ok {
+		copy(dst, v)
+		src = v
+	} else {
+		for i := range dst {
+			dst[i] = uint16(b[2*i]) | uint16(b[2*i+1])<<8
+		}
 	}
-	fl, err := px.cur.ProcessRows(dst, first, first+rows, a.slopes, px.work)
+	fl, err := px.cur.ProcessRows(src, first, first+rows, a.slopes, px.work)
 	if err != nil {
 		return a.refuse(r, num, refusedChunkLayout)
 	}
@@ -173,4 +182,18 @@ func (a *assembler) addPixels(f *stillskyv1.StreamFramesResponse, r assembly, nu
 // sameLayout reports whether two frame layouts are the same windows.
 func sameLayout(a, b centroid.Layout) bool {
 	return a.Subapertures == b.Subapertures && a.Pixels == b.Pixels && slices.Equal(a.Valid, b.Valid)
+}
+
+// littleEndian: the host stores a uint16's low byte first, as the wire does.
+var littleEndian = func() bool { x := uint16(1); return *(*byte)(unsafe.Pointer(&x)) == 1 }()
+
+// wireView is b's little-endian 16-bit pixels read in place, when the host
+// is little-endian and b is 2-byte aligned (a decoded frame's buffer always
+// is): decoding pixel by pixel costs 32–66 µs for the default detector's
+// 192² pixels, the copy out of the view 0.9 µs (BenchmarkPixelDecode).
+func wireView(b []byte) ([]uint16, bool) {
+	if !littleEndian || len(b) == 0 || uintptr(unsafe.Pointer(&b[0]))%2 != 0 {
+		return nil, false
+	}
+	return unsafe.Slice((*uint16)(unsafe.Pointer(&b[0])), len(b)/2), true
 }

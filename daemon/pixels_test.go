@@ -6,6 +6,7 @@ import (
 	"slices"
 	"testing"
 	"time"
+	"unsafe"
 
 	"gonum.org/v1/gonum/mat"
 
@@ -306,4 +307,53 @@ func TestPixelDefectHoldsCommand(t *testing.T) {
 	if !slices.Equal(rt.sent, held) {
 		t.Error("the command changed on a refused frame")
 	}
+}
+
+// The view of the wire's bytes reads the same pixels as decoding them one by
+// one, and at an odd address the decoder falls back to the loop.
+func TestWireView(t *testing.T) {
+	// A uint16 array is 2-byte aligned wherever it lives; a byte array on the
+	// stack need not be.
+	words := make([]uint16, 1001)
+	b := unsafe.Slice((*byte)(unsafe.Pointer(&words[0])), 2*len(words))
+	for i := range b {
+		b[i] = byte(i * 7)
+	}
+	for _, off := range []int{0, 1} {
+		v, ok := wireView(b[off : off+2000])
+		if off == 1 && ok {
+			t.Fatal("a view at an odd address")
+		}
+		if off == 1 || !littleEndian {
+			continue
+		}
+		if !ok {
+			t.Fatal("no view of an aligned buffer on a little-endian host")
+		}
+		for i, x := range v {
+			if want := binary.LittleEndian.Uint16(b[2*i:]); x != want {
+				t.Fatalf("pixel %d: %d, want %d", i, x, want)
+			}
+		}
+	}
+}
+
+// BenchmarkPixelDecode: one default-scenario detector frame (192² pixels)
+// decoded pixel by pixel, against copied out of the in-place view.
+func BenchmarkPixelDecode(b *testing.B) {
+	src := make([]byte, 2*192*192)
+	dst := make([]uint16, 192*192)
+	b.Run("loop", func(b *testing.B) {
+		for b.Loop() {
+			for i := range dst {
+				dst[i] = uint16(src[2*i]) | uint16(src[2*i+1])<<8
+			}
+		}
+	})
+	b.Run("view", func(b *testing.B) {
+		for b.Loop() {
+			v, _ := wireView(src)
+			copy(dst, v)
+		}
+	})
 }
