@@ -11,7 +11,7 @@ import (
 
 func TestBuiltinsLoad(t *testing.T) {
 	names := Builtin()
-	for _, want := range []string{"default", "small", "large", "xao", "lgs"} {
+	for _, want := range []string{"default", "small", "large", "xao", "lgs", "pixels"} {
 		if !strings.Contains(strings.Join(names, " "), want) {
 			t.Errorf("Builtin() = %v: missing %q", names, want)
 		}
