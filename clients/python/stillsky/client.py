@@ -285,6 +285,27 @@ class Client:
         chunks = (pb.LoadReconstructorRequest(chunk=data[i : i + _CHUNK]) for i in range(0, len(data), _CHUNK))
         return self._unary(self._stub.LoadReconstructor, chunks).reconstructor
 
+    def capture_pixel_calibration(self, kind: str, frames: int = 0,
+                                  timeout: Optional[float] = None) -> pb.CapturePixelCalibrationResponse:
+        """Captures a pixel camera's "dark" (its shutter closed), "flat" (its flat
+        lamp, less the dark) or "reference" (slopes on its calibration source),
+        averaging frames (0: the daemon's 50; at most 10000), with the loop open.
+        The daemon swaps it into the centroid between two frames and commits it
+        to its state directory (response.file). The response has the mean and
+        rms of what was measured.
+
+        Raises ValueError for another kind; Error(FAILED_PRECONDITION) for a
+        slope camera or a loop that is not open."""
+        kinds = {"dark": pb.PIXEL_CALIBRATION_KIND_DARK, "flat": pb.PIXEL_CALIBRATION_KIND_FLAT,
+                 "reference": pb.PIXEL_CALIBRATION_KIND_REFERENCE}
+        if kind not in kinds:
+            raise ValueError(f"kind {kind!r}: want one of {sorted(kinds)}")
+        try:
+            return self._stub.CapturePixelCalibration(
+                pb.CapturePixelCalibrationRequest(kind=kinds[kind], frames=frames), timeout=timeout)
+        except grpc.RpcError as err:
+            _raise(err)
+
     def optimise_modal_gains(self, frames: int = 0, dry_run: bool = False,
                              timeout: Optional[float] = None) -> pb.OptimiseModalGainsResponse:
         """Records frames (0: the daemon's 4096), chooses each mode's gain from its

@@ -139,6 +139,10 @@ class WithoutReconstructor(unittest.TestCase):
         self.assertCode(grpc.StatusCode.FAILED_PRECONDITION, self.client.resume_autonomous)
         self.assertCode(grpc.StatusCode.FAILED_PRECONDITION, self.client.save_reconstructor)
         self.assertCode(grpc.StatusCode.FAILED_PRECONDITION, self.client.set_modal_gains, [1.0])
+        # The small scenario's camera streams slopes: no pixel calibration.
+        self.assertCode(grpc.StatusCode.FAILED_PRECONDITION, self.client.capture_pixel_calibration, "dark")
+        with self.assertRaises(ValueError):
+            self.client.capture_pixel_calibration("bias")
         self.assertCode(grpc.StatusCode.INVALID_ARGUMENT, self.client.set_gain, 2.5)
         self.assertCode(grpc.StatusCode.INVALID_ARGUMENT, self.client.set_gain, float("nan"))
         self.assertCode(grpc.StatusCode.INVALID_ARGUMENT, self.client.set_leak, 1.0)
