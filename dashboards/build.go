@@ -229,6 +229,8 @@ func overview() *dashboard.DashboardBuilder {
 		WithPanel(series(id, "Unattended supervisor transitions", "Transitions of the supervisor in each interval, by state left and state entered: a flux loss is closed→holding, a cloud that lasts holding→clouded.", units.Short, 12, 8).
 			DrawStyle(common.GraphDrawStyleBars).
 			WithTarget(target("sum by (instance, from, to) (increase("+q("stillsky_supervisor_transitions_total")+"[$__rate_interval]))", "{{from}}→{{to}} {{instance}}"))).
+		WithPanel(series(id, "Guide-star flux per frame", "Photo-electrons per frame summed over the valid subapertures, as the camera reports them with every frame (flux_electrons): what the unattended supervisor closes, holds and opens on; a cloud is a dip, a lost star a fall to the background (0 from a camera that does not report it).", units.Short, 24, 8).
+			WithTarget(target(q("stillsky_guide_star_flux_electrons"), "{{instance}}"))).
 		WithPanel(single(id, "Running versions", "Version of each scraped stillsky process.", units.NoUnit, 24, 4).
 			TextMode(common.BigValueTextModeName).
 			WithTarget(target(q("stillsky_build_info"), "{{job}} {{instance}} {{version}}").Instant()))
