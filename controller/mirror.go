@@ -133,11 +133,63 @@ func MirrorMetric(positions [][2]float64, pitch, coupling float64) (*mat.SymBand
 	return mat.NewSymBandDense(na, k, data), nil
 }
 
-// bandSolveWork is the work of the 3·n band triangular solves of
-// buildMirror (2·n·k operations each), weighted four times like the
-// matrix–vector half of the tridiagonalisation, being level-2 too.
+// bandSolveWork is the work of buildMirror's three band triangular solves
+// with n right-hand sides (2·n·k operations each, in matrix products).
 func bandSolveWork(n, k int) float64 {
-	return 4 * 3 * 2 * float64(n) * float64(n) * float64(k)
+	return 3 * 2 * float64(n) * float64(n) * float64(k)
+}
+
+// bandBlock is the row block of bandSolve.
+const bandBlock = 64
+
+// bandSolve overwrites the n×m row-major x with U⁻ᵀ·x (t = blas.Trans) or
+// U⁻¹·x (blas.NoTrans), U the upper band triangular factor u of bandwidth
+// u.K. It substitutes block row by block row of bandBlock rows, each block
+// of U within the band copied dense, so that the work is in matrix products
+// (gonum's Dgemm, and Dtrsm on the diagonal blocks) rather than in one
+// band solve per column.
+func bandSolve(u blas64.TriangularBand, t blas.Transpose, x []float64, m int) {
+	n, k := u.N, u.K
+	bi := blas64.Implementation()
+	buf := make([]float64, bandBlock*bandBlock)
+	// block copies U[r0:r1, c0:c1] into buf, row-major.
+	block := func(r0, r1, c0, c1 int) []float64 {
+		w := c1 - c0
+		b := buf[:(r1-r0)*w]
+		for r := r0; r < r1; r++ {
+			for c := c0; c < c1; c++ {
+				v := 0.0
+				if c >= r && c-r <= k {
+					v = u.Data[r*u.Stride+c-r]
+				}
+				b[(r-r0)*w+c-c0] = v
+			}
+		}
+		return b
+	}
+	blocks := (n + bandBlock - 1) / bandBlock
+	rows := func(b int) (int, int) { return b * bandBlock, min((b+1)*bandBlock, n) }
+	if t == blas.Trans {
+		// Uᵀ is lower: X_I ← (U_IIᵀ)⁻¹·(X_I − Σ_{J<I} U_JIᵀ·X_J), U_JI ≠ 0 for rows j >= i0 − k.
+		for b := range blocks {
+			i0, i1 := rows(b)
+			for j := max(0, i0-k) / bandBlock; j < b; j++ {
+				j0, j1 := rows(j)
+				bi.Dgemm(blas.Trans, blas.NoTrans, i1-i0, m, j1-j0, -1, block(j0, j1, i0, i1), i1-i0, x[j0*m:], m, 1, x[i0*m:], m)
+			}
+			bi.Dtrsm(blas.Left, blas.Upper, blas.Trans, blas.NonUnit, i1-i0, m, 1, block(i0, i1, i0, i1), i1-i0, x[i0*m:], m)
+		}
+		return
+	}
+	// X_I ← U_II⁻¹·(X_I − Σ_{J>I} U_IJ·X_J), U_IJ ≠ 0 for columns j <= i1 − 1 + k.
+	for b := blocks - 1; b >= 0; b-- {
+		i0, i1 := rows(b)
+		for j := b + 1; j < blocks && j*bandBlock <= i1-1+k; j++ {
+			j0, j1 := rows(j)
+			bi.Dgemm(blas.NoTrans, blas.NoTrans, i1-i0, m, j1-j0, -1, block(i0, i1, j0, j1), j1-j0, x[j0*m:], m, 1, x[i0*m:], m)
+		}
+		bi.Dtrsm(blas.Left, blas.Upper, blas.NoTrans, blas.NonUnit, i1-i0, m, 1, block(i0, i1, i0, i1), i1-i0, x[i0*m:], m)
+	}
 }
 
 // buildMirror builds the reconstructor of BuildReconstructor in the mirror
@@ -153,7 +205,7 @@ func bandSolveWork(n, k int) float64 {
 // cut modes are projected out of the commands. Since the slopes of the modes
 // are orthogonal, the modal coefficients are aᵢ = (M·bᵢ)ᵀs/‖M·bᵢ‖², with no
 // second factorisation: the cost is that of the zonal normal-matrix route
-// plus 3·n band triangular solves.
+// plus three band triangular solves with n right-hand sides.
 func buildMirror(m *mat.Dense, c ReconstructorConfig, unseenCond float64) (*Reconstructor, error) {
 	ns, na := m.Dims()
 	gn, gk := c.Metric.SymBand()
@@ -181,17 +233,12 @@ func buildMirror(m *mat.Dense, c ReconstructorConfig, unseenCond float64) (*Reco
 	}
 	buf := normalMatrix(m)
 	work.add(normalWork(ns, na))
-	// C = U⁻ᵀ·N·U⁻¹: solve Uᵀx = row for every row of the symmetric N (each
-	// row is a column, giving (U⁻ᵀN)ᵀ = N·U⁻¹), transpose, and again.
-	solveRows := func(t blas.Transpose) {
-		for r := range na {
-			blas64.Tbsv(t, tri, blas64.Vector{N: na, Inc: 1, Data: buf[r*na : (r+1)*na]})
-		}
-		work.add(bandSolveWork(na, gk) / 3)
-	}
-	solveRows(blas.Trans)
+	// C = U⁻ᵀ·N·U⁻¹ = U⁻ᵀ·(U⁻ᵀ·N)ᵀ, N being symmetric.
+	bandSolve(tri, blas.Trans, buf, na)
+	work.add(bandSolveWork(na, gk) / 3)
 	transposeSquare(buf, na)
-	solveRows(blas.Trans)
+	bandSolve(tri, blas.Trans, buf, na)
+	work.add(bandSolveWork(na, gk) / 3)
 	base := work.done
 	lambda, z, err := symEigen(buf, na, func(d float64) { work.set(base + d) })
 	if err != nil {
@@ -209,14 +256,10 @@ func buildMirror(m *mat.Dense, c ReconstructorConfig, unseenCond float64) (*Reco
 	for seen < na && values[seen] > 0 && values[0]/values[seen] <= unseenCond {
 		seen++
 	}
-	// B = U⁻¹·Z, one mode per column: solve U·b = z on the rows of Zᵀ.
-	bt := mat.DenseCopyOf(z.T())
-	raw := bt.RawMatrix()
-	for r := range na {
-		blas64.Tbsv(blas.NoTrans, tri, blas64.Vector{N: na, Inc: 1, Data: raw.Data[r*raw.Stride : r*raw.Stride+na]})
-	}
+	// B = U⁻¹·Z, one mode per column.
+	bandSolve(tri, blas.NoTrans, z.RawMatrix().Data, na)
 	work.add(bandSolveWork(na, gk) / 3)
-	all := mat.DenseCopyOf(bt.T())
+	all := z
 	var mball mat.Dense
 	mball.Mul(m, all.Slice(0, na, 0, seen)) // gonum's multiply skips the zeros of the sparse M on the left
 	work.add(float64(ns) * float64(na) * float64(seen) / 4)

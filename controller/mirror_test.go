@@ -87,7 +87,7 @@ func TestMirrorMetricGaussianIntegral(t *testing.T) {
 // projected out.
 func TestMirrorModesAgainstGonum(t *testing.T) {
 	rng := rand.New(rand.NewPCG(5, 6))
-	pos := gridMirror(9, 1)
+	pos := gridMirror(14, 1) // 156 actuators: three row blocks of bandSolve
 	na := len(pos)
 	ns := 2 * na
 	g, err := MirrorMetric(pos, 1, 0.2)
