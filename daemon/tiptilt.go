@@ -196,9 +196,14 @@ func (t *ttRealtime) receive(f *stillskyv1.StreamFramesResponse, received int64)
 	mx, my := float64(s[0]), float64(s[1])
 	state := t.u.current()
 	if state != t.state {
-		if state != stateHold {
+		// As the high-order loop does: a hold keeps the command, and closing
+		// from a hold goes on from it; any other change starts from a flat
+		// mirror, with nothing left to offload (the deformable mirror starts
+		// flat too).
+		if state != stateHold && (state != stateClosed || t.state != stateHold) {
 			t.ctl.Reset()
 			t.satN = 0
+			t.tt.inbox.take()
 		}
 		t.state = state
 	}

@@ -145,6 +145,13 @@ func TestTipTiltFollowsTheLoop(t *testing.T) {
 	if s.tt.out.Values[0] != held {
 		t.Errorf("held tip-tilt command moved from %g to %g", held, s.tt.out.Values[0])
 	}
+	// Closing from the hold goes on from the held command: one more step of
+	// g·m on top of it.
+	s.d.u.request(stateClosed)
+	s.step()
+	if got, want := float64(s.tt.out.Values[0]), float64(held)+0.4*2e-7; math.Abs(got-want) > 1e-3*want {
+		t.Errorf("closed again from the hold: command %g, want %g (held + g·m)", got, want)
+	}
 	s.d.u.request(stateOpen)
 	s.step()
 	if v := s.tt.out.Values; v[0] != 0 || v[1] != 0 || s.d.u.tt.live.Load() {
