@@ -62,3 +62,31 @@ func TestLatencyCommandAndFormerName(t *testing.T) {
 		t.Errorf("help: exit %d, stderr:\n%s", code, stderr)
 	}
 }
+
+// stillsky loop --autonomous refuses a threshold out of range at start, naming
+// it and its range, before it listens or connects; its help names the flags and
+// says the supervisor is no safety system. demo --night needs --autonomous.
+func TestAutonomousFlags(t *testing.T) {
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"loop", "--autonomous", "--loss-fraction", "0.9", "--listen", "127.0.0.1:0", "--metrics", "-"}, "loss_fraction = 0.9, allowed (0, return_fraction = 0.6)"},
+		{[]string{"loop", "--autonomous", "--return-dwell", "3s", "--listen", "127.0.0.1:0", "--metrics", "-"}, "return_dwell = 3s, allowed [0, 2s)"},
+		{[]string{"loop", "--autonomous", "--long-pause", "1s", "--listen", "127.0.0.1:0", "--metrics", "-"}, "long_pause = 1s, allowed > hold_timeout = 2s"},
+		{[]string{"demo", "--night", "10s"}, "--night is for --autonomous"},
+	} {
+		t.Run(strings.Join(c.args[:3], " "), func(t *testing.T) {
+			stderr, code := runMain(t, c.args...)
+			if code != 1 || !strings.Contains(stderr, c.want) {
+				t.Errorf("exit %d, stderr:\n%s\nwant it to contain %q", code, stderr, c.want)
+			}
+		})
+	}
+	stderr, code := runMain(t, "loop", "-h")
+	for _, s := range []string{"-autonomous", "-hold-timeout", "-min-flux", "It is not\na safety system"} {
+		if code != 0 || !strings.Contains(stderr, s) {
+			t.Errorf("loop -h (exit %d) lacks %q:\n%s", code, s, stderr)
+		}
+	}
+}
