@@ -108,6 +108,11 @@ type Budget struct {
 	// Σⱼ Vⱼ [(1 − κⱼ g/(g + ℓ))² − (ℓ/(g + ℓ))²] with Vⱼ Noll's von Kármán variance
 	// of mode j (the leak's own share, (ℓ/(g + ℓ))² Vⱼ, is in Servo).
 	LowOrder float64
+	// BandEdge is the part of LowOrder above those modes: the share of the band
+	// the loop leaves in steady state because a real mirror (Optics.Coupling)
+	// forms a command wave with images 1/pitch away, which the sensor folds back
+	// onto it (bandEdgeVariance); 0 for an ideal corrector.
+	BandEdge float64
 	// Total is the sum of the terms (they are uncorrelated).
 	Total float64
 	// Strehl is the Maréchal approximation exp(−Total) (Mahajan, JOSA 73 (1983) 860).
@@ -151,6 +156,14 @@ func Compute(in BudgetInput) (Budget, error) {
 	}
 	b.Noise = noise
 	b.LowOrder = lowOrderVariance(in, b.R0)
+	if o := in.Optics; o.Coupling > 0 && math.Abs(o.Pitch/o.Subaperture-1) < 1e-6 {
+		lowOrders := 0
+		if in.LowOrder != nil {
+			lowOrders = completeOrders(len(in.LowOrder) + 1)
+		}
+		b.BandEdge = bandEdgeVariance(o, in.Turbulence, in.Loop, lowOrders)
+		b.LowOrder += b.BandEdge
+	}
 	b.Total = b.Fitting + b.Aliasing + b.Servo + b.Noise + b.LowOrder
 	b.Strehl = math.Exp(-b.Total)
 	return b, nil
@@ -207,8 +220,7 @@ func FittingVariance(o Optics, t Turbulence) float64 {
 func mirrorFitExcess(o Optics, t Turbulence) float64 {
 	phase := spectrum(o, t)
 	p := o.Pitch
-	a := math.Log(1 / o.Coupling)
-	g := func(f float64) float64 { return math.Sqrt(math.Pi/a) * math.Exp(-math.Pi*math.Pi*p*p*f*f/a) }
+	g := gaussianTransform(o.Coupling, p)
 	fc := 1 / (2 * p)
 	fmin := fminD / o.Diameter
 	var gx, gy [2*aliasOrders + 1]float64
@@ -402,4 +414,14 @@ func lowOrderVariance(in BudgetInput, r0 float64) float64 {
 		v += ZernikeVariance(n, in.Optics.Diameter, r0, in.Turbulence.L0, 0, 0) * (e*e - leak*leak)
 	}
 	return math.Max(v, 0)
+}
+
+// completeOrders returns the highest radial order n whose Noll modes all lie in
+// 2 … j.
+func completeOrders(j int) int {
+	n, _ := optics.NollIndex(j)
+	if j < (n+1)*(n+2)/2 {
+		n--
+	}
+	return n
 }
