@@ -69,6 +69,7 @@ type Calibration struct {
 	ref       []float32
 	satADU    uint16
 	hotRatio  float32
+	hotFloor  float32
 	// start: first pixel of each valid window in the frame.
 	start []int32
 	// byRow lists the valid windows grid row by grid row (slope order within a
@@ -109,6 +110,14 @@ type Options struct {
 	// peak: 0.5 for σ = 0.85, so 4 is a safe common-practice choice for
 	// spots of one pixel rms or more.
 	HotRatio float64
+	// HotFloor (calibrated ADU, >= 0) is the least value the neighbours are
+	// taken to hold in the hot-pixel test: a window is hot when its peak
+	// exceeds HotRatio × max(HotFloor, each neighbour). Without it a faint
+	// window, whose neighbours are read noise about zero, is flagged for any
+	// positive peak; a few sigmas of the pixel noise (the daemon takes 5σ of
+	// a pixel holding one photo-electron and the read noise: a 5σ detection,
+	// common practice) keep the test to pixels that stand out of the noise.
+	HotFloor float64
 	// Saturation is the raw value at or above which a pixel counts as saturated
 	// (1..65535; 0 means 65535).
 	Saturation uint16
@@ -227,6 +236,10 @@ func NewCalibration(l Layout, o Options) (*Calibration, error) {
 		return nil, fmt.Errorf("%w: hot ratio %v, want 0 (off) or > 1", ErrConfig, o.HotRatio)
 	}
 	c.hotRatio = float32(o.HotRatio)
+	if !(o.HotFloor >= 0 && o.HotFloor < 65536) {
+		return nil, fmt.Errorf("%w: hot floor %v ADU, want 0..65535", ErrConfig, o.HotFloor)
+	}
+	c.hotFloor = float32(o.HotFloor)
 	if c.satADU == 0 {
 		c.satADU = 65535
 	}

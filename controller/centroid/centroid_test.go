@@ -2,6 +2,7 @@ package centroid
 
 import (
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -522,6 +523,45 @@ func BenchmarkProcess(b *testing.B) {
 	for range b.N {
 		if _, err := c.Process(frame, s, w); err != nil {
 			b.Fatal(err)
+		}
+	}
+}
+
+// TestHotFloor: with HotFloor the hot-pixel test compares the peak against
+// the floor where the neighbours hold only noise about zero. A lone pixel of
+// 20 ADU in an otherwise dark window (a photo-electron or two of a faint star)
+// is hot for a bare ratio of 16 but not above a floor of 40 ADU (16 × 40 =
+// 640); a lone 3000 ADU pixel (a cosmic-ray hit) is hot either way. Every
+// kernel the CPU offers gives the same count.
+func TestHotFloor(t *testing.T) {
+	frame := make([]uint16, 32*32)
+	for i := range frame {
+		frame[i] = 100
+	}
+	// valid[0] = subaperture 1 (grid row 0, column 1); valid[5] = 7 (row 1, column 3).
+	frame[3*32+8+4] += 20
+	frame[(8+2)*32+24+5] += 3000
+	s, w := make([]float32, 2*len(grid)), make([]float32, 64)
+	for _, k := range Available(8) {
+		for _, tc := range []struct {
+			floor float64
+			hot   int
+		}{{0, 2}, {40, 1}, {200, 0}} {
+			t.Run(fmt.Sprintf("%s/floor%g", k, tc.floor), func(t *testing.T) {
+				c := mustCal(t, Options{Dark: biasFrame(100), HotRatio: 16, HotFloor: tc.floor, Kernel: k})
+				f, err := c.Process(frame, s, w)
+				if err != nil {
+					t.Fatal(err)
+				}
+				if f.Hot != tc.hot {
+					t.Errorf("%d hot windows, want %d (flags %+v)", f.Hot, tc.hot, f)
+				}
+			})
+		}
+	}
+	for _, bad := range []float64{-1, math.NaN(), math.Inf(1), 70000} {
+		if _, err := NewCalibration(layout(), Options{HotRatio: 16, HotFloor: bad}); !errors.Is(err, ErrConfig) {
+			t.Errorf("HotFloor %v: err %v, want ErrConfig", bad, err)
 		}
 	}
 }

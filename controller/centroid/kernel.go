@@ -20,7 +20,7 @@ import (
 //  2. peak = max(0, max v), k its first position in row-major order; a dead
 //     row is one whose raw pixels are all 0, a saturated window has a raw
 //     pixel >= the saturation level, a hot window has peak > 0 and
-//     peak > HotRatio × the largest of k's four neighbours;
+//     peak > HotRatio × the largest of k's four neighbours and HotFloor;
 //  3. thr = Threshold·peak; where thr > 0, v = max(v − thr, 0); then v
 //     times the window weight (WCoG);
 //  4. rows y and p−1−y (y < h = ⌊p/2⌋) pair up, xs[p−1−y] being −xs[y]:
@@ -225,7 +225,7 @@ func windowsGo(c *Calibration, frame []uint16, base int, idx []int32, slopes, wo
 func (c *Calibration) isHot(work []float32, k int, peak float32) bool {
 	p := c.layout.Pixels
 	x, y := k%p, k/p
-	n := float32(0)
+	n := c.hotFloor
 	if x > 0 {
 		n = max(n, work[k-1])
 	}

@@ -468,6 +468,7 @@ func TestParams8Layout(t *testing.T) {
 		{"negInf", unsafe.Offsetof(q.negInf), 608},
 		{"hot", unsafe.Offsetof(q.hot), 640},
 		{"hotOn", unsafe.Offsetof(q.hotOn), 644},
+		{"floor", unsafe.Offsetof(q.floor), 652},
 		{"wcog", unsafe.Offsetof(q.wcog), 648},
 	} {
 		if f.got != f.want {

@@ -182,12 +182,12 @@ saturation:
 	PEAKMASK(Y1)
 	PEAKMASK(Y0)
 	// n = the largest of k's four neighbours, at 12y+x of the padded rows
-	// (k + 4y = 12y + x); hot if peak > HotRatio·n.
+	// (k + 4y = 12y + x), at least HotFloor; hot if peak > HotRatio·n.
 	BSFQ R13, R13
 	MOVQ R13, DX
 	SHRQ $3, DX
 	LEAQ (R13)(DX*4), R13
-	VXORPS X14, X14, X14
+	VMOVSS 652(R8), X14
 	VMAXSS 44(SP)(R13*4), X14, X14
 	VMAXSS 52(SP)(R13*4), X14, X14
 	VMAXSS 0(SP)(R13*4), X14, X14

@@ -16,10 +16,11 @@ type params8 struct {
 	hot    float32       // 640: HotRatio
 	hotOn  int32         // 644: HotRatio > 0
 	wcog   int32         // 648: Method == WCoG
+	floor  float32       // 652: HotFloor
 }
 
 func newParams8(c *Calibration) *params8 {
-	q := &params8{hot: c.hotRatio}
+	q := &params8{hot: c.hotRatio, floor: c.hotFloor}
 	copy(q.xs[:], c.xs)
 	copy(q.weight[:], c.weight)
 	for y := range 8 {
