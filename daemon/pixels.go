@@ -2,6 +2,7 @@ package daemon
 
 import (
 	"fmt"
+	"math"
 	"slices"
 	"unsafe"
 
@@ -79,11 +80,27 @@ func (g *pixelGeometry) defaultCalibration() (*centroid.Calibration, error) {
 // dark, flat and reference (nil: bias, uniform, zero).
 func (g *pixelGeometry) options(dark, flat []float32, ref []float64) centroid.Options {
 	o := centroid.Options{Dark: dark, Flat: flat, Reference: ref, Threshold: g.desc.GetThreshold(),
-		HotRatio: hotRatio, Saturation: uint16(min(65535, g.desc.GetSaturationAdu()))}
+		HotRatio: hotRatio, HotFloor: g.hotFloor(), Saturation: uint16(min(65535, g.desc.GetSaturationAdu()))}
 	if g.desc.GetCentroid() == stillskyv1.CentroidMethod_CENTROID_METHOD_WEIGHTED {
 		o.Method, o.WeightSigma = centroid.WCoG, g.desc.GetWeightSigmaPx()
 	}
 	return o
+}
+
+// hotFloor is the least value, in ADU, that the hot-pixel test takes a
+// window peak's neighbours to hold: 5σ of a pixel with the camera's read
+// noise and one photo-electron, √(σ_r² + 1)·5/gain (a 5σ detection, common
+// practice). A faint star's window holds noise about zero around its peak,
+// which against a bare ratio is hot for any positive peak: measured on the
+// small scenario at magnitude 9 in pixel mode, 26 of 740 frames were refused
+// for hot pixels before this floor.
+func (g *pixelGeometry) hotFloor() float64 {
+	gain := g.desc.GetGainEPerAdu()
+	if !(gain > 0) {
+		gain = 1
+	}
+	r := g.desc.GetReadNoiseE()
+	return min(65535, 5*math.Sqrt(r*r+1)/gain)
 }
 
 // pixelFrames is the assembler's pixel side: it decodes each chunk's rows into

@@ -147,7 +147,7 @@ func (c *pixelCamera) render(dst []byte, slopes []float32) {
 func (c *pixelCamera) geometry(p *scenario.Pixels, sigma float64) *stillskyv1.PixelGeometry {
 	g := &stillskyv1.PixelGeometry{
 		PixelsPerSubaperture: uint32(c.pixels), Width: uint32(c.side), Height: uint32(c.side),
-		PixelScaleRad: c.scale, BiasAdu: p.Bias, GainEPerAdu: p.Gain,
+		PixelScaleRad: c.scale, BiasAdu: p.Bias, GainEPerAdu: p.Gain, ReadNoiseE: p.ReadNoise,
 		SaturationAdu: saturation(p),
 		Centroid:      stillskyv1.CentroidMethod_CENTROID_METHOD_COG, Threshold: p.Threshold,
 	}

@@ -708,6 +708,11 @@ type PixelGeometry struct {
 	Centroid      CentroidMethod `protobuf:"varint,8,opt,name=centroid,proto3,enum=stillsky.v1.CentroidMethod" json:"centroid,omitempty"`
 	Threshold     float64        `protobuf:"fixed64,9,opt,name=threshold,proto3" json:"threshold,omitempty"`
 	WeightSigmaPx float64        `protobuf:"fixed64,10,opt,name=weight_sigma_px,json=weightSigmaPx,proto3" json:"weight_sigma_px,omitempty"`
+	// Read noise of a pixel in electrons rms (0 from cameras that predate the
+	// field): the daemon's hot-pixel test takes the neighbours of a window's
+	// peak to hold at least 5σ of a pixel with this read noise and one
+	// photo-electron, so that a faint window's noise is not called a hot pixel.
+	ReadNoiseE    float64 `protobuf:"fixed64,11,opt,name=read_noise_e,json=readNoiseE,proto3" json:"read_noise_e,omitempty"`
 	unknownFields protoimpl.UnknownFields
 	sizeCache     protoimpl.SizeCache
 }
@@ -808,6 +813,13 @@ func (x *PixelGeometry) GetThreshold() float64 {
 func (x *PixelGeometry) GetWeightSigmaPx() float64 {
 	if x != nil {
 		return x.WeightSigmaPx
+	}
+	return 0
+}
+
+func (x *PixelGeometry) GetReadNoiseE() float64 {
+	if x != nil {
+		return x.ReadNoiseE
 	}
 	return 0
 }
@@ -1038,7 +1050,7 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\apower_w\x18\x01 \x01(\x01R\x06powerW\x12\x1d\n" +
 	"\n" +
 	"exposure_s\x18\x02 \x01(\x01R\texposureS\x12(\n" +
-	"\x10exposure_limit_j\x18\x03 \x01(\x01R\x0eexposureLimitJ\"\x81\x03\n" +
+	"\x10exposure_limit_j\x18\x03 \x01(\x01R\x0eexposureLimitJ\"\xa3\x03\n" +
 	"\rPixelGeometry\x124\n" +
 	"\x16pixels_per_subaperture\x18\x01 \x01(\rR\x14pixelsPerSubaperture\x12\x14\n" +
 	"\x05width\x18\x02 \x01(\rR\x05width\x12\x16\n" +
@@ -1050,7 +1062,9 @@ const file_stillsky_v1_camera_proto_rawDesc = "" +
 	"\bcentroid\x18\b \x01(\x0e2\x1b.stillsky.v1.CentroidMethodR\bcentroid\x12\x1c\n" +
 	"\tthreshold\x18\t \x01(\x01R\tthreshold\x12&\n" +
 	"\x0fweight_sigma_px\x18\n" +
-	" \x01(\x01R\rweightSigmaPx\"-\n" +
+	" \x01(\x01R\rweightSigmaPx\x12 \n" +
+	"\fread_noise_e\x18\v \x01(\x01R\n" +
+	"readNoiseE\"-\n" +
 	"\x13StreamFramesRequest\x12\x16\n" +
 	"\x06chunks\x18\x01 \x01(\rR\x06chunks\"\xca\x02\n" +
 	"\x14StreamFramesResponse\x12!\n" +

@@ -13,7 +13,7 @@ _sym_db = _symbol_database.Default()
 
 
 
-DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x18stillsky/v1/camera.proto\x12\x0bstillsky.v1\"\'\n\x15SetAcquisitionRequest\x12\x0e\n\x06paused\x18\x01 \x01(\x08\"(\n\x16SetAcquisitionResponse\x12\x0e\n\x06paused\x18\x01 \x01(\x08\"7\n\x10SetSourceRequest\x12#\n\x06source\x18\x01 \x01(\x0e\x32\x13.stillsky.v1.Source\"8\n\x11SetSourceResponse\x12#\n\x06source\x18\x01 \x01(\x0e\x32\x13.stillsky.v1.Source\"\x1e\n\x1c\x43\x61meraServiceDescribeRequest\"\xe9\x03\n\x1d\x43\x61meraServiceDescribeResponse\x12\x14\n\x0csubapertures\x18\x01 \x01(\r\x12\x1a\n\x12valid_subapertures\x18\x02 \x03(\r\x12\x13\n\x0bslope_count\x18\x03 \x01(\r\x12\x15\n\rframe_rate_hz\x18\x04 \x01(\x01\x12\x1a\n\x12subaperture_size_m\x18\x05 \x01(\x01\x12\x18\n\x10pupil_diameter_m\x18\x06 \x01(\x01\x12\x14\n\x0cwavelength_m\x18\x07 \x01(\x01\x12\x12\n\nslope_unit\x18\x08 \x01(\t\x12\x10\n\x08lockstep\x18\t \x01(\x08\x12\x14\n\x0c\x64\x65lay_frames\x18\n \x01(\r\x12\x13\n\x0b\x64\x65scription\x18\x0b \x01(\t\x12\x12\n\nzenith_deg\x18\x0c \x01(\x01\x12\x13\n\x0bobstruction\x18\r \x01(\x01\x12,\n\x0bsensor_kind\x18\x0e \x01(\x0e\x32\x17.stillsky.v1.SensorKind\x12\x16\n\x0estar_magnitude\x18\x0f \x01(\x01\x12*\n\x06pixels\x18\x10 \x01(\x0b\x32\x1a.stillsky.v1.PixelGeometry\x12\x32\n\x0eretinal_beacon\x18\x11 \x01(\x0b\x32\x1a.stillsky.v1.RetinalBeacon\"N\n\rRetinalBeacon\x12\x0f\n\x07power_w\x18\x01 \x01(\x01\x12\x12\n\nexposure_s\x18\x02 \x01(\x01\x12\x18\n\x10\x65xposure_limit_j\x18\x03 \x01(\x01\"\x84\x02\n\rPixelGeometry\x12\x1e\n\x16pixels_per_subaperture\x18\x01 \x01(\r\x12\r\n\x05width\x18\x02 \x01(\r\x12\x0e\n\x06height\x18\x03 \x01(\r\x12\x17\n\x0fpixel_scale_rad\x18\x04 \x01(\x01\x12\x10\n\x08\x62ias_adu\x18\x05 \x01(\x01\x12\x16\n\x0esaturation_adu\x18\x06 \x01(\r\x12\x16\n\x0egain_e_per_adu\x18\x07 \x01(\x01\x12-\n\x08\x63\x65ntroid\x18\x08 \x01(\x0e\x32\x1b.stillsky.v1.CentroidMethod\x12\x11\n\tthreshold\x18\t \x01(\x01\x12\x17\n\x0fweight_sigma_px\x18\n \x01(\x01\"%\n\x13StreamFramesRequest\x12\x0e\n\x06\x63hunks\x18\x01 \x01(\r\"\xdc\x01\n\x14StreamFramesResponse\x12\x14\n\x0c\x66rame_number\x18\x01 \x01(\x04\x12\x16\n\x0ereadout_end_ns\x18\x02 \x01(\x03\x12\x0e\n\x06offset\x18\x03 \x01(\r\x12\x13\n\x0b\x63hunk_index\x18\x04 \x01(\r\x12\x13\n\x0b\x63hunk_count\x18\x05 \x01(\r\x12\x0e\n\x06slopes\x18\x06 \x03(\x02\x12\x16\n\x0e\x66lux_electrons\x18\x07 \x01(\x02\x12\x0e\n\x06pixels\x18\x08 \x01(\x0c\x12\x11\n\tfirst_row\x18\t \x01(\r\x12\x11\n\trow_count\x18\n \x01(\r*j\n\x06Source\x12\x16\n\x12SOURCE_UNSPECIFIED\x10\x00\x12\x0e\n\nSOURCE_SKY\x10\x01\x12\x16\n\x12SOURCE_CALIBRATION\x10\x02\x12\x0f\n\x0bSOURCE_DARK\x10\x03\x12\x0f\n\x0bSOURCE_FLAT\x10\x04*h\n\x0e\x43\x65ntroidMethod\x12\x1f\n\x1b\x43\x45NTROID_METHOD_UNSPECIFIED\x10\x00\x12\x17\n\x13\x43\x45NTROID_METHOD_COG\x10\x01\x12\x1c\n\x18\x43\x45NTROID_METHOD_WEIGHTED\x10\x02*d\n\nSensorKind\x12\x1b\n\x17SENSOR_KIND_UNSPECIFIED\x10\x00\x12\x1e\n\x1aSENSOR_KIND_SHACK_HARTMANN\x10\x01\x12\x19\n\x15SENSOR_KIND_QUAD_CELL\x10\x02\x32\xf0\x02\n\rCameraService\x12\x61\n\x08\x44\x65scribe\x12).stillsky.v1.CameraServiceDescribeRequest\x1a*.stillsky.v1.CameraServiceDescribeResponse\x12U\n\x0cStreamFrames\x12 .stillsky.v1.StreamFramesRequest\x1a!.stillsky.v1.StreamFramesResponse0\x01\x12J\n\tSetSource\x12\x1d.stillsky.v1.SetSourceRequest\x1a\x1e.stillsky.v1.SetSourceResponse\x12Y\n\x0eSetAcquisition\x12\".stillsky.v1.SetAcquisitionRequest\x1a#.stillsky.v1.SetAcquisitionResponseB\'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3')
+DESCRIPTOR = _descriptor_pool.Default().AddSerializedFile(b'\n\x18stillsky/v1/camera.proto\x12\x0bstillsky.v1\"\'\n\x15SetAcquisitionRequest\x12\x0e\n\x06paused\x18\x01 \x01(\x08\"(\n\x16SetAcquisitionResponse\x12\x0e\n\x06paused\x18\x01 \x01(\x08\"7\n\x10SetSourceRequest\x12#\n\x06source\x18\x01 \x01(\x0e\x32\x13.stillsky.v1.Source\"8\n\x11SetSourceResponse\x12#\n\x06source\x18\x01 \x01(\x0e\x32\x13.stillsky.v1.Source\"\x1e\n\x1c\x43\x61meraServiceDescribeRequest\"\xe9\x03\n\x1d\x43\x61meraServiceDescribeResponse\x12\x14\n\x0csubapertures\x18\x01 \x01(\r\x12\x1a\n\x12valid_subapertures\x18\x02 \x03(\r\x12\x13\n\x0bslope_count\x18\x03 \x01(\r\x12\x15\n\rframe_rate_hz\x18\x04 \x01(\x01\x12\x1a\n\x12subaperture_size_m\x18\x05 \x01(\x01\x12\x18\n\x10pupil_diameter_m\x18\x06 \x01(\x01\x12\x14\n\x0cwavelength_m\x18\x07 \x01(\x01\x12\x12\n\nslope_unit\x18\x08 \x01(\t\x12\x10\n\x08lockstep\x18\t \x01(\x08\x12\x14\n\x0c\x64\x65lay_frames\x18\n \x01(\r\x12\x13\n\x0b\x64\x65scription\x18\x0b \x01(\t\x12\x12\n\nzenith_deg\x18\x0c \x01(\x01\x12\x13\n\x0bobstruction\x18\r \x01(\x01\x12,\n\x0bsensor_kind\x18\x0e \x01(\x0e\x32\x17.stillsky.v1.SensorKind\x12\x16\n\x0estar_magnitude\x18\x0f \x01(\x01\x12*\n\x06pixels\x18\x10 \x01(\x0b\x32\x1a.stillsky.v1.PixelGeometry\x12\x32\n\x0eretinal_beacon\x18\x11 \x01(\x0b\x32\x1a.stillsky.v1.RetinalBeacon\"N\n\rRetinalBeacon\x12\x0f\n\x07power_w\x18\x01 \x01(\x01\x12\x12\n\nexposure_s\x18\x02 \x01(\x01\x12\x18\n\x10\x65xposure_limit_j\x18\x03 \x01(\x01\"\x9a\x02\n\rPixelGeometry\x12\x1e\n\x16pixels_per_subaperture\x18\x01 \x01(\r\x12\r\n\x05width\x18\x02 \x01(\r\x12\x0e\n\x06height\x18\x03 \x01(\r\x12\x17\n\x0fpixel_scale_rad\x18\x04 \x01(\x01\x12\x10\n\x08\x62ias_adu\x18\x05 \x01(\x01\x12\x16\n\x0esaturation_adu\x18\x06 \x01(\r\x12\x16\n\x0egain_e_per_adu\x18\x07 \x01(\x01\x12-\n\x08\x63\x65ntroid\x18\x08 \x01(\x0e\x32\x1b.stillsky.v1.CentroidMethod\x12\x11\n\tthreshold\x18\t \x01(\x01\x12\x17\n\x0fweight_sigma_px\x18\n \x01(\x01\x12\x14\n\x0cread_noise_e\x18\x0b \x01(\x01\"%\n\x13StreamFramesRequest\x12\x0e\n\x06\x63hunks\x18\x01 \x01(\r\"\xdc\x01\n\x14StreamFramesResponse\x12\x14\n\x0c\x66rame_number\x18\x01 \x01(\x04\x12\x16\n\x0ereadout_end_ns\x18\x02 \x01(\x03\x12\x0e\n\x06offset\x18\x03 \x01(\r\x12\x13\n\x0b\x63hunk_index\x18\x04 \x01(\r\x12\x13\n\x0b\x63hunk_count\x18\x05 \x01(\r\x12\x0e\n\x06slopes\x18\x06 \x03(\x02\x12\x16\n\x0e\x66lux_electrons\x18\x07 \x01(\x02\x12\x0e\n\x06pixels\x18\x08 \x01(\x0c\x12\x11\n\tfirst_row\x18\t \x01(\r\x12\x11\n\trow_count\x18\n \x01(\r*j\n\x06Source\x12\x16\n\x12SOURCE_UNSPECIFIED\x10\x00\x12\x0e\n\nSOURCE_SKY\x10\x01\x12\x16\n\x12SOURCE_CALIBRATION\x10\x02\x12\x0f\n\x0bSOURCE_DARK\x10\x03\x12\x0f\n\x0bSOURCE_FLAT\x10\x04*h\n\x0e\x43\x65ntroidMethod\x12\x1f\n\x1b\x43\x45NTROID_METHOD_UNSPECIFIED\x10\x00\x12\x17\n\x13\x43\x45NTROID_METHOD_COG\x10\x01\x12\x1c\n\x18\x43\x45NTROID_METHOD_WEIGHTED\x10\x02*d\n\nSensorKind\x12\x1b\n\x17SENSOR_KIND_UNSPECIFIED\x10\x00\x12\x1e\n\x1aSENSOR_KIND_SHACK_HARTMANN\x10\x01\x12\x19\n\x15SENSOR_KIND_QUAD_CELL\x10\x02\x32\xf0\x02\n\rCameraService\x12\x61\n\x08\x44\x65scribe\x12).stillsky.v1.CameraServiceDescribeRequest\x1a*.stillsky.v1.CameraServiceDescribeResponse\x12U\n\x0cStreamFrames\x12 .stillsky.v1.StreamFramesRequest\x1a!.stillsky.v1.StreamFramesResponse0\x01\x12J\n\tSetSource\x12\x1d.stillsky.v1.SetSourceRequest\x1a\x1e.stillsky.v1.SetSourceResponse\x12Y\n\x0eSetAcquisition\x12\".stillsky.v1.SetAcquisitionRequest\x1a#.stillsky.v1.SetAcquisitionResponseB\'Z%stillsky/proto/stillsky/v1;stillskyv1b\x06proto3')
 
 _builder.BuildMessageAndEnumDescriptors(DESCRIPTOR, globals())
 _builder.BuildTopDescriptorsAndMessages(DESCRIPTOR, 'stillsky.v1.camera_pb2', globals())
@@ -21,12 +21,12 @@ if _descriptor._USE_C_DESCRIPTORS == False:
 
   DESCRIPTOR._options = None
   DESCRIPTOR._serialized_options = b'Z%stillsky/proto/stillsky/v1;stillskyv1'
-  _SOURCE._serialized_start=1368
-  _SOURCE._serialized_end=1474
-  _CENTROIDMETHOD._serialized_start=1476
-  _CENTROIDMETHOD._serialized_end=1580
-  _SENSORKIND._serialized_start=1582
-  _SENSORKIND._serialized_end=1682
+  _SOURCE._serialized_start=1390
+  _SOURCE._serialized_end=1496
+  _CENTROIDMETHOD._serialized_start=1498
+  _CENTROIDMETHOD._serialized_end=1602
+  _SENSORKIND._serialized_start=1604
+  _SENSORKIND._serialized_end=1704
   _SETACQUISITIONREQUEST._serialized_start=41
   _SETACQUISITIONREQUEST._serialized_end=80
   _SETACQUISITIONRESPONSE._serialized_start=82
@@ -42,11 +42,11 @@ if _descriptor._USE_C_DESCRIPTORS == False:
   _RETINALBEACON._serialized_start=763
   _RETINALBEACON._serialized_end=841
   _PIXELGEOMETRY._serialized_start=844
-  _PIXELGEOMETRY._serialized_end=1104
-  _STREAMFRAMESREQUEST._serialized_start=1106
-  _STREAMFRAMESREQUEST._serialized_end=1143
-  _STREAMFRAMESRESPONSE._serialized_start=1146
-  _STREAMFRAMESRESPONSE._serialized_end=1366
-  _CAMERASERVICE._serialized_start=1685
-  _CAMERASERVICE._serialized_end=2053
+  _PIXELGEOMETRY._serialized_end=1126
+  _STREAMFRAMESREQUEST._serialized_start=1128
+  _STREAMFRAMESREQUEST._serialized_end=1165
+  _STREAMFRAMESRESPONSE._serialized_start=1168
+  _STREAMFRAMESRESPONSE._serialized_end=1388
+  _CAMERASERVICE._serialized_start=1707
+  _CAMERASERVICE._serialized_end=2075
 # @@protoc_insertion_point(module_scope)

@@ -60,13 +60,14 @@ class CameraServiceDescribeResponse(_message.Message):
     def __init__(self, subapertures: _Optional[int] = ..., valid_subapertures: _Optional[_Iterable[int]] = ..., slope_count: _Optional[int] = ..., frame_rate_hz: _Optional[float] = ..., subaperture_size_m: _Optional[float] = ..., pupil_diameter_m: _Optional[float] = ..., wavelength_m: _Optional[float] = ..., slope_unit: _Optional[str] = ..., lockstep: bool = ..., delay_frames: _Optional[int] = ..., description: _Optional[str] = ..., zenith_deg: _Optional[float] = ..., obstruction: _Optional[float] = ..., sensor_kind: _Optional[_Union[SensorKind, str]] = ..., star_magnitude: _Optional[float] = ..., pixels: _Optional[_Union[PixelGeometry, _Mapping]] = ..., retinal_beacon: _Optional[_Union[RetinalBeacon, _Mapping]] = ...) -> None: ...
 
 class PixelGeometry(_message.Message):
-    __slots__ = ["bias_adu", "centroid", "gain_e_per_adu", "height", "pixel_scale_rad", "pixels_per_subaperture", "saturation_adu", "threshold", "weight_sigma_px", "width"]
+    __slots__ = ["bias_adu", "centroid", "gain_e_per_adu", "height", "pixel_scale_rad", "pixels_per_subaperture", "read_noise_e", "saturation_adu", "threshold", "weight_sigma_px", "width"]
     BIAS_ADU_FIELD_NUMBER: _ClassVar[int]
     CENTROID_FIELD_NUMBER: _ClassVar[int]
     GAIN_E_PER_ADU_FIELD_NUMBER: _ClassVar[int]
     HEIGHT_FIELD_NUMBER: _ClassVar[int]
     PIXELS_PER_SUBAPERTURE_FIELD_NUMBER: _ClassVar[int]
     PIXEL_SCALE_RAD_FIELD_NUMBER: _ClassVar[int]
+    READ_NOISE_E_FIELD_NUMBER: _ClassVar[int]
     SATURATION_ADU_FIELD_NUMBER: _ClassVar[int]
     THRESHOLD_FIELD_NUMBER: _ClassVar[int]
     WEIGHT_SIGMA_PX_FIELD_NUMBER: _ClassVar[int]
@@ -77,11 +78,12 @@ class PixelGeometry(_message.Message):
     height: int
     pixel_scale_rad: float
     pixels_per_subaperture: int
+    read_noise_e: float
     saturation_adu: int
     threshold: float
     weight_sigma_px: float
     width: int
-    def __init__(self, pixels_per_subaperture: _Optional[int] = ..., width: _Optional[int] = ..., height: _Optional[int] = ..., pixel_scale_rad: _Optional[float] = ..., bias_adu: _Optional[float] = ..., saturation_adu: _Optional[int] = ..., gain_e_per_adu: _Optional[float] = ..., centroid: _Optional[_Union[CentroidMethod, str]] = ..., threshold: _Optional[float] = ..., weight_sigma_px: _Optional[float] = ...) -> None: ...
+    def __init__(self, pixels_per_subaperture: _Optional[int] = ..., width: _Optional[int] = ..., height: _Optional[int] = ..., pixel_scale_rad: _Optional[float] = ..., bias_adu: _Optional[float] = ..., saturation_adu: _Optional[int] = ..., gain_e_per_adu: _Optional[float] = ..., centroid: _Optional[_Union[CentroidMethod, str]] = ..., threshold: _Optional[float] = ..., weight_sigma_px: _Optional[float] = ..., read_noise_e: _Optional[float] = ...) -> None: ...
 
 class RetinalBeacon(_message.Message):
     __slots__ = ["exposure_limit_j", "exposure_s", "power_w"]
