@@ -108,22 +108,34 @@ func (c *capture) take(b *telemetryBuffer) bool {
 // f's exposure was computed. A lockstep camera says so (its delay). A
 // free-running one shows the command that had reached the mirror by the
 // exposure's start, a frame period before its readout: the newest acknowledged
-// by then, as the calibration counts it; if none is, the lag of the frame
-// before. It runs on the real-time goroutine for every frame and allocates
-// nothing.
+// by then, as the calibration counts it. Outside a calibration the mirror
+// acknowledges in batches (protocol version 2) of a quarter second of
+// commands, so most recent commands are not acknowledged yet when their
+// frames look for them: at the first such command, the newest end-to-end
+// latency e known stands in. Frame j's command reaches the mirror at
+// readout_j + e, by the start of f's exposure when (f − j)·period ≥ period +
+// e: the lag is 1 + ⌈e/period⌉, and at least as old as the unacknowledged
+// command. With no latency known yet, the lag of the frame before. It runs on
+// the real-time goroutine for every frame and allocates nothing.
 func (rt *realtime) applyLag(f *stillskyv1.StreamFramesResponse) int {
 	if rt.g.lockstep {
 		return max(rt.g.delayFrames, 1)
 	}
 	num := f.GetFrameNumber()
 	start := f.GetReadoutEndNs() - rt.period
+	e := rt.lastE2E.Load()
 	for k := uint64(1); k <= maxApplyLag && k <= num; k++ {
 		j := num - k
 		slot := j % readoutRing
-		if rt.tags[slot].Load() == j {
-			if at := rt.acked[slot].Load(); at != 0 && at <= start {
-				return int(k)
-			}
+		if rt.tags[slot].Load() != j {
+			continue
+		}
+		at := rt.acked[slot].Load()
+		if at != 0 && at <= start {
+			return int(k)
+		}
+		if at == 0 && e > 0 && rt.period > 0 {
+			return int(min(max(1+(e+rt.period-1)/rt.period, int64(k)), maxApplyLag))
 		}
 	}
 	return rt.lastLag

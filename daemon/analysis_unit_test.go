@@ -73,6 +73,32 @@ func TestCaptureGivesPseudoOpenLoop(t *testing.T) {
 			t.Errorf("free-running frame %d: lag %d, want 2", i, c.lag[i])
 		}
 	}
+
+	// Acknowledged in batches (mirror protocol version 2): when a frame looks
+	// back, the commands before it are not acknowledged yet. One batch, for
+	// the frame before these, told an end-to-end latency of 1.3 ms, so frame
+	// k's exposure (from 1 ms before its readout) holds the command of frame
+	// k − 3: the newest to reach the mirror by then, at readout + 1.3 ms.
+	before := b.num
+	b.rt.acknowledged(before, b.now+1.3e6)
+	c = newCapture(10, 40, 12)
+	c.take(ring)
+	for range 10 {
+		b.step()
+	}
+	if !c.take(ring) {
+		t.Fatalf("batched capture of 10 frames not done: %d taken", c.count)
+	}
+	// Frame 0 still finds, two back, a command acknowledged on its own
+	// (above), 30 µs after its readout.
+	if c.lag[0] != 2 {
+		t.Errorf("batched frame 0: lag %d, want 2", c.lag[0])
+	}
+	for i := 1; i < 10; i++ {
+		if c.lag[i] != 3 {
+			t.Errorf("batched frame %d: lag %d, want 3 (1 + ⌈1.3 ms / 1 ms⌉)", i, c.lag[i])
+		}
+	}
 }
 
 // TestCaptureRestarts: a block the ring cannot give whole restarts — a frame

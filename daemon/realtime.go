@@ -50,6 +50,10 @@ type realtime struct {
 	readout [readoutRing]atomic.Int64
 	tags    [readoutRing]atomic.Uint64
 	acked   [readoutRing]atomic.Int64
+	// lastE2E is the end-to-end latency of the newest command acknowledged,
+	// ns (0 until one is): applyLag's stand-in while acknowledgements come in
+	// batches, after the frames that would look for them.
+	lastE2E atomic.Int64
 	period  int64 // ns
 	// lastLag is the previous frame's apply lag (applyLag), frames.
 	lastLag int
@@ -506,6 +510,7 @@ func (rt *realtime) acknowledged(num uint64, at int64) {
 	if e2e < 0 {
 		return
 	}
+	rt.lastE2E.Store(e2e)
 	rt.u.m.endToEnd.Observe(float64(e2e) * 1e-9)
 	rt.u.stats.e2e.add(e2e)
 	if rec := rt.u.recorder; rec != nil {
