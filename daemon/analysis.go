@@ -351,7 +351,7 @@ func (d *Daemon) analyseOnce(ctx context.Context) error {
 	if loop.Gain > 0 && loop.Validate() == nil {
 		in := analysis.BudgetInput{
 			Optics: analysis.Optics{Diameter: desc.cam.GetPupilDiameterM(), Subaperture: desc.cam.GetSubapertureSizeM(),
-				Pitch: desc.mir.GetPitchM(), ScienceWavelength: d.cfg.ScienceWavelength},
+				Pitch: desc.mir.GetPitchM(), ScienceWavelength: d.cfg.ScienceWavelength, Coupling: desc.mir.GetCoupling()},
 			Turbulence: analysis.Turbulence{R0: te.R0, L0: te.L0, ZenithDeg: desc.cam.GetZenithDeg(),
 				Layers: []analysis.Layer{{Fraction: 1, WindSpeed: te.Wind}}},
 			Loop:     loop,

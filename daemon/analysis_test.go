@@ -6,6 +6,7 @@ import (
 	"testing"
 	"time"
 
+	"stillsky/analysis"
 	"stillsky/daemon"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/bench"
@@ -51,6 +52,18 @@ func TestLiveAnalysis(t *testing.T) {
 	}
 	if b := a.Budget; !(b.Total > 0 && b.Strehl > 0.5 && b.Strehl < 1) {
 		t.Errorf("live budget %+v: want a positive total and a Strehl ratio in (0.5, 1)", b)
+	}
+	// The live fitting term is that of the scenario's own mirror (its
+	// Gaussian influence functions' coupling, which the mirror's Describe
+	// reports), not of an ideal corrector of its band: recomputed here from
+	// the same estimate with analysis.FittingVariance.
+	o := analysis.Optics{Diameter: scn.Telescope.Diameter, Subaperture: scn.SubapertureSize(),
+		Pitch: scn.SubapertureSize(), ScienceWavelength: scn.Science.Wavelength, Coupling: scn.DM.Coupling}
+	tu := analysis.Turbulence{R0: a.Turbulence.R0, L0: a.Turbulence.L0, ZenithDeg: scn.Atmosphere.ZenithDeg}
+	if want := analysis.FittingVariance(o, tu); math.Abs(a.Budget.Fitting/want-1) > 1e-6 {
+		o.Coupling = 0
+		t.Errorf("live fitting %.5g rad², want %.5g with the mirror's coupling %.3g (ideal corrector: %.5g)",
+			a.Budget.Fitting, want, scn.DM.Coupling, analysis.FittingVariance(o, tu))
 	}
 	gauges := scrape(t, r.d.MetricsAddr())
 	for _, name := range []string{"stillsky_estimated_r0_meters", "stillsky_estimated_tau0_seconds", "stillsky_budget_strehl_ratio"} {
