@@ -36,8 +36,12 @@ func startAutonomous(t *testing.T, clouds scenario.Clouds, cfg supervisor.Config
 		t.Fatal(err)
 	}
 	scn.Clouds = clouds
+	// A lockstep bench on a loaded machine (the race detector beside other
+	// packages' tests) was seen silent for over the stale-camera watchdog's 1 s:
+	// give it 5 s, as the demo's lockstep fallback does, so that the night's
+	// path is the clouds' alone (TestSupervisorAfterWatchdogHold covers a hold).
 	rg, err := rig.Start(context.Background(), rig.Config{Scenario: scn, Bench: bench.Options{Lockstep: true},
-		Loop: daemon.Config{Autonomous: &daemon.Autonomous{Supervisor: cfg}}})
+		Loop: daemon.Config{Autonomous: &daemon.Autonomous{Supervisor: cfg}, Interlocks: daemon.Interlocks{StalePeriods: 2500}}})
 	if err != nil {
 		t.Fatal(err)
 	}
