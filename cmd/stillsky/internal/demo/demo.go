@@ -508,6 +508,14 @@ func runGated(ctx context.Context, c Config, r *rig.Rig, sum *Summary) (*stillsk
 	if c := st.GetStrehlEstimate(); st.GetState() == stillskyv1.LoopState_LOOP_STATE_CLOSED {
 		sum.StrehlEstimateClosed = c
 	}
+	// The bench now holds, so a loop left closed would see no frame while the
+	// summary is formed (the xao budget and contrast take seconds) and the
+	// stale-camera watchdog would hold it and log a fault that is only the
+	// demo's end: the run is measured, so open the loop (the status above
+	// keeps the closed phase's state and counters for the summary).
+	if _, oerr := r.Client.OpenLoop(context.Background(), &stillskyv1.OpenLoopRequest{}); oerr != nil && err == nil {
+		err = fmt.Errorf("demo: open the loop after the closed phase: %w", oerr)
+	}
 	return st, err
 }
 
