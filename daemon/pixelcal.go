@@ -112,13 +112,16 @@ func (d *Daemon) capturePixels(ctx context.Context, req *stillskyv1.CapturePixel
 		return nil, status.Errorf(codes.FailedPrecondition, "camera refused source %v: %v", src, err)
 	}
 	defer (*cam).SetSource(context.WithoutCancel(ctx), &stillskyv1.SetSourceRequest{Source: stillskyv1.Source_SOURCE_SKY})
-	c := &pixelCapture{skip: captureSettleFrames + g.delayFrames, want: frames,
+	skip := captureSettleFrames + g.delayFrames
+	// The wait is from skip, not c.skip: once published, c's counters are the
+	// real-time goroutine's alone until done is closed.
+	wait := time.Duration(float64(frames+skip)/g.frameRate*float64(time.Second)) + 10*time.Second
+	c := &pixelCapture{skip: skip, want: frames,
 		sum: make([]float64, pg.width*pg.height), done: make(chan struct{})}
 	if !d.u.capture.CompareAndSwap(nil, c) {
 		return nil, status.Error(codes.FailedPrecondition, "another pixel calibration is being captured")
 	}
 	defer d.u.capture.Store(nil)
-	wait := time.Duration(float64(frames+c.skip)/g.frameRate*float64(time.Second)) + 10*time.Second
 	timer := time.NewTimer(wait)
 	defer timer.Stop()
 	select {
