@@ -243,7 +243,9 @@ func TestTipTiltStaleCameraHolds(t *testing.T) {
 			defer cancel()
 			go s.d.u.tipTiltWatchdog(ctx)
 			deadline := time.Now().Add(5 * time.Second)
-			for s.d.u.wanted() != stateHold {
+			// The watchdog holds the loop and then records the trip: wait for
+			// both (polling the state alone raced the record).
+			for s.d.u.wanted() != stateHold || s.d.u.stats.lastTrip() == "" {
 				if time.Now().After(deadline) {
 					t.Fatalf("no hold 5 s after the tip-tilt sensor went quiet (state %v)", stateNames[s.d.u.wanted()])
 				}
