@@ -73,6 +73,7 @@ func (b *Server) freeRun(ctx context.Context) {
 			if slot, publish := b.nextSlot(); publish {
 				copy(slot.slopes, b.frames.Frame(k))
 				copy(slot.flux, b.frames.flux)
+				copy(slot.pixels, b.frames.Pixels(k))
 				slot.number, slot.due = k, tick
 				b.cam.ready <- b.cam.written
 				b.cam.written++

@@ -17,6 +17,11 @@ type FrameSet struct {
 	// the set reports: the sensor's as it rendered the set, nil (reported as
 	// 0, not measured) for a set made from slopes alone.
 	flux []float32
+	// pixels, for a pixel camera's set, holds each frame's detector image as
+	// the stream sends it (16-bit little-endian), frame after frame, with
+	// slopes then the noise-free spot offsets it was rendered from.
+	pixels     []byte
+	frameBytes int
 }
 
 // NewFrameSet makes a set of len(slopes)/perFrame frames of perFrame slopes
@@ -42,6 +47,16 @@ func (s *FrameSet) Frame(k uint64) []float32 {
 	return s.slopes[i*s.n : (i+1)*s.n]
 }
 
+// Pixels returns the detector image that frame k (k ≥ 1) of a pixel
+// camera's stream carries, a view into the set; nil for a slope set.
+func (s *FrameSet) Pixels(k uint64) []byte {
+	if s.pixels == nil {
+		return nil
+	}
+	i := int((k - 1) % uint64(s.Len()))
+	return s.pixels[i*s.frameBytes : (i+1)*s.frameBytes]
+}
+
 // prerender renders n frames of what the sensor of sys sees behind a
 // corrected wavefront: the calibration source (no turbulence, a flat mirror)
 // with the sensor's noise as the scenario sets it — the residual a closed loop
@@ -49,17 +64,33 @@ func (s *FrameSet) Frame(k uint64) []float32 {
 // zero-mean noise, which its leak keeps bounded; open-loop turbulence frames
 // would wind its integrator up to the stroke limits. sys is left on the sky,
 // with its own noise setting and a flat mirror.
-func prerender(sys *System, n int) *FrameSet {
+//
+// With a pixel camera px (nil for slopes) each frame is also rendered to
+// pixels, the detector drawing the noise from the noise-free slopes as it
+// does on the sky (the slopes are then those noise-free offsets), so that a
+// pixel camera costs a copy per frame too.
+func prerender(sys *System, px *pixelCamera, n int) *FrameSet {
 	ns := sys.NumSlopes()
 	slopes := make([]float32, n*ns)
 	sys.SetCommand(make([]float32, sys.NumActuators()))
 	sys.SetTurbulence(false)
-	sys.SetNoise(sys.Scenario().WFS.Noise)
+	sys.SetNoise(sys.Scenario().WFS.Noise && px == nil)
+	var pixels []byte
+	if px != nil {
+		pixels = make([]byte, n*px.bytes())
+	}
 	for i := range n {
 		sys.Frame(slopes[i*ns : (i+1)*ns])
+		if px != nil {
+			px.render(pixels[i*px.bytes():(i+1)*px.bytes()], slopes[i*ns:(i+1)*ns])
+		}
 	}
 	sys.SetTurbulence(true)
+	sys.SetNoise(sys.Scenario().WFS.Noise && px == nil)
 	set, _ := NewFrameSet(slopes, ns) // n ≥ 1 whole frames by construction
 	set.flux = append([]float32(nil), sys.Flux()...)
+	if px != nil {
+		set.pixels, set.frameBytes = pixels, px.bytes()
+	}
 	return set
 }

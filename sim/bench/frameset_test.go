@@ -180,3 +180,63 @@ func TestPrerenderedCamera(t *testing.T) {
 		}
 	}
 }
+
+// TestPrerenderedPixelCamera: a pixel camera's pre-rendered set streams
+// detector images too: frame k carries image (k−1) mod 3, the same bytes each
+// time round, with the sensor's noise drawn into it (the images differ), and
+// the frame's full size in its chunk.
+func TestPrerenderedPixelCamera(t *testing.T) {
+	s, err := scenario.Load("pixels")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := bench.NewServer(s, bench.Options{Prerendered: 3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	addr := "unix:" + filepath.Join(t.TempDir(), "dev.sock")
+	l, err := bench.Listen(bench.Addrs{Camera: addr})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- b.Serve(ctx, l) }()
+	defer func() { cancel(); <-done }()
+	conn, err := rpc.Dial(addr, rpc.DeviceDialOptions()...)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	camera := stillskyv1.NewCameraServiceClient(conn)
+	cd, err := camera.Describe(ctx, &stillskyv1.CameraServiceDescribeRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	g := cd.GetPixels()
+	if g == nil {
+		t.Fatal("the pixels scenario's camera describes no pixel geometry")
+	}
+	frames, err := camera.StreamFrames(ctx, &stillskyv1.StreamFramesRequest{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	seen := map[uint64][]byte{}
+	for range 12 {
+		f, err := frames.Recv()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(f.GetPixels()) != int(2*g.GetWidth()*g.GetHeight()) {
+			t.Fatalf("frame %d: %d bytes of pixels, want %d", f.GetFrameNumber(), len(f.GetPixels()), 2*g.GetWidth()*g.GetHeight())
+		}
+		i := (f.GetFrameNumber() - 1) % 3
+		if prev, ok := seen[i]; ok && !slices.Equal(prev, f.GetPixels()) {
+			t.Fatalf("frame %d differs from the pre-rendered image %d seen before", f.GetFrameNumber(), i)
+		}
+		seen[i] = slices.Clone(f.GetPixels())
+	}
+	if len(seen) != 3 || slices.Equal(seen[0], seen[1]) {
+		t.Fatalf("%d distinct images, first two equal %v: want 3 images with their own noise", len(seen), slices.Equal(seen[0], seen[1]))
+	}
+}

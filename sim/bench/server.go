@@ -129,9 +129,6 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 		return nil, err
 	}
 	if px != nil {
-		if opt.Prerendered > 0 {
-			return nil, fmt.Errorf("bench: scenario %s: pre-rendered frames are slopes: not with wfs.pixels", s.Name)
-		}
 		sys.SetNoise(false) // the detector draws the noise
 	}
 	b := &Server{
@@ -176,7 +173,7 @@ func NewServer(s *scenario.Scenario, opt Options) (*Server, error) {
 	b.sky.Store(true)
 	b.gate.wake = make(chan struct{}, 1)
 	if opt.Prerendered > 0 {
-		b.frames = prerender(sys, opt.Prerendered)
+		b.frames = prerender(sys, px, opt.Prerendered)
 	}
 	if s.TipTilt != nil {
 		if b.tt, err = newTipTiltDevices(b); err != nil {
