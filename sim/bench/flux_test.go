@@ -1,12 +1,9 @@
 package bench_test
 
 import (
-	"context"
 	"math"
-	"path/filepath"
 	"testing"
 
-	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
@@ -50,20 +47,7 @@ func TestFrameFlux(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	addr := "unix:" + filepath.Join(t.TempDir(), "cam.sock")
-	l, err := bench.Listen(bench.Addrs{Camera: addr})
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- b.Serve(ctx, l) }()
-	defer func() { cancel(); <-done }()
-	conn, err := rpc.Dial(addr, rpc.DeviceDialOptions()...)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer conn.Close()
+	ctx, conn := serve(t, b)
 	frames, err := stillskyv1.NewCameraServiceClient(conn).StreamFrames(ctx, &stillskyv1.StreamFramesRequest{Chunks: 4})
 	if err != nil {
 		t.Fatal(err)

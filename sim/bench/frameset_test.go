@@ -1,14 +1,11 @@
 package bench_test
 
 import (
-	"context"
-	"path/filepath"
 	"slices"
 	"strings"
 	"testing"
 	"time"
 
-	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
@@ -53,20 +50,7 @@ func TestPrerenderedCamera(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	addr := "unix:" + filepath.Join(t.TempDir(), "dev.sock")
-	l, err := bench.Listen(bench.Addrs{Camera: addr})
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- b.Serve(ctx, l) }()
-	defer func() { cancel(); <-done }()
-	conn, err := rpc.Dial(addr, rpc.DeviceDialOptions()...)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer conn.Close()
+	ctx, conn := serve(t, b)
 	camera := stillskyv1.NewCameraServiceClient(conn)
 	desc, err := stillskyv1.NewMirrorServiceClient(conn).Describe(ctx, &stillskyv1.MirrorServiceDescribeRequest{})
 	if err != nil {
@@ -194,20 +178,7 @@ func TestPrerenderedPixelCamera(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	addr := "unix:" + filepath.Join(t.TempDir(), "dev.sock")
-	l, err := bench.Listen(bench.Addrs{Camera: addr})
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- b.Serve(ctx, l) }()
-	defer func() { cancel(); <-done }()
-	conn, err := rpc.Dial(addr, rpc.DeviceDialOptions()...)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer conn.Close()
+	ctx, conn := serve(t, b)
 	camera := stillskyv1.NewCameraServiceClient(conn)
 	cd, err := camera.Describe(ctx, &stillskyv1.CameraServiceDescribeRequest{})
 	if err != nil {

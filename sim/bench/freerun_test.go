@@ -1,12 +1,9 @@
 package bench_test
 
 import (
-	"context"
-	"path/filepath"
 	"testing"
 	"time"
 
-	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
@@ -30,21 +27,7 @@ func TestFreeRunDelay(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	dir := t.TempDir()
-	cam := "unix:" + filepath.Join(dir, "cam.sock")
-	l, err := bench.Listen(bench.Addrs{Camera: cam})
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- b.Serve(ctx, l) }()
-	defer func() { cancel(); <-done }()
-	conn, err := rpc.Dial(cam, rpc.DeviceDialOptions()...)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer conn.Close()
+	ctx, conn := serve(t, b)
 	camera := stillskyv1.NewCameraServiceClient(conn)
 	if _, err := camera.SetSource(ctx, &stillskyv1.SetSourceRequest{Source: stillskyv1.Source_SOURCE_CALIBRATION}); err != nil {
 		t.Fatal(err)

@@ -1,12 +1,9 @@
 package bench_test
 
 import (
-	"context"
-	"path/filepath"
 	"slices"
 	"testing"
 
-	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
@@ -28,20 +25,7 @@ func TestMirrorAckBatches(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	mir := "unix:" + filepath.Join(t.TempDir(), "mir.sock")
-	l, err := bench.Listen(bench.Addrs{Camera: mir})
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- b.Serve(ctx, l) }()
-	defer func() { cancel(); <-done }()
-	conn, err := rpc.Dial(mir, rpc.DeviceDialOptions()...)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer conn.Close()
+	ctx, conn := serve(t, b)
 	client := stillskyv1.NewMirrorServiceClient(conn)
 	desc, err := client.Describe(ctx, &stillskyv1.MirrorServiceDescribeRequest{})
 	if err != nil {

@@ -4,12 +4,10 @@ import (
 	"context"
 	"encoding/binary"
 	"math"
-	"path/filepath"
 	"testing"
 	"time"
 
 	"stillsky/controller/centroid"
-	"stillsky/internal/rpc"
 	stillskyv1 "stillsky/proto/stillsky/v1"
 	"stillsky/sim/bench"
 	"stillsky/sim/scenario"
@@ -25,20 +23,7 @@ func serveCamera(t *testing.T, s *scenario.Scenario) stillskyv1.CameraServiceCli
 	if err != nil {
 		t.Fatal(err)
 	}
-	cam := "unix:" + filepath.Join(t.TempDir(), "cam.sock")
-	l, err := bench.Listen(bench.Addrs{Camera: cam})
-	if err != nil {
-		t.Fatal(err)
-	}
-	ctx, cancel := context.WithCancel(context.Background())
-	done := make(chan error, 1)
-	go func() { done <- b.Serve(ctx, l) }()
-	t.Cleanup(func() { cancel(); <-done })
-	conn, err := rpc.Dial(cam, rpc.DeviceDialOptions()...)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { conn.Close() })
+	_, conn := serve(t, b)
 	return stillskyv1.NewCameraServiceClient(conn)
 }
 
