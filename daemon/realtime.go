@@ -476,15 +476,21 @@ func (rt *realtime) publish(res controller.Result) {
 	u.stats.store(res)
 }
 
-// acks reads the mirror's acknowledgements, one per command or in batches
-// (the earlier_* lists, protocol version 2), and turns them into end-to-end
-// latency.
-func (rt *realtime) acks(cmds receiver) error {
-	ack := &stillskyv1.StreamCommandsResponse{
+// newAck is an acknowledgement message with room for a whole batch, so that
+// reading one into it allocates nothing.
+func newAck() *stillskyv1.StreamCommandsResponse {
+	return &stillskyv1.StreamCommandsResponse{
 		EarlierFrameNumbers: make([]uint64, 0, maxAckBatch),
 		EarlierReceivedNs:   make([]int64, 0, maxAckBatch),
 		EarlierClipped:      make([]uint32, 0, maxAckBatch),
 	}
+}
+
+// acks reads the mirror's acknowledgements, one per command or in batches
+// (the earlier_* lists, protocol version 2), and turns them into end-to-end
+// latency.
+func (rt *realtime) acks(cmds receiver) error {
+	ack := newAck()
 	for {
 		if err := cmds.RecvMsg(ack); err != nil {
 			return err

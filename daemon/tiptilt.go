@@ -455,11 +455,7 @@ func (t *ttRealtime) run(ctx context.Context, frames receiver, cmds sender) erro
 
 // discardAcks reads the tip-tilt mirror's acknowledgements until the stream ends.
 func discardAcks(cmds receiver) error {
-	ack := &stillskyv1.StreamCommandsResponse{
-		EarlierFrameNumbers: make([]uint64, 0, maxAckBatch),
-		EarlierReceivedNs:   make([]int64, 0, maxAckBatch),
-		EarlierClipped:      make([]uint32, 0, maxAckBatch),
-	}
+	ack := newAck()
 	for {
 		if err := cmds.RecvMsg(ack); err != nil {
 			return err
