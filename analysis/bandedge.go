@@ -35,38 +35,27 @@ func bandEdgeVariance(o Optics, t Turbulence, l Loop, lowOrders int) float64 {
 	g1 := gaussianTransform(o.Coupling, d)
 	share := l.Gain / (l.Gain + l.Leak)
 	leak := l.Leak / (l.Gain + l.Leak)
-	fc := 1 / (2 * d)
-	fmin := fminD / D
 	v := 0.0
-	for i := range bandAngles {
-		th := (float64(i) + 0.5) / bandAngles * math.Pi
-		c, s := math.Cos(th), math.Sin(th)
-		edge := fc / math.Max(math.Abs(c), math.Abs(s))
-		du := math.Log(edge/fmin) / bandRadii
-		for k := range bandRadii {
-			f := fmin * math.Exp((float64(k)+0.5)*du)
-			fx, fy := f*c, f*s
-			w := f * f * du * math.Pi / bandAngles * 2 // f df dθ, both half-planes
-			p := phase(fx, fy)
-			pf := pistonFilter(f, D)
-			if p == 0 || pf == 0 {
-				continue
-			}
-			x := math.Pi * D * f
-			low := 0.0
-			for n := 1; n <= lowOrders; n++ {
-				b := 2 * math.Jn(n+1, x) / x
-				low += float64((n+1)*(n+1)) * b * b
-			}
-			rest := math.Max(1-low/pf, 0)
-			if rest == 0 {
-				continue
-			}
-			kappa := mirrorKappa(fx, fy, d, span, g1)
-			e := 1 - kappa*share
-			v += w * p * rest * (e*e - leak*leak)
+	overBand(1/(2*d), D, func(fx, fy, f, w float64) {
+		p := phase(fx, fy)
+		pf := pistonFilter(f, D)
+		if p == 0 || pf == 0 {
+			return
 		}
-	}
+		x := math.Pi * D * f
+		low := 0.0
+		for n := 1; n <= lowOrders; n++ {
+			b := 2 * math.Jn(n+1, x) / x
+			low += float64((n+1)*(n+1)) * b * b
+		}
+		rest := math.Max(1-low/pf, 0)
+		if rest == 0 {
+			return
+		}
+		kappa := mirrorKappa(fx, fy, d, span, g1)
+		e := 1 - kappa*share
+		v += w * p * rest * (e*e - leak*leak)
+	})
 	return math.Max(v, 0)
 }
 

@@ -305,9 +305,49 @@ func bandVariances(o Optics, t Turbulence, l Loop) (servo, aliasing, aliasingNoD
 	if span == 0 {
 		span = d
 	}
-	fc := 1 / (2 * o.Pitch)
-	fmin := fminD / D
 	phase := spectrum(o, t)
+	overBand(1/(2*o.Pitch), D, func(fx, fy, f, w float64) {
+		p := phase(fx, fy)
+		pf := pistonFilter(f, D)
+		sx, sy := shResponse(fx, fy, d, span)
+		norm := sx*sx + sy*sy
+		for _, layer := range t.Layers {
+			vx, vy := layer.WindSpeed*math.Cos(layer.WindDirection), layer.WindSpeed*math.Sin(layer.WindDirection)
+			servo += w * layer.Fraction * p * l.RejectionPower(fx*vx+fy*vy)
+		}
+		if norm == 0 {
+			return
+		}
+		for m := -aliasOrders; m <= aliasOrders; m++ {
+			for n := -aliasOrders; n <= aliasOrders; n++ {
+				if m == 0 && n == 0 {
+					continue
+				}
+				gx, gy := fx+float64(m)/d, fy+float64(n)/d
+				pa := phase(gx, gy)
+				if pa == 0 {
+					continue
+				}
+				ax, ay := shResponse(gx, gy, d, span)
+				r := (sx*ax + sy*ay) / norm
+				a := w * r * r * pa * pf
+				aliasingNoDelay += a
+				for _, layer := range t.Layers {
+					vx, vy := layer.WindSpeed*math.Cos(layer.WindDirection), layer.WindSpeed*math.Sin(layer.WindDirection)
+					aliasing += a * layer.Fraction * l.NoisePower(gx*vx+gy*vy)
+				}
+			}
+		}
+	})
+	return servo, aliasing, aliasingNoDelay
+}
+
+// overBand visits the nodes of the log-polar quadrature of the controlled band
+// |fx|, |fy| ≤ fc above fminD/D that the servo, aliasing and band-edge terms
+// integrate over: each node's (fx, fy), its radius f and its weight
+// w = f df dθ, counting both half-planes.
+func overBand(fc, D float64, visit func(fx, fy, f, w float64)) {
+	fmin := fminD / D
 	for i := range bandAngles {
 		th := (float64(i) + 0.5) / bandAngles * math.Pi
 		c, s := math.Cos(th), math.Sin(th)
@@ -315,42 +355,9 @@ func bandVariances(o Optics, t Turbulence, l Loop) (servo, aliasing, aliasingNoD
 		du := math.Log(edge/fmin) / bandRadii
 		for k := range bandRadii {
 			f := fmin * math.Exp((float64(k)+0.5)*du)
-			fx, fy := f*c, f*s
-			w := f * f * du * math.Pi / bandAngles * 2 // f df dθ, both half-planes
-			p := phase(fx, fy)
-			pf := pistonFilter(f, D)
-			sx, sy := shResponse(fx, fy, d, span)
-			norm := sx*sx + sy*sy
-			for _, layer := range t.Layers {
-				vx, vy := layer.WindSpeed*math.Cos(layer.WindDirection), layer.WindSpeed*math.Sin(layer.WindDirection)
-				servo += w * layer.Fraction * p * l.RejectionPower(fx*vx+fy*vy)
-			}
-			if norm == 0 {
-				continue
-			}
-			for m := -aliasOrders; m <= aliasOrders; m++ {
-				for n := -aliasOrders; n <= aliasOrders; n++ {
-					if m == 0 && n == 0 {
-						continue
-					}
-					gx, gy := fx+float64(m)/d, fy+float64(n)/d
-					pa := phase(gx, gy)
-					if pa == 0 {
-						continue
-					}
-					ax, ay := shResponse(gx, gy, d, span)
-					r := (sx*ax + sy*ay) / norm
-					a := w * r * r * pa * pf
-					aliasingNoDelay += a
-					for _, layer := range t.Layers {
-						vx, vy := layer.WindSpeed*math.Cos(layer.WindDirection), layer.WindSpeed*math.Sin(layer.WindDirection)
-						aliasing += a * layer.Fraction * l.NoisePower(gx*vx+gy*vy)
-					}
-				}
-			}
+			visit(f*c, f*s, f, f*f*du*math.Pi/bandAngles*2)
 		}
 	}
-	return servo, aliasing, aliasingNoDelay
 }
 
 // shResponse returns the x and y slope responses of a d-wide subaperture that
